@@ -1,0 +1,231 @@
+"""The ``emucompile`` command line (contract 1): parse, call the library, print, exit.
+
+No numerics live here. Every command is a thin function over the Python API;
+errors raised by the library (:class:`emucompile.errors.EmucompileError`)
+become one clear line per problem on stderr and the error's exit code:
+0 success, 1 a check or target failed, 2 bad input or usage, 3 an internal
+error (a bug: ``--debug`` shows its traceback).
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import sys
+
+import click
+
+from emucompile._version import __version__
+from emucompile.errors import EXIT_BAD_INPUT, EmucompileError
+
+EXIT_INTERNAL = 3
+
+
+class _ReportedError(click.ClickException):
+    """An error already worded for the user; printed as ``emucompile: error: ...``."""
+
+    def __init__(self, message: str, exit_code: int):
+        super().__init__(message)
+        self.exit_code = exit_code
+
+    def show(self, file=None):
+        stream = file or sys.stderr
+        for line in str(self.message).splitlines() or [""]:
+            click.echo(f"emucompile: error: {line}", file=stream)
+
+
+class _Group(click.Group):
+    """Turns library errors into messages and exit codes; tracebacks only with --debug."""
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except EmucompileError as error:
+            if _debug(ctx):
+                raise
+            raise _ReportedError(str(error), error.exit_code) from None
+        except (click.exceptions.Exit, click.ClickException, click.Abort):
+            raise
+        except KeyboardInterrupt:
+            if _debug(ctx):
+                raise
+            raise _ReportedError("interrupted", 130) from None
+        except Exception as error:  # noqa: BLE001 - last line of defence
+            if _debug(ctx):
+                raise
+            raise _ReportedError(
+                f"internal error: {type(error).__name__}: {error} "
+                "(this is a bug; run with --debug for the traceback and report it)",
+                EXIT_INTERNAL,
+            ) from None
+
+
+def _debug(ctx) -> bool:
+    root = ctx.find_root()
+    return bool((root.obj or {}).get("debug")) or os.environ.get("EMUCOMPILE_DEBUG") == "1"
+
+
+class ByteSize(click.ParamType):
+    """A size such as ``8GiB``, ``500MB``, ``1.5G`` or a plain number of bytes."""
+
+    name = "SIZE"
+    _UNITS = {
+        "": 1, "b": 1,
+        "k": 1000, "kb": 1000, "kib": 1024,
+        "m": 1000**2, "mb": 1000**2, "mib": 1024**2,
+        "g": 1000**3, "gb": 1000**3, "gib": 1024**3,
+        "t": 1000**4, "tb": 1000**4, "tib": 1024**4,
+    }
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, int):
+            return value
+        match = re.fullmatch(r"\s*([0-9]*\.?[0-9]+)\s*([a-zA-Z]*)\s*", str(value))
+        unit = match.group(2).lower() if match else None
+        if not match or unit not in self._UNITS:
+            self.fail(f"{value!r} is not a size (examples: 8GiB, 500MB, 1e6)", param, ctx)
+        return int(float(match.group(1)) * self._UNITS[unit])
+
+
+def _not_built(what: str):
+    from emucompile.errors import InputError
+
+    raise InputError(f"'{what}' is not supported yet in emucompile {__version__}")
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, "--version", prog_name="emucompile")
+@click.option("--debug", is_flag=True, help="Show full tracebacks of errors (for bug reports).")
+@click.pass_context
+def cli(ctx, debug):
+    """Validate, describe, compile and verify multipath fading-channel profiles.
+
+    \b
+    A typical run:
+      emucompile validate profiles_demo/*.yaml
+      emucompile stats profiles_demo/warehouse-robot.yaml
+      emucompile compile profiles_demo/warehouse-robot.yaml -o out/robot
+      emucompile verify out/robot --report out/robot-report.html
+    """
+    ctx.ensure_object(dict)
+    ctx.obj["debug"] = debug
+
+
+# -- validate / stats ---------------------------------------------------------
+
+
+@cli.command(epilog="\b\nExample: emucompile validate profiles_demo/*.yaml --json")
+@click.argument("profiles", nargs=-1, required=True, metavar="PROFILE...")
+@click.option("--json", "as_json", is_flag=True, help="Print the problems as a JSON list.")
+def validate(profiles, as_json):
+    """Check profile files; report every problem as FILE:LINE:COL: /pointer: message.
+
+    Exit 0 when every file is valid (warnings allowed), 2 when any has an error.
+    """
+    _not_built("validate")
+
+
+@cli.command(epilog="\b\nExample: emucompile stats profiles_demo/warehouse-robot.yaml --json")
+@click.argument("profile", metavar="PROFILE")
+@click.option("--json", "as_json", is_flag=True, help="Print one strict-JSON object (SI units).")
+def stats(profile, as_json):
+    """Delay and Doppler statistics of a profile, and its expect: targets.
+
+    Exit 0, or 1 when an expect: target is missed.
+    """
+    _not_built("stats")
+
+
+# -- compile / reproduce -------------------------------------------------------
+
+
+@cli.command("compile", epilog="\b\nExample: emucompile compile profiles_demo/warehouse-robot.yaml -o out/robot --duration 30 --seed 7")
+@click.argument("profile", metavar="PROFILE")
+@click.option("-o", "--output", "outdir", required=True, metavar="OUTDIR", help="Bundle directory to create.")
+@click.option("--duration", "duration_s", type=float, metavar="SECONDS", help="Length of the record.")
+@click.option("--update-rate", "update_rate_hz", type=float, metavar="HZ", help="Rate of the tap-gain samples.")
+@click.option("--seed", type=int, help="Seed of the random streams (recorded in the manifest).")
+@click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ", help="Emulator signal sample rate: adds the FIR map.")
+@click.option("--delay-mapping", type=click.Choice(["sinc", "nearest"]), help="How tap delays map onto the FIR grid.")
+@click.option("--target", "target_file", metavar="FILE", help="Emulator constraints to fit the profile to.")
+@click.option("--format", "formats", metavar="LIST", help="Extra formats, comma-separated: cf32,ci16,csv,sigmf,fir.")
+@click.option("--periodic", is_flag=True, default=None, help="Make the record loop seamlessly (period = record length).")
+@click.option("--method", type=click.Choice(["doppler-filter", "sum-of-sinusoids"]), help="Tap-gain generator.")
+@click.option("--force", is_flag=True, help="Replace OUTDIR if it is an existing bundle.")
+@click.option("--max-size", type=ByteSize(), metavar="SIZE", help="Refuse to write more than this (default 8GiB).")
+@click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
+def compile_command(profile, outdir, **options):
+    """Compile a profile into a bundle of tap gains (and FIR map) in OUTDIR."""
+    _not_built("compile")
+
+
+@cli.command(epilog="\b\nExample: emucompile reproduce out/robot")
+@click.argument("outdir", metavar="OUTDIR")
+def reproduce(outdir):
+    """Regenerate a bundle from its manifest and compare: identical, within tolerance, or different."""
+    _not_built("reproduce")
+
+
+# -- verify ----------------------------------------------------------------------
+
+
+@cli.command(epilog="\b\nExamples:\n  emucompile verify out/robot --report robot.html\n"
+             "  emucompile verify --gains g.npy --profile p.yaml --update-rate 2000")
+@click.argument("outdir", required=False, metavar="OUTDIR")
+@click.option("--gains", "gains_file", metavar="FILE", help="Foreign tap gains (npy or cf32) instead of a bundle.")
+@click.option("--profile", "profile_file", metavar="PROFILE", help="The profile the foreign gains claim to follow.")
+@click.option("--update-rate", "update_rate_hz", type=float, metavar="HZ", help="Update rate of the foreign gains.")
+@click.option("--json", "as_json", is_flag=True, help="Print the verdicts as strict JSON.")
+@click.option("--report", "report_file", metavar="FILE", help="Write the HTML report here.")
+@click.option("--no-plots", is_flag=True, help="Skip the figures (faster).")
+@click.option("--false-alarm", type=float, default=0.01, show_default=True, metavar="P", help="Family-wise false-alarm rate of the verdict.")
+@click.option("--delivered", is_flag=True, help="Check what the emulator receives (ci16 data or fitted coefficients).")
+def verify(outdir, **options):
+    """Check a bundle's integrity and its statistics against theory. Exit 1 if a check fails."""
+    _not_built("verify")
+
+
+# -- presets -----------------------------------------------------------------------
+
+
+@cli.group()
+def presets():
+    """Channel models of open standards (3GPP, ITU-R)."""
+
+
+@presets.command("list", epilog="\b\nExample: emucompile presets list")
+def presets_list():
+    """List the presets: name, taps, RMS delay spread, source."""
+    _not_built("presets list")
+
+
+@presets.command("show", epilog="\b\nExample: emucompile presets show tdl-c --delay-spread-ns 300 --format json")
+@click.argument("name")
+@click.option("--delay-spread-ns", type=float, metavar="X", help="Scale a normalised model to this RMS delay spread.")
+@click.option("--format", "output_format", type=click.Choice(["yaml", "json"]), default="yaml", show_default=True)
+def presets_show(name, delay_spread_ns, output_format):
+    """Print a preset as a valid profile."""
+    _not_built("presets show")
+
+
+# -- apply -------------------------------------------------------------------------
+
+
+@cli.command(epilog="\b\nExample: emucompile apply out/robot burst.sigmf-meta -o faded --snr-db 20 --seed 3")
+@click.argument("outdir", metavar="OUTDIR")
+@click.argument("input_file", metavar="INPUT")
+@click.option("-o", "--output", "output_file", required=True, metavar="OUTPUT")
+@click.option("--snr-db", type=float, help="Add white Gaussian noise at this SNR.")
+@click.option("--seed", type=int, help="Seed of the noise.")
+@click.option("--loop", is_flag=True, help="Loop the bundle when the input is longer.")
+def apply(outdir, input_file, **options):
+    """Pass an IQ recording through a bundle's time-varying channel."""
+    _not_built("apply")
+
+
+def main(argv=None):
+    """Entry point of the console script and of ``python -m emucompile``."""
+    cli.main(args=argv, prog_name="emucompile")
+
+
+__all__ = ["cli", "main", "EXIT_BAD_INPUT", "EXIT_INTERNAL"]
