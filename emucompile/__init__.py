@@ -21,6 +21,12 @@ _API = {
     "check_profile": "emucompile.profile",
     "Profile": "emucompile.profile",
     "Tap": "emucompile.profile",
+    "fir_map": "emucompile.grid",
+    "FirMap": "emucompile.grid",
+    "Target": "emucompile.target",
+    "check_target": "emucompile.target",
+    "parse_target": "emucompile.target",
+    "fit_to_target": "emucompile.target",
 }
 
 
