@@ -21,6 +21,8 @@ _API = {
     "check_profile": "emucompile.profile",
     "Profile": "emucompile.profile",
     "Tap": "emucompile.profile",
+    "open_bundle": "emucompile.bundle",
+    "verify_integrity": "emucompile.bundle",
 }
 
 
