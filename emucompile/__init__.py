@@ -27,6 +27,8 @@ _API = {
     "check_target": "emucompile.target",
     "parse_target": "emucompile.target",
     "fit_to_target": "emucompile.target",
+    "open_bundle": "emucompile.bundle",
+    "verify_integrity": "emucompile.bundle",
 }
 
 
