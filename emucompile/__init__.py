@@ -21,6 +21,14 @@ _API = {
     "check_profile": "emucompile.profile",
     "Profile": "emucompile.profile",
     "Tap": "emucompile.profile",
+    "load_profile_text": "emucompile.profile",
+    "check_profile_text": "emucompile.profile",
+    "profile_from_document": "emucompile.profile",
+    "profile_schema": "emucompile.profile",
+    "profile_statistics": "emucompile.stats",
+    "check_targets": "emucompile.stats",
+    "coherence_bandwidth": "emucompile.stats",
+    "delay_statistics": "emucompile.stats",
 }
 
 
