@@ -29,6 +29,14 @@ _API = {
     "fit_to_target": "emucompile.target",
     "open_bundle": "emucompile.bundle",
     "verify_integrity": "emucompile.bundle",
+    "load_profile_text": "emucompile.profile",
+    "check_profile_text": "emucompile.profile",
+    "profile_from_document": "emucompile.profile",
+    "profile_schema": "emucompile.profile",
+    "profile_statistics": "emucompile.stats",
+    "check_targets": "emucompile.stats",
+    "coherence_bandwidth": "emucompile.stats",
+    "delay_statistics": "emucompile.stats",
 }
 
 

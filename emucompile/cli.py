@@ -116,13 +116,34 @@ def cli(ctx, debug):
 
 @cli.command(epilog="\b\nExample: emucompile validate profiles_demo/*.yaml --json")
 @click.argument("profiles", nargs=-1, required=True, metavar="PROFILE...")
-@click.option("--json", "as_json", is_flag=True, help="Print the problems as a JSON list.")
+@click.option("--json", "as_json", is_flag=True, help="Print the problems of all files as one strict-JSON list on stdout.")
 def validate(profiles, as_json):
     """Check profile files; report every problem as FILE:LINE:COL: /pointer: message.
 
-    Exit 0 when every file is valid (warnings allowed), 2 when any has an error.
+    Every error and warning of every file is printed, one line each, on
+    stderr; a summary line per file goes to stdout. Exit 0 when every file is
+    valid (warnings allowed), 2 when any has an error.
     """
-    _not_built("validate")
+    import json
+
+    from emucompile.profile import check_profile
+
+    everything, invalid = [], 0
+    for name in profiles:
+        profile, problems = check_profile(name)
+        everything += problems
+        errors = sum(p.severity == "error" for p in problems)
+        invalid += profile is None
+        if not as_json:
+            for problem in problems:
+                click.echo(problem.format(), err=True)
+            warnings = len(problems) - errors
+            verdict = "valid" if profile is not None else f"invalid, {errors} error(s)"
+            click.echo(f"{name}: {verdict}" + (f", {warnings} warning(s)" if warnings else ""))
+    if as_json:
+        click.echo(json.dumps([p.to_dict() for p in everything], indent=2, allow_nan=False))
+    if invalid:
+        raise click.exceptions.Exit(EXIT_BAD_INPUT)
 
 
 @cli.command(epilog="\b\nExample: emucompile stats profiles_demo/warehouse-robot.yaml --json")
@@ -131,9 +152,33 @@ def validate(profiles, as_json):
 def stats(profile, as_json):
     """Delay and Doppler statistics of a profile, and its expect: targets.
 
-    Exit 0, or 1 when an expect: target is missed.
+    Values that are undefined or infinite print as undefined (null in JSON,
+    with the reason under "reasons"); rules of thumb are labelled as such.
+    Warnings of the profile go to stderr. Exit 0, 1 when an expect: target is
+    missed, 2 when the profile is invalid.
     """
-    _not_built("stats")
+    import json
+
+    from emucompile.errors import CheckFailed, ProfileError
+    from emucompile.profile import check_profile
+    from emucompile.stats import check_targets, format_statistics, profile_statistics
+
+    loaded, problems = check_profile(profile)
+    if loaded is None:
+        raise ProfileError(problems)
+    for problem in problems:
+        click.echo(problem.format(), err=True)
+    statistics = profile_statistics(loaded)
+    targets = check_targets(loaded, statistics)
+    if as_json:
+        document = dict(statistics, source=profile, expect=[t.to_dict() for t in targets])
+        click.echo(json.dumps(document, indent=2, allow_nan=False))
+    else:
+        click.echo(format_statistics(statistics, targets))
+    missed = [t.quantity for t in targets if not t.met]
+    if missed:
+        raise CheckFailed(f"{profile}: {len(missed)} of {len(targets)} expect: target(s) missed: "
+                          + ", ".join(missed))
 
 
 # -- compile / reproduce -------------------------------------------------------

@@ -11,13 +11,20 @@ Public entry points: :func:`load_profile` (raise on any error) and
 
 from __future__ import annotations
 
+import copy
+import difflib
+import functools
 import hashlib
+import importlib.resources
 import json
 import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from emucompile.theory import DopplerSpectrum
+from emucompile._version import __version__
+from emucompile.errors import Problem, ProfileError
+from emucompile.reader import Document, parse_text, pointer_join, pointer_tokens, read_document
+from emucompile.theory import SPECTRUM_KINDS, DopplerSpectrum, doppler_from_speed
 
 FORMAT_VERSION = 1
 FADING_KINDS = ("rayleigh", "rician", "static")
@@ -123,7 +130,8 @@ class Expectation:
     """One ``expect:`` target: a quantity of ``stats`` and the range it must fall in.
 
     ``quantity`` is the key as written (``rms_delay_spread_ns``); ``value_si``
-    and the bounds are converted to SI using the key's unit suffix.
+    and the bounds are converted to SI using the key's unit suffix; an open
+    bound is -inf / +inf (``value_si`` is None for a {min, max} target).
     """
 
     quantity: str
@@ -131,6 +139,26 @@ class Expectation:
     low_si: float
     high_si: float
     pointer: str = ""
+    statistic: str = ""
+    """The key of :func:`emucompile.stats.profile_statistics` it checks (SI unit)."""
+    unit: str = ""
+    """The unit suffix of ``quantity`` (``ns``, ``khz``, ``db``, ...)."""
+    unit_factor: float = 1.0
+    """SI value = value in ``unit`` times this factor."""
+
+    def in_unit(self, value_si: float | None) -> float | None:
+        """A value of the statistic converted from SI to the key's unit."""
+        return None if value_si is None else value_si / self.unit_factor
+
+    def contains(self, value_si: float | None) -> bool:
+        """True when the statistic lies in the target range (round-off of 1e-9 in the key's unit allowed)."""
+        if value_si is None or not math.isfinite(value_si):
+            return False
+        value = value_si / self.unit_factor
+        low, high = self.low_si / self.unit_factor, self.high_si / self.unit_factor
+        slack = 1e-9 * max(1.0, abs(low) if math.isfinite(low) else 0.0,
+                           abs(high) if math.isfinite(high) else 0.0)
+        return low - slack <= value <= high + slack
 
 
 @dataclass(frozen=True)
@@ -187,7 +215,47 @@ def canonical_json(document: Any) -> bytes:
     ).encode("utf-8")
 
 
-# -- reading and checking (issue: profile format, validation and statistics) --
+# -- reading and checking --------------------------------------------------------
+
+MAX_TAPS = 1024
+"""Most taps a profile may have."""
+
+SCHEMA_RESOURCE = "schemas/profile-v1.schema.json"
+SCHEMA_ID = "https://emucompile.invalid/schemas/profile-v1.schema.json"
+
+NOT_SUPPORTED_YET = ("extends", "mimo", "target", "conditions")
+"""Top-level blocks format_version 1 reserves for later releases; rejected for now."""
+
+MIN_DOPPLER_HZ = 1e-6
+"""Smallest maximum Doppler accepted (a coherence time of days): guards the numerics."""
+
+DOPPLER_AGREEMENT = 1e-3
+"""max_doppler_hz and speed + carrier may differ by at most this fraction (0.1 %)."""
+
+_DELAY_UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "ns": 1e-9}
+_FREQUENCY_UNITS = {"hz": 1.0, "khz": 1e3, "mhz": 1e6}
+EXPECT_QUANTITIES = {
+    "mean_excess_delay": ("mean_excess_delay_s", _DELAY_UNITS),
+    "rms_delay_spread": ("rms_delay_spread_s", _DELAY_UNITS),
+    "max_excess_delay": ("max_excess_delay_s", _DELAY_UNITS),
+    "coherence_bandwidth_50": ("coherence_bandwidth_50_hz", _FREQUENCY_UNITS),
+    "coherence_bandwidth_90": ("coherence_bandwidth_90_hz", _FREQUENCY_UNITS),
+    "coherence_bandwidth_rule": ("coherence_bandwidth_rule_hz", _FREQUENCY_UNITS),
+    "max_doppler": ("max_doppler_hz", {"hz": 1.0}),
+    "rms_doppler_spread": ("rms_doppler_spread_hz", {"hz": 1.0}),
+    "coherence_time_rule": ("coherence_time_rule_s", {"s": 1.0, "ms": 1e-3}),
+    "total_power": ("total_power_db", {"db": 1.0}),
+}
+"""``expect:`` quantities: base name -> (statistic key in SI, {unit suffix: factor to SI})."""
+
+
+def expect_keys() -> dict[str, tuple[str, str, float]]:
+    """Every key allowed in ``expect:`` -> (statistic key, unit suffix, factor to SI)."""
+    return {
+        f"{base}_{unit}": (statistic, unit, factor)
+        for base, (statistic, units) in EXPECT_QUANTITIES.items()
+        for unit, factor in units.items()
+    }
 
 
 def load_profile(source, *, format: str | None = None) -> Profile:
@@ -199,8 +267,23 @@ def load_profile(source, *, format: str | None = None) -> Profile:
         Path of a ``.yaml``/``.yml``/``.json`` file.
     format : {"yaml", "json"}, optional
         Overrides the guess from the file name.
+
+    Returns
+    -------
+    Profile
+        Frozen, in SI units, tap powers scaled to ``total_power_db``.
+
+    Raises
+    ------
+    emucompile.errors.ProfileError
+        With every problem found (``.problems``, warnings included), when any is an error.
+
+    Examples
+    --------
+    >>> profile = load_profile("profiles_demo/warehouse-robot.yaml")  # doctest: +SKIP
+    >>> profile.taps[0].delay_s, profile.taps[0].power_linear        # doctest: +SKIP
     """
-    raise NotImplementedError("load_profile is not built yet")
+    return _raise_on_error(check_profile(source, format=format))
 
 
 def check_profile(source, *, format: str | None = None):
@@ -208,5 +291,603 @@ def check_profile(source, *, format: str | None = None):
 
     ``problems`` is the list of every :class:`emucompile.errors.Problem`,
     warnings included; ``profile`` is None when any problem is an error.
+    Unreadable files (missing, a directory, empty, not UTF-8, over 1 MiB)
+    give one problem and no profile.
     """
-    raise NotImplementedError("check_profile is not built yet")
+    return check_document(read_document(source, format=format))
+
+
+def load_profile_text(text: str, *, filename: str = "<text>", format: str | None = "yaml") -> Profile:
+    """:func:`load_profile` for text in memory; ``filename`` names it in messages."""
+    return _raise_on_error(check_profile_text(text, filename=filename, format=format))
+
+
+def check_profile_text(text: str, *, filename: str = "<text>", format: str | None = "yaml"):
+    """:func:`check_profile` for text in memory; ``format=None`` guesses from the first character."""
+    return check_document(parse_text(text, filename=filename, format=format))
+
+
+def profile_from_document(document: dict, *, source: str = "<document>") -> Profile:
+    """A Profile from a document already in memory (e.g. a bundle manifest's resolved profile).
+
+    Raises :class:`ProfileError` like :func:`load_profile`; messages carry no line numbers.
+    """
+    parsed = Document(source, "json", value=copy.deepcopy(document))
+    return _raise_on_error(check_document(parsed))
+
+
+def check_document(document: Document):
+    """Schema and semantic checks of a document read by :mod:`emucompile.reader`.
+
+    Returns ``(profile_or_None, problems)``, problems sorted by place in the file.
+    """
+    problems = list(document.problems)
+    if not document.readable:
+        return None, problems
+    value = document.value
+    flagged = set(document.replaced)
+    non_finite = _non_finite_problems(document, value, "", flagged)
+    problems += non_finite
+    flagged |= {p.pointer for p in non_finite}
+    problems += _schema_problems(document, value, flagged)
+    profile = None
+    if isinstance(value, dict):
+        checker = _Checker(document, value)
+        profile = checker.run(build=not any(p.severity == "error" for p in problems))
+        problems += checker.problems
+    problems.sort(key=lambda p: (p.line is None, p.line or 0, p.column or 0))
+    return profile, problems
+
+
+@functools.lru_cache(maxsize=1)
+def _schema_text() -> str:
+    return importlib.resources.files("emucompile").joinpath(SCHEMA_RESOURCE).read_text("utf-8")
+
+
+def profile_schema() -> dict:
+    """The JSON Schema (draft 2020-12) of format_version 1, read from the installed package."""
+    return json.loads(_schema_text())
+
+
+# -- helpers: reading ----------------------------------------------------------------
+
+
+def _raise_on_error(result) -> Profile:
+    profile, problems = result
+    if profile is None:
+        raise ProfileError(problems)
+    return profile
+
+
+def _non_finite_problems(document, value, pointer, flagged) -> list[Problem]:
+    if isinstance(value, float) and not math.isfinite(value):
+        if pointer in flagged:
+            return []
+        return [document.problem(pointer, f"{value} is not a finite number", "write a finite number")]
+    if isinstance(value, dict):
+        items = ((pointer_join(pointer, k), v) for k, v in value.items())
+    elif isinstance(value, list):
+        items = ((pointer_join(pointer, i), v) for i, v in enumerate(value))
+    else:
+        return []
+    return [p for child, v in items for p in _non_finite_problems(document, v, child, flagged)]
+
+
+# -- helpers: schema -------------------------------------------------------------------
+
+
+@functools.lru_cache(maxsize=1)
+def _validator():
+    import jsonschema
+
+    schema = profile_schema()
+    jsonschema.Draft202012Validator.check_schema(schema)
+    return jsonschema.Draft202012Validator(schema)
+
+
+def _schema_problems(document, value, flagged) -> list[Problem]:
+    problems, seen = [], set()
+    for error in _validator().iter_errors(value):
+        pointer = "".join(pointer_join("", t) for t in error.absolute_path)
+        if any(pointer == f or pointer.startswith(f + "/") for f in flagged):
+            continue
+        for problem in _describe_schema_error(document, error, pointer):
+            identity = (problem.pointer, problem.message)
+            if identity not in seen:
+                seen.add(identity)
+                problems.append(problem)
+    return problems
+
+
+_TYPE_WORDS = {
+    "object": "a mapping", "array": "a list", "string": "text", "number": "a number",
+    "integer": "a whole number", "boolean": "true or false", "null": "null",
+}
+
+
+def _describe_schema_error(document, error, pointer):
+    kind, instance, expected = error.validator, error.instance, error.validator_value
+    where = _field_name(pointer)
+    if kind == "additionalProperties":
+        allowed = sorted(error.schema.get("properties", {}))
+        for key in instance:
+            if key not in allowed:
+                yield document.problem(pointer_join(pointer, key), f"unknown key {key!r}",
+                                       _did_you_mean(key, allowed), key=True)
+        return
+    if kind == "required":
+        for key in expected:
+            if key not in instance:
+                yield document.problem(pointer, f"missing required key {key!r}")
+        return
+    if kind == "type":
+        types = [expected] if isinstance(expected, str) else expected
+        wanted = " or ".join(_TYPE_WORDS.get(t, t) for t in types)
+        got = _describe_value(instance)
+        message = f"{where} must be {wanted}, not {got}"
+        hint = None
+        if isinstance(instance, str) and ("number" in types or "integer" in types):
+            hint = "write the number without quotes or units"
+        yield document.problem(pointer, message, hint)
+        return
+    if kind == "enum":
+        choices = [str(c) for c in expected]
+        yield document.problem(
+            pointer,
+            f"{where} must be one of {', '.join(choices)}, not {_describe_value(instance)}",
+            _did_you_mean(str(instance), choices, list_all=False),
+        )
+        return
+    if kind == "const":
+        hint = "this program reads format_version 1" if where == "format_version" else None
+        yield document.problem(pointer, f"{where} must be {expected!r}, not {_describe_value(instance)}", hint)
+        return
+    bounds = {"minimum": ">=", "maximum": "<=", "exclusiveMinimum": ">", "exclusiveMaximum": "<"}
+    if kind in bounds:
+        yield document.problem(pointer, f"{where} must be {bounds[kind]} {_number_text(expected)}, "
+                               f"not {_number_text(instance)}")
+        return
+    if kind == "minItems":
+        yield document.problem(pointer, f"{where} needs at least {expected} item(s)")
+        return
+    if kind == "pattern" and where == "name":
+        yield document.problem(pointer, f"{instance!r} is not a valid name",
+                               "use lower-case letters, digits, '.', '_' and '-', starting with "
+                               "a letter or digit")
+        return
+    if kind == "maxLength":
+        yield document.problem(pointer, f"{where} is longer than {expected} characters")
+        return
+    yield document.problem(pointer, f"{where}: {error.message}")  # pragma: no cover - fallback
+
+
+def _field_name(pointer: str) -> str:
+    tokens = pointer_tokens(pointer)
+    return tokens[-1] if tokens and not tokens[-1].isdigit() else (pointer or "the document")
+
+
+def _describe_value(value) -> str:
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return f"the text {value[:40]!r}" + ("..." if len(value) > 40 else "")
+    if isinstance(value, dict):
+        return "a mapping"
+    if isinstance(value, list):
+        return "a list"
+    return _number_text(value)
+
+
+def _number_text(value) -> str:
+    if isinstance(value, float) and value.is_integer() and abs(value) < 1e16:
+        return str(int(value))
+    return repr(value) if isinstance(value, float) else str(value)
+
+
+def _did_you_mean(key: str, allowed, *, list_all: bool = True) -> str | None:
+    if key == "<<":
+        return "YAML merge keys are not part of YAML 1.2; write the keys out"
+    close = difflib.get_close_matches(key, allowed, n=1, cutoff=0.6)
+    if close:
+        return f"did you mean {close[0]!r}?"
+    if list_all and len(allowed) <= 30:
+        return "allowed here: " + ", ".join(allowed)
+    return None
+
+
+# -- helpers: semantic checks and conversion ----------------------------------------------
+
+
+def _number(mapping, key):
+    """The value of ``key`` when it is a finite real number, else None (the schema reports it)."""
+    value = mapping.get(key) if isinstance(mapping, dict) else None
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return None
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def _fmt(value: float, unit: str = "") -> str:
+    """A number for messages: 6 significant digits, the unit after it."""
+    text = f"{value:.6g}"
+    return f"{text} {unit}" if unit else text
+
+
+class _Checker:
+    """The checks the schema cannot express, and the conversion to a :class:`Profile`.
+
+    Every check guards against values of the wrong type (the schema has
+    reported those already), so that all problems come out in one pass.
+    """
+
+    def __init__(self, document: Document, root: dict):
+        self.document = document
+        self.root = root
+        self.problems: list[Problem] = []
+        self.doppler_source_broken = False
+
+    def error(self, pointer, message, hint=None, *, key=False):
+        self.problems.append(self.document.problem(pointer, message, hint, key=key))
+
+    def warning(self, pointer, message, hint=None):
+        self.problems.append(self.document.problem(pointer, message, hint, severity="warning"))
+
+    def run(self, *, build: bool) -> Profile | None:
+        """Make every check; return the Profile when ``build`` and nothing is in error."""
+        self._reject_not_supported_yet()
+        root = self.root
+        taps_value = root.get("taps")
+        if isinstance(taps_value, list) and len(taps_value) > MAX_TAPS:
+            self.error("/taps", f"{len(taps_value)} taps: at most {MAX_TAPS} are allowed")
+        global_doppler_hz, speed_mps = self._global_doppler()
+        taps = []
+        missing_doppler = []
+        for index, tap in enumerate(taps_value if isinstance(taps_value, list) else []):
+            if isinstance(tap, dict):
+                resolved = self._tap(index, tap, global_doppler_hz)
+                taps.append(resolved)
+                if resolved and resolved["fading"] in ("rayleigh", "rician") and resolved["max_doppler_hz"] is None:
+                    missing_doppler.append(index)
+            else:
+                taps.append(None)
+        if missing_doppler and not self.doppler_source_broken:
+            which = ", ".join(str(i) for i in missing_doppler[:10])
+            more = ", ..." if len(missing_doppler) > 10 else ""
+            self.error("", f"no maximum Doppler for the fading tap(s) {which}{more}",
+                       "give max_doppler_hz, or speed_kmh (or speed_mps) with carrier_hz, "
+                       "or a max_doppler_hz on each fading tap; only static taps need none")
+        self._tap_warnings(taps)
+        scale_db = self._power_scale(taps)
+        expectations = self._expectations()
+        if not build or any(p.severity == "error" for p in self.problems):
+            return None
+        return self._build(taps, global_doppler_hz, speed_mps, scale_db, expectations)
+
+    # -- the one place where reserved blocks are refused -------------------------
+    def _reject_not_supported_yet(self):
+        for key in NOT_SUPPORTED_YET:
+            if key in self.root:
+                self.error(f"/{key}", f"'{key}' is not supported yet in this version "
+                           f"(emucompile {__version__})",
+                           "remove the block; format_version 1 reserves it for a later release",
+                           key=True)
+
+    # -- Doppler -----------------------------------------------------------------
+    def _global_doppler(self):
+        root = self.root
+        direct = _number(root, "max_doppler_hz")
+        kmh, mps, carrier = (_number(root, k) for k in ("speed_kmh", "speed_mps", "carrier_hz"))
+        # A Doppler key present but unusable has been reported; do not also call it missing.
+        if any(k in root and _number(root, k) is None
+               for k in ("max_doppler_hz", "speed_kmh", "speed_mps", "carrier_hz")):
+            self.doppler_source_broken = True
+        if "speed_kmh" in root and "speed_mps" in root:
+            self.error("/speed_mps", "give speed_kmh or speed_mps, not both", key=True)
+            self.doppler_source_broken = True
+        speed_mps = mps if mps is not None else (kmh / 3.6 if kmh is not None else None)
+        speed_key = "speed_mps" if "speed_mps" in root else "speed_kmh"
+        has_speed = "speed_kmh" in root or "speed_mps" in root
+        if has_speed and "carrier_hz" not in root:
+            self.error(f"/{speed_key}", "a speed needs carrier_hz to give a Doppler",
+                       "add carrier_hz (f_D = v f_c / c), or give max_doppler_hz instead", key=True)
+            self.doppler_source_broken = True
+        if "carrier_hz" in root and not has_speed:
+            self.error("/carrier_hz", "carrier_hz is used only with speed_kmh or speed_mps",
+                       "add the speed, or remove carrier_hz", key=True)
+        from_speed = None
+        if speed_mps is not None and carrier is not None:
+            from_speed = doppler_from_speed(speed_mps, carrier)
+            if from_speed < MIN_DOPPLER_HZ:
+                self.error(f"/{speed_key}", f"the speed and carrier give f_D = {_fmt(from_speed, 'Hz')}, "
+                           f"below the {_fmt(MIN_DOPPLER_HZ, 'Hz')} a fading tap needs",
+                           "check the units: speed_kmh or speed_mps, carrier_hz in Hz")
+                self.doppler_source_broken = True
+                from_speed = None
+        if direct is not None and from_speed is not None:
+            if abs(direct - from_speed) > DOPPLER_AGREEMENT * from_speed:
+                self.error(
+                    "/max_doppler_hz",
+                    f"max_doppler_hz {_fmt(direct, 'Hz')} disagrees with the speed and carrier, "
+                    f"which give {_fmt(from_speed, 'Hz')} "
+                    f"({abs(direct / from_speed - 1) * 100:.3g} % apart)",
+                    "give one of them, or make them agree within 0.1 %; f_D = v f_c / c",
+                )
+        return (direct if direct is not None else from_speed), speed_mps
+
+    # -- one tap ---------------------------------------------------------------
+    def _tap(self, index: int, tap: dict, global_doppler_hz):
+        here = f"/taps/{index}"
+        delay_s = None
+        if "delay_ns" in tap and "delay_us" in tap:
+            self.error(f"{here}/delay_us", "give delay_ns or delay_us, not both", key=True)
+        elif "delay_ns" not in tap and "delay_us" not in tap:
+            self.error(here, "a tap needs its delay: delay_ns or delay_us")
+        elif "delay_ns" in tap:
+            # Division by an exact power of ten rounds once: 100 ns and 0.1 us give one float.
+            delay_s = None if _number(tap, "delay_ns") is None else _number(tap, "delay_ns") / 1e9
+        else:
+            delay_s = None if _number(tap, "delay_us") is None else _number(tap, "delay_us") / 1e6
+        fading = tap.get("fading", "rayleigh")
+        if fading not in FADING_KINDS:
+            fading = None
+        own_doppler = _number(tap, "max_doppler_hz")
+        max_doppler_hz = own_doppler if own_doppler is not None else global_doppler_hz
+        resolved = {
+            "index": index, "delay_s": delay_s, "power_db": _number(tap, "power_db"),
+            "fading": fading, "max_doppler_hz": max_doppler_hz,
+            "k_db": _number(tap, "k_db"), "los_angle_deg": _number(tap, "los_angle_deg"),
+            "los_phase_deg": _number(tap, "los_phase_deg"), "los_doppler_hz": None,
+            "spectrum": tap.get("spectrum", "classical"), "sigma_hz": _number(tap, "sigma_hz"),
+        }
+        if fading is None:
+            return resolved
+        self._tap_k_factor(here, tap, fading)
+        resolved["los_doppler_hz"] = self._tap_direct_doppler(here, tap, fading, max_doppler_hz)
+        self._tap_spectrum(here, tap, fading, max_doppler_hz)
+        return resolved
+
+    def _tap_k_factor(self, here, tap, fading):
+        if fading == "rician" and "k_db" not in tap:
+            self.error(here, "a rician tap needs k_db (direct power / diffuse power, in dB)")
+        if fading != "rician" and "k_db" in tap:
+            self.error(f"{here}/k_db", f"k_db applies to rician taps only; this tap is {fading}",
+                       "remove k_db, or set fading: rician", key=True)
+
+    def _tap_direct_doppler(self, here, tap, fading, max_doppler_hz):
+        has_angle, has_doppler = "los_angle_deg" in tap, "los_doppler_hz" in tap
+        if fading == "rayleigh":
+            for key in ("los_angle_deg", "los_doppler_hz", "los_phase_deg"):
+                if key in tap:
+                    self.error(f"{here}/{key}", f"{key} applies to rician and static taps only; "
+                               "a rayleigh tap has no direct part", "remove it, or set fading: rician",
+                               key=True)
+            return None
+        if has_angle and has_doppler:
+            self.error(f"{here}/los_doppler_hz", "give los_angle_deg or los_doppler_hz, not both",
+                       key=True)
+            return None
+        if fading == "rician" and not (has_angle or has_doppler):
+            self.error(here, "a rician tap needs the Doppler of its direct part: los_angle_deg "
+                       "or los_doppler_hz", "los_angle_deg: 90 gives no Doppler shift")
+            return None
+        if has_angle:
+            angle = _number(tap, "los_angle_deg")
+            if max_doppler_hz is None:
+                if fading == "static":
+                    self.error(f"{here}/los_angle_deg", "los_angle_deg needs a maximum Doppler to "
+                               "turn into a frequency (f_D cos angle)",
+                               "give max_doppler_hz (the profile's or the tap's), or los_doppler_hz",
+                               key=True)
+                return None
+            return None if angle is None else max_doppler_hz * math.cos(math.radians(angle))
+        if not has_doppler:
+            return 0.0  # a static tap that does not turn
+        doppler = _number(tap, "los_doppler_hz")
+        if doppler is not None and max_doppler_hz is not None and abs(doppler) > max_doppler_hz:
+            self.error(f"{here}/los_doppler_hz",
+                       f"the direct part's Doppler {_fmt(doppler, 'Hz')} exceeds the tap's maximum "
+                       f"Doppler {_fmt(max_doppler_hz, 'Hz')}",
+                       "|los_doppler_hz| = f_D |cos angle| is at most f_D")
+        return doppler
+
+    def _tap_spectrum(self, here, tap, fading, max_doppler_hz):
+        spectrum = tap.get("spectrum", "classical")
+        if fading == "static":
+            for key in ("spectrum", "sigma_hz"):
+                if key in tap:
+                    self.warning(f"{here}/{key}", f"{key} is ignored: a static tap has no diffuse "
+                                 "part and so no Doppler spectrum")
+            return
+        if spectrum not in SPECTRUM_KINDS:
+            return  # the schema has reported it
+        sigma = _number(tap, "sigma_hz")
+        if spectrum == "gaussian" and "sigma_hz" not in tap:
+            self.error(here, "a gaussian spectrum needs sigma_hz (its standard deviation in Hz)")
+        if spectrum != "gaussian" and "sigma_hz" in tap:
+            self.error(f"{here}/sigma_hz", f"sigma_hz applies to the gaussian spectrum only, "
+                       f"not {spectrum}", "remove sigma_hz, or set spectrum: gaussian", key=True)
+        if spectrum != "gaussian" or sigma is None or max_doppler_hz is None:
+            return
+        if sigma > max_doppler_hz:
+            self.error(f"{here}/sigma_hz", f"sigma_hz {_fmt(sigma, 'Hz')} exceeds the tap's maximum "
+                       f"Doppler {_fmt(max_doppler_hz, 'Hz')}",
+                       "the Gaussian spectrum is truncated at f_D; keep sigma_hz <= f_D")
+        elif max_doppler_hz < 3.0 * sigma:
+            removed = 1.0 - math.erf(max_doppler_hz / (sigma * math.sqrt(2.0)))
+            self.warning(f"{here}/sigma_hz",
+                         f"the Gaussian spectrum (sigma {_fmt(sigma, 'Hz')}) is truncated at "
+                         f"f_D = {_fmt(max_doppler_hz, 'Hz')} = {max_doppler_hz / sigma:.3g} sigma, "
+                         f"which removes {removed * 100:.3g} % of its power",
+                         "the truncated spectrum is used as is, renormalised to unit power")
+
+    # -- across taps -------------------------------------------------------------
+    def _tap_warnings(self, taps):
+        known = [t for t in taps if t and t["delay_s"] is not None]
+        first_at = {}
+        previous = None
+        for tap in known:
+            key = "delay_ns" if "delay_ns" in self.root["taps"][tap["index"]] else "delay_us"
+            here = f"/taps/{tap['index']}/{key}"
+            delay = tap["delay_s"]
+            if previous is not None and delay < previous["delay_s"]:
+                self.warning(here, f"delay {_fmt(delay * 1e9, 'ns')} is smaller than the previous "
+                             f"tap's {_fmt(previous['delay_s'] * 1e9, 'ns')}: taps are not in "
+                             "delay order", "allowed; the taps keep the order written")
+            femtoseconds = round(delay * 1e15)  # "one delay" up to round-off
+            if femtoseconds in first_at:
+                self.warning(here, f"same delay as tap {first_at[femtoseconds]} "
+                             f"({_fmt(delay * 1e9, 'ns')})",
+                             "legitimate, e.g. a direct and a diffuse part at one delay")
+            first_at.setdefault(femtoseconds, tap["index"])
+            previous = tap
+        powers = [t for t in taps if t and t["power_db"] is not None]
+        if powers:
+            strongest = max(t["power_db"] for t in powers)
+            for tap in powers:
+                below = strongest - tap["power_db"]
+                if below > 40.0:
+                    self.warning(f"/taps/{tap['index']}/power_db",
+                                 f"the tap is {below:.3g} dB below the strongest tap",
+                                 "check the power; a tap this weak barely changes the channel")
+
+    def _power_scale(self, taps) -> float:
+        powers = [t["power_db"] for t in taps if t and t["power_db"] is not None]
+        total_db = self.root.get("total_power_db", 0)
+        if not powers or total_db is None or _number({"t": total_db}, "t") is None:
+            return 0.0
+        written_db = _sum_db(powers)
+        scale_db = float(total_db) - written_db
+        if abs(scale_db) > 10.0:
+            where = "/total_power_db" if "total_power_db" in self.root else "/taps"
+            self.warning(where, f"the tap powers are scaled by {scale_db:+.3g} dB to add up to "
+                         f"total_power_db {_fmt(float(total_db), 'dB')}",
+                         "check the powers, or set total_power_db: null to keep them as written")
+        return scale_db
+
+    # -- expect: ----------------------------------------------------------------------
+    def _expectations(self) -> list[Expectation]:
+        block = self.root.get("expect")
+        if not isinstance(block, dict):
+            return []
+        table = expect_keys()
+        found = []
+        for key, spec in block.items():
+            here = pointer_join("/expect", key)
+            if key not in table or not isinstance(spec, dict):
+                continue
+            statistic, unit, factor = table[key]
+            value = _number(spec, "value")
+            shape = frozenset(spec)
+            if not shape <= {"value", "tolerance_pct", "tolerance", "min", "max"}:
+                continue  # the schema has reported the unknown key
+            if shape in ({"value", "tolerance_pct"}, {"value", "tolerance"}):
+                if value is None:
+                    continue
+                if "tolerance_pct" in spec:
+                    width = abs(value) * (_number(spec, "tolerance_pct") or 0.0) / 100.0
+                else:
+                    width = _number(spec, "tolerance") or 0.0
+                low, high = value - width, value + width
+            elif shape and shape <= {"min", "max"}:
+                low = _number(spec, "min") if "min" in spec else -math.inf
+                high = _number(spec, "max") if "max" in spec else math.inf
+                if low is None or high is None:
+                    continue
+                if low > high:
+                    self.error(here, f"min {_fmt(low)} is larger than max {_fmt(high)}")
+                    continue
+            else:
+                self.error(here, f"a target is {{value, tolerance_pct}}, {{value, tolerance}} or "
+                           f"{{min, max}}; got {{{', '.join(sorted(spec)) or 'nothing'}}}",
+                           "e.g. {value: 300, tolerance_pct: 3}")
+                continue
+            found.append(Expectation(
+                quantity=key, value_si=None if value is None else value * factor,
+                low_si=low * factor, high_si=high * factor, pointer=here,
+                statistic=statistic, unit=unit, unit_factor=factor,
+            ))
+        return found
+
+    # -- conversion ---------------------------------------------------------------------
+    def _build(self, taps, global_doppler_hz, speed_mps, scale_db, expectations) -> Profile:
+        root = self.root
+        factor = 10.0 ** (scale_db / 10.0)
+        built = []
+        for tap in taps:
+            fading = tap["fading"]
+            built.append(Tap(
+                delay_s=tap["delay_s"],
+                power_linear=10.0 ** (tap["power_db"] / 10.0) * factor,
+                fading=fading,
+                k_linear=10.0 ** (tap["k_db"] / 10.0) if fading == "rician" else None,
+                spectrum=tap["spectrum"] if fading != "static" else "classical",
+                max_doppler_hz=tap["max_doppler_hz"],
+                sigma_hz=tap["sigma_hz"] if fading != "static" else None,
+                los_doppler_hz=tap["los_doppler_hz"],
+                los_angle_deg=tap["los_angle_deg"],
+                los_phase_deg=tap["los_phase_deg"],
+                index=tap["index"],
+            ))
+        compile_block = dict(root.get("compile") or {})
+        if "seed" in compile_block:
+            compile_block["seed"] = int(compile_block["seed"])
+        for key in ("update_rate_hz", "duration_s", "sample_rate_hz"):
+            if key in compile_block:
+                compile_block[key] = float(compile_block[key])
+        total_db = root.get("total_power_db", 0)
+        return Profile(
+            name=root["name"],
+            taps=tuple(built),
+            description=root.get("description", ""),
+            max_doppler_hz=global_doppler_hz,
+            speed_mps=speed_mps,
+            carrier_hz=_number(root, "carrier_hz"),
+            total_power_db=None if total_db is None else float(total_db),
+            power_scale_db=scale_db,
+            compile=CompileDefaults(**compile_block),
+            expect=tuple(expectations),
+            document=_resolved_document(root),
+            source=self.document.filename,
+        )
+
+
+def _sum_db(powers_db) -> float:
+    """10 log10 of the sum of powers given in dB, without overflow (log-sum-exp)."""
+    top = max(powers_db)
+    return top + 10.0 * math.log10(math.fsum(10.0 ** ((p - top) / 10.0) for p in powers_db))
+
+
+def _resolved_document(root: dict) -> dict:
+    """The document with its defaults made explicit, values and unit keys as written."""
+    document = copy.deepcopy(root)
+    document.setdefault("description", "")
+    document.setdefault("total_power_db", 0)
+    for tap in document["taps"]:
+        tap.setdefault("fading", "rayleigh")
+        if tap["fading"] != "static":
+            tap.setdefault("spectrum", "classical")
+    return document
+
+
+__all__ = [
+    "FORMAT_VERSION",
+    "FADING_KINDS",
+    "MAX_TAPS",
+    "NOT_SUPPORTED_YET",
+    "EXPECT_QUANTITIES",
+    "Tap",
+    "CompileDefaults",
+    "Expectation",
+    "Profile",
+    "canonical_json",
+    "expect_keys",
+    "load_profile",
+    "check_profile",
+    "load_profile_text",
+    "check_profile_text",
+    "profile_from_document",
+    "check_document",
+    "profile_schema",
+]

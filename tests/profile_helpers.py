@@ -1,0 +1,62 @@
+"""Small builders shared by the profile, validate and stats tests."""
+
+from __future__ import annotations
+
+import copy
+import json
+
+from click.testing import CliRunner
+
+from emucompile.cli import cli
+from emucompile.profile import check_profile_text
+
+BASE = {
+    "format_version": 1,
+    "name": "unit-test",
+    "description": "invented test profile",
+    "max_doppler_hz": 100,
+    "taps": [
+        {"delay_ns": 0, "power_db": 0},
+        {"delay_ns": 100, "power_db": -3},
+    ],
+}
+
+
+def profile_dict(**changes) -> dict:
+    """BASE with top-level keys replaced (a value of None removes the key)."""
+    document = copy.deepcopy(BASE)
+    for key, value in changes.items():
+        if value is None:
+            document.pop(key, None)
+        else:
+            document[key] = value
+    return document
+
+
+def with_taps(*taps, **changes) -> dict:
+    return profile_dict(taps=list(taps), **changes)
+
+
+def check(document: dict):
+    """(profile, problems) of a document written as JSON."""
+    return check_profile_text(json.dumps(document), filename="t.json", format="json")
+
+
+def errors(document: dict) -> list:
+    return [p for p in check(document)[1] if p.severity == "error"]
+
+
+def warnings(document: dict) -> list:
+    return [p for p in check(document)[1] if p.severity == "warning"]
+
+
+def run(*args):
+    """Invoke the command line in-process; returns click's Result."""
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+def assert_clean_failure(result, *, code=2):
+    """Exit code as asked, no traceback, no internal error."""
+    assert result.exit_code == code, result.output
+    assert "Traceback" not in result.output
+    assert "internal error" not in result.output
