@@ -157,7 +157,7 @@ def test_schema_copies_are_identical_versioned_and_every_property_is_described()
     assert packaged == (ROOT / "schemas" / "bundle-manifest-v1.schema.json").read_bytes()
     schema = json.loads(packaged)
     assert schema["$schema"] == "https://json-schema.org/draft/2020-12/schema"
-    assert schema["$id"].endswith(":v1") and schema == bd.manifest_schema()
+    assert schema["$id"].endswith("-v1.schema.json") and schema == bd.manifest_schema()
     jsonschema.Draft202012Validator.check_schema(schema)
     undescribed = []
 
