@@ -199,16 +199,50 @@ def stats(profile, as_json):
 @click.option("--force", is_flag=True, help="Replace OUTDIR if it is an existing bundle.")
 @click.option("--max-size", type=ByteSize(), metavar="SIZE", help="Refuse to write more than this (default 8GiB).")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
-def compile_command(profile, outdir, **options):
-    """Compile a profile into a bundle of tap gains (and FIR map) in OUTDIR."""
-    _not_built("compile")
+def compile_command(profile, outdir, quiet, max_size, target_file, **options):
+    """Compile a profile into a bundle of tap gains (and FIR map) in OUTDIR.
+
+    Choices not given here come from the profile's compile: block, then from
+    the defaults: update rate 64 x the largest Doppler, 10 s, a seed drawn
+    from the system (printed, so the run can be repeated with --seed).
+    The size is estimated first; nothing is left behind if the run fails.
+    """
+    from emucompile import compiler
+    from emucompile.bundle import DEFAULT_MAX_SIZE_BYTES
+
+    plan = compiler.plan_compile(
+        profile, outdir, target=target_file,
+        max_size_bytes=DEFAULT_MAX_SIZE_BYTES if max_size is None else max_size, **options,
+    )
+    for warning in plan.warnings:
+        click.echo(f"emucompile: warning: {warning}", err=True)
+    if not quiet:
+        click.echo(f"compiling {plan.profile.name}: {plan.profile.n_taps} taps x {plan.n_samples} samples "
+                   f"at {plan.update_rate_hz:g} Hz, about {_size_text(plan.estimated_size_bytes)}", err=True)
+    with _progress(plan.n_samples, "compiling", quiet) as update:
+        result = compiler.run_plan(plan, progress=update)
+    if not quiet:
+        click.echo(_compile_summary(result))
 
 
 @cli.command(epilog="\b\nExample: emucompile reproduce out/robot")
 @click.argument("outdir", metavar="OUTDIR")
 def reproduce(outdir):
-    """Regenerate a bundle from its manifest and compare: identical, within tolerance, or different."""
-    _not_built("reproduce")
+    """Regenerate a bundle from its manifest and compare: identical, within tolerance, or different.
+
+    Exit 0 when identical, or equal within the stated tolerance on another
+    platform or library version (said so); 1 when different.
+    """
+    from emucompile import compiler
+    from emucompile.errors import CheckFailed
+
+    with _progress(None, "regenerating", False) as update:
+        result = compiler.reproduce_bundle(outdir, progress=update)
+    click.echo(f"{outdir}: {result.message}")
+    for name, same in result.files:
+        click.echo(f"  {name}: {'same bytes' if same else 'bytes differ'}")
+    if not result.ok:
+        raise CheckFailed(f"{outdir}: the regenerated numbers differ from the bundle's")
 
 
 # -- verify ----------------------------------------------------------------------
@@ -266,6 +300,85 @@ def presets_show(name, delay_spread_ns, output_format):
 def apply(outdir, input_file, **options):
     """Pass an IQ recording through a bundle's time-varying channel."""
     _not_built("apply")
+
+
+# -- helpers shared by commands ---------------------------------------------------------
+
+
+class _progress:
+    """A click progress bar on stderr, or nothing (``--quiet``, or stderr not a terminal).
+
+    Used as ``with _progress(total, label, quiet) as update: work(progress=update)``;
+    ``update(done, total)`` is the library's progress callback.
+    """
+
+    def __init__(self, total, label, quiet):
+        self.total, self.label = total, label
+        self.enabled = not quiet and sys.stderr.isatty()
+        self.bar = None
+        self.done = 0
+
+    def __enter__(self):
+        return self.update
+
+    def update(self, done, total):
+        if not self.enabled:
+            return
+        if self.bar is None:
+            self.bar = click.progressbar(length=total, label=self.label, file=sys.stderr)
+            self.bar.__enter__()
+        self.bar.update(done - self.done)
+        self.done = done
+
+    def __exit__(self, *exc):
+        if self.bar is not None:
+            self.bar.__exit__(*exc)
+        return False
+
+
+def _size_text(n_bytes: int) -> str:
+    for unit, size in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
+        if n_bytes >= size:
+            return f"{n_bytes / size:.1f} {unit}"
+    return f"{n_bytes} B"
+
+
+def _compile_summary(result) -> str:
+    plan, manifest = result.plan, result.manifest
+    seed_note = " (drawn; repeat with --seed)" if plan.sources.get("seed") == "drawn" else ""
+    lines = [
+        f"bundle      {result.path}",
+        f"profile     {plan.profile.name}  ({plan.profile.n_taps} taps, sha256 {plan.profile_sha256[:16]}...)",
+        f"samples     {plan.n_samples} per tap at {plan.update_rate_hz:g} Hz = {plan.duration_s:g} s"
+        + ("  (periodic)" if plan.periodic else ""),
+        f"method      {plan.method}, generator version {manifest['generator_version']}",
+        f"seed        {plan.seed}{seed_note}",
+    ]
+    fir = manifest.get("fir")
+    if fir:
+        lines.append(
+            f"FIR         {fir['n_fir']} coefficients at {fir['sample_rate_hz']:g} Hz, {fir['delay_mapping']} "
+            f"mapping, bulk delay {fir['bulk_delay_samples']} samples, energy kept {fir['energy_kept']:.4f}, "
+            f"RMS delay spread {fir['rms_delay_spread_s'] * 1e9:.1f} ns"
+        )
+    costs = (manifest.get("target") or {}).get("costs")
+    if costs:
+        lines.append("target fit  " + _costs_text(costs))
+    total = sum(entry["size_bytes"] for entry in manifest["files"])
+    lines.append(f"files       {len(manifest['files'])} ({_size_text(total)}):")
+    lines += [f"              {entry['name']}  {_size_text(entry['size_bytes'])}" for entry in manifest["files"][:12]]
+    if len(manifest["files"]) > 12:
+        lines.append(f"              ... and {len(manifest['files']) - 12} more (see manifest.json)")
+    lines.append(f"time        {result.elapsed_s:.1f} s")
+    return "\n".join(lines)
+
+
+def _costs_text(costs: dict) -> str:
+    parts = []
+    for key, value in costs.items():
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            parts.append(f"{key} {value:.4g}")
+    return ", ".join(parts) if parts else "(see manifest.json)"
 
 
 def main(argv=None):

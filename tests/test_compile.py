@@ -1,0 +1,318 @@
+"""compile and reproduce: the bundle a profile becomes, its safety, and its reproducibility."""
+
+from __future__ import annotations
+
+import json
+import resource
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from emucompile import compiler, open_bundle
+from emucompile.bundle import verify_integrity
+from emucompile.cli import cli
+from emucompile.errors import InputError
+from emucompile.profile import load_profile_text
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMOS = sorted((ROOT / "profiles_demo").glob("*.*"))
+
+THREE_TAPS = """\
+format_version: 1
+name: three-taps
+description: invented test profile
+max_doppler_hz: 50
+taps:
+  - {delay_ns: 0, power_db: 0, fading: rician, k_db: 6, los_angle_deg: 45}
+  - {delay_ns: 130, power_db: -3}
+  - {delay_ns: 410, power_db: -9, spectrum: flat}
+"""
+
+
+@pytest.fixture
+def profile_file(tmp_path):
+    path = tmp_path / "three.yaml"
+    path.write_text(THREE_TAPS, encoding="utf-8")
+    return path
+
+
+def _data_hashes(path):
+    return {e["name"]: e["sha256"] for e in open_bundle(path).manifest["files"]}
+
+
+def _run(*args):
+    return CliRunner().invoke(cli, [str(a) for a in args], catch_exceptions=False)
+
+
+# -- the bundle ------------------------------------------------------------------------
+
+
+def test_compile_writes_a_bundle_with_the_contract_fields(profile_file, tmp_path):
+    out = tmp_path / "b"
+    result = compiler.compile_profile(profile_file, out, duration_s=4, update_rate_hz=1000, seed=3,
+                                      sample_rate_hz=10e6)
+    manifest = result.manifest
+    for key in ("format", "format_version", "tool_version", "generator_version", "created_utc",
+                "profile_sha256", "resolved_profile_sha256", "profile", "seed", "method",
+                "update_rate_hz", "n_samples", "duration_s", "n_taps", "periodic", "taps", "mimo",
+                "fir", "platform", "files"):
+        assert key in manifest, key
+    assert manifest["format"] == "emucompile-bundle" and manifest["format_version"] == 1
+    assert manifest["n_samples"] == 4000 and manifest["duration_s"] == pytest.approx(4.0)
+    # profile_sha256 is of the file's bytes (contract 3)
+    import hashlib
+    assert manifest["profile_sha256"] == hashlib.sha256(profile_file.read_bytes()).hexdigest()
+    bundle = open_bundle(out)
+    assert bundle.tap_gains.shape == (4000, 1, 1, 3) and bundle.tap_gains.dtype == np.complex64
+    assert bundle.fir_map.shape[0] == 3 and manifest["fir"]["n_fir"] == bundle.fir_map.shape[1]
+    # tap i of the manifest is column i; powers after scaling sum to total_power_db = 0 dB
+    assert [t["delay_s"] for t in manifest["taps"]] == pytest.approx([0.0, 130e-9, 410e-9])
+    assert sum(10 ** (t["power_db"] / 10) for t in manifest["taps"]) == pytest.approx(1.0)
+    assert manifest["taps"][0]["k_db"] == pytest.approx(6.0) and manifest["taps"][1]["k_db"] is None
+    assert manifest["taps"][0]["los_doppler_hz"] == pytest.approx(50 * np.cos(np.pi / 4))
+    assert manifest["taps"][0]["los_phase_deg"] is not None  # drawn from the seed, recorded
+    assert verify_integrity(out) == []
+
+
+def test_same_seed_same_bytes_other_seed_other_bytes(profile_file, tmp_path):
+    options = dict(duration_s=3, update_rate_hz=800, sample_rate_hz=5e6, formats="cf32,ci16")
+    a = compiler.compile_profile(profile_file, tmp_path / "a", seed=11, **options)
+    b = compiler.compile_profile(profile_file, tmp_path / "b", seed=11, **options)
+    c = compiler.compile_profile(profile_file, tmp_path / "c", seed=12, **options)
+    assert _data_hashes(a.path) == _data_hashes(b.path)
+    different = _data_hashes(c.path)
+    assert different["tap_gains.npy"] != _data_hashes(a.path)["tap_gains.npy"]
+    assert different["fir_map.npy"] == _data_hashes(a.path)["fir_map.npy"]  # no randomness in the map
+    # only created_utc may differ between the two manifests
+    ma, mb = dict(a.manifest), dict(b.manifest)
+    ma.pop("created_utc"), mb.pop("created_utc")
+    assert ma == mb
+
+
+def test_reproduce_says_identical_and_exits_0(profile_file, tmp_path):
+    out = tmp_path / "b"
+    compiler.compile_profile(profile_file, out, duration_s=2, update_rate_hz=1000, seed=5,
+                             sample_rate_hz=20e6)
+    result = _run("reproduce", out)
+    assert result.exit_code == 0, result.output
+    assert "identical" in result.output
+
+
+def test_reproduce_finds_different_numbers_and_exits_1(profile_file, tmp_path):
+    out = tmp_path / "b"
+    compiler.compile_profile(profile_file, out, duration_s=2, update_rate_hz=1000, seed=5)
+    # Make the manifest claim another seed (a bundle whose numbers do not follow from it).
+    manifest_path = out / "manifest.json"
+    manifest = json.loads(manifest_path.read_text())
+    manifest["seed"] = 6
+    manifest_path.write_text(json.dumps(manifest))
+    result = _run("reproduce", out)
+    assert result.exit_code == 1, result.output
+    assert "different" in result.output
+
+
+def test_reproduce_notices_edited_data_even_with_the_old_hash(profile_file, tmp_path):
+    out = tmp_path / "b"
+    compiler.compile_profile(profile_file, out, duration_s=2, update_rate_hz=1000, seed=5)
+    gains = np.load(out / "tap_gains.npy", mmap_mode="r+")
+    gains[100, 0, 0, 1] *= 2
+    gains.flush()
+    del gains
+    assert compiler.reproduce_bundle(out).status == compiler.DIFFERENT
+
+
+def test_every_demo_profile_compiles_and_reproduces(tmp_path):
+    for demo in DEMOS:
+        out = tmp_path / demo.stem
+        result = _run("compile", demo, "-o", out, "--duration", 2, "--seed", 1, "--quiet")
+        assert result.exit_code == 0, (demo, result.output)
+        assert verify_integrity(out) == []
+        assert compiler.reproduce_bundle(out).status == compiler.IDENTICAL
+
+
+# -- choices and refusals ---------------------------------------------------------------
+
+
+def test_defaults_come_from_the_compile_block_then_the_stated_rules(tmp_path):
+    text = THREE_TAPS + "compile: {update_rate_hz: 1500, duration_s: 2, seed: 42}\n"
+    profile = load_profile_text(text, filename="p.yaml")
+    plan = compiler.plan_compile(profile, tmp_path / "x")
+    assert (plan.update_rate_hz, plan.n_samples, plan.seed) == (1500.0, 3000, 42)
+    assert plan.sources["update_rate_hz"] == "profile"
+    # the command line overrides the block
+    plan = compiler.plan_compile(profile, tmp_path / "x", update_rate_hz=2000, seed=1)
+    assert (plan.update_rate_hz, plan.seed, plan.sources["seed"]) == (2000.0, 1, "option")
+    # without either: 64 x the largest Doppler, the default duration, a drawn and recorded seed
+    bare = load_profile_text(THREE_TAPS, filename="p.yaml")
+    plan = compiler.plan_compile(bare, tmp_path / "x")
+    assert plan.update_rate_hz == pytest.approx(compiler.DEFAULT_UPDATE_FACTOR * 50.0)
+    assert plan.duration_s == pytest.approx(compiler.DEFAULT_DURATION_S)
+    assert plan.sources["seed"] == "drawn" and 0 <= plan.seed < 2**63
+
+
+def test_update_rate_below_the_minimum_is_refused_with_the_minimum(profile_file, tmp_path):
+    result = _run("compile", profile_file, "-o", tmp_path / "x", "--update-rate", 90)
+    assert result.exit_code == 2
+    assert "minimum" in result.output and "110" in result.output  # 2.2 x 50 Hz
+    assert not (tmp_path / "x").exists()
+
+
+def test_update_rate_below_16x_warns_about_images(profile_file, tmp_path):
+    result = _run("compile", profile_file, "-o", tmp_path / "x", "--update-rate", 400,
+                  "--duration", 1, "--seed", 1, "--quiet")
+    assert result.exit_code == 0
+    assert "images" in result.output and "warning" in result.output
+
+
+def test_size_limit_refuses_before_writing(profile_file, tmp_path):
+    result = _run("compile", profile_file, "-o", tmp_path / "x", "--duration", 100,
+                  "--update-rate", 10000, "--max-size", "1MB")
+    assert result.exit_code == 2
+    assert "limit" in result.output and "--max-size" in result.output
+    assert not (tmp_path / "x").exists()
+
+
+def test_existing_directory_needs_force_and_force_needs_a_bundle(profile_file, tmp_path):
+    user_dir = tmp_path / "mine"
+    user_dir.mkdir()
+    (user_dir / "notes.txt").write_text("keep me")
+    for extra in ([], ["--force"]):
+        result = _run("compile", profile_file, "-o", user_dir, "--duration", 1, "--seed", 1,
+                      "--quiet", *extra)
+        assert result.exit_code == 2, result.output
+        assert (user_dir / "notes.txt").read_text() == "keep me"
+    out = tmp_path / "b"
+    assert _run("compile", profile_file, "-o", out, "--duration", 1, "--seed", 1, "--quiet").exit_code == 0
+    assert _run("compile", profile_file, "-o", out, "--duration", 1, "--seed", 2, "--quiet").exit_code == 2
+    assert _run("compile", profile_file, "-o", out, "--duration", 1, "--seed", 2, "--quiet",
+                "--force").exit_code == 0
+    assert open_bundle(out).manifest["seed"] == 2
+
+
+def test_bad_profile_is_exit_2_with_its_location(tmp_path):
+    bad = tmp_path / "bad.yaml"
+    bad.write_text(THREE_TAPS.replace("k_db: 6", "k_db: x"))
+    result = _run("compile", bad, "-o", tmp_path / "x")
+    assert result.exit_code == 2
+    assert "bad.yaml:6" in result.output and "/taps/0/k_db" in result.output
+    assert "Traceback" not in result.output
+
+
+def test_summary_names_the_seed_files_and_fir(profile_file, tmp_path):
+    result = _run("compile", profile_file, "-o", tmp_path / "b", "--duration", 1, "--seed", 99,
+                  "--sample-rate", 30.72e6, "--format", "cf32")
+    assert result.exit_code == 0, result.output
+    for text in ("seed        99", "tap_gains.npy", "tap_gains.cf32", "FIR ", "energy kept", "time"):
+        assert text in result.output
+
+
+def test_formats_from_compile_read_back_equal_to_the_npy(profile_file, tmp_path):
+    out = tmp_path / "b"
+    compiler.compile_profile(profile_file, out, duration_s=1, update_rate_hz=1000, seed=2,
+                             sample_rate_hz=10e6, formats="cf32,csv,sigmf,fir,ci16")
+    bundle = open_bundle(out)
+    gains = np.asarray(bundle.tap_gains)
+    assert np.array_equal(bundle.read_format("cf32"), gains)
+    fir = bundle.read_format("fir")
+    assert np.allclose(fir, gains @ bundle.fir_map.astype(np.float32), rtol=0, atol=1e-6)
+
+
+# -- looping ----------------------------------------------------------------------------------
+
+
+def test_periodic_bundle_wraps_without_a_jump(profile_file, tmp_path):
+    """The step across the wrap is like the steps inside (seamless looping, issue 4 point 9)."""
+    out = tmp_path / "loop"
+    result = compiler.compile_profile(profile_file, out, duration_s=4, update_rate_hz=1600, seed=8,
+                                      periodic=True)
+    assert result.manifest["periodic"] is True
+    gains = np.asarray(open_bundle(out).tap_gains)[:, 0, 0, :]
+    steps = np.abs(np.diff(gains, axis=0))
+    wrap = np.abs(gains[0] - gains[-1])
+    # The wrap step of each tap must not exceed the largest step inside the record: a periodic
+    # record's wrap is just one more step of the same process.
+    assert np.all(wrap <= steps.max(axis=0))
+    # Exactly periodic: the engine continued past the end repeats the start bit for bit.
+    plan = result.plan.engine
+    assert np.array_equal(plan.block(len(gains), len(gains) + 100), gains[:100].astype(np.complex64))
+
+
+# -- safety under interruption and limits ----------------------------------------------------------
+
+BIG = """\
+format_version: 1
+name: interrupt-me
+description: invented test profile, large enough to take a few seconds
+max_doppler_hz: 100
+taps:
+""" + "".join(f"  - {{delay_ns: {50 * i}, power_db: {-i}}}\n" for i in range(12))
+
+
+def _leftovers(parent: Path, name: str):
+    return [p.name for p in parent.iterdir() if name in p.name]
+
+
+@pytest.mark.slow
+def test_sigint_during_a_long_compile_leaves_no_bundle(tmp_path):
+    profile = tmp_path / "big.yaml"
+    profile.write_text(BIG)
+    out = tmp_path / "big-bundle"
+    process = subprocess.Popen(
+        [sys.executable, "-m", "emucompile", "compile", str(profile), "-o", str(out), "--update-rate",
+         "10000", "--duration", "200", "--seed", "1", "--quiet"],
+        cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    deadline = time.monotonic() + 60
+    while not _leftovers(tmp_path, ".big-bundle.emucompile-tmp-") and time.monotonic() < deadline:
+        if process.poll() is not None:
+            pytest.fail("compile finished before it could be interrupted: " + process.stderr.read())
+        time.sleep(0.02)
+    time.sleep(0.3)  # well inside the write
+    process.send_signal(signal.SIGINT)
+    _, stderr = process.communicate(timeout=60)
+    assert process.returncode != 0
+    assert "Traceback" not in stderr and "interrupt" in stderr.lower()
+    assert not out.exists()
+    assert _leftovers(tmp_path, "big-bundle") == []
+
+
+@pytest.mark.slow
+def test_file_size_limit_leaves_no_bundle_and_a_clear_message(tmp_path):
+    profile = tmp_path / "big.yaml"
+    profile.write_text(BIG)
+    out = tmp_path / "limited"
+
+    def limit():
+        resource.setrlimit(resource.RLIMIT_FSIZE, (2 * 1024 * 1024, 2 * 1024 * 1024))
+
+    process = subprocess.run(
+        [sys.executable, "-m", "emucompile", "compile", str(profile), "-o", str(out), "--update-rate",
+         "10000", "--duration", "5", "--seed", "1", "--quiet"],
+        cwd=ROOT, capture_output=True, text=True, preexec_fn=limit, timeout=120,
+    )
+    assert process.returncode != 0
+    assert "Traceback" not in process.stderr and "error" in process.stderr
+    assert not out.exists()
+    assert _leftovers(tmp_path, "limited") == []
+
+
+def test_plan_refuses_a_profile_object_with_no_taps_sensibly(tmp_path):
+    from emucompile.profile import Profile
+
+    with pytest.raises(InputError):
+        compiler.plan_compile(Profile(name="empty", taps=()), tmp_path / "x", duration_s=1, seed=1)
+
+
+def test_python_api_names_match_the_command_line():
+    import emucompile
+
+    assert emucompile.compile_profile is compiler.compile_profile
+    assert emucompile.reproduce_bundle is compiler.reproduce_bundle
+    assert callable(emucompile.open_bundle)
+
