@@ -29,6 +29,9 @@ _API = {
     "fit_to_target": "emucompile.target",
     "open_bundle": "emucompile.bundle",
     "verify_integrity": "emucompile.bundle",
+    "apply_bundle": "emucompile.apply",
+    "apply_channel": "emucompile.apply",
+    "read_recording": "emucompile.apply",
 }
 
 
