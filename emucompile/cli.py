@@ -256,16 +256,81 @@ def presets_show(name, delay_spread_ns, output_format):
 # -- apply -------------------------------------------------------------------------
 
 
-@cli.command(epilog="\b\nExample: emucompile apply out/robot burst.sigmf-meta -o faded --snr-db 20 --seed 3")
+@cli.command(epilog="\b\nExamples:\n"
+             "  emucompile apply out/robot burst.sigmf-meta -o faded --snr-db 20 --seed 3\n"
+             "  emucompile apply out/robot burst.cf32 -o faded.cf32 --sample-rate 30.72e6 --loop\n"
+             "\b\nThe output keeps the input's format (npy, cf32 or SigMF) with its metadata\n"
+             "beside it (OUTPUT.json, or the .sigmf-meta): the bundle and its manifest's\n"
+             "SHA-256, the start offset and the FIR's bulk delay, the SNR and the noise seed.\n"
+             "SNR: noise power over the whole sample-rate band against the nominal output\n"
+             "power, input power x the channel's mean power.")
 @click.argument("outdir", metavar="OUTDIR")
 @click.argument("input_file", metavar="INPUT")
-@click.option("-o", "--output", "output_file", required=True, metavar="OUTPUT")
+@click.option("-o", "--output", "output_file", required=True, metavar="OUTPUT", help="Output recording (the input's format).")
 @click.option("--snr-db", type=float, help="Add white Gaussian noise at this SNR.")
-@click.option("--seed", type=int, help="Seed of the noise.")
+@click.option("--seed", type=click.IntRange(min=0), help="Seed of the noise (drawn and recorded when absent).")
 @click.option("--loop", is_flag=True, help="Loop the bundle when the input is longer.")
-def apply(outdir, input_file, **options):
+@click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ",
+              help="Sample rate of an npy/cf32 input (default: the bundle's FIR map's).")
+@click.option("--start", "start_s", type=float, default=0.0, show_default=True, metavar="SECONDS",
+              help="Bundle time of the first output sample.")
+@click.option("--between-updates", type=click.Choice(["linear", "hold"]),
+              help="Gains between update instants (default: the bundle target's, else linear).")
+@click.option("--force", is_flag=True, help="Replace existing output files.")
+@click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
+def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet):
     """Pass an IQ recording through a bundle's time-varying channel."""
-    _not_built("apply")
+    from emucompile.apply import apply_bundle
+
+    with _ProgressBar("applying", quiet) as bar:
+        result = apply_bundle(
+            outdir, input_file, output_file, snr_db=snr_db, seed=seed, loop=loop, sample_rate_hz=sample_rate_hz,
+            start_s=start_s, between_updates=between_updates, force=force, progress=bar.update,
+        )
+    if result.clipped_values:
+        click.echo(f"emucompile: warning: {result.clipped_values} I/Q values clipped to the int16 full scale "
+                   "of the ci16 output (lower the input level)", err=True)
+    if seed is not None and snr_db is None:
+        click.echo("emucompile: note: --seed has no effect without --snr-db", err=True)
+    if quiet:
+        return
+    record = result.record
+    noise = record["noise"]
+    power_db = record["channel"]["mean_power_db"]
+    click.echo(f"wrote {result.files[0]} and {result.files[1]}")
+    click.echo(
+        f"  {result.n_samples} samples x {result.n_rx} rx at {result.sample_rate_hz / 1e6:g} MHz; "
+        f"channel mean power {'-inf' if power_db is None else f'{power_db:.2f}'} dB; "
+        f"bulk delay {record['offsets']['bulk_delay_samples']:g} samples; gains {record['between_updates']}"
+        + (f"; bundle looped {record['bundle_wraps']} time(s)" if record["bundle_wraps"] else "")
+    )
+    if noise is not None:
+        click.echo(f"  noise at SNR {noise['snr_db']:g} dB on the nominal output power, seed {noise['seed']}")
+
+
+class _ProgressBar:
+    """A click progress bar on stderr fed by a library callback ``(done, total)``; nothing when quiet."""
+
+    def __init__(self, label: str, quiet: bool):
+        self.label = label
+        self.quiet = quiet
+        self._bar = None
+
+    def __enter__(self):
+        return self
+
+    def update(self, done: int, total: int) -> None:
+        if self.quiet:
+            return
+        if self._bar is None:
+            self._bar = click.progressbar(length=total, label=self.label, file=sys.stderr)
+            self._bar.__enter__()
+        self._bar.update(done - self._bar.pos)
+
+    def __exit__(self, exc_type, exc, tb):
+        if self._bar is not None:
+            self._bar.__exit__(exc_type, exc, tb)
+        return False
 
 
 def main(argv=None):
