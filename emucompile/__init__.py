@@ -37,7 +37,6 @@ _API = {
     "check_targets": "emucompile.stats",
     "coherence_bandwidth": "emucompile.stats",
     "delay_statistics": "emucompile.stats",
-
     "apply_bundle": "emucompile.apply",
     "apply_channel": "emucompile.apply",
     "read_recording": "emucompile.apply",

@@ -867,11 +867,9 @@ def _resolve_fir_map(bundle, rate_hz: float, delay_mapping: str, bundle_path, in
 
 def _target_between_updates(manifest: dict) -> str | None:
     """``between_updates`` of the bundle's target record, where it states one."""
-    target = manifest.get("target")
-    for place in (target, (target or {}).get("target") if isinstance(target, dict) else None):
-        if isinstance(place, dict) and place.get("between_updates") in BETWEEN_UPDATES:
-            return place["between_updates"]
-    return None
+    constraints = (manifest.get("target") or {}).get("constraints") or {}
+    value = constraints.get("between_updates")
+    return value if value in BETWEEN_UPDATES else None
 
 
 def _check_length(channel: TimeVaryingFir, recording: Recording, duration_s: float, start_s: float) -> None:

@@ -506,7 +506,7 @@ def test_npy_and_cf32_outputs_carry_a_json_sidecar(tmp_path):
 
 
 def test_the_bundle_target_decides_between_hold_and_linear(tmp_path):
-    gains = _siso_bundle(tmp_path / "b", target={"between_updates": "hold", "name": "bench-emulator"})
+    gains = _siso_bundle(tmp_path / "b", target={"constraints": {"between_updates": "hold", "name": "bench-emulator"}, "costs": {}})
     np.save(tmp_path / "x.npy", complex_noise(np.random.default_rng(18), 1000))
     assert ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy").record["between_updates"] == "hold"
     override = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "z.npy", between_updates="linear")
