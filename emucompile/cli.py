@@ -238,19 +238,57 @@ def presets():
     """Channel models of open standards (3GPP, ITU-R)."""
 
 
-@presets.command("list", epilog="\b\nExample: emucompile presets list")
-def presets_list():
-    """List the presets: name, taps, RMS delay spread, source."""
-    _not_built("presets list")
+@presets.command("list", epilog="\b\nExamples:\n  emucompile presets list\n  emucompile presets list --json")
+@click.option("--json", "as_json", is_flag=True, help="Print the list as strict JSON (SI units).")
+def presets_list(as_json):
+    """List the presets: name, taps, RMS delay spread, source.
+
+    The TR 38.901 models (tdl-a ... tdl-e) have normalised delays: their RMS
+    delay spread is shown normalised (about 1) and scales to the wanted one
+    with --delay-spread-ns (presets show) or extends.delay_spread_ns.
+    """
+    import json
+
+    from emucompile.presets import list_presets
+
+    records = list_presets()
+    if as_json:
+        click.echo(json.dumps([r.to_dict() for r in records], indent=2, allow_nan=False))
+        return
+    click.echo(f"{'name':<7} {'taps':>4}  {'rms delay spread':<38} source")
+    for r in records:
+        if r.normalised:
+            spread = f"{r.normalised_rms_delay_spread:.4f} normalised (x delay_spread_ns)"
+        else:
+            spread = f"{r.rms_delay_spread_s * 1e9:.4g} ns"
+        click.echo(f"{r.name:<7} {r.n_taps:>4}  {spread:<38} {r.source}")
 
 
-@presets.command("show", epilog="\b\nExample: emucompile presets show tdl-c --delay-spread-ns 300 --format json")
+@presets.command("show", epilog="\b\nExamples:\n  emucompile presets show tdl-c --delay-spread-ns 300 > lab.yaml\n"
+                 "  emucompile presets show epa --format json")
 @click.argument("name")
 @click.option("--delay-spread-ns", type=float, metavar="X", help="Scale a normalised model to this RMS delay spread.")
-@click.option("--format", "output_format", type=click.Choice(["yaml", "json"]), default="yaml", show_default=True)
+@click.option("--format", "output_format", type=click.Choice(["yaml", "json"]), default="yaml", show_default=True,
+              help="YAML 1.2 (a comment names the source) or JSON.")
 def presets_show(name, delay_spread_ns, output_format):
-    """Print a preset as a valid profile."""
-    _not_built("presets show")
+    """Print a preset as a valid profile (stdout), with its source and Doppler stated.
+
+    The output validates as it is; save it, change it, or build on the preset
+    with extends: in a profile of your own.
+    """
+    import json
+
+    from emucompile.presets import preset_document
+    from emucompile.reader import dump_yaml
+
+    document = preset_document(name, delay_spread_ns=delay_spread_ns)
+    if output_format == "json":
+        click.echo(json.dumps(document, indent=2, allow_nan=False, ensure_ascii=False))
+        return
+    command = f"emucompile presets show {name}" + (
+        f" --delay-spread-ns {delay_spread_ns:g}" if delay_spread_ns is not None else "")
+    click.echo(dump_yaml(document, comment=f"{command}\n{document['preset']['source']}; "
+                         f"preset data version {document['preset']['data_version']}"), nl=False)
 
 
 # -- apply -------------------------------------------------------------------------
