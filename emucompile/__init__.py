@@ -40,6 +40,19 @@ _API = {
     "check_targets": "emucompile.stats",
     "coherence_bandwidth": "emucompile.stats",
     "delay_statistics": "emucompile.stats",
+    "apply_bundle": "emucompile.apply",
+    "apply_channel": "emucompile.apply",
+    "read_recording": "emucompile.apply",
+    "list_presets": "emucompile.presets",
+    "load_preset": "emucompile.presets",
+    "preset_document": "emucompile.presets",
+    "resolve_extends": "emucompile.presets",
+    "PRESET_NAMES": "emucompile.presets",
+    "load_target": "emucompile.target",
+    "check_target_file": "emucompile.target",
+    "MimoSetup": "emucompile.blocks",
+    "Conditions": "emucompile.blocks",
+    "PresetInfo": "emucompile.blocks",
 }
 
 

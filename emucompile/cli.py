@@ -272,34 +272,137 @@ def presets():
     """Channel models of open standards (3GPP, ITU-R)."""
 
 
-@presets.command("list", epilog="\b\nExample: emucompile presets list")
-def presets_list():
-    """List the presets: name, taps, RMS delay spread, source."""
-    _not_built("presets list")
+@presets.command("list", epilog="\b\nExamples:\n  emucompile presets list\n  emucompile presets list --json")
+@click.option("--json", "as_json", is_flag=True, help="Print the list as strict JSON (SI units).")
+def presets_list(as_json):
+    """List the presets: name, taps, RMS delay spread, source.
+
+    The TR 38.901 models (tdl-a ... tdl-e) have normalised delays: their RMS
+    delay spread is shown normalised (about 1) and scales to the wanted one
+    with --delay-spread-ns (presets show) or extends.delay_spread_ns.
+    """
+    import json
+
+    from emucompile.presets import list_presets
+
+    records = list_presets()
+    if as_json:
+        click.echo(json.dumps([r.to_dict() for r in records], indent=2, allow_nan=False))
+        return
+    click.echo(f"{'name':<7} {'taps':>4}  {'rms delay spread':<38} source")
+    for r in records:
+        if r.normalised:
+            spread = f"{r.normalised_rms_delay_spread:.4f} normalised (x delay_spread_ns)"
+        else:
+            spread = f"{r.rms_delay_spread_s * 1e9:.4g} ns"
+        click.echo(f"{r.name:<7} {r.n_taps:>4}  {spread:<38} {r.source}")
 
 
-@presets.command("show", epilog="\b\nExample: emucompile presets show tdl-c --delay-spread-ns 300 --format json")
+@presets.command("show", epilog="\b\nExamples:\n  emucompile presets show tdl-c --delay-spread-ns 300 > lab.yaml\n"
+                 "  emucompile presets show epa --format json")
 @click.argument("name")
 @click.option("--delay-spread-ns", type=float, metavar="X", help="Scale a normalised model to this RMS delay spread.")
-@click.option("--format", "output_format", type=click.Choice(["yaml", "json"]), default="yaml", show_default=True)
+@click.option("--format", "output_format", type=click.Choice(["yaml", "json"]), default="yaml", show_default=True,
+              help="YAML 1.2 (a comment names the source) or JSON.")
 def presets_show(name, delay_spread_ns, output_format):
-    """Print a preset as a valid profile."""
-    _not_built("presets show")
+    """Print a preset as a valid profile (stdout), with its source and Doppler stated.
+
+    The output validates as it is; save it, change it, or build on the preset
+    with extends: in a profile of your own.
+    """
+    import json
+
+    from emucompile.presets import preset_document
+    from emucompile.reader import dump_yaml
+
+    document = preset_document(name, delay_spread_ns=delay_spread_ns)
+    if output_format == "json":
+        click.echo(json.dumps(document, indent=2, allow_nan=False, ensure_ascii=False))
+        return
+    command = f"emucompile presets show {name}" + (
+        f" --delay-spread-ns {delay_spread_ns:g}" if delay_spread_ns is not None else "")
+    click.echo(dump_yaml(document, comment=f"{command}\n{document['preset']['source']}; "
+                         f"preset data version {document['preset']['data_version']}"), nl=False)
 
 
 # -- apply -------------------------------------------------------------------------
 
 
-@cli.command(epilog="\b\nExample: emucompile apply out/robot burst.sigmf-meta -o faded --snr-db 20 --seed 3")
+@cli.command(epilog="\b\nExamples:\n"
+             "  emucompile apply out/robot burst.sigmf-meta -o faded --snr-db 20 --seed 3\n"
+             "  emucompile apply out/robot burst.cf32 -o faded.cf32 --sample-rate 30.72e6 --loop\n"
+             "\b\nThe output keeps the input's format (npy, cf32 or SigMF) with its metadata\n"
+             "beside it (OUTPUT.json, or the .sigmf-meta): the bundle and its manifest's\n"
+             "SHA-256, the start offset and the FIR's bulk delay, the SNR and the noise seed.\n"
+             "SNR: noise power over the whole sample-rate band against the nominal output\n"
+             "power, input power x the channel's mean power.")
 @click.argument("outdir", metavar="OUTDIR")
 @click.argument("input_file", metavar="INPUT")
-@click.option("-o", "--output", "output_file", required=True, metavar="OUTPUT")
+@click.option("-o", "--output", "output_file", required=True, metavar="OUTPUT", help="Output recording (the input's format).")
 @click.option("--snr-db", type=float, help="Add white Gaussian noise at this SNR.")
-@click.option("--seed", type=int, help="Seed of the noise.")
+@click.option("--seed", type=click.IntRange(min=0), help="Seed of the noise (drawn and recorded when absent).")
 @click.option("--loop", is_flag=True, help="Loop the bundle when the input is longer.")
-def apply(outdir, input_file, **options):
+@click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ",
+              help="Sample rate of an npy/cf32 input (default: the bundle's FIR map's).")
+@click.option("--start", "start_s", type=float, default=0.0, show_default=True, metavar="SECONDS",
+              help="Bundle time of the first output sample.")
+@click.option("--between-updates", type=click.Choice(["linear", "hold"]),
+              help="Gains between update instants (default: the bundle target's, else linear).")
+@click.option("--force", is_flag=True, help="Replace existing output files.")
+@click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
+def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet):
     """Pass an IQ recording through a bundle's time-varying channel."""
-    _not_built("apply")
+    from emucompile.apply import apply_bundle
+
+    with _ProgressBar("applying", quiet) as bar:
+        result = apply_bundle(
+            outdir, input_file, output_file, snr_db=snr_db, seed=seed, loop=loop, sample_rate_hz=sample_rate_hz,
+            start_s=start_s, between_updates=between_updates, force=force, progress=bar.update,
+        )
+    if result.clipped_values:
+        click.echo(f"emucompile: warning: {result.clipped_values} I/Q values clipped to the int16 full scale "
+                   "of the ci16 output (lower the input level)", err=True)
+    if seed is not None and snr_db is None:
+        click.echo("emucompile: note: --seed has no effect without --snr-db", err=True)
+    if quiet:
+        return
+    record = result.record
+    noise = record["noise"]
+    power_db = record["channel"]["mean_power_db"]
+    click.echo(f"wrote {result.files[0]} and {result.files[1]}")
+    click.echo(
+        f"  {result.n_samples} samples x {result.n_rx} rx at {result.sample_rate_hz / 1e6:g} MHz; "
+        f"channel mean power {'-inf' if power_db is None else f'{power_db:.2f}'} dB; "
+        f"bulk delay {record['offsets']['bulk_delay_samples']:g} samples; gains {record['between_updates']}"
+        + (f"; bundle looped {record['bundle_wraps']} time(s)" if record["bundle_wraps"] else "")
+    )
+    if noise is not None:
+        click.echo(f"  noise at SNR {noise['snr_db']:g} dB on the nominal output power, seed {noise['seed']}")
+
+
+class _ProgressBar:
+    """A click progress bar on stderr fed by a library callback ``(done, total)``; nothing when quiet."""
+
+    def __init__(self, label: str, quiet: bool):
+        self.label = label
+        self.quiet = quiet
+        self._bar = None
+
+    def __enter__(self):
+        return self
+
+    def update(self, done: int, total: int) -> None:
+        if self.quiet:
+            return
+        if self._bar is None:
+            self._bar = click.progressbar(length=total, label=self.label, file=sys.stderr)
+            self._bar.__enter__()
+        self._bar.update(done - self._bar.pos)
+
+    def __exit__(self, exc_type, exc, tb):
+        if self._bar is not None:
+            self._bar.__exit__(exc_type, exc, tb)
+        return False
 
 
 # -- helpers shared by commands ---------------------------------------------------------

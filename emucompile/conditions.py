@@ -119,6 +119,28 @@ class HighSpeedTrain:
         """2 D_s / v: the trajectory repeats with this period."""
         return 2.0 * self.ds_m / self.speed_mps
 
+    @property
+    def peak_doppler_hz(self) -> float:
+        """max |f_s(t)| = f_d (D_s/2) / sqrt(D_min^2 + D_s^2/4), reached at t = 0 and t = D_s/v.
+
+        |x| in B.3.2/B.3.3 is largest, D_s/2, at the ends of each piece; this is
+        what an update rate must resolve (slightly below f_d).
+        """
+        half = self.ds_m / 2.0
+        return self.max_doppler_hz * half / math.hypot(self.dmin_m, half)
+
+    @property
+    def mean_square_doppler_hz2(self) -> float:
+        """Mean of f_s(t)^2 over a period: f_d^2 (1 - (2 D_min/D_s) atan(D_s / (2 D_min))).
+
+        Over each piece x sweeps [-D_s/2, D_s/2] at speed v, so the time mean of
+        cos^2 theta = x^2/(D_min^2 + x^2) is (1/D_s) times its integral over x,
+        x - D_min atan(x/D_min). The mean of f_s itself is 0 (F vanishes at the
+        period's end), so this is also its variance.
+        """
+        ratio = self.ds_m / (2.0 * self.dmin_m)
+        return self.max_doppler_hz**2 * (1.0 - math.atan(ratio) / ratio)
+
     def cos_theta(self, time_s) -> np.ndarray:
         """cos theta(t), equations B.3.2-B.3.4 (vectorised)."""
         t = self._time_in_period(time_s)
@@ -249,6 +271,12 @@ class MovingPropagation:
         """d(Delta tau)/dt = (A/2) Delta omega cos(Delta omega t), seconds per second."""
         t = np.asarray(time_s, dtype=float)
         return self.max_offset_s * self.angular_rate_per_s * np.cos(self.angular_rate_per_s * t)
+
+    def peak_carrier_doppler_hz(self, carrier_hz: float | None) -> float:
+        """Largest |Doppler| the drift adds to every tap: f_c (A/2) delta_omega if the carrier follows, else 0."""
+        if not self.carrier_follows:
+            return 0.0
+        return float(carrier_hz) * self.max_offset_s * self.angular_rate_per_s
 
     def carrier_phase_rad(self, time_s, carrier_hz: float) -> np.ndarray:
         """Phase added to every tap: -2 pi f_c Delta tau(t) if the carrier follows, else 0."""

@@ -7,11 +7,20 @@ is ``null``). Every later stage reads only these dataclasses, never the file.
 
 Public entry points: :func:`load_profile` (raise on any error) and
 :func:`check_profile` (collect every problem, for ``emucompile validate``).
+
+A profile with ``extends:`` is resolved first (:func:`emucompile.presets.resolve_extends`):
+the checks then apply to the resolved document, and a problem inside the
+preset's data is reported at the ``extends`` key (or at the override that
+touches it), its message naming the place in the resolved profile. The
+optional blocks become frozen objects: ``mimo`` -> :class:`emucompile.blocks.MimoSetup`,
+``conditions`` -> :class:`emucompile.blocks.Conditions`, ``target`` ->
+:class:`emucompile.target.Target`, ``preset`` -> :class:`emucompile.blocks.PresetInfo`.
 """
 
 from __future__ import annotations
 
 import copy
+import dataclasses
 import difflib
 import functools
 import hashlib
@@ -19,9 +28,12 @@ import importlib.resources
 import json
 import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from emucompile._version import __version__
+if TYPE_CHECKING:  # the blocks' modules load only when a profile has the block
+    from emucompile.blocks import Conditions, MimoSetup, PresetInfo
+    from emucompile.target import Target
+
 from emucompile.errors import Problem, ProfileError
 from emucompile.reader import Document, parse_text, pointer_join, pointer_tokens, read_document
 from emucompile.theory import SPECTRUM_KINDS, DopplerSpectrum, doppler_from_speed
@@ -60,6 +72,15 @@ class Tap:
         it from the seed" (the compiled bundle records the value drawn).
     index : int
         Position of the tap in the file (0-based), kept for messages.
+    los_trajectory : str or None
+        ``"high_speed_train"`` when that condition drives the direct part's
+        Doppler over time (``los_doppler_hz`` is then None; the phase comes
+        from ``Profile.conditions.high_speed_train``); None for a constant shift.
+    los_peak_doppler_hz : float or None
+        Largest |Doppler| the direct part reaches on its trajectory.
+    drift_doppler_hz : float
+        Largest |frequency shift| of the whole gain from a moving delay whose
+        carrier phase follows it (0 otherwise).
     """
 
     delay_s: float
@@ -73,6 +94,9 @@ class Tap:
     los_angle_deg: float | None = None
     los_phase_deg: float | None = None
     index: int = 0
+    los_trajectory: str | None = None
+    los_peak_doppler_hz: float | None = None
+    drift_doppler_hz: float = 0.0
 
     @property
     def power_db(self) -> float:
@@ -107,9 +131,11 @@ class Tap:
 
     @property
     def largest_doppler_hz(self) -> float:
-        """Largest frequency in this tap's gain: band edge or direct-part shift."""
+        """Largest frequency in this tap's gain: band edge, direct-part shift or trajectory peak,
+        plus the shift of a moving delay that the carrier follows."""
         edge = self.max_doppler_hz if self.fading != "static" else 0.0
-        return max(edge or 0.0, abs(self.los_doppler_hz or 0.0))
+        direct = max(abs(self.los_doppler_hz or 0.0), self.los_peak_doppler_hz or 0.0)
+        return max(edge or 0.0, direct) + self.drift_doppler_hz
 
 
 @dataclass(frozen=True)
@@ -168,6 +194,17 @@ class Profile:
     ``document`` is the resolved profile document (presets merged, defaults
     explicit, values as written): loading it again gives an equal Profile, and
     :meth:`resolved_sha256` hashes its canonical JSON form.
+
+    The optional blocks, None when absent:
+
+    * ``mimo`` : :class:`emucompile.blocks.MimoSetup` (None for SISO, 1x1
+      included): ``mimo.correlation`` (:class:`emucompile.mimo.SpatialCorrelation`
+      of the diffuse parts), ``mimo.direct_response`` (per-link factor of the
+      direct parts), ``mimo.as_record()`` (contract 3's ``mimo``).
+    * ``conditions`` : :class:`emucompile.blocks.Conditions`.
+    * ``target`` : :class:`emucompile.target.Target` (the ``target:`` block).
+    * ``preset`` : :class:`emucompile.blocks.PresetInfo` (provenance of taps
+      made from a preset).
     """
 
     name: str
@@ -180,10 +217,10 @@ class Profile:
     power_scale_db: float = 0.0
     compile: CompileDefaults = field(default_factory=CompileDefaults)
     expect: tuple[Expectation, ...] = ()
-    mimo: Any = None
-    conditions: Any = None
-    preset: Any = None
-    target: Any = None
+    mimo: MimoSetup | None = None
+    conditions: Conditions | None = None
+    preset: PresetInfo | None = None
+    target: Target | None = None
     document: dict = field(default_factory=dict, compare=False, hash=False, repr=False)
     source: str | None = field(default=None, compare=False)
 
@@ -196,8 +233,17 @@ class Profile:
         return all(t.fading == "static" for t in self.taps)
 
     @property
+    def n_tx(self) -> int:
+        return 1 if self.mimo is None else self.mimo.n_tx
+
+    @property
+    def n_rx(self) -> int:
+        return 1 if self.mimo is None else self.mimo.n_rx
+
+    @property
     def largest_doppler_hz(self) -> float:
-        """Largest frequency in any tap gain (band edges and direct-part shifts)."""
+        """Largest frequency in any tap gain: band edges, direct-part shifts and trajectories
+        (what the update rate must resolve; see :attr:`Tap.largest_doppler_hz`)."""
         return max((t.largest_doppler_hz for t in self.taps), default=0.0)
 
     def canonical_json(self) -> bytes:
@@ -222,9 +268,6 @@ MAX_TAPS = 1024
 
 SCHEMA_RESOURCE = "schemas/profile-v1.schema.json"
 SCHEMA_ID = "https://emucompile.invalid/schemas/profile-v1.schema.json"
-
-NOT_SUPPORTED_YET = ("extends", "mimo", "target", "conditions")
-"""Top-level blocks format_version 1 reserves for later releases; rejected for now."""
 
 MIN_DOPPLER_HZ = 1e-6
 """Smallest maximum Doppler accepted (a coherence time of days): guards the numerics."""
@@ -320,23 +363,122 @@ def check_document(document: Document):
     """Schema and semantic checks of a document read by :mod:`emucompile.reader`.
 
     Returns ``(profile_or_None, problems)``, problems sorted by place in the file.
+    A document with ``extends:`` is resolved first; see the module notes.
     """
     problems = list(document.problems)
     if not document.readable:
         return None, problems
-    value = document.value
+    value, origin = document.value, None
+    if isinstance(value, dict) and "extends" in value:
+        value, found, origin = _resolve_extends(document)
+        problems += found
+        if value is None:
+            return None, _in_file_order(problems)
+    profile, found = _check_value(document, value, failed=any(p.severity == "error" for p in problems),
+                                  standard_keys=origin.standard_keys(value) if origin else None)
+    if origin is not None:
+        found = [origin.relocate(p, document) for p in found]
+    return profile, _in_file_order(problems + found)
+
+
+def _check_value(document: Document, value, *, failed: bool, standard_keys=None):
+    """Non-finite numbers, the schema, then the semantic checks of ``value`` (positions from ``document``).
+
+    ``failed``: an error was found before (reading), so no Profile is built.
+    ``standard_keys``: tap index -> keys a preset set (no warnings about its own design).
+    """
     flagged = set(document.replaced)
-    non_finite = _non_finite_problems(document, value, "", flagged)
-    problems += non_finite
-    flagged |= {p.pointer for p in non_finite}
-    problems += _schema_problems(document, value, flagged)
-    profile = None
-    if isinstance(value, dict):
-        checker = _Checker(document, value)
-        profile = checker.run(build=not any(p.severity == "error" for p in problems))
-        problems += checker.problems
-    problems.sort(key=lambda p: (p.line is None, p.line or 0, p.column or 0))
-    return profile, problems
+    problems = _non_finite_problems(document, value, "", flagged)
+    flagged |= {p.pointer for p in problems}
+    # The target block is checked by emucompile.target (its own messages), not twice.
+    schema_skip = flagged | ({"/target"} if isinstance(value, dict) and "target" in value else set())
+    problems += _schema_problems(document, value, schema_skip)
+    if not isinstance(value, dict):
+        return None, problems
+    broken = {pointer_tokens(p.pointer)[0] for p in problems
+              if p.severity == "error" and p.pointer} | {pointer_tokens(p)[0] for p in flagged if p}
+    checker = _Checker(document, value, broken_blocks=broken, flagged=flagged, standard_keys=standard_keys)
+    profile = checker.run(build=not failed and not any(p.severity == "error" for p in problems))
+    return profile, problems + checker.problems
+
+
+def _in_file_order(problems):
+    return sorted(problems, key=lambda p: (p.line is None, p.line or 0, p.column or 0))
+
+
+# -- extends: ------------------------------------------------------------------------------
+
+_EXTENDS_INPUTS = ("extends", "taps", "preset", "max_doppler_hz", "speed_kmh", "speed_mps", "carrier_hz")
+"""Top-level keys that resolving ``extends`` reads (or refuses)."""
+
+
+def _resolve_extends(document: Document):
+    """``(resolved_value or None, problems, origin)`` of a document with ``extends:``.
+
+    The keys resolution reads are checked against the schema first; when they
+    are in error, the document's own problems are all that is reported.
+    """
+    from emucompile.presets import resolve_extends
+
+    root = document.value
+    flagged = set(document.replaced)
+    problems = _non_finite_problems(document, root, "", flagged)
+    flagged |= {p.pointer for p in problems}
+    problems += _schema_problems(document, root, flagged)
+    if "preset" in root:
+        problems.append(document.problem(
+            "/preset", "'preset' is the provenance block that resolving extends writes; do not give both",
+            "remove the preset block", key=True))
+    touched = {pointer_tokens(p.pointer)[0] for p in problems if p.severity == "error" and p.pointer}
+    touched |= {pointer_tokens(p)[0] for p in flagged if p}
+    if touched & set(_EXTENDS_INPUTS):
+        return None, problems, None
+    try:
+        resolved = resolve_extends(root, source=document.filename)
+    except ProfileError as error:
+        return None, [document.problem(p.pointer, p.message, p.hint, key=p.message.startswith("unknown"))
+                      for p in error.problems], None
+    return resolved, [], _ExtendsOrigin.of(root, resolved)
+
+
+@dataclass(frozen=True)
+class _ExtendsOrigin:
+    """Which parts of a resolved document came from the preset, for placing problems in the user's file."""
+
+    preset: str
+    derived: frozenset  # top-level keys the preset supplied
+    overrides: dict  # tap index -> (pointer of the override, keys it sets)
+
+    @classmethod
+    def of(cls, root, resolved):
+        extends = root["extends"]
+        extends = {"preset": extends} if isinstance(extends, str) else extends
+        overrides = {entry["index"]: (f"/extends/taps/{position}", frozenset(entry) - {"index"})
+                     for position, entry in enumerate(extends.get("taps", []))}
+        derived = frozenset({"taps", "preset"} | {key for key in resolved if key not in root})
+        return cls(extends["preset"], derived, overrides)
+
+    def standard_keys(self, resolved) -> dict[int, frozenset]:
+        """Tap index -> the keys of that resolved tap that are the preset's own (no override sets them)."""
+        return {i: frozenset(tap) - self.overrides.get(i, ("", frozenset()))[1]
+                for i, tap in enumerate(resolved.get("taps", [])) if isinstance(tap, dict)}
+
+    def relocate(self, problem: Problem, document: Document) -> Problem:
+        """The problem placed in the user's file: at the override that touches it, else at ``extends``."""
+        tokens = pointer_tokens(problem.pointer)
+        if not tokens or tokens[0] not in self.derived:
+            return problem
+        where, key = "/extends", True
+        if tokens[0] == "taps" and len(tokens) > 1 and tokens[1].isdigit() and int(tokens[1]) in self.overrides:
+            where, keys = self.overrides[int(tokens[1])]
+            if len(tokens) > 2 and tokens[2] in keys:
+                where = f"{where}/{tokens[2]}"
+            else:
+                key = False
+        line, column = document.locate(where, key=key)
+        return dataclasses.replace(
+            problem, pointer=where, line=line, column=column,
+            message=f"{problem.pointer} of the profile resolved from preset {self.preset}: {problem.message}")
 
 
 @functools.lru_cache(maxsize=1)
@@ -418,7 +560,9 @@ def _describe_schema_error(document, error, pointer):
     if kind == "required":
         for key in expected:
             if key not in instance:
-                yield document.problem(pointer, f"missing required key {key!r}")
+                hint = "or build on a preset: extends: NAME (see emucompile presets list)" \
+                    if key == "taps" and not pointer else None
+                yield document.problem(pointer, f"missing required key {key!r}", hint)
         return
     if kind == "type":
         types = [expected] if isinstance(expected, str) else expected
@@ -522,29 +666,39 @@ class _Checker:
     reported those already), so that all problems come out in one pass.
     """
 
-    def __init__(self, document: Document, root: dict):
+    def __init__(self, document: Document, root: dict, *, broken_blocks=frozenset(), flagged=frozenset(),
+                 standard_keys=None):
         self.document = document
         self.root = root
         self.problems: list[Problem] = []
         self.doppler_source_broken = False
+        self.broken_blocks = set(broken_blocks)  # top-level keys with schema errors: no semantic checks
+        self.flagged = set(flagged)  # pointers whose value was replaced or is not finite (reported)
+        self.trajectory_taps: set[int] = set()
+        self.standard_keys = dict(standard_keys or {})  # tap index -> keys a preset set, unchanged
+
+    def report(self, pointer, message, hint=None, *, severity="error", key=False):
+        """Record a problem at ``pointer``; also the callback the parsers of :mod:`emucompile.blocks` use."""
+        self.problems.append(self.document.problem(pointer, message, hint, severity=severity, key=key))
 
     def error(self, pointer, message, hint=None, *, key=False):
-        self.problems.append(self.document.problem(pointer, message, hint, key=key))
+        self.report(pointer, message, hint, key=key)
 
-    def warning(self, pointer, message, hint=None):
-        self.problems.append(self.document.problem(pointer, message, hint, severity="warning"))
+    def warning(self, pointer, message, hint=None, *, key=False):
+        self.report(pointer, message, hint, severity="warning", key=key)
 
     def run(self, *, build: bool) -> Profile | None:
         """Make every check; return the Profile when ``build`` and nothing is in error."""
-        self._reject_not_supported_yet()
         root = self.root
         taps_value = root.get("taps")
         if isinstance(taps_value, list) and len(taps_value) > MAX_TAPS:
             self.error("/taps", f"{len(taps_value)} taps: at most {MAX_TAPS} are allowed")
         global_doppler_hz, speed_mps = self._global_doppler()
+        raw_taps = taps_value if isinstance(taps_value, list) else []
+        conditions = self._conditions(raw_taps, speed_mps)
         taps = []
         missing_doppler = []
-        for index, tap in enumerate(taps_value if isinstance(taps_value, list) else []):
+        for index, tap in enumerate(raw_taps):
             if isinstance(tap, dict):
                 resolved = self._tap(index, tap, global_doppler_hz)
                 taps.append(resolved)
@@ -561,18 +715,75 @@ class _Checker:
         self._tap_warnings(taps)
         scale_db = self._power_scale(taps)
         expectations = self._expectations()
+        blocks = {"conditions": conditions, "mimo": self._mimo(raw_taps), "target": self._target(),
+                  "preset": self._preset()}
         if not build or any(p.severity == "error" for p in self.problems):
             return None
-        return self._build(taps, global_doppler_hz, speed_mps, scale_db, expectations)
+        return self._build(taps, global_doppler_hz, speed_mps, scale_db, expectations, blocks)
 
-    # -- the one place where reserved blocks are refused -------------------------
-    def _reject_not_supported_yet(self):
-        for key in NOT_SUPPORTED_YET:
-            if key in self.root:
-                self.error(f"/{key}", f"'{key}' is not supported yet in this version "
-                           f"(emucompile {__version__})",
-                           "remove the block; format_version 1 reserves it for a later release",
-                           key=True)
+    # -- the optional blocks (emucompile.blocks, emucompile.target) ----------------
+    def _block(self, key, *, needs_taps=False):
+        """The block's value when present and free of schema errors, else None.
+
+        ``needs_taps``: the block's checks refer to the taps, so they wait for a list of them.
+        """
+        if key not in self.root or key in self.broken_blocks:
+            return None
+        if needs_taps and not isinstance(self.root.get("taps"), list):
+            return None
+        return self.root[key]
+
+    def _conditions(self, raw_taps, speed_mps):
+        if "conditions" in self.root:
+            from emucompile.blocks import high_speed_train_taps
+
+            # Known even when the block is broken: spares its taps a misleading "needs los_*".
+            self.trajectory_taps = high_speed_train_taps(self.root["conditions"], raw_taps)
+        block = self._block("conditions", needs_taps=True)
+        if block is None:
+            return None
+        from emucompile.blocks import parse_conditions
+
+        conditions = parse_conditions(block, self.report, taps=raw_taps, speed_mps=speed_mps,
+                                      carrier_hz=_number(self.root, "carrier_hz"))
+        if conditions is not None:
+            self.trajectory_taps = set(conditions.high_speed_train_taps)
+        return conditions
+
+    def _mimo(self, raw_taps):
+        block = self._block("mimo", needs_taps=True)
+        if block is None:
+            return None
+        from emucompile.blocks import DIRECT_FADINGS, parse_mimo
+
+        direct = [i for i, tap in enumerate(raw_taps)
+                  if isinstance(tap, dict) and tap.get("fading") in DIRECT_FADINGS]
+        return parse_mimo(block, self.report, direct_taps=direct)
+
+    def _target(self):
+        block = self._block("target")
+        if block is None:
+            return None
+        from emucompile.target import check_target, parse_target
+
+        found = [p for p in check_target(block, file=self.document.filename, base_pointer="/target")
+                 if p.pointer not in self.flagged]
+        for problem in found:
+            self.report(problem.pointer, problem.message, problem.hint, severity=problem.severity, key=True)
+        if "format_version" in block:
+            self.warning("/target/format_version", "ignored: a target block takes the profile's format_version",
+                         key=True)
+        if any(p.severity == "error" for p in found):
+            return None
+        return parse_target(block, file=self.document.filename, base_pointer="/target")
+
+    def _preset(self):
+        block = self._block("preset")
+        if block is None:
+            return None
+        from emucompile.blocks import parse_preset_info
+
+        return parse_preset_info(block, self.report)
 
     # -- Doppler -----------------------------------------------------------------
     def _global_doppler(self):
@@ -644,7 +855,11 @@ class _Checker:
         if fading is None:
             return resolved
         self._tap_k_factor(here, tap, fading)
-        resolved["los_doppler_hz"] = self._tap_direct_doppler(here, tap, fading, max_doppler_hz)
+        if index in self.trajectory_taps and fading != "rayleigh":
+            self._tap_on_trajectory(index, here, tap)
+            resolved["los_angle_deg"] = None
+        else:
+            resolved["los_doppler_hz"] = self._tap_direct_doppler(here, tap, fading, max_doppler_hz)
         self._tap_spectrum(here, tap, fading, max_doppler_hz)
         return resolved
 
@@ -654,6 +869,13 @@ class _Checker:
         if fading != "rician" and "k_db" in tap:
             self.error(f"{here}/k_db", f"k_db applies to rician taps only; this tap is {fading}",
                        "remove k_db, or set fading: rician", key=True)
+
+    def _tap_on_trajectory(self, index, here, tap):
+        for key in ("los_angle_deg", "los_doppler_hz"):
+            if key in tap and key not in self.standard_keys.get(index, ()):
+                self.warning(f"{here}/{key}", f"{key} is ignored: the high-speed-train trajectory sets the "
+                             "Doppler of this tap's direct part", "remove it, or leave the tap out of "
+                             "conditions.high_speed_train.taps", key=True)
 
     def _tap_direct_doppler(self, here, tap, fading, max_doppler_hz):
         has_angle, has_doppler = "los_angle_deg" in tap, "los_doppler_hz" in tap
@@ -731,12 +953,14 @@ class _Checker:
             key = "delay_ns" if "delay_ns" in self.root["taps"][tap["index"]] else "delay_us"
             here = f"/taps/{tap['index']}/{key}"
             delay = tap["delay_s"]
-            if previous is not None and delay < previous["delay_s"]:
+            # A preset keeps its standard's table order (and TDL-D/E pairs at one delay) by design.
+            ordered_by_standard = key in self.standard_keys.get(tap["index"], ())
+            if previous is not None and delay < previous["delay_s"] and not ordered_by_standard:
                 self.warning(here, f"delay {_fmt(delay * 1e9, 'ns')} is smaller than the previous "
                              f"tap's {_fmt(previous['delay_s'] * 1e9, 'ns')}: taps are not in "
                              "delay order", "allowed; the taps keep the order written")
             femtoseconds = round(delay * 1e15)  # "one delay" up to round-off
-            if femtoseconds in first_at:
+            if femtoseconds in first_at and not ordered_by_standard:
                 self.warning(here, f"same delay as tap {first_at[femtoseconds]} "
                              f"({_fmt(delay * 1e9, 'ns')})",
                              "legitimate, e.g. a direct and a diffuse part at one delay")
@@ -811,12 +1035,16 @@ class _Checker:
         return found
 
     # -- conversion ---------------------------------------------------------------------
-    def _build(self, taps, global_doppler_hz, speed_mps, scale_db, expectations) -> Profile:
+    def _build(self, taps, global_doppler_hz, speed_mps, scale_db, expectations, blocks) -> Profile:
         root = self.root
         factor = 10.0 ** (scale_db / 10.0)
+        conditions = blocks["conditions"]
+        train = conditions.high_speed_train if conditions is not None else None
+        drift_hz = conditions.drift_doppler_hz if conditions is not None else 0.0
         built = []
         for tap in taps:
             fading = tap["fading"]
+            on_train = train is not None and tap["index"] in conditions.high_speed_train_taps
             built.append(Tap(
                 delay_s=tap["delay_s"],
                 power_linear=10.0 ** (tap["power_db"] / 10.0) * factor,
@@ -829,6 +1057,9 @@ class _Checker:
                 los_angle_deg=tap["los_angle_deg"],
                 los_phase_deg=tap["los_phase_deg"],
                 index=tap["index"],
+                los_trajectory="high_speed_train" if on_train else None,
+                los_peak_doppler_hz=train.peak_doppler_hz if on_train else None,
+                drift_doppler_hz=drift_hz,
             ))
         compile_block = dict(root.get("compile") or {})
         if "seed" in compile_block:
@@ -848,6 +1079,10 @@ class _Checker:
             power_scale_db=scale_db,
             compile=CompileDefaults(**compile_block),
             expect=tuple(expectations),
+            mimo=blocks["mimo"],
+            conditions=conditions,
+            preset=blocks["preset"],
+            target=blocks["target"],
             document=_resolved_document(root),
             source=self.document.filename,
         )
@@ -875,7 +1110,6 @@ __all__ = [
     "FORMAT_VERSION",
     "FADING_KINDS",
     "MAX_TAPS",
-    "NOT_SUPPORTED_YET",
     "EXPECT_QUANTITIES",
     "Tap",
     "CompileDefaults",

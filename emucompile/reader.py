@@ -14,7 +14,9 @@ schema. Tags outside that schema (``!!python/object``, ``!!binary``,
 
 Public entry points: :func:`read_document` (a file) and :func:`parse_text`
 (text already in memory). Both return a :class:`Document` and never raise for
-bad input; its ``problems`` list says what is wrong.
+bad input; its ``problems`` list says what is wrong. :func:`dump_yaml` is the
+way back: a plain document as YAML 1.2 text that :func:`parse_text` reads
+back equal.
 
 References
 ----------
@@ -31,6 +33,7 @@ from __future__ import annotations
 
 import copy
 import json
+import math
 import os
 import re
 from dataclasses import dataclass, field
@@ -199,6 +202,34 @@ def parse_text(text: str, *, filename: str = "<text>", format: str | None = "yam
     else:
         _parse_yaml(text, document)
     return document
+
+
+def dump_yaml(value, *, comment: str | None = None) -> str:
+    """A plain document (dict, list, str, int, float, bool, None) as YAML 1.2 block text.
+
+    Mappings are written in block style, keys in their order; a list item
+    that is a mapping or list of scalars only is written on one line in flow
+    style (``- {delay_ns: 0, power_db: -4.4}``). A string is plain when the
+    YAML 1.2 core schema reads it back as that string, else double-quoted
+    (a JSON string, which is a valid YAML double-quoted scalar). ``comment``
+    lines go first, each after ``# ``.
+
+    Raises
+    ------
+    ValueError
+        For a value that is not plain data, or not finite; or, as a guard, when
+        the text would not read back to an equal document.
+    """
+    lines = [f"# {line}".rstrip() for line in (comment or "").splitlines()]
+    if isinstance(value, dict) and value:
+        _dump_mapping(value, 0, lines)
+    else:
+        lines.append(_dump_flow(value))
+    text = "\n".join(lines) + "\n"
+    back = parse_text(text, format="yaml")
+    if back.problems or back.value != value:
+        raise ValueError("internal: the YAML text does not read back to the same document")
+    return text
 
 
 def pointer_join(pointer: str, token) -> str:
@@ -642,6 +673,62 @@ def _resolve_plain(text: str, tag: str | None):
     return _UNRESOLVED
 
 
+_PLAIN_TEXT = re.compile(r"[A-Za-z_./(][A-Za-z0-9_./()+ -]*[A-Za-z0-9_.)]|[A-Za-z_]")
+
+
+def _dump_mapping(mapping: dict, indent: int, lines: list) -> None:
+    pad = " " * indent
+    for key, item in mapping.items():
+        head = f"{pad}{_dump_scalar(key)}:"
+        if isinstance(item, dict) and item:
+            lines.append(head)
+            _dump_mapping(item, indent + 2, lines)
+        elif isinstance(item, list) and item and not _flat(item):
+            lines.append(head)
+            for entry in item:
+                if isinstance(entry, dict) and entry and not _flat(entry):
+                    lines.append(f"{pad}  -")
+                    _dump_mapping(entry, indent + 4, lines)
+                else:
+                    lines.append(f"{pad}  - {_dump_flow(entry)}")
+        else:
+            lines.append(f"{head} {_dump_flow(item)}")
+
+
+def _flat(collection) -> bool:
+    """True when every member is a scalar (the collection fits on one line in flow style)."""
+    members = collection.values() if isinstance(collection, dict) else collection
+    return not any(isinstance(m, (dict, list)) for m in members)
+
+
+def _dump_flow(value) -> str:
+    if isinstance(value, dict):
+        return "{" + ", ".join(f"{_dump_scalar(k)}: {_dump_flow(v)}" for k, v in value.items()) + "}"
+    if isinstance(value, list):
+        return "[" + ", ".join(_dump_flow(v) for v in value) + "]"
+    return _dump_scalar(value)
+
+
+def _dump_scalar(value) -> str:
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            raise ValueError(f"{value} is not a finite number")
+        text = repr(value)
+        return text if _FLOAT.fullmatch(text) else json.dumps(value)
+    if isinstance(value, str):
+        # Plain only when it cannot be read as anything else (null, true, 1e3, a key, a comment).
+        if _PLAIN_TEXT.fullmatch(value) and _resolve_plain(value, None) == value and "  " not in value:
+            return value
+        return json.dumps(value)
+    raise ValueError(f"cannot write a {type(value).__name__} as YAML")
+
+
 def _to_int(digits: str, base: int = 10):
     if len(digits.lstrip("+-0")) > _MAX_INT_DIGITS:
         return _TOO_LARGE
@@ -662,6 +749,7 @@ __all__ = [
     "Document",
     "read_document",
     "parse_text",
+    "dump_yaml",
     "pointer_join",
     "pointer_tokens",
     "MAX_DOCUMENT_BYTES",

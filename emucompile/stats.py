@@ -77,7 +77,11 @@ def profile_statistics(profile: Profile) -> dict:
         ``mean_doppler_shift_hz``, ``rms_doppler_spread_hz``,
         ``coherence_time_rule_s`` (0.423/f_D), ``coherence_time_strict_rule_s``
         (9/(16 pi f_D)); ``taps`` (one dict per tap); ``reasons`` (why a value
-        is null) and ``rules`` (formula and source of each rule of thumb).
+        is null) and ``rules`` (formula and source of each rule of thumb);
+        the optional blocks: ``preset`` (provenance), ``mimo`` (sizes and how
+        the correlation was made), ``conditions`` (each condition's record and
+        a readable ``summary``), ``target`` (the emulator's constraints), each
+        None when absent.
 
     Notes
     -----
@@ -101,6 +105,14 @@ def profile_statistics(profile: Profile) -> dict:
     sqrt(m2 - m1^2) with m1 = sum L_i nu_i / P and m2 = sum (D_i E_i[f^2] + L_i nu_i^2) / P;
     ``mean_doppler_shift_hz`` is m1. A channel of static taps that do not turn
     has spread 0.
+
+    Time-varying conditions enter as long-run (time-averaged) moments. A
+    direct part on the high-speed-train trajectory contributes L_i mean(f_s^2)
+    to m2 and nothing to m1 (f_s averages to 0 over a period; see
+    :attr:`emucompile.conditions.HighSpeedTrain.mean_square_doppler_hz2`); a
+    moving delay whose carrier follows shifts every tap by
+    nu(t) = nu_max cos(delta_omega t), adding nu_max^2 / 2 to m2. Both count in
+    ``largest_doppler_hz`` at their peak.
     """
     taps = profile.taps
     delays = np.array([t.delay_s for t in taps], dtype=float)
@@ -126,6 +138,7 @@ def profile_statistics(profile: Profile) -> dict:
             reasons[key] = "the RMS delay spread is 0 (all power at one delay): the rule gives infinity"
     out.update(_doppler_statistics(profile, reasons))
     out["taps"] = [_tap_row(t) for t in taps]
+    out.update(_block_records(profile, reasons))
     out["reasons"] = reasons
     out["rules"] = dict(RULES)
     return out
@@ -334,7 +347,8 @@ def format_statistics(statistics: dict, targets: list[TargetResult] | None = Non
             f"{tap['power_linear']:>10.4g} {tap['fading']:<8} "
             f"{_optional(tap['k_db'], '.2f'):>6} {_optional(tap['k_linear'], '.4g'):>8} "
             f"{tap['direct_power_linear']:>9.4g} {tap['scattered_power_linear']:>9.4g} "
-            f"{_optional(tap['max_doppler_hz'], '.4g'):>9} {_optional(tap['los_doppler_hz'], '.4g'):>12}"
+            f"{_optional(tap['max_doppler_hz'], '.4g'):>9} "
+            f"{'trajectory' if tap['los_trajectory'] else _optional(tap['los_doppler_hz'], '.4g'):>12}"
         )
     if targets:
         lines.append("expect")
@@ -343,6 +357,7 @@ def format_statistics(statistics: dict, targets: list[TargetResult] | None = Non
                          f"{_optional(t.value, '.6g')} {_UNIT_TEXT.get(t.unit, t.unit)}"
                          f"{'' if t.reason is None else ' (' + t.reason + ')'}   "
                          f"{'met' if t.met else 'MISSED'}")
+    lines += _block_lines(s)
     return "\n".join(lines)
 
 
@@ -382,12 +397,21 @@ def _correlation_squared(delays, weights, frequency_hz):
 def _doppler_statistics(profile: Profile, reasons: dict) -> dict:
     total = math.fsum(t.power_linear for t in profile.taps)
     fading = [t for t in profile.taps if t.fading != "static"]
+    conditions = profile.conditions
+    train = conditions.high_speed_train if conditions is not None else None
+    drift_hz = conditions.drift_doppler_hz if conditions is not None else 0.0
+
+    def direct_square(tap):
+        if tap.los_trajectory == "high_speed_train":
+            return train.mean_square_doppler_hz2
+        return (tap.los_doppler_hz or 0.0) ** 2
+
     first = math.fsum(t.direct_power_linear * (t.los_doppler_hz or 0.0) for t in profile.taps) / total
     second = math.fsum(
         t.diffuse_power_linear * (t.doppler_spectrum.second_moment_hz2 if t.fading != "static" else 0.0)
-        + t.direct_power_linear * (t.los_doppler_hz or 0.0) ** 2
+        + t.direct_power_linear * direct_square(t)
         for t in profile.taps
-    ) / total
+    ) / total + drift_hz**2 / 2.0
     out = {
         "max_doppler_hz": max((t.max_doppler_hz for t in fading), default=None),
         "largest_doppler_hz": profile.largest_doppler_hz,
@@ -421,8 +445,66 @@ def _tap_row(tap) -> dict:
         "max_doppler_hz": tap.max_doppler_hz,
         "los_doppler_hz": tap.los_doppler_hz,
         "los_phase_deg": tap.los_phase_deg,
+        "los_trajectory": tap.los_trajectory,
+        "largest_doppler_hz": tap.largest_doppler_hz,
         "rms_doppler_hz": tap.doppler_spectrum.rms_doppler_hz if tap.fading != "static" else None,
     }
+
+
+_ABSENT = {
+    "preset": "the taps do not come from a preset",
+    "mimo": "a single link (SISO): no mimo block, or 1x1",
+    "conditions": "no time-varying conditions",
+    "target": "no target block (compile --target may still give one)",
+}
+
+
+def _block_records(profile: Profile, reasons: dict) -> dict:
+    """The optional blocks, JSON-ready (None, with a reason, when absent); the MIMO matrix is left to the manifest."""
+    setup = profile.mimo
+    mimo = conditions = None
+    if setup is not None:
+        from emucompile.blocks import correlation_text
+
+        mimo = {
+            "n_tx": setup.n_tx, "n_rx": setup.n_rx, "n_links": setup.n_links,
+            "correlation": setup.correlation.origin,
+            "correlation_text": correlation_text(setup.correlation),
+            "adjustment": setup.correlation.adjustment,
+            "model": "kronecker" if setup.correlation.tx_matrix is not None else "full matrix",
+            "direct_part": setup.direct_part,
+        }
+    if profile.conditions is not None:
+        conditions = {**profile.conditions.as_record(), "summary": profile.conditions.summary_lines()}
+    records = {
+        "preset": None if profile.preset is None else profile.preset.as_record(),
+        "mimo": mimo,
+        "conditions": conditions,
+        "target": None if profile.target is None else profile.target.to_dict(),
+    }
+    reasons.update({key: _ABSENT[key] for key, value in records.items() if value is None})
+    return records
+
+
+def _block_lines(s: dict) -> list[str]:
+    """The table's lines for the optional blocks present."""
+    lines = []
+    if s.get("preset"):
+        preset = s["preset"]
+        spread = f", scaled to an rms delay spread of {preset['delay_spread_ns']:g} ns" \
+            if preset.get("delay_spread_ns") else ""
+        lines += ["preset", f"  {preset['name']} (data version {preset['data_version']}): "
+                  f"{preset.get('source') or 'source not recorded'}{spread}"]
+    if s.get("mimo"):
+        m = s["mimo"]
+        direct = (m["direct_part"] or {}).get("kind", "none stated (no tap has a direct part)")
+        lines += ["mimo", f"  {m['n_tx']}x{m['n_rx']} ({m['n_links']} links), correlation {m['correlation_text']}",
+                  f"  direct part on the links: {direct}"]
+    if s.get("conditions"):
+        lines += ["conditions"] + [f"  {line}" for line in s["conditions"]["summary"]]
+    if s.get("target"):
+        lines += ["target", "  " + ", ".join(f"{k} {v}" for k, v in s["target"].items() if k != "description")]
+    return lines
 
 
 _PREFIXES = [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"), (1e-12, "p")]

@@ -66,7 +66,7 @@ from __future__ import annotations
 import difflib
 import json
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from importlib import resources
 
 import jsonschema
@@ -366,6 +366,47 @@ def parse_target(document, *, file: str = "<target>", base_pointer: str = "") ->
 
 
 # -- the fit -----------------------------------------------------------------------
+
+
+def check_target_file(source, *, format: str | None = None):
+    """Read and check a target file; ``(target_or_None, problems)``, never raising for bad input.
+
+    The file is read by :func:`emucompile.reader.read_document` (YAML 1.2 or
+    JSON, safely, with positions), so every problem carries its line and column.
+    """
+    from emucompile.reader import read_document
+
+    document = read_document(source, format=format)
+    problems = list(document.problems)
+    if not document.readable:
+        return None, problems
+    for problem in check_target(document.value, file=document.filename):
+        if problem.pointer in document.replaced:
+            continue  # the reader has said why that value is missing
+        line, column = document.locate(problem.pointer, key=True)
+        problems.append(replace(problem, line=line, column=column))
+    problems.sort(key=lambda p: (p.line is None, p.line or 0, p.column or 0))
+    if any(p.severity == "error" for p in problems):
+        return None, problems
+    return parse_target(document.value, file=document.filename), problems
+
+
+def load_target(source, *, format: str | None = None) -> Target:
+    """A :class:`Target` from a target file (``compile --target FILE``).
+
+    Raises
+    ------
+    emucompile.errors.ProfileError
+        Listing every error, one line each (``FILE:LINE:COL: /pointer: message``); exit code 2.
+
+    Examples
+    --------
+    >>> target = load_target("bench-fir-8.yaml")  # doctest: +SKIP
+    """
+    target, problems = check_target_file(source, format=format)
+    if target is None:
+        raise ProfileError(problems)
+    return target
 
 
 def fit_to_target(
@@ -872,6 +913,8 @@ __all__ = [
     "target_schema",
     "check_target",
     "parse_target",
+    "check_target_file",
+    "load_target",
     "fit_to_target",
     "update_images",
     "coefficient_quantisation",

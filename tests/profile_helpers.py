@@ -50,6 +50,16 @@ def warnings(document: dict) -> list:
     return [p for p in check(document)[1] if p.severity == "warning"]
 
 
+def containers(node, found=None) -> list:
+    """Every dict and list inside ``node`` (itself included), for damaging documents at random."""
+    found = [] if found is None else found
+    if isinstance(node, (dict, list)):
+        found.append(node)
+        for child in (node.values() if isinstance(node, dict) else node):
+            containers(child, found)
+    return found
+
+
 def run(*args):
     """Invoke the command line in-process; returns click's Result."""
     return CliRunner().invoke(cli, [str(a) for a in args])

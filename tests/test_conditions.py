@@ -183,6 +183,29 @@ def test_moving_delay_at_chosen_instants(scenario):
     np.testing.assert_allclose(m.delay_rate(0.0), 5e-6 * w)
 
 
+@pytest.mark.parametrize("scenario", sorted(HIGH_SPEED_TRAIN_SCENARIOS))
+def test_peak_and_mean_square_doppler_against_the_trajectory(scenario):
+    # The closed forms against B.3.1-B.3.3 written out (standard_doppler above): the largest |f_s| on
+    # a fine grid over one period, and the mean of f_s^2 by scipy.integrate.quad over each piece.
+    train = high_speed_train(scenario)
+    ds, dmin, kmh, fd = HIGH_SPEED_TRAIN_SCENARIOS[scenario]
+    v = kmh / 3.6
+    grid = np.linspace(0.0, 2 * ds / v, 20001)
+    peak = max(abs(standard_doppler(t, ds, dmin, v, fd)) for t in grid)
+    assert train.peak_doppler_hz == pytest.approx(peak, rel=1e-12)
+    pieces = [integrate.quad(lambda t: standard_doppler(t, ds, dmin, v, fd) ** 2, a, b, limit=200)[0]
+              for a, b in ((0.0, ds / v), (ds / v, 2 * ds / v))]
+    assert train.mean_square_doppler_hz2 == pytest.approx(sum(pieces) / (2 * ds / v), rel=1e-9)
+
+
+def test_peak_carrier_doppler_of_the_moving_delay():
+    # f_c max|d(delta_tau)/dt| = f_c (A/2) delta_omega, from B.4-1; 0 when the carrier does not follow.
+    assert moving_propagation("ts36104-1").peak_carrier_doppler_hz(2e9) == 0.0
+    follows = moving_propagation("ts36104-2", carrier_follows=True)
+    assert follows.peak_carrier_doppler_hz(2e9) == pytest.approx(2e9 * float(follows.delay_rate(0.0)))
+    assert follows.peak_carrier_doppler_hz(2e9) == pytest.approx(2e9 * 5e-6 * 0.13)
+
+
 def test_carrier_phase_follows_only_when_asked():
     t = np.linspace(0, 100, 11)
     assert np.all(moving_propagation("ts36104-1").carrier_phase_rad(t, 2e9) == 0)

@@ -13,7 +13,6 @@ from profile_helpers import check, errors, profile_dict, warnings, with_taps
 from emucompile.errors import ProfileError
 from emucompile.profile import (
     MAX_TAPS,
-    NOT_SUPPORTED_YET,
     check_profile,
     check_profile_text,
     load_profile,
@@ -231,10 +230,16 @@ def test_too_many_taps():
     assert not errors(with_taps(*taps[:MAX_TAPS]))
 
 
-@pytest.mark.parametrize("key", NOT_SUPPORTED_YET)
-def test_reserved_blocks_are_not_supported_yet(key):
-    value = "tdl-c" if key in ("extends", "target") else {}
-    only_error(profile_dict(**{key: value}), f"/{key}", "not supported yet")
+@pytest.mark.parametrize("key, value, pointer", [
+    ("mimo", {}, "/mimo"),
+    ("conditions", {}, "/conditions"),
+    ("target", {}, "/target"),
+    ("extends", 3, "/extends"),
+])
+def test_the_formerly_reserved_blocks_are_checked_by_the_schema(key, value, pointer):
+    # The blocks are real now (tests/test_profile_blocks.py); a wrong shape is one located error.
+    found = errors(profile_dict(**{key: value}))
+    assert found and all(p.pointer.startswith(pointer) for p in found), [p.format() for p in found]
 
 
 # -- warnings (valid, exit 0) ---------------------------------------------------------------

@@ -12,7 +12,7 @@ from pathlib import Path
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from profile_helpers import BASE, assert_clean_failure, run
+from profile_helpers import BASE, assert_clean_failure, containers, run
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMOS = sorted((ROOT / "profiles_demo").iterdir())
@@ -203,19 +203,11 @@ RICH = {
 }
 
 
-def _containers(node, found):
-    if isinstance(node, (dict, list)):
-        found.append(node)
-        for child in (node.values() if isinstance(node, dict) else node):
-            _containers(child, found)
-    return found
-
-
 @st.composite
 def damaged_documents(draw):
     document = copy.deepcopy(RICH)
     for _ in range(draw(st.integers(1, 4))):
-        target = draw(st.sampled_from(_containers(document, [])))
+        target = draw(st.sampled_from(containers(document)))
         action = draw(st.sampled_from(["set", "delete", "add"]))
         if isinstance(target, dict):
             if action == "delete" and target:
