@@ -477,11 +477,27 @@ def _compile_summary(result) -> str:
 
 
 def _costs_text(costs: dict) -> str:
-    parts = []
-    for key, value in costs.items():
-        if isinstance(value, (int, float)) and not isinstance(value, bool):
-            parts.append(f"{key} {value:.4g}")
-    return ", ".join(parts) if parts else "(see manifest.json)"
+    """What fitting to the target cost, on a few lines."""
+    def db(value):
+        return "none" if value is None else f"{value:.1f} dB"
+
+    merged = costs.get("merged") or []
+    dropped = costs.get("dropped_taps") or []
+    lines = [
+        f"{costs['delay_mapping']} mapping, delay step {costs['delay_step_samples']} sample(s): "
+        f"{costs['n_paths']} path(s), {len(merged)} merged group(s), {len(dropped)} tap(s) dropped",
+        f"RMS delay spread {costs['profile_rms_delay_spread_s'] * 1e9:.1f} -> "
+        f"{costs['fit_rms_delay_spread_s'] * 1e9:.1f} ns; power dropped {costs['power_dropped_db']:.3f} dB; "
+        f"largest delay error {costs['max_abs_delay_error_s'] * 1e9:.1f} ns",
+        f"update images {db(costs.get('image_to_wanted_db'))} ({costs['between_updates']} at "
+        f"{costs['update_rate_hz']:g} Hz), droop {costs['droop_db']:.3f} dB",
+    ]
+    quantisation = costs.get("quantisation")
+    if quantisation:
+        lines.append(f"coefficient SQNR {quantisation['sqnr_db']:.1f} dB ({quantisation['bits']} bits, "
+                     f"headroom {quantisation['headroom_db']:g} dB)")
+    lines += [f"note: {note}" for note in costs.get("notes") or []]
+    return "\n            ".join(lines)
 
 
 def main(argv=None):

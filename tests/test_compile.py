@@ -316,3 +316,59 @@ def test_python_api_names_match_the_command_line():
     assert emucompile.reproduce_bundle is compiler.reproduce_bundle
     assert callable(emucompile.open_bundle)
 
+
+
+# -- emulator targets -----------------------------------------------------------------------------
+
+COARSE_TARGET = """\
+format_version: 1
+name: coarse-emulator
+description: invented emulator constraints
+sample_rate_hz: 30.72e6
+max_fir_coefficients: 8
+delay_step_samples: 4
+between_updates: linear
+coefficient_bits: 12
+"""
+
+
+def test_target_with_4_sample_resolution_and_8_taps_reports_its_fit_costs(profile_file, tmp_path):
+    target = tmp_path / "target.yaml"
+    target.write_text(COARSE_TARGET)
+    out = tmp_path / "fit"
+    result = _run("compile", profile_file, "-o", out, "--target", target, "--duration", 2,
+                  "--seed", 1, "--update-rate", 2000)
+    assert result.exit_code == 0, result.output
+    for text in ("target fit", "delay step 4", "RMS delay spread", "power dropped", "update images",
+                 "coefficient SQNR"):
+        assert text in result.output
+    manifest = open_bundle(out).manifest
+    costs = manifest["target"]["costs"]
+    assert manifest["target"]["constraints"]["max_fir_coefficients"] == 8
+    # 4 samples at 30.72 MHz = 130.2 ns: taps at 0, 130 and 410 ns fall on grid points 0, 1, 3
+    fir_map = open_bundle(out).fir_map
+    assert fir_map.shape[1] <= 8 * 4
+    assert set(np.flatnonzero(np.any(fir_map != 0, axis=0))) == {0, 4, 12}
+    assert costs["delay_step_samples"] == 4 and costs["quantisation"]["bits"] == 12
+    assert compiler.reproduce_bundle(out).status == compiler.IDENTICAL
+
+
+def test_target_that_cannot_hold_the_profile_is_refused(profile_file, tmp_path):
+    target = tmp_path / "target.yaml"
+    target.write_text(COARSE_TARGET.replace("max_fir_coefficients: 8", "max_fir_coefficients: 2"))
+    result = _run("compile", profile_file, "-o", tmp_path / "x", "--target", target, "--seed", 1)
+    assert result.exit_code == 2
+    assert "cannot hold" in result.output and "max_fir_coefficients" in result.output
+
+
+def test_target_block_in_the_profile_is_used_and_the_option_overrides_it(tmp_path):
+    block = "target:\n" + "".join(f"  {line}\n" for line in COARSE_TARGET.splitlines()
+                                   if not line.startswith("format_version"))
+    profile = load_profile_text(THREE_TAPS + block, filename="p.yaml")
+    plan = compiler.plan_compile(profile, tmp_path / "x", duration_s=1, seed=1, update_rate_hz=2000)
+    assert plan.sources["target"] == "profile" and plan.fir.delay_step_samples == 4
+    other = tmp_path / "fine.yaml"
+    other.write_text(COARSE_TARGET.replace("delay_step_samples: 4", "delay_step_samples: 2"))
+    plan = compiler.plan_compile(profile, tmp_path / "x", duration_s=1, seed=1, update_rate_hz=2000,
+                                 target=other)
+    assert plan.sources["target"] == "option" and plan.fir.delay_step_samples == 2
