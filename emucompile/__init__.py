@@ -21,6 +21,11 @@ _API = {
     "check_profile": "emucompile.profile",
     "Profile": "emucompile.profile",
     "Tap": "emucompile.profile",
+    "FadingPlan": "emucompile.fading",
+    "GENERATOR_VERSION": "emucompile.fading",
+    "plan_fading": "emucompile.fading",
+    "generate_tap_gains": "emucompile.fading",
+    "stream_tap_gains": "emucompile.fading",
 }
 
 
