@@ -7,7 +7,10 @@ process, right after, numpy draws the same number of iid complex64
 Gaussians in the same chunks (``Generator.standard_normal(dtype=float32)``
 viewed as complex64): the baseline. Printed: our throughput in complex
 samples per second, the baseline's, and their ratio (target >= 1.0), over
-several repeats (the machine is shared: min / median / max).
+several repeats (the machine is shared: min / median / max). Wall-clock
+ratios depend on what else runs; the CPU-time ratio (process time, summed
+over our threads, against the baseline's) is printed beside them: with one
+thread it is the ratio of the work done, whatever the load.
 
 Peak memory is measured in a separate subprocess per length (so that one
 case cannot inherit another's heap): ``tracemalloc`` peak of everything
@@ -65,11 +68,13 @@ def main(argv=None):
                 runs = [_run({"case": "time", "method": method, "n": n, "threads": threads})
                         for _ in range(args.repeats)]
                 ratios = [r["ours_per_s"] / r["iid_per_s"] for r in runs]
+                cpu = [r["iid_cpu_s"] / r["ours_cpu_s"] for r in runs]
                 ours = statistics.median(r["ours_per_s"] for r in runs)
                 iid = statistics.median(r["iid_per_s"] for r in runs)
-                print(f"  n = {n:>9,d}/tap: ours {ours / 1e6:7.1f} M complex/s, iid {iid / 1e6:7.1f} M/s, "
-                      f"ratio ours/iid min {min(ratios):.2f} median {statistics.median(ratios):.2f} "
-                      f"max {max(ratios):.2f}  (plan {statistics.median(r['plan_s'] for r in runs):.2f} s)")
+                print(f"  n = {n:>10,d}/tap: ours {ours / 1e6:6.1f} M complex/s, iid {iid / 1e6:6.1f} M/s; "
+                      f"ratio ours/iid wall min {min(ratios):.2f} median {statistics.median(ratios):.2f} "
+                      f"max {max(ratios):.2f}; cpu-time ratio median {statistics.median(cpu):.2f} "
+                      f"(plan {statistics.median(r['plan_s'] for r in runs):.2f} s, load {runs[-1]['load']:.1f})")
         peaks = {n: _run({"case": "memory", "method": method, "n": n, "threads": "auto"}) for n in LENGTHS}
         small, large = (peaks[n] for n in LENGTHS)
         ratio = large["traced_peak_bytes"] / small["traced_peak_bytes"]
@@ -110,23 +115,24 @@ def _work(job: dict) -> dict:
     t0 = time.perf_counter()
     p = fading.plan(_profile(), RATE_HZ, n, 20261202, method=job["method"], threads=threads)
     plan_s = time.perf_counter() - t0
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     for _, gains in p.chunks(CHUNK):
         pass
-    ours_s = time.perf_counter() - t0
+    ours_s, ours_cpu = time.perf_counter() - t0, time.process_time() - c0
     if job["case"] == "memory":
         peak = tracemalloc.get_traced_memory()[1]
         tracemalloc.stop()
         return {"traced_peak_bytes": peak,
                 "maxrss_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024}
     rng = np.random.default_rng(1)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     for start in range(0, n, CHUNK):
         m = min(CHUNK, n - start)
         rng.standard_normal((m, 2 * N_TAPS), dtype=np.float32).view(np.complex64)
-    iid_s = time.perf_counter() - t0
+    iid_s, iid_cpu = time.perf_counter() - t0, time.process_time() - c0
     count = n * N_TAPS
-    return {"ours_per_s": count / ours_s, "iid_per_s": count / iid_s, "plan_s": plan_s}
+    return {"ours_per_s": count / ours_s, "iid_per_s": count / iid_s, "plan_s": plan_s,
+            "ours_cpu_s": ours_cpu, "iid_cpu_s": iid_cpu, "load": os.getloadavg()[0]}
 
 
 def _platform_line():

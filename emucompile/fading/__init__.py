@@ -67,8 +67,10 @@ from emucompile.fading._streams import BIT_GENERATOR
 GENERATOR_VERSION = 1
 
 #: Largest difference, relative to a tap's RMS gain, promised between runs of the
-#: same version on different machines or library versions (see :func:`reproducibility`).
-CROSS_PLATFORM_TOLERANCE = 2e-5
+#: same version on different machines or library versions (see :func:`reproducibility`):
+#: the float32 engine differs from an independent float64 evaluation of the same
+#: chain by < 5e-7 (measured, tests/test_fading.py), so 1e-5 leaves a factor 20.
+CROSS_PLATFORM_TOLERANCE = 1e-5
 
 
 def plan(profile, update_rate_hz, n_samples, seed, **options) -> FadingPlan:

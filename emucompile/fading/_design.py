@@ -42,7 +42,7 @@ from emucompile.theory import DopplerSpectrum
 INTERNAL_RATE_MIN = 3.0  # f_i / f_D, lowest internal rate considered
 INTERNAL_RATE_MAX = 12.0  # f_i / f_D, highest internal rate considered
 FINAL_STAGE_MIN = 32.0  # f_1 / f_D required before the linear stage
-STAGE1_ATTENUATION_DB = 70.0  # stop-band attenuation of the polyphase low-pass h1
+STAGE1_ATTENUATION_DB = 60.0  # stop-band attenuation of the polyphase low-pass h1
 LAG_WINDOW_DOPPLER_PERIODS = 256.0  # half-span of the lag window, in units of 1/f_D
 LAG_WINDOW_SIGMA_PERIODS = 40.0  # ... and at least this many 1/sigma for a Gaussian spectrum
 LAG_WINDOW_BETA = 9.0  # Kaiser beta of the window whose autocorrelation is the lag window
@@ -51,7 +51,7 @@ DOPPLER_FILTER_TAPER = 0.2  # Tukey taper fraction at the ends of h0
 MAX_DOPPLER_FILTER_LENGTH = 1 << 20
 MAX_POLYPHASE_FACTOR = 64  # R1 when a linear stage follows
 MIN_FFT_SIZE = 4096
-MAX_OUTPUT_BLOCK = 1 << 17  # update-rate samples per synthesis block (bounds the caches)
+MAX_OUTPUT_BLOCK = 1 << 18  # update-rate samples per synthesis block (bounds the caches)
 MIN_INTERNAL_BLOCK = 16
 # Cost model used only to choose (R1, R2): nanoseconds, measured on the
 # development machine (noise + FFT convolution per internal sample, one
@@ -104,6 +104,19 @@ class Chain:
     @property
     def margin1(self) -> int:
         return self.half1 if self.rates.up1 > 1 else 0
+
+    @property
+    def polyphase(self) -> np.ndarray:
+        """h1 as an (R1, 2 half1 + 1) table: x1[m R1 + p] = sum_q P[p, q] y[m + q - half1]."""
+        up1, half1 = self.rates.up1, self.half1
+        table = np.zeros((up1, 2 * half1 + 1), np.float32)
+        centre = half1 * up1
+        for p in range(up1):
+            for q in range(2 * half1 + 1):
+                index = p + centre - up1 * (q - half1)
+                if 0 <= index < len(self.h1):
+                    table[p, q] = self.h1[index]
+        return table
 
     def amplitude_response(self, frequency_hz):
         """Real (zero-phase) amplitude response of stages 1 and 2 at f, 1 at DC."""

@@ -8,6 +8,7 @@ that a time-varying Doppler (phase = 2 pi integral f(t) dt) can later replace
 from __future__ import annotations
 
 import math
+import threading
 from fractions import Fraction
 
 import numpy as np
@@ -34,6 +35,8 @@ class ConstantDopplerPhase:
         self._q = float(self.rate)
         self._table = None
         self._blocks = BoundedCache(2)
+        self._scratch = np.empty(DIRECT_BLOCK, np.complex64)
+        self._lock = threading.Lock()
 
     @property
     def turning(self) -> bool:
@@ -44,17 +47,36 @@ class ConstantDopplerPhase:
         return complex(np.exp(2j * np.pi * self.phase0_cycles))
 
     def phasors(self, start: int, stop: int) -> np.ndarray:
-        """Unit phasors at samples [start, stop), complex128."""
-        out = np.empty(stop - start, np.complex128)
-        pos = start
-        while pos < stop:
-            index = pos // DIRECT_BLOCK
-            first = pos - index * DIRECT_BLOCK
-            take = min(stop - pos, DIRECT_BLOCK - first)
-            data = self._blocks.get(index, lambda: self._block(index))
-            out[pos - start : pos - start + take] = data[first : first + take]
-            pos += take
+        """Unit phasors at samples [start, stop), complex64."""
+        out = np.empty(stop - start, np.complex64)
+        self.write(start, stop, out, 1.0, add=False)
         return out
+
+    def write(self, start: int, stop: int, dest: np.ndarray, amplitude: float, *, add: bool) -> None:
+        """dest (complex64, any stride) = or += amplitude * phasors[start:stop]."""
+        factor = np.float32(amplitude)
+        if not self.turning:
+            value = np.complex64(self.constant()) * factor
+            if add:
+                dest += value
+            else:
+                dest[...] = value
+            return
+        with self._lock:
+            scratch = self._scratch
+            pos = start
+            while pos < stop:
+                index = pos // DIRECT_BLOCK
+                first = pos - index * DIRECT_BLOCK
+                take = min(stop - pos, DIRECT_BLOCK - first)
+                data = self._blocks.get(index, lambda: self._block(index))
+                part = dest[pos - start : pos - start + take]
+                if add:
+                    np.multiply(data[first : first + take], factor, out=scratch[:take])
+                    part += scratch[:take]
+                else:
+                    np.multiply(data[first : first + take], factor, out=part)
+                pos += take
 
     def _block(self, index: int) -> np.ndarray:
         if self._table is None:
@@ -62,4 +84,4 @@ class ConstantDopplerPhase:
             self._table = np.exp(2j * np.pi * np.mod(self._q * k, 1.0))
         start_cycles = float((self.rate * (index * DIRECT_BLOCK)) % 1) + self.phase0_cycles
         start_cycles = math.fmod(start_cycles, 1.0)
-        return np.exp(2j * np.pi * start_cycles) * self._table
+        return (np.exp(2j * np.pi * start_cycles) * self._table).astype(np.complex64)

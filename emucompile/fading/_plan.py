@@ -24,7 +24,6 @@ DEFAULT_SINUSOIDS = 256
 DEFAULT_CHUNK = 65536
 MIN_UPDATE_RATIO = 2.2  # update rate / f_D: Nyquist with a 10 % guard band
 _PARALLEL_MIN_WORK = 1 << 15  # samples x taps below which threads do not pay
-_TILE_ROWS = 4096  # rows of the output written together (fits in L2 with 12 taps)
 
 
 class FadingPlan:
@@ -275,64 +274,41 @@ class FadingPlan:
 
     # -- assembly -------------------------------------------------------------------
     def _assemble(self, start, stop, what, link):
-        """Fill (n, n_taps) in two passes: per-tap synthesis (threads over taps),
-        then the output written in row tiles (threads over tiles), so that the
-        interleaved columns are written while their cache lines are hot."""
+        """Fill (n, n_taps), one task per tap (threads over taps when it pays)."""
         pieces = self._pieces(start, stop)
         n = stop - start
         out = np.empty((n, self.n_taps), np.complex64)
-        parallel = self.threads > 1 and self.n_taps > 1 and n * self.n_taps >= _PARALLEL_MIN_WORK
 
-        def diffuse_of(j):
-            source = self._taps[j]["source"]
-            if what == "direct" or source is None:
-                return None
-            segments = []
-            for _, a, b in pieces:
-                segments.extend(source.segments(a, b, link))
-            starts = np.cumsum([0] + [len(v) for v in segments[:-1]])
-            return starts, segments
+        def fill(j):
+            self._fill_column(self._taps[j], out[:, j], pieces, what, link)
 
-        if parallel:
-            diffuse = list(_executor(self.threads).map(diffuse_of, range(self.n_taps)))
+        if self.threads > 1 and self.n_taps > 1 and n * self.n_taps >= _PARALLEL_MIN_WORK:
+            list(_executor(self.threads).map(fill, range(self.n_taps)))
         else:
-            diffuse = [diffuse_of(j) for j in range(self.n_taps)]
-        tiles = [(r, min(r + _TILE_ROWS, n)) for r in range(0, n, _TILE_ROWS)]
-
-        def write(tile_range):
-            for r0, r1 in tile_range:
-                for j, t in enumerate(self._taps):
-                    self._write_tile(t, out[r0:r1, j], r0, r1, pieces, diffuse[j], what)
-
-        if parallel and len(tiles) > 1:
-            half = (len(tiles) + 1) // 2
-            list(_executor(self.threads).map(write, [tiles[:half], tiles[half:]]))
-        else:
-            write(tiles)
+            for j in range(self.n_taps):
+                fill(j)
         return out
 
-    def _write_tile(self, t, dest, r0, r1, pieces, segments, what):
-        """Rows [r0, r1) of one tap's column (``dest``) from its segments and direct part."""
-        phase = t["phase"]
-        if what == "direct" and phase is None:
-            dest[...] = 1.0
-            return
-        if what == "diffuse" or t["source"] is not None and what == "gain":
-            if segments is None:
-                dest[...] = 0.0
-            else:
-                scale = np.float32(1.0 if what == "diffuse" else t["diffuse_amp"])
-                for lo, hi, view in _overlaps(segments, r0, r1):
-                    np.multiply(view, scale, out=dest[lo - r0 : hi - r0])
-            if what == "diffuse" or phase is None:
-                return
-        amplitude = 1.0 if what == "direct" else t["direct_amp"]
-        add = what == "gain" and t["source"] is not None
+    def _fill_column(self, t, column, pieces, what, link):
+        source, phase = t["source"], t["phase"]
         for offset, a, b in pieces:
-            lo, hi = max(offset, r0), min(offset + (b - a), r1)
-            if lo < hi:
-                _write_direct(phase, a + lo - offset, a + hi - offset, dest[lo - r0 : hi - r0],
-                              amplitude, add=add)
+            dest = column[offset : offset + (b - a)]
+            if what == "direct":
+                if phase is None:
+                    dest[...] = 1.0
+                else:
+                    phase.write(a, b, dest, 1.0, add=False)
+                continue
+            if what == "diffuse":
+                if source is None:
+                    dest[...] = 0.0
+                else:
+                    source.write(a, b, link, dest, 1.0)
+                continue
+            if source is not None:
+                source.write(a, b, link, dest, t["diffuse_amp"])
+            if phase is not None:
+                phase.write(a, b, dest, t["direct_amp"], add=source is not None)
 
     def _pieces(self, start, stop):
         """[(offset in the request, a, b)] with 0 <= a < b <= n_samples (wraps if periodic)."""
@@ -367,30 +343,6 @@ def _doppler_design(spectrum, rates):
 @lru_cache(maxsize=4)
 def _executor(threads: int) -> ThreadPoolExecutor:
     return ThreadPoolExecutor(max_workers=threads, thread_name_prefix="emucompile-fading")
-
-
-def _overlaps(diffuse, r0, r1):
-    """(lo, hi, view) for the parts of consecutive segments lying in rows [r0, r1)."""
-    starts, segments = diffuse
-    i = max(0, int(np.searchsorted(starts, r0, side="right")) - 1)
-    while i < len(segments) and starts[i] < r1:
-        pos = int(starts[i])
-        view = segments[i]
-        lo, hi = max(pos, r0), min(pos + len(view), r1)
-        if lo < hi:
-            yield lo, hi, view[lo - pos : hi - pos]
-        i += 1
-
-
-def _write_direct(phase: ConstantDopplerPhase, a, b, dest, amplitude, *, add):
-    if phase.turning:
-        values = (amplitude * phase.phasors(a, b)).astype(np.complex64)
-    else:
-        values = np.complex64(amplitude * phase.constant())
-    if add:
-        dest += values
-    else:
-        dest[...] = values
 
 
 def _generator_version():

@@ -153,19 +153,22 @@ class SumOfSinusoidsSource(BlockSource):
         turns = np.round(cycles_per_sample * period).astype(np.int64)
         return np.array([((int(t) << PHASE_BITS) + period // 2) // period for t in turns], np.uint64)
 
-    def _synthesise(self, index: int, link: int) -> np.ndarray:
+    def _synthesise(self, index: int, link: int, out: np.ndarray) -> np.ndarray:
         c = self._constants(link)
         m1 = self.chain.margin1
         start = index * self.block - m1
         if self.internal_period is not None:
             start %= self.internal_period
         start_u = np.uint64(start % (1 << 64))
-        parts = []
-        for step, phase, amplitude, table in zip(c["steps"], c["phases"], c["amplitudes"], c["tables"]):
+        y = self.work.get("sum", (self.block + 2 * m1 + 1,), np.complex64)
+        for part, step, phase, amplitude, table in zip(
+            (y.real, y.imag), c["steps"], c["phases"], c["amplitudes"], c["tables"]
+        ):
             cycles = ((step * start_u) & _PHASE_MASK).astype(np.float64) * _PHASE_SCALE + phase
             angle = 2.0 * np.pi * cycles
             coef = np.concatenate([amplitude * np.cos(angle), -amplitude * np.sin(angle)])
-            parts.append((table * coef.astype(np.float32)[None, :]).sum(axis=1))
-        y = parts[0].astype(np.complex64)
-        y.imag = parts[1]
-        return apply_chain(self.chain, y, self.block)
+            # cos(2 pi (psi + t)) = cos 2 pi psi cos 2 pi t - sin 2 pi psi sin 2 pi t, summed
+            # over the sinusoids by einsum's own loop (no BLAS, whose threads could
+            # change the rounding).
+            np.einsum("kn,n->k", table, coef.astype(np.float32), out=part)
+        return apply_chain(self.chain, y, self.block, self.work, out)

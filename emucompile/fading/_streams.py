@@ -35,20 +35,25 @@ def generator(seed: int, *key: int) -> np.random.Generator:
 
 
 def noise_block(seed: int, link: int, tap: int, block: int, size: int) -> np.ndarray:
-    """``size`` unit-power circular complex Gaussian samples (complex128) of one block."""
+    """``size`` unit-power circular complex Gaussian samples (complex64) of one block.
+
+    float32 draws (numpy's float32 ziggurat): half the cost of float64, and
+    far more resolution than the statistics can see.
+    """
     rng = generator(seed, DIFFUSE_NOISE, link, tap, block)
-    out = rng.standard_normal(2 * size).view(np.complex128)
-    out *= np.sqrt(0.5)
+    out = rng.standard_normal(2 * size, dtype=np.float32).view(np.complex64)
+    out *= np.float32(np.sqrt(0.5))
     return out
 
 
 class BoundedCache:
     """A tiny least-recently-used cache (thread-safe), so memory stays bounded."""
 
-    def __init__(self, size: int):
+    def __init__(self, size: int, on_drop=None):
         self._size = size
         self._items: OrderedDict = OrderedDict()
         self._lock = threading.Lock()
+        self._on_drop = on_drop
 
     def get(self, key, make):
         with self._lock:
@@ -60,7 +65,9 @@ class BoundedCache:
             self._items[key] = value
             self._items.move_to_end(key)
             while len(self._items) > self._size:
-                self._items.popitem(last=False)
+                _, dropped = self._items.popitem(last=False)
+                if self._on_drop is not None:
+                    self._on_drop(dropped)
         return value
 
     def clear(self):
