@@ -149,7 +149,8 @@ def reproducibility() -> dict:
         "generator_version": GENERATOR_VERSION,
         "bit_generator": BIT_GENERATOR,
         "seeding": "numpy.random.SeedSequence(seed, spawn_key=(purpose, link, tap[, block]))",
-        "gaussian_sampler": "numpy.random.Generator.standard_normal (float64)",
+        "samplers": "numpy.random.Generator.standard_normal(dtype=float32) for the noise, "
+        ".uniform (float64) for phases and angles",
         "numpy": np.__version__,
         "scipy": scipy.__version__,
         "python": platform.python_version(),

@@ -65,6 +65,8 @@ class FadingPlan:
         if n_sinusoids is None:
             n_sinusoids = DEFAULT_SINUSOIDS
         self.n_sinusoids = _positive_int(n_sinusoids, "n_sinusoids")
+        if threads is not None and (isinstance(threads, bool) or not isinstance(threads, (int, np.integer))):
+            raise InputError(f"threads must be an integer, got {threads!r}")
         self.threads = max(1, int(threads)) if threads is not None else (os.cpu_count() or 1)
         taps = tuple(getattr(profile, "taps", ()) or ())
         if not taps:
@@ -141,7 +143,7 @@ class FadingPlan:
                 "lag_window_kaiser_beta": _design.LAG_WINDOW_BETA,
                 "filter_span": _design.DOPPLER_FILTER_SPAN,
                 "tukey_taper": _design.DOPPLER_FILTER_TAPER,
-                "noise": "circular complex Gaussian, float64, per internal block",
+                "noise": "circular complex Gaussian, numpy float32 ziggurat, one keyed stream per internal block",
             }
         else:
             out["sum_of_sinusoids"] = {
@@ -208,7 +210,7 @@ class FadingPlan:
             rates = _design.RatePlan(self.update_rate_hz, 1, 1)
         else:
             rates = _design.choose_rate_plan(self.update_rate_hz, fd, period)
-        chain = _design.design_chain(rates, fd)
+        chain = _design.design_chain(rates, spectrum)
         internal_period = self.n_samples // rates.total if self.periodic else None
         if self.method == "sum-of-sinusoids":
             return SumOfSinusoidsSource(spectrum, chain, self.n_sinusoids, self.seed, j, internal_period)
@@ -337,7 +339,7 @@ class FadingPlan:
 
 @lru_cache(maxsize=32)
 def _doppler_design(spectrum, rates):
-    return _design.design_doppler_filter(spectrum, _design.design_chain(rates, spectrum.max_doppler_hz))
+    return _design.design_doppler_filter(spectrum, _design.design_chain(rates, spectrum))
 
 
 @lru_cache(maxsize=4)

@@ -117,11 +117,6 @@ class SumOfSinusoidsSource(BlockSource):
         self.output_block = self.block * chain.rates.total
         self._links = BoundedCache(2)
 
-    def frequencies(self, link: int = 0):
-        """The (rounded, in periodic mode) frequencies in Hz of X_c and X_s for a link."""
-        return tuple(q.astype(np.float64) * _PHASE_SCALE * self.chain.rates.internal_rate_hz
-                     for q in self._constants(link)["steps"])
-
     def _constants(self, link: int) -> dict:
         return self._links.get(link, lambda: self._make_constants(link))
 

@@ -54,24 +54,27 @@ def apply_chain(chain: Chain, y: np.ndarray, block: int, work: "Workspace", out:
         x1.imag.reshape(count, up1)[...] = acc[1].T
     else:
         x1[:] = y[: block + 1]
-    low = x1[:n1]
+    low, high = x1[:n1], x1[1 : n1 + 1]
     if up2 == 1:
         out[...] = low
         return out
-    step = work.get("step", (n1,), np.complex64)
-    np.subtract(x1[1 : n1 + 1], low, out=step)
-    # The same float32 x + w (x1 - x) either way (a complex64 times a real
-    # weight is exact per part); only the loop order differs: numpy runs its
-    # inner loop along the last axis, keep that one long.
+    # a_r x1[m] + b_r x1[m+1] (a complex64 times a real weight is exact per
+    # part); only the loop order depends on R2: numpy runs its inner loop
+    # along the last axis, keep that one long.
     grid = out.reshape(n1, up2)
     if up2 < BROADCAST_MIN_FACTOR:
-        for r, weight in enumerate(chain.weights2):
+        term = work.get("term2", (n1,), np.complex64)
+        for r in range(up2):
             dest = grid[:, r]
-            np.multiply(step, weight, out=dest)
-            dest += low
+            np.multiply(low, chain.weights_a[r], out=dest)
+            if r:
+                np.multiply(high, chain.weights_b[r], out=term)
+                dest += term
     else:
-        np.multiply(step[:, None], chain.weights2[None, :], out=grid)
-        grid += low[:, None]
+        term = work.get("term2", (n1, up2), np.complex64)
+        np.multiply(low[:, None], chain.weights_a[None, :], out=grid)
+        np.multiply(high[:, None], chain.weights_b[None, :], out=term)
+        grid += term
     return out
 
 
