@@ -21,8 +21,8 @@ peak at 10^7 is at most 1.2 x the peak at 10^6.
 
 Run from the repository root::
 
-    python benchmarks/bench_fading.py                 # both methods, 3 repeats
-    python benchmarks/bench_fading.py --repeats 5 --methods doppler-filter
+    python benchmarks/bench_fading.py                 # both methods, 1 and 2 threads, 3 repeats
+    python benchmarks/bench_fading.py --repeats 5 --methods doppler-filter --threads 1
 """
 
 from __future__ import annotations
@@ -50,7 +50,7 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--methods", default="doppler-filter,sum-of-sinusoids")
-    parser.add_argument("--threads", default="auto", help="'auto' (all CPUs), or a number; '1,auto' for both")
+    parser.add_argument("--threads", default="1,2", help="comma-separated thread counts ('auto' = the engine's default)")
     parser.add_argument("--worker", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.worker:
@@ -76,6 +76,7 @@ def main(argv=None):
                       f"max {max(ratios):.2f}; cpu-time ratio median {statistics.median(cpu):.2f} "
                       f"(plan {statistics.median(r['plan_s'] for r in runs):.2f} s, load {runs[-1]['load']:.1f})")
         peaks = {n: _run({"case": "memory", "method": method, "n": n, "threads": "auto"}) for n in LENGTHS}
+        print("  (memory with the default thread count)")
         small, large = (peaks[n] for n in LENGTHS)
         ratio = large["traced_peak_bytes"] / small["traced_peak_bytes"]
         for n in LENGTHS:

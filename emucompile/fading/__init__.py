@@ -102,8 +102,8 @@ def plan(profile, update_rate_hz, n_samples, seed, **options) -> FadingPlan:
         ``exact`` sums the sinusoids at the update rate itself (no
         interpolation, roughly R1*R2 times dearer).
     threads : int, keyword
-        Worker threads over taps (default: the number of CPUs). The output
-        does not depend on it.
+        Worker threads over taps (default 1: measured, a second thread did
+        not pay on a shared 2-core machine). The output does not depend on it.
 
     Raises
     ------

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import os
 from concurrent.futures import ThreadPoolExecutor
 from fractions import Fraction
 from functools import lru_cache
@@ -24,6 +23,10 @@ DEFAULT_SINUSOIDS = 256
 DEFAULT_CHUNK = 65536
 MIN_UPDATE_RATIO = 2.2  # update rate / f_D: Nyquist with a 10 % guard band
 _PARALLEL_MIN_WORK = 1 << 15  # samples x taps below which threads do not pay
+# One thread by default: on the 2-core development machine two threads gave
+# the same wall time for 1.5x the CPU (the per-sample passes are bound by
+# memory traffic, not arithmetic); see DEVELOPERS.md, "Fading engine".
+DEFAULT_THREADS = 1
 
 
 class FadingPlan:
@@ -67,7 +70,7 @@ class FadingPlan:
         self.n_sinusoids = _positive_int(n_sinusoids, "n_sinusoids")
         if threads is not None and (isinstance(threads, bool) or not isinstance(threads, (int, np.integer))):
             raise InputError(f"threads must be an integer, got {threads!r}")
-        self.threads = max(1, int(threads)) if threads is not None else (os.cpu_count() or 1)
+        self.threads = max(1, int(threads)) if threads is not None else DEFAULT_THREADS
         taps = tuple(getattr(profile, "taps", ()) or ())
         if not taps:
             raise InputError("the profile has no taps")
