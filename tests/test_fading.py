@@ -142,6 +142,19 @@ def test_seeds_taps_and_links_draw_independent_streams():
         assert abs(np.vdot(x, y)) / len(x) < 5 * rms
 
 
+@pytest.mark.parametrize("ratio", [2.5, 1000.0])
+def test_extreme_update_ratios_stream_and_keep_unit_power(ratio):
+    # 2.5 f_D: the Doppler filter runs at the update rate itself (R = 1);
+    # 1000 f_D: R2 = 31, the broadcast branch of the linear stage. Power over
+    # ~400 Doppler periods x 3 taps: sd ~ 0.03, so 0.2 is > 6 sd.
+    n = max(int(400 * ratio), 10_000)
+    p = fading.plan(rayleigh_profile(3), ratio * FD, n, 9)
+    whole = p.block(0, n)
+    assert np.array_equal(np.concatenate([g for _, g in p.chunks(1000)]), whole)
+    assert np.array_equal(p.block(n // 3, n // 3 + 777), whole[n // 3 : n // 3 + 777])
+    assert np.mean(np.abs(whole) ** 2) == pytest.approx(1.0, abs=0.2)
+
+
 # -- periodic mode ------------------------------------------------------------------------
 
 
