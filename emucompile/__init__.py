@@ -53,6 +53,11 @@ _API = {
     "MimoSetup": "emucompile.blocks",
     "Conditions": "emucompile.blocks",
     "PresetInfo": "emucompile.blocks",
+    "FadingPlan": "emucompile.fading",
+    "GENERATOR_VERSION": "emucompile.fading",
+    "plan_fading": "emucompile.fading",
+    "generate_tap_gains": "emucompile.fading",
+    "stream_tap_gains": "emucompile.fading",
 }
 
 

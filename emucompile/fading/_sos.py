@@ -1,0 +1,169 @@
+"""The sum-of-sinusoids generator (random phases, random angles).
+
+Zheng & Xiao's improved model [ZX2002]_ (their eqs. (8)-(9) as numbered in
+secondary sources; we did not have the letter itself to check the numbers)
+builds a Rayleigh process with M sinusoids per quadrature::
+
+    X_c(t) = sqrt(2/M) sum_n cos(w_d t cos(a_n) + phi_n)
+    X_s(t) = sqrt(2/M) sum_n cos(w_d t sin(a_n) + psi_n),
+    a_n = (2 pi n - pi + theta) / (4 M),  n = 1..M,
+
+with theta, phi_n, psi_n independent and uniform on [-pi, pi). We scale by
+1/sqrt(2) for unit mean power (g = (X_c + j X_s)/sqrt 2). Its ensemble
+autocorrelation is J0(w_d tau) for any M; a single realisation's time
+average approaches it as M grows, and its envelope is Rayleigh only as M
+grows (the sum of M sinusoids is not Gaussian).
+
+Generalisation to any symmetric spectrum (ours): f_D cos(a_n) and
+f_D sin(a_n) are the quantiles G^-1(u) of the one-sided Doppler law
+G(x) = 2 int_0^x S(f) df at the stratified points
+u_n = (n - 1/2 -+ theta/(2 pi))/M (for the classical spectrum G^-1(u) =
+f_D sin(pi u / 2), which gives the two sets of frequencies above exactly).
+The flat and Gaussian spectra use their own G^-1, but with an independent
+offset theta_n per sinusoid and quadrature (u_n = (n - 1/2 + theta_n/(2 pi))/M,
+stratified sampling): with one common theta the flat spectrum's frequencies
+would lie on an arithmetic grid, the realisation would be periodic with
+period M/f_D and its envelope would not be Rayleigh over time (measured: KS
+distance 0.02 at M = 128, ten times the classical case). The ensemble
+autocorrelation stays exact for every spectrum and M.
+
+Evaluation: exactly (float64 phase arithmetic on an integer grid of 2^-52
+cycles per sample, so the phase at any absolute index is exact) at the
+chain's internal rate, on a fixed block grid, with each amplitude divided by
+the chain's response at its frequency; then the same interpolation chain as
+the doppler-filter generator. With ``evaluation="exact"`` the sinusoids are
+summed at the update rate itself (no interpolation; ~R times dearer).
+
+References
+----------
+.. [ZX2002] Y. R. Zheng and C. Xiao, "Improved models for the generation of
+   multiple uncorrelated Rayleigh fading waveforms", IEEE Commun. Letters
+   6(6), pp. 256-258, 2002.
+.. [XZB2006] C. Xiao, Y. R. Zheng and N. C. Beaulieu, "Novel sum-of-sinusoids
+   simulation models for Rayleigh and Rician fading channels", IEEE Trans.
+   Wireless Commun. 5(12), 2006.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import special
+
+from emucompile.fading._design import Chain, internal_block_limit
+from emucompile.fading._streams import SINUSOIDS, BoundedCache, generator
+from emucompile.fading._synthesis import BlockSource, apply_chain
+from emucompile.theory import DopplerSpectrum
+
+SOS_BLOCK = 1024  # internal samples per synthesis block
+PHASE_BITS = 52
+_PHASE_MASK = np.uint64((1 << PHASE_BITS) - 1)
+_PHASE_SCALE = 2.0**-PHASE_BITS
+
+
+def quantile(spectrum: DopplerSpectrum, u):
+    """G^-1(u): the frequency below which a fraction u of the one-sided power lies."""
+    u = np.asarray(u, dtype=float)
+    fd = spectrum.max_doppler_hz
+    if spectrum.kind == "classical":
+        return fd * np.sin(0.5 * np.pi * u)
+    if spectrum.kind == "flat":
+        return fd * u
+    s = spectrum.sigma_hz * math.sqrt(2.0)
+    return s * special.erfinv(u * math.erf(fd / s))
+
+
+def draw_sinusoids(spectrum: DopplerSpectrum, n_sinusoids: int, rng: np.random.Generator):
+    """Frequencies (Hz) and initial phases (cycles) of both quadratures [ZX2002]_.
+
+    Draw order, fixed: theta, the M phases of X_c, the M of X_s, then (other
+    spectra than classical only) the 2M per-sinusoid offsets.
+    """
+    theta = rng.uniform(-np.pi, np.pi)
+    phase_c = rng.uniform(-np.pi, np.pi, n_sinusoids) / (2.0 * np.pi)
+    phase_s = rng.uniform(-np.pi, np.pi, n_sinusoids) / (2.0 * np.pi)
+    n = np.arange(1, n_sinusoids + 1)
+    if spectrum.kind == "classical":
+        shift_c = shift_s = theta / (2.0 * np.pi)
+    else:
+        shift_c = rng.uniform(-0.5, 0.5, n_sinusoids)
+        shift_s = -rng.uniform(-0.5, 0.5, n_sinusoids)
+    freq_c = quantile(spectrum, (n - 0.5 - shift_c) / n_sinusoids)  # classical: f_D cos(a_n)
+    freq_s = quantile(spectrum, (n - 0.5 + shift_s) / n_sinusoids)  # classical: f_D sin(a_n)
+    return theta, (freq_c, phase_c), (freq_s, phase_s)
+
+
+class SumOfSinusoidsSource(BlockSource):
+    """A tap's diffuse process as a sum of sinusoids, evaluated on a block grid."""
+
+    def __init__(
+        self,
+        spectrum: DopplerSpectrum,
+        chain: Chain,
+        n_sinusoids: int,
+        seed: int,
+        tap: int,
+        internal_period: int | None,
+    ):
+        super().__init__()
+        self.spectrum = spectrum
+        self.chain = chain
+        self.n_sinusoids = n_sinusoids
+        self.seed = seed
+        self.tap = tap
+        self.internal_period = internal_period
+        self.block = min(SOS_BLOCK, internal_block_limit(chain.rates))
+        self.output_block = self.block * chain.rates.total
+        self._links = BoundedCache(2)
+
+    def _constants(self, link: int) -> dict:
+        return self._links.get(link, lambda: self._make_constants(link))
+
+    def _make_constants(self, link: int) -> dict:
+        rng = generator(self.seed, SINUSOIDS, link, self.tap)
+        theta, quad_c, quad_s = draw_sinusoids(self.spectrum, self.n_sinusoids, rng)
+        rate = self.chain.rates.internal_rate_hz
+        n_y = self.block + 2 * self.chain.margin1 + 1
+        k = np.arange(n_y, dtype=np.uint64)
+        steps, phases, amplitudes, tables = [], [], [], []
+        for freq, phase in (quad_c, quad_s):
+            step = self._phase_steps(freq / rate)
+            used_freq = step.astype(np.float64) * _PHASE_SCALE * rate
+            response = self.chain.amplitude_response(used_freq)
+            steps.append(step)
+            phases.append(phase)
+            amplitudes.append(1.0 / (math.sqrt(self.n_sinusoids) * response))
+            cycles = ((k[:, None] * step[None, :]) & _PHASE_MASK).astype(np.float64) * _PHASE_SCALE
+            angle = 2.0 * np.pi * cycles
+            tables.append(np.concatenate([np.cos(angle), np.sin(angle)], axis=1).astype(np.float32))
+        return {"theta": theta, "steps": steps, "phases": phases, "amplitudes": amplitudes,
+                "tables": tables}
+
+    def _phase_steps(self, cycles_per_sample: np.ndarray) -> np.ndarray:
+        """Phase increments as integers of 2^-52 cycles (periodic: whole cycles per period)."""
+        period = self.internal_period
+        if period is None:
+            return np.round(cycles_per_sample * 2.0**PHASE_BITS).astype(np.uint64)
+        turns = np.round(cycles_per_sample * period).astype(np.int64)
+        return np.array([((int(t) << PHASE_BITS) + period // 2) // period for t in turns], np.uint64)
+
+    def _synthesise(self, index: int, link: int, out: np.ndarray) -> np.ndarray:
+        c = self._constants(link)
+        m1 = self.chain.margin1
+        start = index * self.block - m1
+        if self.internal_period is not None:
+            start %= self.internal_period
+        start_u = np.uint64(start % (1 << 64))
+        y = self.work.get("sum", (self.block + 2 * m1 + 1,), np.complex64)
+        for part, step, phase, amplitude, table in zip(
+            (y.real, y.imag), c["steps"], c["phases"], c["amplitudes"], c["tables"]
+        ):
+            cycles = ((step * start_u) & _PHASE_MASK).astype(np.float64) * _PHASE_SCALE + phase
+            angle = 2.0 * np.pi * cycles
+            coef = np.concatenate([amplitude * np.cos(angle), -amplitude * np.sin(angle)])
+            # cos(2 pi (psi + t)) = cos 2 pi psi cos 2 pi t - sin 2 pi psi sin 2 pi t, summed
+            # over the sinusoids by einsum's own loop (no BLAS, whose threads could
+            # change the rounding).
+            np.einsum("kn,n->k", table, coef.astype(np.float32), out=part)
+        return apply_chain(self.chain, y, self.block, self.work, out)
