@@ -47,13 +47,12 @@ from emucompile.bundle import (
     parse_formats,
 )
 from emucompile.errors import InputError
-from emucompile.fading._plan import MIN_UPDATE_RATIO
 from emucompile.grid import FirMap, fir_map
 from emucompile.profile import Profile, load_profile, profile_from_document
 
 DEFAULT_UPDATE_FACTOR = 64
 """Default update rate as a multiple of the largest Doppler (contract: >= 32)."""
-MIN_UPDATE_FACTOR = MIN_UPDATE_RATIO
+MIN_UPDATE_FACTOR = fading.MIN_UPDATE_RATIO
 """Below this multiple of the largest Doppler the gains cannot carry the spectrum
 (Nyquist, 2x, with the engine's 10 % guard band)."""
 WARN_UPDATE_FACTOR = 16

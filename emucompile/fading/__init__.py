@@ -58,6 +58,7 @@ from emucompile.fading._plan import (
     DEFAULT_METHOD,
     DEFAULT_SINUSOIDS,
     METHODS,
+    MIN_UPDATE_RATIO,
     SOS_EVALUATIONS,
     FadingPlan,
 )
@@ -175,6 +176,7 @@ stream_tap_gains = stream
 __all__ = [
     "GENERATOR_VERSION",
     "CROSS_PLATFORM_TOLERANCE",
+    "MIN_UPDATE_RATIO",
     "METHODS",
     "DEFAULT_METHOD",
     "DEFAULT_SINUSOIDS",
