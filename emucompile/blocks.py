@@ -541,6 +541,7 @@ def _train_taps(block, taps, here, fail):
     chosen, ok = [], True
     for position, index in enumerate(block["taps"]):
         pointer = f"{here}/taps/{position}"
+        index = int(index)  # JSON Schema's "integer" admits 1.0
         if index >= len(taps):
             fail(pointer, f"tap {index} does not exist (the profile has taps 0 to {len(taps) - 1})")
             ok = False
