@@ -474,15 +474,12 @@ def sinc_energy_deficit(half_length: int, kaiser_beta: float) -> float:
 
 
 def rms_delay_spread(delays_s, powers_linear) -> float:
-    """Power-weighted RMS delay spread sqrt(E[tau^2] - E[tau]^2); NaN when all powers are 0."""
-    delays = np.asarray(delays_s, dtype=float)
-    powers = np.asarray(powers_linear, dtype=float)
-    total = powers.sum()
-    if not total > 0:
+    """Power-weighted RMS delay spread (:func:`emucompile.stats.delay_statistics`); NaN when all powers are 0."""
+    from emucompile.stats import delay_statistics
+
+    if not np.asarray(powers_linear, dtype=float).sum() > 0:
         return math.nan
-    mean = np.dot(powers, delays) / total
-    variance = np.dot(powers, (delays - mean) ** 2) / total
-    return float(math.sqrt(max(variance, 0.0)))
+    return delay_statistics(delays_s, powers_linear)["rms_delay_spread_s"]
 
 
 # -- helpers -------------------------------------------------------------------------

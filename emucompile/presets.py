@@ -688,11 +688,10 @@ def _positive_number(value) -> bool:
 
 
 def _rms_delay_spread(delays, powers_linear) -> float:
-    """sqrt(sum p tau^2 / sum p - (sum p tau / sum p)^2), the second central moment of the PDP."""
-    total = sum(powers_linear)
-    mean = sum(p * d for p, d in zip(powers_linear, delays)) / total
-    second = sum(p * (d - mean) ** 2 for p, d in zip(powers_linear, delays)) / total
-    return math.sqrt(second)
+    """The second central moment of the PDP (:func:`emucompile.stats.delay_statistics`)."""
+    from emucompile.stats import delay_statistics
+
+    return delay_statistics(delays, powers_linear)["rms_delay_spread_s"]
 
 
 @functools.lru_cache(maxsize=None)
