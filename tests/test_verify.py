@@ -158,3 +158,171 @@ def test_the_verification_directory_is_not_part_of_the_hashed_bundle(crane, tmp_
     (bundle / "verification" / "verification.json").write_text("{}")
     assert verify_integrity(bundle) == []
     assert _unlisted_files(bundle, json.loads((bundle / "manifest.json").read_text())) == []
+
+
+# -- statistics: intact bundles pass, altered ones fail the right check ------------------------------
+
+
+def _names(checks, *, passed):
+    return {c.name.split(" [")[0] for c in checks if c.passed is passed}
+
+
+@pytest.mark.parametrize("demo", sorted(DEMO_DURATIONS_S))
+def test_every_demo_profile_verifies_with_exit_0(demo, tmp_path):
+    out = tmp_path / "bundle"
+    compiler.compile_profile(DEMOS / demo, out, duration_s=DEMO_DURATIONS_S[demo])
+    result = _run("verify", out, "--no-plots", "--json")
+    document = json.loads(result.stdout)
+    assert result.exit_code == 0, [c for c in document["checks"] if c["passed"] is False]
+    assert document["passed"] is True
+    assert (out / "verification" / "verification.json").is_file()
+
+
+def test_intact_bundle_passes_and_ci16_delivered_too(crane):
+    result = verifier.verify_bundle(crane, delivered=True)
+    assert result.passed, [c.to_dict() for c in result.failed]
+    delivered = [c for c in result.checks if c.name.startswith("delivered ci16: ")]
+    assert delivered and any(c.passed for c in delivered)
+    assert result.identity["delivered"] == ["ci16"]
+
+
+def test_a_tap_scaled_by_2_db_fails_its_mean_power(crane, tmp_path):
+    bundle = _copy(crane, tmp_path)
+
+    def scale(gains):
+        gains[..., 2] *= np.float32(10 ** (2 / 20))
+
+    _edit_gains(bundle, scale)
+    result = _run("verify", bundle, "--no-plots", "--json")
+    assert result.exit_code == 1
+    failed = [c for c in json.loads(result.stdout)["checks"] if c["passed"] is False]
+    assert any(c["name"] == "mean_power" and c["tap"] == 2 for c in failed), failed
+    assert all(c["tap"] in (2, None) or 2 in (c.get("taps") or []) for c in failed if c["name"] == "mean_power")
+
+
+def test_a_tap_replaced_by_white_noise_fails_autocorrelation_and_psd(crane, tmp_path):
+    bundle = _copy(crane, tmp_path)
+    power = 10 ** (-7.0 / 10)  # tap 2's profile power before scaling; the mean power is not what is tested
+
+    def whiten(gains):
+        rng = np.random.default_rng(11)
+        n = gains.shape[0]
+        scale = math.sqrt(float(np.mean(np.abs(gains[..., 2]) ** 2)) / 2)
+        gains[:, 0, 0, 2] = (scale * (rng.standard_normal(n) + 1j * rng.standard_normal(n))).astype(np.complex64)
+
+    assert power > 0
+    _edit_gains(bundle, whiten)
+    result = verifier.verify_bundle(bundle)
+    failed = {c.name for c in result.failed if c.tap == 2}
+    assert not result.passed
+    assert any("acf" in name or "autocorrelation" in name for name in failed), failed
+    assert any("psd" in name for name in failed), failed
+
+
+def test_a_rician_tap_without_its_direct_part_fails_the_k_factor(crane, tmp_path):
+    bundle = _copy(crane, tmp_path)
+    manifest = json.loads((bundle / "manifest.json").read_text())
+    tap = manifest["taps"][0]
+    assert tap["fading"] == "rician"
+    k = 10 ** (tap["k_db"] / 10)
+    amplitude = math.sqrt(tap["power_linear"] * k / (k + 1))
+
+    def remove_direct(gains):
+        t = np.arange(gains.shape[0]) / manifest["update_rate_hz"]
+        direct = amplitude * np.exp(1j * (2 * np.pi * tap["los_doppler_hz"] * t + np.deg2rad(tap["los_phase_deg"])))
+        residual = gains[:, 0, 0, 0] - direct
+        assert np.mean(np.abs(residual) ** 2) < 0.5 * np.mean(np.abs(gains[:, 0, 0, 0]) ** 2)  # it was there
+        gains[:, 0, 0, 0] = residual.astype(np.complex64)
+
+    _edit_gains(bundle, remove_direct)
+    result = verifier.verify_bundle(bundle)
+    failed = {c.name for c in result.failed if c.tap == 0}
+    assert "k_factor" in failed, failed
+
+
+def test_a_periodic_bundle_verifies_across_the_wrap(tmp_path):
+    out = tmp_path / "periodic"
+    compiler.compile_profile(DEMOS / "port-crane-los.yaml", out, duration_s=5.0, periodic=True)
+    result = verifier.verify_bundle(out)
+    assert result.passed, [c.to_dict() for c in result.failed]
+    assert result.identity["periodic"] is True
+    assert verifier._Decimator(result.update_rate_hz, 60.23, result.identity["n_samples"], True).n_out \
+        == len(result.records[0])
+
+
+# -- what cannot be meaningful says so -----------------------------------------------------------------
+
+
+def test_a_short_record_says_not_enough_data_never_pass(tmp_path):
+    """0.5 s of 60 Hz Doppler: T f_D = 30 < 50."""
+    out = tmp_path / "short"
+    compiler.compile_profile(DEMOS / "port-crane-los.yaml", out, duration_s=0.5)
+    result = verifier.verify_bundle(out)
+    envelope = [c for c in result.checks if c.tap is not None and c.name in ("envelope_ks", "acf", "psd", "lcr")]
+    statistical = [c for c in result.checks if c.p_value is not None or c.passed is None]
+    assert statistical
+    for check in envelope:
+        assert check.passed is None and check.reason, check.to_dict()
+
+
+def test_static_taps_get_no_envelope_verdict(tmp_path):
+    out = tmp_path / "bench"
+    compiler.compile_profile(DEMOS / "bench-two-path.json", out)
+    result = verifier.verify_bundle(out)
+    assert result.passed
+    for check in result.checks:
+        if check.tap is not None and any(w in check.name for w in ("ks", "lcr", "afd", "k_factor")):
+            assert check.passed is None and check.reason, check.to_dict()
+
+
+# -- foreign gains, JSON ------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("kind", ["npy", "cf32"])
+def test_foreign_gains_verify_against_their_profile(crane, tmp_path, kind):
+    gains = np.load(crane / "tap_gains.npy")[:, 0, 0, :]
+    file = tmp_path / f"gains.{kind}"
+    if kind == "npy":
+        np.save(file, gains)
+    else:
+        gains.astype("<c8").tofile(file)
+    rate = json.loads((crane / "manifest.json").read_text())["update_rate_hz"]
+    result = _run("verify", "--gains", file, "--profile", DEMOS / "port-crane-los.yaml", "--update-rate", rate,
+                  "--no-plots", "--json")
+    document = json.loads(result.stdout)
+    assert result.exit_code == 0, [c for c in document["checks"] if c["passed"] is False]
+    assert document["foreign"] is True
+    assert document["identity"]["integrity"].startswith("not applicable")
+    assert (tmp_path / f"gains.{kind}.verification" / "verification.json").is_file()
+
+
+def test_foreign_gains_with_the_wrong_number_of_columns_exit_2(tmp_path):
+    file = tmp_path / "g.npy"
+    np.save(file, np.zeros((1000, 3), dtype=np.complex64))
+    result = _run("verify", "--gains", file, "--profile", DEMOS / "port-crane-los.yaml", "--update-rate", 2000)
+    assert result.exit_code == 2 and "tap column" in result.stderr
+
+
+def test_json_is_strict_and_has_the_contract_keys(crane, tmp_path):
+    result = _run("verify", crane, "--no-plots", "--json", "--report", tmp_path / "r.html")
+
+    def refuse(name):
+        raise ValueError(name)
+
+    document = json.loads(result.stdout, parse_constant=refuse)
+    assert set(document) >= {"passed", "false_alarm", "checks"} and document["false_alarm"] == 0.01
+    for check in document["checks"]:
+        assert set(check) >= {"name", "tap", "value", "expected", "tolerance", "passed"}
+        if check["passed"] is None:
+            assert check["reason"]
+    written = json.loads((tmp_path / "r.verification.json").read_text(), parse_constant=refuse)
+    assert written["checks"] == document["checks"]
+
+
+def test_python_api_returns_the_checks(crane):
+    import emucompile
+
+    result = emucompile.verify_bundle(crane, false_alarm=0.05)
+    assert result.false_alarm == 0.05 and result.checks and result.models[0].k_linear > 1
+    assert set(result.records) == set(range(6)) and result.record_rate_hz < result.update_rate_hz
+    assert result.fir_map is not None and result.sample_rate_hz == 30.72e6
