@@ -428,6 +428,7 @@ class _Session:
         self.band_hz = _largest_frequency_hz(profile, models)
         self.decimator = _Decimator(update_rate_hz, self.band_hz, n_samples, periodic)
         self.record_rate_hz = self.decimator.record_rate_hz
+        self._direct = None
 
     def run(self, sources):
         """Checks of every source; records (tap -> link 0 record) and MIMO link records of the first."""
@@ -476,6 +477,7 @@ class _Session:
         for tap, model in self.models.items():
             if not _is_fading(model):
                 continue
+            # expected[a, b] = E[h_a conj(h_b)] / P of the diffuse parts (components' convention)
             expected = np.asarray(self.components.expected_correlation(tap))
             diffuse_model = _diffuse_model(model)
             diffuse = self._diffuse_links(decimated[:, :, tap], tap)
@@ -484,7 +486,8 @@ class _Session:
                     result = tol.check_cross_correlation(
                         diffuse[:, a], diffuse[:, b], self.record_rate_hz, diffuse_model, diffuse_model,
                         taps=(tap, tap), expected=complex(expected[a, b]), level=self.false_alarm)
-                    found.append(_renamed(result, "mimo ", f"links {self._link_label(a)}~{self._link_label(b)}"))
+                    found.append(dataclasses.replace(
+                        result, name=f"mimo_correlation [links {self._link_label(a)}~{self._link_label(b)}]"))
         return found
 
     def _diffuse_links(self, links, tap):
@@ -492,8 +495,9 @@ class _Session:
         model = self.models[tap]
         if not (model.k_linear and model.k_linear > 0):
             return links
-        direct = self.decimator.run(_ComponentsDirect(self.components), self.n_links, len(self.models), None)
-        return links - direct[:, :, tap]
+        if self._direct is None:
+            self._direct = self.decimator.run(_ComponentsDirect(self.components), self.n_links, len(self.models), None)
+        return links - self._direct[:, :, tap]
 
     def _link_label(self, link):
         if self.n_links == 1:
