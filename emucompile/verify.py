@@ -450,6 +450,12 @@ class _Session:
         tol = _tolerance()
         found = []
         for tap, model in self.models.items():
+            if model is None:
+                found += [tol.CheckResult(prefix + name, tap, None, None, None, None, None,
+                                          "not applicable: the direct part follows a Doppler trajectory "
+                                          "(no stationary model)", self.false_alarm)
+                          for name in tol.CHECK_NAMES if name != "cross_correlation"]
+                continue
             for link in range(self.n_links):
                 results = tol.check_tap(decimated[:, link, tap], self.record_rate_hz, model,
                                         periodic=self.periodic, tap=tap, level=self.false_alarm)
@@ -458,7 +464,7 @@ class _Session:
 
     def _cross_tap_checks(self, decimated):
         tol = _tolerance()
-        fading = [i for i, m in self.models.items() if _is_fading(m)]
+        fading = [i for i, m in self.models.items() if m is not None and _is_fading(m)]
         found = []
         for a_index, a in enumerate(fading):
             for b in fading[a_index + 1:]:
@@ -475,7 +481,7 @@ class _Session:
             return []
         found = []
         for tap, model in self.models.items():
-            if not _is_fading(model):
+            if model is None or not _is_fading(model):
                 continue
             # expected[a, b] = E[h_a conj(h_b)] / P of the diffuse parts (components' convention)
             expected = np.asarray(self.components.expected_correlation(tap))
@@ -671,23 +677,35 @@ def _ci16_source(root, entry, shape, shadowing):
 
 
 def _tap_model(entry):
-    """The theory of one tap from its manifest entry (values as compiled: rounded Doppler, drawn phase)."""
+    """The theory of one tap from its manifest entry (values as compiled: rounded Doppler, drawn phase).
+
+    Returns None for a direct part whose Doppler follows a trajectory (no
+    stationary model: its checks are marked not applicable).
+    """
     from emucompile.theory import DopplerSpectrum
 
     tol = _tolerance()
     power = entry.get("power_linear")
     if power is None:
         power = 0.0 if entry.get("power_db") is None else 10.0 ** (entry["power_db"] / 10.0)
+    k = _k_linear(entry["fading"], entry.get("k_db"))
+    los = entry.get("los_doppler_hz")
+    if k > 0 and los is None:
+        return None
     spectrum = None
     if entry["fading"] != "static":
-        spectrum = DopplerSpectrum(entry.get("spectrum") or "classical", float(entry["max_doppler_hz"]),
-                                   entry.get("sigma_hz"))
-    return tol.TapModel(spectrum=spectrum, mean_power=float(power), k_linear=_k_linear(entry["fading"], entry.get("k_db")),
-                        los_doppler_hz=entry.get("los_doppler_hz"))
+        kind = entry.get("spectrum") or "classical"
+        spectrum = DopplerSpectrum(kind, float(entry["max_doppler_hz"]),
+                                   float(entry["sigma_hz"]) if kind == "gaussian" else None)
+    return tol.TapModel(spectrum=spectrum, mean_power=float(power), k_linear=k,
+                        los_doppler_hz=float(los) if k > 0 else 0.0)
 
 
 def _tap_model_from_profile(tap):
-    return _tolerance().TapModel.from_tap(tap)
+    try:
+        return _tolerance().TapModel.from_tap(tap)
+    except ValueError:  # a direct part on a Doppler trajectory
+        return None
 
 
 def _k_linear(fading, k_db):
@@ -705,16 +723,17 @@ def _is_fading(model):
 def _diffuse_model(model):
     """The model of a tap's diffuse part alone: Rayleigh with power P / (K + 1)."""
     k = model.k_linear or 0.0
-    return dataclasses.replace(model, mean_power=model.mean_power / (k + 1.0), k_linear=0.0, los_doppler_hz=None)
+    return dataclasses.replace(model, mean_power=model.diffuse_power, k_linear=0.0, los_doppler_hz=0.0)
 
 
 def _largest_frequency_hz(profile, models):
     band = 0.0
     for model in models.values():
+        if model is None:
+            continue
         if model.spectrum is not None:
             band = max(band, model.spectrum.band_edge_hz)
-        if model.los_doppler_hz is not None:
-            band = max(band, abs(model.los_doppler_hz))
+        band = max(band, abs(model.los_doppler_hz))
     largest = getattr(profile, "largest_doppler_hz", None)
     if largest is not None and math.isfinite(largest):
         band = max(band, float(largest))
