@@ -196,8 +196,7 @@ def test_a_tap_scaled_by_2_db_fails_its_mean_power(crane, tmp_path):
     result = _run("verify", bundle, "--no-plots", "--json")
     assert result.exit_code == 1
     failed = [c for c in json.loads(result.stdout)["checks"] if c["passed"] is False]
-    assert any(c["name"] == "mean_power" and c["tap"] == 2 for c in failed), failed
-    assert all(c["tap"] in (2, None) or 2 in (c.get("taps") or []) for c in failed if c["name"] == "mean_power")
+    assert {c["tap"] for c in failed if c["name"] == "mean_power"} == {2}, failed
 
 
 def test_a_tap_replaced_by_white_noise_fails_autocorrelation_and_psd(crane, tmp_path):
@@ -215,8 +214,7 @@ def test_a_tap_replaced_by_white_noise_fails_autocorrelation_and_psd(crane, tmp_
     result = verifier.verify_bundle(bundle)
     failed = {c.name for c in result.failed if c.tap == 2}
     assert not result.passed
-    assert any("acf" in name or "autocorrelation" in name for name in failed), failed
-    assert any("psd" in name for name in failed), failed
+    assert "autocorrelation" in failed and "doppler_psd" in failed, failed
 
 
 def test_a_rician_tap_without_its_direct_part_fails_the_k_factor(crane, tmp_path):
@@ -258,11 +256,11 @@ def test_a_short_record_says_not_enough_data_never_pass(tmp_path):
     out = tmp_path / "short"
     compiler.compile_profile(DEMOS / "port-crane-los.yaml", out, duration_s=0.5)
     result = verifier.verify_bundle(out)
-    envelope = [c for c in result.checks if c.tap is not None and c.name in ("envelope_ks", "acf", "psd", "lcr")]
-    statistical = [c for c in result.checks if c.p_value is not None or c.passed is None]
-    assert statistical
-    for check in envelope:
-        assert check.passed is None and check.reason, check.to_dict()
+    statistical = [c for c in result.checks if not c.name.startswith("fir_")]
+    assert len(statistical) >= 6 * 9
+    for check in statistical:
+        assert check.passed is None and "not enough data" in check.reason, check.to_dict()
+    assert _run("verify", out, "--no-plots").exit_code == 0  # nothing failed; nothing claimed either
 
 
 def test_static_taps_get_no_envelope_verdict(tmp_path):
