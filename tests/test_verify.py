@@ -324,3 +324,60 @@ def test_python_api_returns_the_checks(crane):
     assert result.false_alarm == 0.05 and result.checks and result.models[0].k_linear > 1
     assert set(result.records) == set(range(6)) and result.record_rate_hz < result.update_rate_hz
     assert result.fir_map is not None and result.sample_rate_hz == 30.72e6
+
+
+# -- MIMO and shadowing -------------------------------------------------------------------------------
+
+MIMO_PROFILE = """\
+format_version: 1
+name: verify-mimo-lab
+description: invented for the tests (2x2, TS 36.104 medium correlation, 6 dB shadowing)
+max_doppler_hz: 50
+speed_kmh: 30
+carrier_hz: 1.8e9
+taps:
+  - {delay_ns: 0, power_db: 0, fading: rician, k_db: 6, los_angle_deg: 45}
+  - {delay_ns: 200, power_db: -6}
+mimo:
+  n_tx: 2
+  n_rx: 2
+  correlation: {level: medium, specification: ts36104}
+  direct_part: identical
+conditions: {shadowing: {sigma_db: 6, decorrelation_distance_m: 20}}
+"""
+
+
+@pytest.fixture(scope="module")
+def mimo_bundle(tmp_path_factory):
+    root = tmp_path_factory.mktemp("mimo")
+    (root / "mimo.yaml").write_text(MIMO_PROFILE)
+    out = root / "bundle"
+    compiler.compile_profile(root / "mimo.yaml", out, duration_s=6.0, seed=5)
+    return out
+
+
+def test_mimo_with_shadowing_verifies_per_link_and_the_achieved_correlation(mimo_bundle):
+    result = verifier.verify_bundle(mimo_bundle)
+    assert result.passed, [c.to_dict() for c in result.failed]
+    mimo = [c for c in result.checks if c.name.startswith("mimo_correlation")]
+    assert len(mimo) == 2 * 6 and all(c.passed for c in mimo)  # 2 taps x 6 link pairs
+    per_link = [c for c in result.checks if c.name.startswith("mean_power [")]
+    assert len(per_link) == 2 * 4 and all(c.passed for c in per_link)  # shadowing divided out first
+    assert set(result.link_records) == {0, 1} and result.link_records[0].shape[1] == 4
+
+
+def test_a_decorrelated_link_fails_the_mimo_correlation(mimo_bundle, tmp_path):
+    """Link rx1-tx0 of tap 1 shifted by half the record under the same shadowing: its own statistics
+    hold, its correlation with the other links (0.9 with rx0-tx0) is gone."""
+    bundle = _copy(mimo_bundle, tmp_path)
+    amplitude = 10 ** (np.load(bundle / "shadowing_db.npy") / 20)
+
+    def shift(gains):
+        small = np.array(gains[:, 1, 0, 1]) / amplitude
+        gains[:, 1, 0, 1] = (np.roll(small, gains.shape[0] // 2) * amplitude).astype(np.complex64)
+
+    _edit_gains(bundle, shift)
+    result = verifier.verify_bundle(bundle)
+    failed = {c.name for c in result.failed}
+    assert "mimo_correlation [links rx0-tx0~rx1-tx0]" in failed, failed
+    assert not any(name.startswith("mean_power") for name in failed), failed
