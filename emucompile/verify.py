@@ -437,16 +437,18 @@ class _Session:
         checks, records, link_records = [], {}, None
         for position, (label, source) in enumerate(sources):
             decimated = self.decimator.run(source, self.n_links, len(self.models), self.progress)
+            decimated = np.ascontiguousarray(decimated.transpose(2, 1, 0))  # (taps, links, m): contiguous records
             for tap, model in self.models.items():
                 if model is not None and model.spectrum is None:
                     # a static tap is one tone: undo the decimator's passband ripple at its frequency exactly
-                    decimated[:, :, tap] /= self.decimator.response(model.los_doppler_hz)
+                    decimated[tap] /= self.decimator.response(model.los_doppler_hz)
             prefix = "" if position == 0 else f"delivered {label}: "
             checks += self._tap_checks(decimated, prefix)
+            checks += self._beyond_band_checks(decimated, prefix)
             if position == 0:
-                records = {i: decimated[:, 0, i] for i in range(decimated.shape[2])}
+                records = {i: decimated[i, 0] for i in range(decimated.shape[0])}
                 if self.n_links > 1:
-                    link_records = {i: decimated[:, :, i] for i in range(decimated.shape[2])}
+                    link_records = {i: decimated[i].T for i in range(decimated.shape[0])}
                 checks += self._cross_tap_checks(decimated)
                 if self.n_links > 1:
                     checks += self._mimo_checks(decimated)
@@ -463,9 +465,48 @@ class _Session:
                           for name in tol.CHECK_NAMES if name != "cross_correlation"]
                 continue
             for link in range(self.n_links):
-                results = tol.check_tap(decimated[:, link, tap], self.record_rate_hz, model,
+                results = tol.check_tap(decimated[tap, link], self.record_rate_hz, model,
                                         periodic=self.periodic, tap=tap, level=self.false_alarm)
                 found += [_renamed(r, prefix, self._link_label(link)) for r in results]
+        return found
+
+    def _beyond_band_checks(self, decimated, prefix):
+        """Power the band-limited copy lacks, from the full-rate power of the same samples.
+
+        (P_full - P_record) / P_full against 0, within OUT_OF_BAND_LIMIT_DB
+        (-40 dB, the tolerance module's requirement on the power beyond f_D)
+        plus the decimator's largest passband power deviation plus 1 / N_record
+        for a non-periodic record (the midpoint-rule end effect of comparing a
+        sampled mean with the full-rate mean, ~0.1 / N for 8 samples per period
+        of |g|^2; taken 10x larger). It sees images and noise anywhere up to the
+        update rate's Nyquist frequency, which the record's own PSD checks cannot.
+        A bound, not a hypothesis test (p_value None, not in Holm).
+        """
+        decimator = self.decimator
+        if decimator.h is None:
+            return []
+        tol = _tolerance()
+        allowance = 10 ** (tol.OUT_OF_BAND_LIMIT_DB / 10) + decimator.passband_power_deviation
+        allowance += 0.0 if self.periodic else 1.0 / max(1, decimator.n_out)
+        found = []
+        for tap, model in self.models.items():
+            if model is None or model.spectrum is None:
+                continue
+            for link in range(self.n_links):
+                full = float(decimator.full_power[link, tap])
+                if not full > 0:
+                    continue
+                kept = float(np.mean(np.abs(decimated[tap, link]) ** 2))
+                value = (full - kept) / full
+                name = prefix + "power_beyond_record_band" + ("" if self.n_links == 1 else f" [{self._link_label(link)}]")
+                passed = abs(value) <= allowance
+                found.append(tol.CheckResult(
+                    name, tap, value, 0.0, allowance, None, passed,
+                    None if passed else f"{_db_text(value)} of the tap's power lies beyond the record band",
+                    None, allowance, "fraction of power",
+                    {"record_band_hz": decimator.record_rate_hz - decimator.band_hz,
+                     "full_rate_power": full, "record_power": kept,
+                     "source": "full-rate mean |g|^2 against the decimated copy's (same samples)"}))
         return found
 
     def _cross_tap_checks(self, decimated):
@@ -475,7 +516,7 @@ class _Session:
         for a_index, a in enumerate(fading):
             for b in fading[a_index + 1:]:
                 found.append(tol.check_cross_correlation(
-                    decimated[:, 0, a], decimated[:, 0, b], self.record_rate_hz, self.models[a], self.models[b],
+                    decimated[a, 0], decimated[b, 0], self.record_rate_hz, self.models[a], self.models[b],
                     taps=(a, b), expected=0.0, level=self.false_alarm))
         return found
 
@@ -492,11 +533,11 @@ class _Session:
             # expected[a, b] = E[h_a conj(h_b)] / P of the diffuse parts (components' convention)
             expected = np.asarray(self.components.expected_correlation(tap))
             diffuse_model = _diffuse_model(model)
-            diffuse = self._diffuse_links(decimated[:, :, tap], tap)
+            diffuse = self._diffuse_links(decimated[tap], tap)
             for a in range(self.n_links):
                 for b in range(a + 1, self.n_links):
                     result = tol.check_cross_correlation(
-                        diffuse[:, a], diffuse[:, b], self.record_rate_hz, diffuse_model, diffuse_model,
+                        diffuse[a], diffuse[b], self.record_rate_hz, diffuse_model, diffuse_model,
                         taps=(tap, tap), expected=complex(expected[a, b]), level=self.false_alarm)
                     found.append(dataclasses.replace(
                         result, name=f"mimo_correlation [links {self._link_label(a)}~{self._link_label(b)}]"))
@@ -508,8 +549,9 @@ class _Session:
         if not (model.k_linear and model.k_linear > 0):
             return links
         if self._direct is None:
-            self._direct = self.decimator.run(_ComponentsDirect(self.components), self.n_links, len(self.models), None)
-        return links - self._direct[:, :, tap]
+            direct = self.decimator.run(_ComponentsDirect(self.components), self.n_links, len(self.models), None)
+            self._direct = direct.transpose(2, 1, 0)
+        return links - self._direct[tap]
 
     def _link_label(self, link):
         if self.n_links == 1:
@@ -545,12 +587,18 @@ class _Decimator:
         self.record_rate_hz = update_rate_hz / q
         self.h = None
         self.half = 0
+        self.band_hz = band
+        self.passband_power_deviation = 0.0
         if q > 1:
             stop = self.record_rate_hz - band
             width = (stop - band) / (update_rate_hz / 2.0)
             numtaps, beta = signal.kaiserord(DECIMATOR_ATTENUATION_DB, width)
             numtaps += 1 - numtaps % 2
             self.h = signal.firwin(numtaps, (band + stop) / 2.0, window=("kaiser", beta), fs=update_rate_hz)
+            self.h32 = self.h.astype(np.float32)
+            grid = np.linspace(0.0, band, 512)
+            response = np.abs(np.exp(-2j * np.pi * np.outer(grid, np.arange(numtaps)) / update_rate_hz) @ self.h) ** 2
+            self.passband_power_deviation = float(np.max(np.abs(response - 1.0)))
             self.half = (numtaps - 1) // 2
         if periodic:
             self.first, self.last = 0, n_samples // q - 1
@@ -567,25 +615,36 @@ class _Decimator:
         return complex(np.sum(self.h * np.exp(-2j * np.pi * frequency_hz * k / self.update_rate_hz)))
 
     def run(self, source, n_links, n_taps, progress):
-        """Decimated records of a source: complex128 (n_out, n_links, n_taps)."""
-        from scipy import signal
+        """Decimated records of a source: complex128 (n_out, n_links, n_taps).
 
+        Also sets :attr:`full_power`, mean |x|^2 per link and tap over the
+        input samples the outputs stand for (output m for [m q - q/2, m q + q/2)),
+        at the full rate: the power the band-limited copy would lack is
+        ``full_power - mean |y|^2``.
+        """
         out = np.empty((self.n_out, n_links, n_taps), dtype=np.complex128)
+        power = np.zeros((n_links, n_taps))
         step = max(1, CHUNK_SAMPLES // self.q)
+        q, half = self.q, self.half
         for m0 in range(self.first, self.first + self.n_out, step):
             m1 = min(m0 + step, self.first + self.n_out)
             if self.h is None:
-                out[m0 - self.first:m1 - self.first] = source.read(m0, m1)
+                block = source.read(m0, m1)
+                out[m0 - self.first:m1 - self.first] = block
+                power += np.sum(np.abs(block.astype(np.complex128)) ** 2, axis=0)
             else:
-                r = (-2 * self.half) % self.q
-                a = m0 * self.q - self.half - r
-                b = (m1 - 1) * self.q + self.half + 1
-                segment = self._segment(source, a, b)
-                j0 = (2 * self.half + r) // self.q
-                y = signal.upfirdn(self.h, segment, 1, self.q, axis=0)
-                out[m0 - self.first:m1 - self.first] = y[j0:j0 + (m1 - m0)]
+                segment = np.asarray(self._segment(source, m0 * q - half, (m1 - 1) * q + half + 1), dtype=np.complex64)
+                mid = segment[half - q // 2: half - q // 2 + (m1 - m0) * q]
+                power += np.einsum("ilt,ilt->lt", mid, mid.conj()).real
+                # y[m] = sum_k h[k] x[m q + D - k]: N strided passes over the segment (float32, cache-sized)
+                y = np.zeros((m1 - m0, n_links, n_taps), dtype=np.complex64)
+                stop = (m1 - m0 - 1) * q + 1
+                for k, coefficient in enumerate(self.h32):
+                    y += coefficient * segment[2 * half - k: 2 * half - k + stop: q]
+                out[m0 - self.first:m1 - self.first] = y
             if progress is not None:
-                progress(min(m1 * self.q, self.n_samples), self.n_samples)
+                progress(min(m1 * q, self.n_samples), self.n_samples)
+        self.full_power = power / max(1, self.n_out * q)
         return out
 
     def _segment(self, source, a, b):
@@ -761,6 +820,10 @@ def _renamed(result, prefix, link):
 
 def _holm(checks, false_alarm):
     return _tolerance().holm(checks, family_wise=false_alarm) if checks else []
+
+
+def _db_text(fraction):
+    return f"{10 * math.log10(fraction):.1f} dB" if fraction > 0 else f"{fraction:.2g}"
 
 
 def _check_label(check):
