@@ -3,7 +3,8 @@
 Compiles an invented 12-tap profile (f_D = 100 Hz, update rate 6.4 kHz = 64 f_D,
 ``--samples`` samples per tap) and then verifies that bundle, both in this
 process, and prints both wall times and their ratio verify / compile (target
-<= 1.0). Verify runs without figures (``--no-plots``): the figures are the
+<= 1.0), with OPENBLAS_NUM_THREADS=1 for both (what the verify command
+sets; the compile engine is single-threaded by default). Verify runs without figures (``--no-plots``): the figures are the
 report's cost, not the statistics'; ``--plots`` adds them as a third time.
 
 Usage::
@@ -15,6 +16,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import shutil
 import sys
 import tempfile
@@ -23,6 +25,7 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the verify command sets it; compile runs under the same
 
 PROFILE = {
     "format_version": 1,

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import collections
+import os
 import shutil
 import sys
 import tempfile
@@ -28,6 +29,7 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the verify command sets it
 
 
 def _one(args):
