@@ -23,8 +23,9 @@
    links of a tap (expected: the profile's spatial correlation); for a FIR map,
    the grid's RMS delay spread and power against the profile (deterministic
    comparisons, no false alarm). With ``delivered=True`` the same per-tap
-   checks run again on what the emulator receives (the ci16 codes decoded with
-   their scale). A check that cannot be meaningful says so (``passed`` None and
+   checks run again on what the emulator receives: the ci16 codes decoded with
+   their scale, and each column of the materialised (target-fitted) FIR that
+   one tap alone reaches (model: that tap with its weight squared as gain). A check that cannot be meaningful says so (``passed`` None and
    a ``reason``), never "pass".
 4. **Verdict**: the p-values are combined by Holm's step-down method at the
    family-wise false-alarm rate ``false_alarm`` (default 0.01), so an intact
@@ -220,7 +221,9 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         Family-wise false-alarm rate of the whole verdict (Holm), in (0, 1).
     delivered : bool
         Also check what the emulator receives: the ci16 data decoded with its
-        scale, when the bundle holds them.
+        scale, and the materialised FIR (``fir.npy``, the target-fitted
+        coefficients when the bundle was fitted to a target), when the bundle
+        holds them.
     progress : callable(done, total), optional
 
     Returns
@@ -267,6 +270,12 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         mimo=manifest.get("mimo"), components=_components_or_none(root, cautions) if manifest.get("mimo") else None,
     )
     checks, records, link_records = session.run(sources)
+    if delivered and opened.fir is not None:
+        divide = None if shadowing is None else shadowing.shadowing_amplitude
+        checks += session.delivered_fir(_MappedSource(opened.fir, divide), np.asarray(opened.fir_map, dtype=float))
+        identity_delivered = [name for name, _ in sources[1:]] + ["fir"]
+    else:
+        identity_delivered = [name for name, _ in sources[1:]]
     fir_matrix = opened.fir_map
     fir = manifest.get("fir")
     fir_checks = [] if fir is None else _fir_checks(manifest, np.asarray(fir_matrix, dtype=float), root)
@@ -274,7 +283,7 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         cautions.append("shadowing is divided out before the small-scale checks; the shadowing trajectory "
                         "itself (its sigma and correlation) is not checked yet")
     checks = _holm(checks, false_alarm) + fir_checks
-    identity = _bundle_identity(root, manifest, delivered=[name for name, _ in sources[1:]])
+    identity = _bundle_identity(root, manifest, delivered=identity_delivered)
     return Verification(
         checks=checks, false_alarm=false_alarm, identity=identity, profile=profile,
         profile_stats=_profile_stats(profile), update_rate_hz=session.update_rate_hz,
@@ -318,9 +327,6 @@ def verify_gains(gains_file, profile, update_rate_hz: float, *, false_alarm: flo
     n, n_rx, n_tx, n_taps = gains.shape
     models = {i: _tap_model_from_profile(tap) for i, tap in enumerate(loaded.taps)}
     cautions = [MEASURED_GAINS_CAUTION]
-    if any(t.fading != "static" and t.los_phase_deg is None for t in loaded.taps if t.fading == "rician"):
-        cautions.append("the direct part's initial phase is not known for foreign gains; the phase check uses "
-                        "the profile's value when given")
     session = _Session(
         profile=loaded, models=models, update_rate_hz=rate, n_samples=n, n_rx=n_rx, n_tx=n_tx,
         periodic=periodic, false_alarm=false_alarm, cautions=cautions, progress=progress,
@@ -467,6 +473,45 @@ class _Session:
             for link in range(self.n_links):
                 results = tol.check_tap(decimated[tap, link], self.record_rate_hz, model,
                                         periodic=self.periodic, tap=tap, level=self.false_alarm)
+                found += [_renamed(r, prefix, self._link_label(link)) for r in results]
+        return found
+
+    def delivered_fir(self, source, matrix):
+        """Per-tap checks on the materialised FIR (``fir.npy``), column by column.
+
+        A column that one tap alone reaches carries that tap's gain times its
+        weight w: the tap's model with power w^2 P. A column that sums several
+        taps has no single-tap model; it is marked not applicable (its taps are
+        checked one by one on the gains).
+        """
+        tol = _tolerance()
+        n_fir = matrix.shape[1]
+        decimated = self.decimator.run(source, self.n_links, n_fir, None)
+        decimated = np.ascontiguousarray(decimated.transpose(2, 1, 0))
+        found = []
+        for column in range(n_fir):
+            contributors = np.flatnonzero(matrix[:, column])
+            if contributors.size == 0:
+                continue
+            prefix = f"delivered fir[{column}]: "
+            if contributors.size > 1:
+                found.append(tol.CheckResult(
+                    prefix + "column", tuple(int(i) for i in contributors), None, None, None, None, None,
+                    f"not applicable: the coefficient sums {contributors.size} taps (no single-tap model; "
+                    "the taps are checked one by one)", self.false_alarm))
+                continue
+            tap = int(contributors[0])
+            model = self.models[tap]
+            if model is None:
+                continue
+            weight = float(matrix[tap, column])
+            scaled = dataclasses.replace(model, mean_power=model.mean_power * weight * weight)
+            records = decimated[column]
+            if model.spectrum is None:
+                records = records / self.decimator.response(model.los_doppler_hz)
+            for link in range(self.n_links):
+                results = tol.check_tap(records[link], self.record_rate_hz, scaled, periodic=self.periodic,
+                                        tap=tap, level=self.false_alarm)
                 found += [_renamed(r, prefix, self._link_label(link)) for r in results]
         return found
 

@@ -381,3 +381,29 @@ def test_a_decorrelated_link_fails_the_mimo_correlation(mimo_bundle, tmp_path):
     failed = {c.name for c in result.failed}
     assert "mimo_correlation [links rx0-tx0~rx1-tx0]" in failed, failed
     assert not any(name.startswith("mean_power") for name in failed), failed
+
+
+# -- delivered FIR ---------------------------------------------------------------------------------------
+
+
+def test_delivered_fir_columns_are_checked_and_an_edited_column_fails(tmp_path):
+    out = tmp_path / "fir"
+    compiler.compile_profile(DEMOS / "port-crane-los.yaml", out, duration_s=5.0, formats="fir",
+                             delay_mapping="nearest")
+    result = verifier.verify_bundle(out, delivered=True)
+    assert result.passed, [c.to_dict() for c in result.failed]
+    assert result.identity["delivered"] == ["fir"]
+    delivered = [c for c in result.checks if c.name.startswith("delivered fir[")]
+    assert sum(c.passed is True for c in delivered) >= 6 * 6  # six taps, one column each (nearest)
+    nearest = [c for c in result.checks if c.name == "fir_rms_delay_spread"]
+    assert nearest and nearest[0].passed is True
+
+    column = int(np.flatnonzero(np.load(out / "fir_map.npy")[2])[0])
+    fir = np.load(out / "fir.npy", mmap_mode="r+")
+    fir[..., column] *= np.float32(10 ** (2 / 20))
+    fir.flush()
+    del fir
+    _rehash(out)
+    failed = {(c.name, c.tap) for c in verifier.verify_bundle(out, delivered=True).failed}
+    assert (f"delivered fir[{column}]: mean_power", 2) in failed, failed
+    assert all(name.startswith("delivered fir") for name, _ in failed), failed  # the gains themselves are intact
