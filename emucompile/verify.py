@@ -116,6 +116,9 @@ RECORD_RATE_FACTOR = 8.0
 DECIMATOR_ATTENUATION_DB = 80.0
 """Stopband attenuation of the decimating low-pass (Kaiser window, Kaiser's formula)."""
 CHUNK_SAMPLES = 1 << 16
+PARALLEL_WORKERS = 2
+PARALLEL_MIN_SAMPLES = 1 << 21
+"""From this many record samples (all taps and links) the checks run in PARALLEL_WORKERS forked processes."""
 REPORT_DIRECTORY = VERIFICATION_DIRECTORY
 JSON_NAME = "verification.json"
 REPORT_NAME = "report.html"
@@ -210,7 +213,7 @@ class Verification:
 
 
 def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: bool = False,
-                  progress=None) -> Verification:
+                  progress=None, workers: int | None = None) -> Verification:
     """Check a bundle's integrity, then its statistics against its profile's theory.
 
     Parameters
@@ -225,6 +228,10 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         coefficients when the bundle was fitted to a target), when the bundle
         holds them.
     progress : callable(done, total), optional
+    workers : int, optional
+        Processes for the per-tap checks; default 1 below
+        :data:`PARALLEL_MIN_SAMPLES` record samples, else :data:`PARALLEL_WORKERS`
+        (the same results either way).
 
     Returns
     -------
@@ -268,6 +275,7 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         n_samples=int(manifest["n_samples"]), n_rx=int(manifest["n_rx"]), n_tx=int(manifest["n_tx"]),
         periodic=bool(manifest["periodic"]), false_alarm=false_alarm, cautions=cautions, progress=progress,
         mimo=manifest.get("mimo"), components=_components_or_none(root, cautions) if manifest.get("mimo") else None,
+        workers=workers,
     )
     checks, records, link_records = session.run(sources)
     if delivered and opened.fir is not None:
@@ -297,7 +305,7 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
 
 
 def verify_gains(gains_file, profile, update_rate_hz: float, *, false_alarm: float = DEFAULT_FALSE_ALARM,
-                 periodic: bool = False, progress=None) -> Verification:
+                 periodic: bool = False, progress=None, workers: int | None = None) -> Verification:
     """Check foreign tap gains (npy or cf32, columns = taps in profile order) against a profile.
 
     Parameters
@@ -330,7 +338,7 @@ def verify_gains(gains_file, profile, update_rate_hz: float, *, false_alarm: flo
     session = _Session(
         profile=loaded, models=models, update_rate_hz=rate, n_samples=n, n_rx=n_rx, n_tx=n_tx,
         periodic=periodic, false_alarm=false_alarm, cautions=cautions, progress=progress,
-        mimo=None if n_rx * n_tx == 1 else {"foreign": True}, components=None,
+        mimo=None if n_rx * n_tx == 1 else {"foreign": True}, components=None, workers=workers,
     )
     source = _ArraySource(gains)
     checks, records, link_records = session.run([("foreign", source)])
@@ -420,7 +428,7 @@ class _Session:
     """Decimates each source and runs the per-tap, cross-tap and MIMO checks on the copies."""
 
     def __init__(self, *, profile, models, update_rate_hz, n_samples, n_rx, n_tx, periodic, false_alarm,
-                 cautions, progress, mimo, components):
+                 cautions, progress, mimo, components, workers=None):
         self.profile = profile
         self.models = models
         self.update_rate_hz = update_rate_hz
@@ -433,6 +441,7 @@ class _Session:
         self.progress = progress
         self.mimo = mimo
         self.components = components
+        self.workers = workers
         self.band_hz = _largest_frequency_hz(profile, models)
         self.decimator = _Decimator(update_rate_hz, self.band_hz, n_samples, periodic)
         self.record_rate_hz = self.decimator.record_rate_hz
@@ -462,7 +471,7 @@ class _Session:
 
     def _tap_checks(self, decimated, prefix):
         tol = _tolerance()
-        found = []
+        found, jobs = [], []
         for tap, model in self.models.items():
             if model is None:
                 found += [tol.CheckResult(prefix + name, tap, None, None, None, None, None,
@@ -470,11 +479,17 @@ class _Session:
                                           "(no stationary model)", self.false_alarm)
                           for name in tol.CHECK_NAMES if name != "cross_correlation"]
                 continue
-            for link in range(self.n_links):
-                results = tol.check_tap(decimated[tap, link], self.record_rate_hz, model,
-                                        periodic=self.periodic, tap=tap, level=self.false_alarm)
-                found += [_renamed(r, prefix, self._link_label(link)) for r in results]
+            jobs += [(tap, link, model) for link in range(self.n_links)]
+        outcomes = _map_jobs(_tap_job, (decimated, self.record_rate_hz, self.periodic, self.false_alarm), jobs,
+                             self._workers(decimated))
+        for (tap, link, _), results in zip(jobs, outcomes):
+            found += [_renamed(r, prefix, self._link_label(link)) for r in results]
         return found
+
+    def _workers(self, decimated):
+        if self.workers is not None:
+            return max(1, int(self.workers))
+        return min(PARALLEL_WORKERS, os.cpu_count() or 1) if decimated.size >= PARALLEL_MIN_SAMPLES else 1
 
     def delivered_fir(self, source, matrix):
         """Per-tap checks on the materialised FIR (``fir.npy``), column by column.
@@ -555,15 +570,9 @@ class _Session:
         return found
 
     def _cross_tap_checks(self, decimated):
-        tol = _tolerance()
         fading = [i for i, m in self.models.items() if m is not None and _is_fading(m)]
-        found = []
-        for a_index, a in enumerate(fading):
-            for b in fading[a_index + 1:]:
-                found.append(tol.check_cross_correlation(
-                    decimated[a, 0], decimated[b, 0], self.record_rate_hz, self.models[a], self.models[b],
-                    taps=(a, b), expected=0.0, level=self.false_alarm))
-        return found
+        jobs = [(a, b, self.models[a], self.models[b]) for position, a in enumerate(fading) for b in fading[position + 1:]]
+        return _map_jobs(_cross_job, (decimated, self.record_rate_hz, self.false_alarm), jobs, self._workers(decimated))
 
     def _mimo_checks(self, decimated):
         tol = _tolerance()
@@ -754,6 +763,45 @@ class _ComponentsDirect:
 
 
 # -- helpers: sources, models, checks --------------------------------------------------------------
+
+
+def _tap_job(shared, tap, link, model):
+    decimated, rate_hz, periodic, level = shared
+    return _tolerance().check_tap(decimated[tap, link], rate_hz, model, periodic=periodic, tap=tap, level=level)
+
+
+def _cross_job(shared, a, b, model_a, model_b):
+    decimated, rate_hz, level = shared
+    return _tolerance().check_cross_correlation(decimated[a, 0], decimated[b, 0], rate_hz, model_a, model_b,
+                                                taps=(a, b), expected=0.0, level=level)
+
+
+_SHARED = None
+
+
+def _run_shared(index):
+    function, shared, jobs = _SHARED
+    return function(shared, *jobs[index])
+
+
+def _map_jobs(function, shared, jobs, workers):
+    """``[function(shared, *job) for job in jobs]``, in forked worker processes when ``workers`` > 1.
+
+    The records reach the workers by fork (copy-on-write), not by pickling;
+    only the results travel back. Same results in the same order either way.
+    """
+    global _SHARED
+    if workers <= 1 or len(jobs) < 2:
+        return [function(shared, *job) for job in jobs]
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    _SHARED = (function, shared, jobs)
+    try:
+        with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("fork")) as pool:
+            return list(pool.map(_run_shared, range(len(jobs))))
+    finally:
+        _SHARED = None
 
 
 def _tolerance():

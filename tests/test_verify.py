@@ -407,3 +407,9 @@ def test_delivered_fir_columns_are_checked_and_an_edited_column_fails(tmp_path):
     failed = {(c.name, c.tap) for c in verifier.verify_bundle(out, delivered=True).failed}
     assert (f"delivered fir[{column}]: mean_power", 2) in failed, failed
     assert all(name.startswith("delivered fir") for name, _ in failed), failed  # the gains themselves are intact
+
+
+def test_two_worker_processes_give_the_same_checks(crane):
+    one = verifier.verify_bundle(crane, workers=1)
+    two = verifier.verify_bundle(crane, workers=2)
+    assert [c.to_dict() for c in one.checks] == [c.to_dict() for c in two.checks]
