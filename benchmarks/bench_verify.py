@@ -27,15 +27,9 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the verify command sets it; compile runs under the same
 
-PROFILE = {
-    "format_version": 1,
-    "name": "bench-twelve-taps",
-    "description": "Invented 12-tap benchmark profile (not a standard model).",
-    "max_doppler_hz": 100.0,
-    "taps": [{"delay_ns": d, "power_db": p} for d, p in zip(
-        (0, 50, 120, 200, 230, 500, 1600, 2300, 5000, 5100, 5300, 5600),
-        (-1, -1, -1, 0, 0, 0, -3, -5, -7, -9, -11, -13))],
-}
+sys.path.insert(0, str(ROOT / "benchmarks"))
+from bench_compile import PROFILE  # noqa: E402 - the same invented 12-tap profile as the compile benchmark
+
 UPDATE_RATE_HZ = 6400.0
 
 
