@@ -298,13 +298,21 @@ def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_fil
         with _progress(None, "verifying", as_json) as update:
             result = verifier.verify_bundle(outdir, false_alarm=false_alarm, delivered=delivered, progress=update)
         directory = verifier.default_output_directory(outdir)
-    written = verifier.write_outputs(result, directory=None if report_file else directory,
-                                     report_file=report_file, plots=not no_plots)
+    try:
+        written = verifier.write_outputs(result, directory=None if report_file else directory,
+                                         report_file=report_file, plots=not no_plots)
+    except OSError as error:
+        if report_file:
+            raise InputError(f"{report_file}: cannot write the report: {error.strerror or error}") from None
+        click.echo(f"emucompile: warning: report not written to {directory}: {error.strerror or error} "
+                   "(use --report FILE elsewhere)", err=True)
+        written = []
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2, allow_nan=False))
     else:
         click.echo(result.summary())
-        click.echo("wrote " + ", ".join(str(p) for p in written))
+        if written:
+            click.echo("wrote " + ", ".join(str(p) for p in written))
     if not result.passed:
         failed = result.failed
         raise CheckFailed(f"{outdir or gains_file}: {len(failed)} check(s) failed: "

@@ -413,3 +413,13 @@ def test_two_worker_processes_give_the_same_checks(crane):
     one = verifier.verify_bundle(crane, workers=1)
     two = verifier.verify_bundle(crane, workers=2)
     assert [c.to_dict() for c in one.checks] == [c.to_dict() for c in two.checks]
+
+
+def test_an_unwritable_report_directory_warns_and_keeps_the_verdict(crane, monkeypatch):
+    def refuse(*args, **kwargs):
+        raise PermissionError(13, "Permission denied")
+
+    monkeypatch.setattr(verifier, "write_outputs", refuse)
+    result = _run("verify", crane, "--no-plots")
+    assert result.exit_code == 0 and "report not written" in result.stderr
+    assert _run("verify", crane, "--no-plots", "--report", "/x/r.html").exit_code == 2
