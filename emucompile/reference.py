@@ -89,7 +89,7 @@ def tap_record(
 
     ``periodic=True`` rounds f_los to a multiple of rate/n (as the engine's
     periodic mode does) so the whole record is periodic; otherwise the
-    diffuse part is drawn with ``oversize=4``. ``phi0`` is drawn from ``rng``
+    diffuse part is drawn with ``oversize=2``. ``phi0`` is drawn from ``rng``
     when not given. ``k_linear=inf`` (static) gives the direct part alone.
     """
     t = np.arange(n) / rate_hz
@@ -99,7 +99,7 @@ def tap_record(
     direct = np.exp(1j * (2.0 * math.pi * los_doppler_hz * t + phi0))
     if math.isinf(k_linear):
         return math.sqrt(mean_power) * direct
-    s = diffuse(spectrum, rate_hz, n, rng, oversize=1 if periodic else 4)
+    s = diffuse(spectrum, rate_hz, n, rng, oversize=1 if periodic else 2)
     a = math.sqrt(k_linear / (k_linear + 1.0))
     b = math.sqrt(1.0 / (k_linear + 1.0))
     return math.sqrt(mean_power) * (a * direct + b * s) if k_linear else math.sqrt(mean_power) * s
