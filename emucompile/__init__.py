@@ -61,6 +61,9 @@ _API = {
     "plan_fading": "emucompile.fading",
     "generate_tap_gains": "emucompile.fading",
     "stream_tap_gains": "emucompile.fading",
+    "open_components": "emucompile.components",
+    "Components": "emucompile.components",
+    "ChannelPlan": "emucompile.channel",
 }
 
 

@@ -656,8 +656,17 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
     duration_s = manifest["n_samples"] / manifest["update_rate_hz"]
     if not (math.isfinite(start_s) and 0.0 <= start_s < duration_s):
         raise InputError(f"--start {start_s!r} s lies outside the bundle, which lasts {duration_s:g} s")
+    gains = bundle.tap_gains
+    tap_powers = [0.0 if t["power_db"] is None else 10.0 ** (t["power_db"] / 10.0) for t in manifest["taps"]]
+    if (manifest["fir"] or {}).get("moving") is not None:
+        # A moving delay: the FIR itself varies (fir.npy); replay it through the identity map.
+        if bundle.fir is None:
+            raise InputError(f"{bundle_path}: a moving-delay bundle needs its fir.npy (the time-varying FIR)")
+        tap_powers = list(np.asarray(tap_powers) @ (np.asarray(fir) ** 2))
+        gains, fir = bundle.fir, np.eye(fir.shape[1])
+        fir_record["replayed"] = "fir.npy (time-varying FIR of a moving delay) through the identity map"
     channel = TimeVaryingFir(
-        bundle.tap_gains, fir, update_rate_hz=manifest["update_rate_hz"], sample_rate_hz=rate_hz,
+        gains, fir, update_rate_hz=manifest["update_rate_hz"], sample_rate_hz=rate_hz,
         start_s=start_s, loop=loop, periodic=manifest["periodic"], between_updates=between_updates,
         engine=engine, dtype=recording.dtype,
     )
@@ -665,7 +674,6 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
     paths = _output_paths(Path(output_path), recording, force)
 
     powers = _scan(recording, block_samples)
-    tap_powers = [0.0 if t["power_db"] is None else 10.0 ** (t["power_db"] / 10.0) for t in manifest["taps"]]
     mean_power = channel_mean_power(fir, tap_powers)
     nominal = [mean_power * float(np.sum(powers))] * channel.n_rx
     variances = None

@@ -393,8 +393,8 @@ class MovingFirMap:
 
     Build it with :func:`moving_fir_map`. The grid is that of a sinc
     :class:`FirMap` whose support is widened by the largest offset A/2 on
-    both sides (two zero-power phantom taps at min(tau) - A/2 and
-    max(tau) + A/2 fix the bulk delay and the length), so every moved tap
+    both sides (two zero-power phantom taps just beyond min(tau) - A/2 and
+    max(tau) + A/2, off the sample grid, fix the bulk delay and the length), so every moved tap
     stays inside it. At update n, row i is the same Kaiser-windowed sinc as
     :func:`fir_map`'s, centred on bulk + (tau_i + Delta tau(n)) f_s: the
     coefficients follow the delay smoothly (no jump from one sample to the
@@ -473,8 +473,17 @@ def moving_fir_map(delays_s, powers_linear, sample_rate_hz, moving, update_rate_
     """The time-varying sinc map of a moving delay (see :class:`MovingFirMap`)."""
     delays = [float(d) for d in delays_s]
     extra = float(moving.max_offset_s)
-    grid = fir_map(delays + [min(delays) - extra, max(delays) + extra],
-                   [float(p) for p in powers_linear] + [0.0, 0.0], sample_rate_hz, mapping="sinc", **options)
+    # Phantoms off the sample grid (an on-sample delay maps to one coefficient, not 2L):
+    # half a sample beyond each extreme, or a quarter when that lands on a sample.
+    phantoms = []
+    for edge, sign in ((min(delays) - extra, -1.0), (max(delays) + extra, 1.0)):
+        for step in (0.5, 0.25):
+            position = edge * sample_rate_hz + sign * step
+            if abs(position - round(position)) > 10 * ON_SAMPLE_TOLERANCE:
+                break
+        phantoms.append(position / sample_rate_hz)
+    grid = fir_map(delays + phantoms, [float(p) for p in powers_linear] + [0.0, 0.0], sample_rate_hz,
+                   mapping="sinc", **options)
     return MovingFirMap(grid=grid, n_taps=len(delays), moving=moving, update_rate_hz=float(update_rate_hz))
 
 

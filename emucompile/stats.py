@@ -171,6 +171,12 @@ def frequency_correlation(delays_s, powers_linear, frequency_hz):
     return np.sqrt(_correlation_squared(delays - delays.min(), weights, np.asarray(frequency_hz, float)))
 
 
+TANGENCY_TOLERANCE = 1e-12
+"""How close |R|^2 must come to the level squared to count as reaching it: a
+minimum that touches the level (a tangency) is found, not lost to rounding
+(float64 sums of a few cosines round at ~1e-16; common practice margin)."""
+
+
 def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
     """Exact coherence bandwidth: the first df > 0 where |R(df)| falls to ``correlation``.
 
@@ -198,7 +204,10 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
     reciprocal), discards every interval that bound keeps above the level,
     splits each remaining one into 16 and repeats (branch and bound, at most
     6 levels deep), and refines the first interval whose right end is at or
-    below the level with ``scipy.optimize.brentq``. No crossing is missed
+    below the level with ``scipy.optimize.brentq``. An interval still undecided
+    at the deepest level is searched for a minimum of g (a root of g', by
+    ``brentq``) that touches the level within :data:`TANGENCY_TOLERANCE`:
+    "falls to" includes touching it. No crossing is missed
     except a tangency shallower than about pi W / 64 / 16^6 (< 3e-9) in g. Taps
     less than 1 fs apart count as one delay. Weak taps far
     out only add their small share to G, so they do not force a fine grid.
@@ -216,11 +225,13 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
     if len(delays) == 1:
         return None, ("all power arrives at one delay: |R(df)| = 1 for every df, so the "
                       "coherence bandwidth is infinite")
+    level2 = correlation * correlation
     floor = 2.0 * float(weights.max()) - 1.0
-    if floor >= correlation:
+    # |R| touching the level (a tangency, within float rounding) counts as reaching it.
+    if floor >= correlation and floor * floor - level2 > TANGENCY_TOLERANCE:
         return None, (f"the strongest delay holds {weights.max() * 100:.4g} % of the power, so "
                       f"|R(df)| never falls below {floor:.4g}, above {correlation}")
-    level2 = correlation * correlation
+    reach = level2 + TANGENCY_TOLERANCE
     pair_weight = np.outer(weights, weights)
     slope_bound = math.pi * float(np.sum(pair_weight * np.abs(delays[:, None] - delays[None, :])))
     step = (1.0 - float(np.sum(weights**2))) * math.pi / (64.0 * slope_bound)
@@ -235,8 +246,10 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
         if g_b <= level2:
             return float(optimize.brentq(lambda x: g(x)[0] - level2, a, b,
                                          xtol=step * 1e-12, rtol=1e-13))
-        if (g_a + g_b) / 2.0 - slope_bound * (b - a) > level2 or depth == 6:
+        if (g_a + g_b) / 2.0 - slope_bound * (b - a) > reach:
             return None
+        if depth == 6:
+            return tangency(a, b, g_a, g_b)
         x = np.linspace(a, b, 17)
         values = g(x)
         values[0], values[-1] = g_a, g_b
@@ -246,13 +259,25 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
                 return found
         return None
 
+    def slope(f):
+        phase = np.exp(-2j * np.pi * f * delays)
+        r = phase @ weights
+        return 2.0 * float(np.real(np.conj(r) * ((-2j * np.pi * delays * phase) @ weights)))
+
+    def tangency(a, b, g_a, g_b):
+        """A minimum of g in [a, b] that touches the level within TANGENCY_TOLERANCE, or None."""
+        if not slope(a) < 0.0 <= slope(b):
+            return None  # no minimum inside: a later interval holds it
+        x = float(optimize.brentq(slope, a, b, xtol=step * 1e-12, rtol=1e-15))
+        return x if g(x)[0] <= reach else None
+
     previous_f, previous_g = 0.0, 1.0
     for start in range(0, max_points, chunk):
         f = (np.arange(start, start + chunk) + 1.0) * step
         values = g(f)
         left = np.concatenate(([previous_g], values[:-1]))
         lefts = np.concatenate(([previous_f], f[:-1]))
-        maybe = np.flatnonzero((left + values) / 2.0 - slope_bound * step <= level2)
+        maybe = np.flatnonzero((left + values) / 2.0 - slope_bound * step <= reach)
         for k in maybe:
             found = first_in(float(lefts[k]), float(f[k]), float(left[k]), float(values[k]), 0)
             if found is not None:
