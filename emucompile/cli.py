@@ -258,7 +258,7 @@ def reproduce(outdir):
 @click.option("--report", "report_file", metavar="FILE", help="Write the HTML report here.")
 @click.option("--no-plots", is_flag=True, help="Skip the figures (faster).")
 @click.option("--false-alarm", type=float, default=0.01, show_default=True, metavar="P", help="Family-wise false-alarm rate of the verdict.")
-@click.option("--delivered", is_flag=True, help="Check what the emulator receives (ci16 data or fitted coefficients).")
+@click.option("--delivered", is_flag=True, help="Also check what the emulator receives: the ci16 data, the (target-fitted) fir.npy.")
 def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_file, no_plots, false_alarm, delivered):
     """Check a bundle's integrity and its statistics against theory. Exit 1 if a check fails.
 
