@@ -59,7 +59,9 @@ def main(argv=None):
             verify_s = time.perf_counter() - began
             line = (f"n = {n:.3g} x 12 taps: compile {compile_s:.2f} s, verify {verify_s:.2f} s "
                     f"({len(result.checks)} checks, record rate {result.record_rate_hz:g} Hz, "
-                    f"{'passed' if result.passed else 'FAILED'}), ratio verify/compile {verify_s / compile_s:.2f}")
+                    f"{'passed' if result.passed else 'FAILED'}; "
+                    + ", ".join(f"{k} {v:.2f} s" for k, v in sorted(result.timings_s.items()))
+                    + f"), ratio verify/compile {verify_s / compile_s:.2f}")
             if args.plots:
                 began = time.perf_counter()
                 verify.write_outputs(result, directory=work / "report", plots=True)

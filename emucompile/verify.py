@@ -79,6 +79,8 @@ Result fields (the contract with :mod:`emucompile.plots` and :mod:`emucompile.re
     skipped and why, ...).
 ``elapsed_s`` : float
     Wall time of the verification.
+``timings_s`` : dict
+    Wall time of its stages (``integrity``, ``decimation``, ``checks``).
 
 ``to_dict()`` gives the strict-JSON ``verification.json`` (contract 1's
 ``verify --json`` keys ``passed``, ``false_alarm``, ``checks`` plus
@@ -160,6 +162,7 @@ class Verification:
     foreign: bool
     cautions: list
     elapsed_s: float = 0.0
+    timings_s: dict = dataclasses.field(default_factory=dict)
 
     @property
     def passed(self) -> bool:
@@ -190,6 +193,7 @@ class Verification:
             "foreign": self.foreign,
             "cautions": list(self.cautions),
             "elapsed_s": self.elapsed_s,
+            "timings_s": self.timings_s,
         })
 
     def summary(self) -> str:
@@ -259,6 +263,7 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
     problems = bd.verify_integrity(root)
     if problems:
         raise IntegrityError(problems)
+    integrity_s = time.perf_counter() - began
     opened = bd.open_bundle(root)
     manifest = opened.manifest
     profile = profile_from_document(manifest["profile"], source=f"{root}/manifest.json#/profile")
@@ -303,6 +308,7 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         sample_rate_hz=None if fir is None else float(fir["sample_rate_hz"]),
         fir_delays_s=None if fir is None else (np.arange(fir["n_fir"]) - fir["bulk_delay_samples"]) / fir["sample_rate_hz"],
         foreign=False, cautions=cautions, elapsed_s=time.perf_counter() - began,
+        timings_s=dict(session.timings_s, integrity=integrity_s),
     )
 
 
@@ -357,7 +363,7 @@ def verify_gains(gains_file, profile, update_rate_hz: float, *, false_alarm: flo
         profile_stats=_profile_stats(loaded), update_rate_hz=rate, duration_s=n / rate, records=records,
         link_records=link_records, record_rate_hz=session.record_rate_hz, models=models, fir_map=None,
         sample_rate_hz=None, fir_delays_s=None, foreign=True, cautions=cautions,
-        elapsed_s=time.perf_counter() - began,
+        elapsed_s=time.perf_counter() - began, timings_s=dict(session.timings_s),
     )
 
 
@@ -444,6 +450,7 @@ class _Session:
         self.mimo = mimo
         self.components = components
         self.workers = workers
+        self.timings_s = {}
         self.band_hz = _largest_frequency_hz(profile, models)
         self.decimator = _Decimator(update_rate_hz, self.band_hz, n_samples, periodic)
         self.record_rate_hz = self.decimator.record_rate_hz
@@ -453,7 +460,10 @@ class _Session:
         """Checks of every source; records (tap -> link 0 record) and MIMO link records of the first."""
         checks, records, link_records = [], {}, None
         for position, (label, source) in enumerate(sources):
+            began = time.perf_counter()
             decimated = self.decimator.run(source, self.n_links, len(self.models), self.progress)
+            self.timings_s["decimation"] = self.timings_s.get("decimation", 0.0) + time.perf_counter() - began
+            began = time.perf_counter()
             decimated = np.ascontiguousarray(decimated.transpose(2, 1, 0))  # (taps, links, m): contiguous records
             for tap, model in self.models.items():
                 if model is not None and model.spectrum is None:
@@ -469,6 +479,7 @@ class _Session:
                 checks += self._cross_tap_checks(decimated)
                 if self.n_links > 1:
                     checks += self._mimo_checks(decimated)
+            self.timings_s["checks"] = self.timings_s.get("checks", 0.0) + time.perf_counter() - began
         return checks, records, link_records
 
     def _tap_checks(self, decimated, prefix):
