@@ -39,6 +39,7 @@ def main(argv=None):
     parser.add_argument("--repeat", type=int, default=1)
     parser.add_argument("--dir", default=None, help="where to write the bundle (default: a temporary directory)")
     parser.add_argument("--plots", action="store_true", help="also time verify with the figures and report")
+    parser.add_argument("--workers", type=int, default=None, help="processes for the checks (default: verify's rule)")
     args = parser.parse_args(argv)
 
     from emucompile import compiler, verify
@@ -55,7 +56,7 @@ def main(argv=None):
                                      seed=1 + repeat, force=True, max_size_bytes=None)
             compile_s = time.perf_counter() - began
             began = time.perf_counter()
-            result = verify.verify_bundle(out)
+            result = verify.verify_bundle(out, workers=args.workers)
             verify_s = time.perf_counter() - began
             line = (f"n = {n:.3g} x 12 taps: compile {compile_s:.2f} s, verify {verify_s:.2f} s "
                     f"({len(result.checks)} checks, record rate {result.record_rate_hz:g} Hz, "

@@ -120,9 +120,6 @@ RECORD_RATE_FACTOR = 8.0
 DECIMATOR_ATTENUATION_DB = 80.0
 """Stopband attenuation of the decimating low-pass (Kaiser window, Kaiser's formula)."""
 CHUNK_SAMPLES = 1 << 16
-PARALLEL_WORKERS = 2
-PARALLEL_MIN_SAMPLES = 1 << 21
-"""From this many record samples (all taps and links) the checks run in PARALLEL_WORKERS forked processes."""
 REPORT_DIRECTORY = VERIFICATION_DIRECTORY
 JSON_NAME = "verification.json"
 REPORT_NAME = "report.html"
@@ -235,9 +232,10 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         holds them.
     progress : callable(done, total), optional
     workers : int, optional
-        Processes for the per-tap checks; default 1 below
-        :data:`PARALLEL_MIN_SAMPLES` record samples, else :data:`PARALLEL_WORKERS`
-        (the same results either way).
+        Forked processes for the per-tap and cross-tap checks (the same results
+        either way). Default 1: on this 2-core machine two did not pay
+        (1e7 x 12 taps: checks 16.0 s with one, 18.3 s with two, measured
+        with ``benchmarks/bench_verify.py --workers``).
 
     Returns
     -------
@@ -500,9 +498,7 @@ class _Session:
         return found
 
     def _workers(self, decimated):
-        if self.workers is not None:
-            return max(1, int(self.workers))
-        return min(PARALLEL_WORKERS, os.cpu_count() or 1) if decimated.size >= PARALLEL_MIN_SAMPLES else 1
+        return 1 if self.workers is None else max(1, int(self.workers))
 
     def delivered_fir(self, source, matrix):
         """Per-tap checks on the materialised FIR (``fir.npy``), column by column.
@@ -819,15 +815,18 @@ def _map_jobs(function, shared, jobs, workers):
     only the results travel back. Same results in the same order either way.
     """
     global _SHARED
-    if workers <= 1 or len(jobs) < 2:
+    if workers <= 1 or len(jobs) < 3:
         return [function(shared, *job) for job in jobs]
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
+    # the first job runs here: the tolerance module's null sums it caches (per spectrum,
+    # rate and length) are then inherited by the forked workers instead of computed in each
+    first = function(shared, *jobs[0])
     _SHARED = (function, shared, jobs)
     try:
         with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("fork")) as pool:
-            return list(pool.map(_run_shared, range(len(jobs))))
+            return [first] + list(pool.map(_run_shared, range(1, len(jobs))))
     finally:
         _SHARED = None
 
