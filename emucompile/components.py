@@ -96,7 +96,12 @@ class Components:
         return mimo.links_from_gains(self.diffuse(start, stop)[..., tap:tap + 1])[:, :, 0]
 
     def expected_correlation(self, tap: int) -> np.ndarray:
-        """(n_links, n_links) complex correlation matrix of the diffuse parts (identity for SISO)."""
+        """(n_links, n_links) complex correlation matrix of the diffuse parts (identity for SISO).
+
+        The same for every tap (blocks.py, "One correlation for every tap"); a
+        static tap has no diffuse part (its link streams are zero), so there is
+        nothing to check it against.
+        """
         self._tap(tap)
         return np.array(self._channel.correlation, dtype=np.complex128)
 
