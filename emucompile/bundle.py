@@ -65,6 +65,7 @@ FORMAT_VERSION = 1
 MANIFEST_NAME = "manifest.json"
 DEFAULT_MAX_SIZE_BYTES = 8 * 1024**3
 EXTRA_FORMATS = ("cf32", "ci16", "csv", "sigmf", "fir")
+VERIFICATION_DIRECTORY = "verification"  # verify's reports: not hashed, replaced with the bundle
 TEMP_MARKER = ".emucompile-tmp-"  # .gitignore ignores *.emucompile-tmp*/
 MANIFEST_ALLOWANCE_BYTES = 64 * 1024  # the manifest embeds the profile; generous upper bound
 MANIFEST_ENTRY_BYTES = 2048  # per file entry (the ci16 entry, the largest, is about 1.5 KiB)
@@ -876,7 +877,7 @@ def _unlisted_files(directory: Path, manifest: dict) -> list[str]:
     for root, dirs, files in os.walk(directory):
         for name in files + [d for d in dirs if os.path.islink(os.path.join(root, d))]:
             relative = os.path.relpath(os.path.join(root, name), directory).replace(os.sep, "/")
-            if relative not in listed:
+            if relative not in listed and not relative.startswith(VERIFICATION_DIRECTORY + "/"):
                 extra.append(relative)
     return sorted(extra)
 

@@ -770,7 +770,7 @@ class _Checker:
                  if p.pointer not in self.flagged]
         for problem in found:
             self.report(problem.pointer, problem.message, problem.hint, severity=problem.severity, key=True)
-        if "format_version" in block:
+        if isinstance(block, dict) and "format_version" in block:
             self.warning("/target/format_version", "ignored: a target block takes the profile's format_version",
                          key=True)
         if any(p.severity == "error" for p in found):

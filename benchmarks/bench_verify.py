@@ -1,0 +1,76 @@
+"""Verify speed against compile speed of the same bundle (target: verify no slower than compile).
+
+Compiles an invented 12-tap profile (f_D = 100 Hz, update rate 6.4 kHz = 64 f_D,
+``--samples`` samples per tap) and then verifies that bundle, both in this
+process, and prints both wall times and their ratio verify / compile (target
+<= 1.0), with OPENBLAS_NUM_THREADS=1 for both (what the verify command
+sets; the compile engine is single-threaded by default). Verify runs without figures (``--no-plots``): the figures are the
+report's cost, not the statistics'; ``--plots`` adds them as a third time.
+
+Usage::
+
+    python benchmarks/bench_verify.py [--samples 1000000] [--repeat 1] [--dir /tmp] [--plots]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the verify command sets it; compile runs under the same
+
+sys.path.insert(0, str(ROOT / "benchmarks"))
+from bench_compile import PROFILE  # noqa: E402 - the same invented 12-tap profile as the compile benchmark
+
+UPDATE_RATE_HZ = 6400.0
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--samples", type=float, default=1e6, help="samples per tap (default 1e6)")
+    parser.add_argument("--repeat", type=int, default=1)
+    parser.add_argument("--dir", default=None, help="where to write the bundle (default: a temporary directory)")
+    parser.add_argument("--plots", action="store_true", help="also time verify with the figures and report")
+    parser.add_argument("--workers", type=int, default=None, help="processes for the checks (default: verify's rule)")
+    args = parser.parse_args(argv)
+
+    from emucompile import compiler, verify
+
+    n = int(args.samples)
+    work = Path(tempfile.mkdtemp(prefix="bench-verify-", dir=args.dir))
+    profile = work / "bench.json"
+    profile.write_text(json.dumps(PROFILE))
+    out = work / "bundle"
+    try:
+        for repeat in range(args.repeat):
+            began = time.perf_counter()
+            compiler.compile_profile(profile, out, update_rate_hz=UPDATE_RATE_HZ, duration_s=n / UPDATE_RATE_HZ,
+                                     seed=1 + repeat, force=True, max_size_bytes=None)
+            compile_s = time.perf_counter() - began
+            began = time.perf_counter()
+            result = verify.verify_bundle(out, workers=args.workers)
+            verify_s = time.perf_counter() - began
+            line = (f"n = {n:.3g} x 12 taps: compile {compile_s:.2f} s, verify {verify_s:.2f} s "
+                    f"({len(result.checks)} checks, record rate {result.record_rate_hz:g} Hz, "
+                    f"{'passed' if result.passed else 'FAILED'}; "
+                    + ", ".join(f"{k} {v:.2f} s" for k, v in sorted(result.timings_s.items()))
+                    + f"), ratio verify/compile {verify_s / compile_s:.2f}")
+            if args.plots:
+                began = time.perf_counter()
+                verify.write_outputs(result, directory=work / "report", plots=True)
+                line += f"; figures + report {time.perf_counter() - began:.2f} s more"
+            print(line, flush=True)
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
