@@ -9,6 +9,8 @@ verdict (pass, fail, not applicable); their numbers mean nothing.
 
 from __future__ import annotations
 
+import functools
+
 from dataclasses import asdict, dataclass, field
 from types import SimpleNamespace
 
@@ -97,3 +99,12 @@ def standin_verification(profile_path="profiles_demo/port-crane-los.yaml", *, pe
     )
 
 
+
+
+@functools.lru_cache(maxsize=None)
+def report_inputs():
+    """One stand-in verification of the port-crane demo (T f_D = 500) and its figures, shared by tests."""
+    from emucompile.plots import make_figures
+
+    verification = standin_verification(periods=500.0, foreign=True)
+    return verification, tuple(make_figures(verification))
