@@ -65,6 +65,7 @@ FORMAT_VERSION = 1
 MANIFEST_NAME = "manifest.json"
 DEFAULT_MAX_SIZE_BYTES = 8 * 1024**3
 EXTRA_FORMATS = ("cf32", "ci16", "csv", "sigmf", "fir")
+VERIFICATION_DIRECTORY = "verification"  # verify's reports: not hashed, replaced with the bundle
 TEMP_MARKER = ".emucompile-tmp-"  # .gitignore ignores *.emucompile-tmp*/
 MANIFEST_ALLOWANCE_BYTES = 64 * 1024  # the manifest embeds the profile; generous upper bound
 MANIFEST_ENTRY_BYTES = 2048  # per file entry (the ci16 entry, the largest, is about 1.5 KiB)
@@ -77,7 +78,7 @@ _MANIFEST_ORDER = (
     "format", "format_version", "tool_version", "generator_version", "created_utc",
     "profile_sha256", "resolved_profile_sha256", "seed", "method", "generator",
     "update_rate_hz", "n_samples", "duration_s", "n_taps", "n_rx", "n_tx", "periodic",
-    "taps", "mimo", "fir", "target", "platform", "formats", "files", "profile",
+    "taps", "mimo", "conditions", "fir", "target", "platform", "formats", "files", "profile",
 )
 
 
@@ -139,6 +140,13 @@ class BundleLayout:
         Design clipping probability of ``ci16`` (per sample, envelope law).
     csv_max_rows : int or None
         ``csv`` is refused above this many rows (default 1,000,000); None lifts the limit.
+    extra_arrays : tuple of (name, role, dtype, shape, make, axes)
+        Whole arrays written at the start (``make()`` returns the array), e.g.
+        ``shadowing_db.npy``.
+    fir_maps : callable(start, stop) -> array (m, n_taps, n_fir), optional
+        A time-varying FIR map (moving delay): ``fir.npy`` is then
+        sum_k tap_gains[n, ..., k] fir_maps(n)[k]; ``fir_map`` stays the map
+        at zero offset on the same grid.
     """
 
     n_samples: int
@@ -152,6 +160,8 @@ class BundleLayout:
     tap_k_linear: tuple | None = None
     clip_probability: float = fmt.DEFAULT_CLIP_PROBABILITY
     csv_max_rows: int | None = fmt.DEFAULT_CSV_MAX_ROWS
+    extra_arrays: tuple = field(default=(), compare=False, repr=False)
+    fir_maps: object = field(default=None, compare=False, repr=False)
 
     def __post_init__(self):
         set_ = object.__setattr__
@@ -222,6 +232,8 @@ class BundleLayout:
         if self.fir_map is not None:
             fir_map = np.asarray(self.fir_map)
             sizes.insert(1, ("fir_map.npy", len(fmt.npy_header(fir_map.dtype, fir_map.shape)) + fir_map.nbytes))
+        for name, _role, dtype, shape, _make, _axes in self.extra_arrays:
+            sizes.append((name, len(fmt.npy_header(dtype, shape)) + int(np.prod(shape)) * np.dtype(dtype).itemsize))
         n_entries = len(sizes) + sum(2 * len(w.recordings) - 1 for w in writers if isinstance(w, fmt.SigmfWriter))
         sizes.append((MANIFEST_NAME, MANIFEST_ALLOWANCE_BYTES + MANIFEST_ENTRY_BYTES * n_entries))
         return sizes
@@ -245,7 +257,8 @@ class BundleLayout:
             elif name == "sigmf":
                 writers.append(fmt.SigmfWriter(*shape, self.update_rate_hz))
             elif name == "fir":
-                writers.append(fmt.FirWriter(self.fir_map, self.n_samples, self.n_rx, self.n_tx))
+                writers.append(fmt.FirWriter(self.fir_map, self.n_samples, self.n_rx, self.n_tx,
+                                             maps=self.fir_maps))
         return writers
 
 
@@ -360,6 +373,12 @@ class BundleWriter:
             self._fir_map_entry = None
             if self.layout.fir_map is not None:
                 self._fir_map_entry = fmt.write_npy_file(self._temp, "fir_map.npy", "fir_map", self.layout.fir_map, ("tap", "fir_coefficient"))
+            self._extra_entries = []
+            for name, role, dtype, shape, make, axes in self.layout.extra_arrays:
+                array = np.asarray(make(), dtype=dtype)
+                if array.shape != tuple(shape):
+                    raise ValueError(f"{name}: shape {array.shape}, planned {tuple(shape)}")
+                self._extra_entries.append(fmt.write_npy_file(self._temp, name, role, array, axes))
             if self.threaded:
                 self._thread = threading.Thread(target=self._drain, name="emucompile-bundle-writer", daemon=True)
                 self._thread.start()
@@ -418,6 +437,7 @@ class BundleWriter:
             entries = [self._writers[0].close()[0]]
             if self._fir_map_entry is not None:
                 entries.append(self._fir_map_entry)
+            entries += self._extra_entries
             context = {
                 "taps": fields.get("taps"),
                 "recorder": f"emucompile {__version__}",
@@ -857,7 +877,7 @@ def _unlisted_files(directory: Path, manifest: dict) -> list[str]:
     for root, dirs, files in os.walk(directory):
         for name in files + [d for d in dirs if os.path.islink(os.path.join(root, d))]:
             relative = os.path.relpath(os.path.join(root, name), directory).replace(os.sep, "/")
-            if relative not in listed:
+            if relative not in listed and not relative.startswith(VERIFICATION_DIRECTORY + "/"):
                 extra.append(relative)
     return sorted(extra)
 

@@ -46,8 +46,9 @@ from emucompile.bundle import (
     open_bundle,
     parse_formats,
 )
+from emucompile.channel import SHADOWING_FILE, SHADOWING_ROLE, ChannelPlan
 from emucompile.errors import InputError
-from emucompile.grid import FirMap, fir_map
+from emucompile.grid import FirMap, fir_map, moving_fir_map
 from emucompile.profile import Profile, load_profile, profile_from_document
 
 DEFAULT_UPDATE_FACTOR = 64
@@ -88,6 +89,7 @@ class CompilePlan:
     sources: dict = field(default_factory=dict)
     warnings: tuple = ()
     engine: fading.FadingPlan = field(default=None, repr=False, compare=False)
+    channel: ChannelPlan = field(default=None, repr=False, compare=False)
 
     @property
     def duration_s(self) -> float:
@@ -195,7 +197,25 @@ def plan_compile(
 
     fit = None
     grid_map = None
-    if target_obj is not None:
+    conditions = profile.conditions
+    moving = getattr(conditions, "moving_propagation", None)
+    if moving is not None and target_obj is not None:
+        raise InputError("a moving delay cannot be fitted to a target yet", hint="drop the target, or the moving delay")
+    if moving is not None:
+        if rate_fs is None:
+            raise InputError("a moving delay needs a sample rate: the FIR follows the delay",
+                             hint="give --sample-rate (or compile: sample_rate_hz)")
+        if mapping not in (None, "sinc"):
+            raise InputError("a moving delay needs the sinc delay mapping (a nearest-sample map would jump)",
+                             hint="use --delay-mapping sinc")
+        rate_fs = _positive("sample rate", rate_fs, "Hz")
+        mapping = "sinc"
+        grid_map = moving_fir_map([t.delay_s for t in profile.taps], [t.power_linear for t in profile.taps],
+                                  rate_fs, moving, rate)
+        if "fir" not in formats_value:
+            formats_value = formats_value + ("fir",)
+            sources["formats"] = "fir added: a moving delay's FIR varies in time"
+    elif target_obj is not None:
         from emucompile.target import fit_to_target
 
         fit = fit_to_target(target_obj, profile, update_rate_hz=rate, sample_rate_hz=rate_fs,
@@ -208,12 +228,21 @@ def plan_compile(
 
     engine = fading.plan(profile, rate, n_samples, seed_value, method=method_value,
                          periodic=periodic_value)
+    channel = ChannelPlan(profile, engine)
+    extra = ()
+    if channel.shadowing is not None:
+        extra = ((SHADOWING_FILE, SHADOWING_ROLE, np.float64, (engine.n_samples,),
+                  lambda: channel.shadowing_db(0, engine.n_samples), ("sample",)),)
     layout = BundleLayout.from_profile(
         profile,
         n_samples=engine.n_samples,
         update_rate_hz=rate,
+        n_rx=profile.n_rx,
+        n_tx=profile.n_tx,
         formats=formats_value,
         fir_map=None if grid_map is None else grid_map.matrix,
+        fir_maps=grid_map.maps if moving is not None else None,
+        extra_arrays=extra,
         csv_max_rows=None if force else BundleLayout.__dataclass_fields__["csv_max_rows"].default,
     )
     if max_size_bytes is not None and layout.estimated_size_bytes > max_size_bytes:
@@ -240,6 +269,7 @@ def plan_compile(
         sources=sources,
         warnings=tuple(warnings),
         engine=engine,
+        channel=channel,
     )
 
 
@@ -274,8 +304,8 @@ def run_plan(plan: CompilePlan, *, progress=None) -> CompileResult:
     engine = plan.engine
     with BundleWriter(plan.outdir, plan.layout, force=plan.force,
                       max_size_bytes=plan.max_size_bytes, progress=progress) as writer:
-        for start, gains in engine.chunks(CHUNK_SAMPLES):
-            writer.write_chunk(start, gains.reshape(len(gains), 1, 1, engine.n_taps))
+        for start, gains in plan.channel.chunks(CHUNK_SAMPLES):
+            writer.write_chunk(start, gains)
         path = writer.finish(manifest_fields(plan))
     manifest = open_bundle(path).manifest
     return CompileResult(path=Path(path), manifest=manifest, plan=plan,
@@ -299,7 +329,8 @@ def manifest_fields(plan: CompilePlan) -> dict:
         "duration_s": plan.duration_s,
         "periodic": plan.periodic,
         "taps": _manifest_taps(plan.profile, engine.tap_info()),
-        "mimo": None,
+        "mimo": None if plan.profile.mimo is None else plan.profile.mimo.as_record(),
+        "conditions": plan.channel.conditions_record(),
         "fir": None if plan.fir is None else _fir_entry(plan.fir),
     }
     if plan.target_fit is not None:
@@ -365,8 +396,8 @@ def reproduce_bundle(path, *, progress=None) -> ReproduceResult:
     digest = hashlib.sha256(_npy_header(np.complex64, stored.shape))
     worst = 0.0
     rms = np.sqrt(np.maximum([t.power_linear for t in plan.profile.taps], 1e-300))
-    for start, gains in engine.chunks(CHUNK_SAMPLES):
-        block = gains.reshape(len(gains), 1, 1, engine.n_taps)
+    for start, block in plan.channel.chunks(CHUNK_SAMPLES):
+        gains = block
         digest.update(np.ascontiguousarray(block).tobytes())
         difference = np.abs(block - stored[start:start + len(block)]).max(axis=(0, 1, 2))
         worst = max(worst, float((difference / rms).max()))
@@ -378,6 +409,11 @@ def reproduce_bundle(path, *, progress=None) -> ReproduceResult:
         fir_digest = hashlib.sha256(_npy_header(matrix.dtype, matrix.shape) + matrix.tobytes())
         entry = bundle.entry("fir_map")
         files.append(("fir_map.npy", entry is not None and fir_digest.hexdigest() == entry["sha256"]))
+    if plan.channel.shadowing is not None:
+        values = np.ascontiguousarray(plan.channel.shadowing_db(0, engine.n_samples), dtype="<f8")
+        shadow_digest = hashlib.sha256(_npy_header(values.dtype, values.shape) + values.tobytes())
+        entry = bundle.entry(SHADOWING_ROLE)
+        files.append((SHADOWING_FILE, entry is not None and shadow_digest.hexdigest() == entry["sha256"]))
     platform_differences = _platform_differences(manifest.get("platform") or {})
     tolerance = fading.CROSS_PLATFORM_TOLERANCE
     fir_same = all(ok for name, ok in files if name != "tap_gains.npy")
@@ -502,6 +538,10 @@ def _manifest_taps(profile, info):
             "spectrum": tap.spectrum if tap.fading != "static" else None,
             "sigma_hz": tap.sigma_hz,
         }
+        if tap.los_trajectory is not None:
+            entry["los_doppler_hz"] = None
+            entry["los_trajectory"] = tap.los_trajectory
+            entry["los_peak_doppler_hz"] = tap.los_peak_doppler_hz
         entry["generator"] = {k: v for k, v in used.items() if k not in entry and k != "index"}
         taps.append(entry)
     return taps

@@ -421,16 +421,29 @@ class FirWriter(ArrayWriter):
 
     _block_elements = 1 << 20  # bounds the complex128 accumulator (16 MiB)
 
-    def __init__(self, fir_map, n_samples, n_rx, n_tx):
+    def __init__(self, fir_map, n_samples, n_rx, n_tx, *, maps=None):
         self.fir_map = np.asarray(fir_map)
+        self.maps = maps
+        self._position = 0
         n_fir = self.fir_map.shape[1]
+        note = "tap_gains @ fir_map, accumulated in complex128 in tap order, rounded to complex64"
+        if maps is not None:
+            note = ("sum_k tap_gains[n, ..., k] * moving_map(n)[k] (the map at each update's delay offset), "
+                    "accumulated in complex128 in tap order, rounded to complex64")
         super().__init__(
-            "fir.npy", "fir", np.complex64, (n_samples, n_rx, n_tx, n_fir), FIR_AXES, header=True,
-            note="tap_gains @ fir_map, accumulated in complex128 in tap order, rounded to complex64",
+            "fir.npy", "fir", np.complex64, (n_samples, n_rx, n_tx, n_fir), FIR_AXES, header=True, note=note,
         )
 
     def encode(self, chunk):
         accumulator = np.zeros((*chunk.shape[:3], self.fir_map.shape[1]), dtype=np.complex128)
+        if self.maps is not None:
+            # A time-varying map: this writer sees the chunks in sample order.
+            first = self._position
+            self._position += chunk.shape[0]
+            maps = self.maps(first, self._position)  # (m, n_taps, n_fir)
+            for k in range(chunk.shape[3]):
+                accumulator += chunk[..., k, None].astype(np.complex128) * maps[:, None, None, k, :]
+            return accumulator.astype(np.complex64)
         for k in range(chunk.shape[3]):
             accumulator += chunk[..., k, None].astype(np.complex128) * self.fir_map[k]
         return accumulator.astype(np.complex64)

@@ -387,6 +387,97 @@ def fir_map(
     )
 
 
+@dataclass(frozen=True, eq=False)
+class MovingFirMap:
+    """A FIR map whose delays all drift by Delta tau(t) (a moving delay, TS 36.104 B.4).
+
+    Build it with :func:`moving_fir_map`. The grid is that of a sinc
+    :class:`FirMap` whose support is widened by the largest offset A/2 on
+    both sides (two zero-power phantom taps at min(tau) - A/2 and
+    max(tau) + A/2 fix the bulk delay and the length), so every moved tap
+    stays inside it. At update n, row i is the same Kaiser-windowed sinc as
+    :func:`fir_map`'s, centred on bulk + (tau_i + Delta tau(n)) f_s: the
+    coefficients follow the delay smoothly (no jump from one sample to the
+    next). :attr:`matrix` is the map at zero offset.
+    """
+
+    grid: FirMap
+    n_taps: int
+    moving: object
+    update_rate_hz: float
+
+    @property
+    def matrix(self) -> np.ndarray:
+        return self.grid.matrix[: self.n_taps]
+
+    @property
+    def n_fir(self) -> int:
+        return self.grid.n_fir
+
+    @property
+    def sample_rate_hz(self) -> float:
+        return self.grid.sample_rate_hz
+
+    @property
+    def bulk_delay_samples(self) -> int:
+        return self.grid.bulk_delay_samples
+
+    def centres(self, start: int, stop: int) -> np.ndarray:
+        """bulk + (tau_i + Delta tau(n)) f_s, in samples: float64 (m, n_taps)."""
+        offsets = self.moving.delay_offset_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+        delays = np.asarray(self.grid.delays_s[: self.n_taps])
+        return self.bulk_delay_samples + (delays[None, :] + offsets[:, None]) * self.sample_rate_hz
+
+    def maps(self, start: int, stop: int) -> np.ndarray:
+        """The map at every update of [start, stop): float64 (m, n_taps, n_fir)."""
+        c = self.centres(start, stop)
+        half, beta = self.grid.half_length, self.grid.kaiser_beta
+        whole = np.floor(c)
+        frac = c - whole
+        offsets = np.arange(-half, half + 1)
+        x = offsets[None, None, :] - frac[..., None]  # n - c
+        parity = np.where(offsets % 2 == 0, 1.0, -1.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sinc = -parity * np.sin(np.pi * frac)[..., None] / (np.pi * x)
+        sinc = np.where(x == 0.0, 1.0, sinc)
+        window = special.i0(beta * np.sqrt(np.clip(1.0 - (x / half) ** 2, 0.0, None))) / special.i0(beta)
+        values = np.where(np.abs(x) < half, window * sinc, 0.0)
+        index = whole[..., None].astype(np.int64) + offsets
+        inside = (index >= 0) & (index < self.n_fir)
+        out = np.zeros((*c.shape, self.n_fir))
+        np.put_along_axis(out, np.where(inside, index, 0), np.where(inside, values, 0.0), axis=-1)
+        # put_along_axis keeps the last write at a repeated index; index 0 repeats only where
+        # outside, whose value is 0, so restore any real coefficient at index 0.
+        at_zero = inside & (index == 0)
+        if at_zero.any():
+            out[..., 0] = np.sum(np.where(at_zero, values, 0.0), axis=-1)
+        return out
+
+    def manifest_entry(self) -> dict:
+        entry = self.grid.manifest_entry()
+        entry["moving"] = {
+            "max_offset_s": float(self.moving.max_offset_s),
+            "max_offset_samples": float(self.moving.max_offset_s * self.sample_rate_hz),
+            "fir_map": "the map at zero delay offset on the widened grid",
+            "fir": "fir.npy: the time-varying FIR, each update's map at its delay offset",
+        }
+        return entry
+
+    def parameters(self) -> dict:
+        out = self.grid.parameters()
+        out["support"] = "widened by the largest delay offset A/2 on both sides"
+        return out
+
+
+def moving_fir_map(delays_s, powers_linear, sample_rate_hz, moving, update_rate_hz, **options) -> MovingFirMap:
+    """The time-varying sinc map of a moving delay (see :class:`MovingFirMap`)."""
+    delays = [float(d) for d in delays_s]
+    extra = float(moving.max_offset_s)
+    grid = fir_map(delays + [min(delays) - extra, max(delays) + extra],
+                   [float(p) for p in powers_linear] + [0.0, 0.0], sample_rate_hz, mapping="sinc", **options)
+    return MovingFirMap(grid=grid, n_taps=len(delays), moving=moving, update_rate_hz=float(update_rate_hz))
+
+
 def default_kaiser_beta(half_length: int, passband_fraction: float = DEFAULT_PASSBAND_FRACTION) -> float:
     """Kaiser's beta for 2L coefficients and the transition band above ``passband_fraction``.
 
@@ -570,6 +661,8 @@ __all__ = [
     "ON_SAMPLE_TOLERANCE",
     "FirMap",
     "fir_map",
+    "MovingFirMap",
+    "moving_fir_map",
     "default_kaiser_beta",
     "sinc_passband_error_bound",
     "sinc_energy_deficit",

@@ -6,6 +6,7 @@ generator seeded by ``SeedSequence(seed, spawn_key=key)``, with ``key`` one of::
     (DIFFUSE_NOISE, link, tap, block)   white noise of one internal block
     (SINUSOIDS, link, tap)              angles and phases of a sum of sinusoids
     (DIRECT_PHASE, tap)                 initial phase of a direct component
+    (SHADOWING,)                        log-normal shadowing (emucompile.channel)
 
 so that any block can be drawn alone, taps and links never share a stream,
 and the constants of one tap do not move when the record gets longer.
@@ -24,6 +25,7 @@ import numpy as np
 DIFFUSE_NOISE = 1
 SINUSOIDS = 2
 DIRECT_PHASE = 3
+SHADOWING = 4
 
 BIT_GENERATOR = "PCG64"
 

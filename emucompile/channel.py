@@ -1,0 +1,217 @@
+"""A profile's whole channel over its links and conditions: MIMO, high-speed train, shadowing.
+
+:class:`ChannelPlan` sits on the fading engine (:class:`emucompile.fading.FadingPlan`)
+and gives, for any sample range [start, stop), the tap gains in the bundle's
+axes (m, n_rx, n_tx, n_taps), complex64, and their parts:
+
+    g_l(n) = A(n) r(n) [ a_d d_l(n) + a_s (S w(n))_l ]
+
+per tap, link l (order of :mod:`emucompile.mimo`), with
+
+* w(n): independent unit-power diffuse streams, one per link (the engine's
+  ``diffuse(start, stop, link)``, keyed by link), S the Hermitian square
+  root of the tap's spatial correlation (identity for SISO);
+* d_l(n) = c_l exp(j phi(n)): the direct part, c_l the MIMO direct response
+  (``MimoSetup.direct_response``, 1 for SISO), phi the constant-Doppler
+  phase of the engine or, for a high-speed-train tap, 2 pi integral f_s dt
+  (:meth:`emucompile.conditions.HighSpeedTrain.phase_at_samples`) plus the
+  tap's initial phase;
+* a_d = sqrt(P K/(K+1)), a_s = sqrt(P/(K+1)) (static: a_d = sqrt(P), a_s = 0);
+* r(n) = exp(-j 2 pi f_c Delta tau(n)) when a moving delay's carrier follows
+  it, else 1;
+* A(n) = 10^(S(n)/20), the log-normal shadowing common to every tap and link
+  (1 without shadowing).
+
+A SISO profile without conditions takes the engine's own ``block`` (the bytes
+of earlier bundles do not change). Every operation is elementwise in a fixed
+order from the absolute sample index (the correlation is an explicit sum over
+links, not a BLAS product, whose blocking could depend on the request size),
+so any chunking gives bit-identical output.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from emucompile.errors import InputError
+from emucompile.fading._streams import SHADOWING
+
+SHADOWING_FILE = "shadowing_db.npy"
+SHADOWING_ROLE = "shadowing_db"
+
+
+class ChannelPlan:
+    """The channel of one profile at one update rate for one seed; samples on demand.
+
+    Parameters
+    ----------
+    profile : emucompile.profile.Profile
+    engine : emucompile.fading.FadingPlan
+        The engine planned for ``profile`` (same taps, rate, length, seed).
+    """
+
+    def __init__(self, profile, engine):
+        self.profile = profile
+        self.engine = engine
+        self.update_rate_hz = engine.update_rate_hz
+        self.n_samples = engine.n_samples
+        self.n_taps = engine.n_taps
+        setup = profile.mimo
+        self.n_rx, self.n_tx = profile.n_rx, profile.n_tx
+        self.n_links = self.n_rx * self.n_tx
+        if setup is not None:
+            self.square_root = np.asarray(setup.correlation.square_root(), dtype=np.complex128)
+            self.correlation = np.asarray(setup.correlation.matrix, dtype=np.complex128)
+            self.direct_response = np.asarray(setup.direct_response, dtype=np.complex128)
+        else:
+            self.square_root = np.ones((1, 1), np.complex128)
+            self.correlation = np.ones((1, 1), np.complex128)
+            self.direct_response = np.ones(1, np.complex128)
+        conditions = profile.conditions
+        self.train = getattr(conditions, "high_speed_train", None)
+        self.train_taps = tuple(getattr(conditions, "high_speed_train_taps", ()) or ()) if self.train else ()
+        self.moving = getattr(conditions, "moving_propagation", None)
+        self.carrier_hz = getattr(conditions, "moving_propagation_carrier_hz", None)
+        spec = getattr(conditions, "shadowing", None)
+        self.shadowing_spec = spec
+        self.shadowing = None
+        if spec is not None:
+            self.shadowing = spec.generator(np.random.SeedSequence(engine.seed, spawn_key=(SHADOWING,)))
+        if engine.periodic and (self.train is not None or self.moving is not None or spec is not None):
+            raise InputError("periodic mode is not supported yet with time-varying conditions",
+                             hint="drop --periodic, or the conditions block")
+        self._follows = self.moving is not None and self.moving.carrier_follows
+        self.plain = setup is None and not self.train_taps and not self._follows and spec is None
+        self._amps = [_amplitudes(t) for t in profile.taps]
+        info = engine.tap_info()
+        self._phase0 = [math.radians(i.get("los_phase_deg") or 0.0) for i in info]
+
+    # -- whole gains ----------------------------------------------------------------
+    def block(self, start: int, stop: int) -> np.ndarray:
+        """Tap gains at samples [start, stop): complex64 (m, n_rx, n_tx, n_taps)."""
+        if self.plain:
+            return self.engine.block(start, stop).reshape(stop - start, 1, 1, self.n_taps)
+        total = self.small_scale_links(start, stop)
+        amplitude = self.shadowing_amplitude(start, stop)
+        if amplitude is not None:
+            total *= amplitude[:, None, None]
+        return self.to_axes(total.astype(np.complex64))
+
+    def chunks(self, chunk_size: int):
+        """Yield ``(first_index, gains)`` over the record in order (gains as :meth:`block`)."""
+        pos = 0
+        while pos < self.n_samples:
+            end = min(pos + chunk_size, self.n_samples)
+            yield pos, self.block(pos, end)
+            pos = end
+
+    # -- parts, as link vectors (m, n_links, n_taps), complex128 ---------------------------
+    def small_scale_links(self, start, stop) -> np.ndarray:
+        """Direct + diffuse, without shadowing: complex128 (m, n_links, n_taps)."""
+        return self.direct_links(start, stop) + self.diffuse_links(start, stop)
+
+    def direct_links(self, start, stop) -> np.ndarray:
+        """The deterministic direct part a_d c_l exp(j phi(n)) r(n): complex128 (m, n_links, n_taps)."""
+        m = stop - start
+        out = np.zeros((m, self.n_links, self.n_taps), np.complex128)
+        has_direct = [j for j, (a_d, _) in enumerate(self._amps) if a_d > 0]
+        if not has_direct:
+            return out
+        phasors = self.engine.direct(start, stop).astype(np.complex128)
+        if self.train_taps:
+            phase = self.train.phase_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+            for j in self.train_taps:
+                phasors[:, j] = np.exp(1j * (phase + self._phase0[j]))
+        rotation = self._rotation(start, stop)
+        for j in has_direct:
+            column = self._amps[j][0] * phasors[:, j]
+            if rotation is not None:
+                column = column * rotation
+            out[:, :, j] = column[:, None] * self.direct_response[None, :]
+        return out
+
+    def diffuse_links(self, start, stop) -> np.ndarray:
+        """The correlated diffuse part a_s (S w)_l r(n): complex128 (m, n_links, n_taps)."""
+        m = stop - start
+        streams = np.empty((m, self.n_links, self.n_taps), np.complex128)
+        for link in range(self.n_links):
+            streams[:, link, :] = self.engine.diffuse(start, stop, link)
+        out = np.zeros_like(streams)
+        root = self.square_root
+        for row in range(self.n_links):  # explicit sum in link order: same bits for any m
+            for k in range(self.n_links):
+                if root[row, k] != 0:
+                    out[:, row, :] += root[row, k] * streams[:, k, :]
+        out *= np.array([a_s for _, a_s in self._amps])[None, None, :]
+        rotation = self._rotation(start, stop)
+        if rotation is not None:
+            out *= rotation[:, None, None]
+        return out
+
+    def unit_diffuse_links(self, start, stop, tap) -> np.ndarray:
+        """Independent unit-power streams of one tap before correlation: complex64 (m, n_links)."""
+        return np.stack([self.engine.diffuse(start, stop, link)[:, tap] for link in range(self.n_links)], axis=1)
+
+    # -- conditions ----------------------------------------------------------------------
+    def shadowing_db(self, start, stop) -> np.ndarray | None:
+        """S(n) in dB (offset for the held mean or median included), float64 (m,), or None."""
+        if self.shadowing is None:
+            return None
+        return self.shadowing.gain_db_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+
+    def shadowing_amplitude(self, start, stop) -> np.ndarray | None:
+        db = self.shadowing_db(start, stop)
+        return None if db is None else 10.0 ** (db / 20.0)
+
+    def delay_offset_s(self, start, stop) -> np.ndarray | None:
+        """Delta tau(n) of a moving delay, float64 (m,), or None."""
+        if self.moving is None:
+            return None
+        return self.moving.delay_offset_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+
+    def _rotation(self, start, stop):
+        if not self._follows:
+            return None
+        offset = self.delay_offset_s(start, stop)
+        return np.exp(-2j * math.pi * self.carrier_hz * offset)
+
+    # -- records ----------------------------------------------------------------------------
+    def conditions_record(self) -> dict | None:
+        """The manifest's ``conditions``: each condition's trajectory definition, or None."""
+        conditions = self.profile.conditions
+        if conditions is None:
+            return None
+        record = conditions.as_record()
+        if record.get("high_speed_train") is not None:
+            record["high_speed_train"]["phase"] = (
+                "direct part of each listed tap: exp(j (2 pi f_d integral_0^t cos theta(u) du + los_phase)), "
+                "t = n / update_rate_hz")
+        if record.get("moving_propagation") is not None:
+            record["moving_propagation"]["delay"] = (
+                "every tap's delay + (A/2) sin(delta_omega t), t = n / update_rate_hz; the FIR follows it")
+            record["moving_propagation"]["carrier_phase_follows"] = bool(self._follows)
+        if record.get("shadowing") is not None:
+            record["shadowing"]["generator"] = self.shadowing.as_record()
+            record["shadowing"]["file"] = SHADOWING_FILE
+            record["shadowing"]["applies_to"] = "every tap and link of tap_gains, as 10^(S/20)"
+        return record
+
+    # -- axes ------------------------------------------------------------------------------
+    def to_axes(self, links) -> np.ndarray:
+        """Link vectors (m, n_links, n_taps) -> bundle axes (m, n_rx, n_tx, n_taps)."""
+        m = links.shape[0]
+        return links.reshape(m, self.n_tx, self.n_rx, self.n_taps).transpose(0, 2, 1, 3)
+
+
+def _amplitudes(tap):
+    """(a_d, a_s) of a tap (see the module notes)."""
+    power = float(tap.power_linear)
+    if tap.fading == "static":
+        return math.sqrt(power), 0.0
+    k = float(tap.k_linear) if tap.fading == "rician" else 0.0
+    return math.sqrt(power * k / (k + 1.0)), math.sqrt(power / (k + 1.0))
+
+
+__all__ = ["ChannelPlan", "SHADOWING_FILE", "SHADOWING_ROLE"]

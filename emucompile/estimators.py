@@ -1,0 +1,224 @@
+"""Empirical statistics of a complex tap-gain record, the counterparts of :mod:`emucompile.theory`.
+
+Every function takes a 1-D complex record ``g`` sampled at ``rate_hz`` and
+returns plain numbers or arrays; nothing here knows what is expected (that is
+:mod:`emucompile.tolerance`). All work in float64 whatever the input dtype.
+
+References
+----------
+.. [Greenstein1999] L. J. Greenstein, D. G. Michelson, V. Erceg, "Moment-method
+   estimation of the Ricean K-factor", IEEE Commun. Lett. 3(6), 1999.
+.. [Welch1967] P. D. Welch, "The use of fast Fourier transform for the
+   estimation of power spectra", IEEE Trans. Audio Electroacoust. 15(2), 1967.
+.. [Rice1944] S. O. Rice, "Mathematical analysis of random noise", Bell Syst.
+   Tech. J. 23-24, 1944-45.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import signal, stats
+
+
+def mean_power(g) -> float:
+    """Sample mean power mean(|g|^2)."""
+    g = _record(g)
+    return float(np.mean(g.real**2 + g.imag**2))
+
+
+def k_factor_moments(g) -> float:
+    """Moment-based Rician K estimate [Greenstein1999]_.
+
+    With G_a = mean|g|^2 and G_v^2 = var(|g|^2): the direct power is
+    A^2 = sqrt(G_a^2 - G_v^2) and K = A^2 / (G_a - A^2). Returns 0.0 when
+    G_v >= G_a (the sample looks at least as spread as Rayleigh).
+    """
+    g = _record(g)
+    p = g.real**2 + g.imag**2
+    ga = float(np.mean(p))
+    gv2 = float(np.mean(p * p)) - ga * ga
+    d = ga * ga - gv2
+    if d <= 0:
+        return 0.0
+    a2 = math.sqrt(d)
+    if ga - a2 <= 0:
+        return math.inf
+    return a2 / (ga - a2)
+
+
+def envelope_ks_distance(g, distribution) -> float:
+    """Kolmogorov-Smirnov distance sup |F_n(r) - F(r)| of |g| against a frozen ``scipy.stats`` law."""
+    g = _record(g)
+    r = np.sort(np.abs(g))
+    n = r.size
+    cdf = distribution.cdf(r)
+    i = np.arange(1, n + 1)
+    return float(max(np.max(i / n - cdf), np.max(cdf - (i - 1) / n)))
+
+
+def remove_direct(g, rate_hz: float, los_doppler_hz: float):
+    """Split off the direct component A exp(j 2 pi f_los t) of known Doppler.
+
+    Returns ``(diffuse, amplitude)`` with ``amplitude`` = mean(g exp(-j 2 pi f_los t))
+    (the least-squares fit of the line) and ``diffuse = g - line``.
+    """
+    g = _record(g)
+    n = np.arange(g.size)
+    if los_doppler_hz == 0:
+        a = complex(np.mean(g))
+        return g - a, a
+    rot = np.exp(2j * np.pi * (los_doppler_hz / rate_hz) * n)
+    a = complex(np.mean(g * rot.conj()))
+    return g - a * rot, a
+
+
+def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
+    """Estimate R(k) = E[g(n+k) g*(n)] for k = 0..n_lags-1 (FFT based, O(N log N)).
+
+    ``periodic=False``: the unbiased linear estimate sum_{n<N-k} g[n+k] g*[n] / (N-k)
+    (zero-padded FFT). ``periodic=True``: the circular estimate over the whole
+    record, sum_n g[(n+k) mod N] g*[n] / N, so a periodic record's wrap is
+    part of what is checked.
+    """
+    g = _record(g)
+    n = g.size
+    n_lags = int(min(n_lags, n))
+    if periodic:
+        spec = np.fft.fft(g)
+        r = np.fft.ifft(np.abs(spec) ** 2)[:n_lags] / n
+        return r
+    size = _fast_len(2 * n)
+    spec = np.fft.fft(g, size)
+    r = np.fft.ifft(np.abs(spec) ** 2)[:n_lags]
+    return r / (n - np.arange(n_lags))
+
+
+def welch_psd(g, rate_hz: float, nperseg: int, *, window="hann"):
+    """Two-sided Welch PSD [Welch1967]_ (50 % overlap, no detrending), frequencies ascending.
+
+    Returns ``(frequency_hz, psd_per_hz)``; the psd integrates to the mean power.
+    """
+    g = _record(g)
+    nperseg = int(min(nperseg, g.size))
+    f, p = signal.welch(
+        g,
+        fs=rate_hz,
+        window=window,
+        nperseg=nperseg,
+        noverlap=nperseg // 2,
+        detrend=False,
+        return_onesided=False,
+        scaling="density",
+    )
+    order = np.argsort(f)
+    return f[order], p[order]
+
+
+def out_of_band_ratio(frequency_hz, psd, band_edge_hz: float, *, factor: float = 1.05, exclude=()):
+    """Power at |f| > factor * band_edge relative to the power at |f| <= factor * band_edge.
+
+    ``exclude`` lists (centre_hz, half_width_hz) intervals left out of the
+    out-of-band sum (a direct component's line outside the band). Returns the
+    linear ratio (0.0 when nothing lies beyond the edge).
+    """
+    f = np.asarray(frequency_hz)
+    p = np.asarray(psd)
+    inside = np.abs(f) <= factor * band_edge_hz
+    outside = ~inside
+    for centre, half in exclude:
+        outside &= np.abs(f - centre) > half
+    p_in = float(np.sum(p[inside]))
+    p_out = float(np.sum(p[outside]))
+    return p_out / p_in if p_in > 0 else math.inf
+
+
+def envelope_upsampled(g, factor: int) -> np.ndarray:
+    """|g| after band-limited interpolation by ``factor`` (``scipy.signal.resample_poly``)."""
+    g = _record(g)
+    if factor <= 1:
+        return np.abs(g)
+    return np.abs(signal.resample_poly(g, factor, 1))
+
+
+def level_crossings(envelope, level: float) -> int:
+    """Number of upward crossings of ``level`` by the sampled envelope."""
+    below = np.asarray(envelope) < level
+    return int(np.count_nonzero(below[:-1] & ~below[1:]))
+
+
+def crossing_statistics(envelope, rate_hz: float, levels):
+    """Level-crossing rate (1/s) and average fade duration (s) at each level [Rice1944]_.
+
+    The envelope should be densely sampled (see :func:`envelope_upsampled`).
+    Returns ``(counts, rate_per_s, fraction_below, fade_duration_s)`` arrays;
+    the fade duration is fraction_below / rate (inf where nothing crossed).
+    """
+    env = np.asarray(envelope)
+    duration = env.size / rate_hz
+    counts = np.array([level_crossings(env, lv) for lv in levels], dtype=float)
+    below = np.array([np.count_nonzero(env < lv) / env.size for lv in levels])
+    rate = counts / duration
+    with np.errstate(divide="ignore", invalid="ignore"):
+        afd = np.where(rate > 0, below / rate, np.inf)
+    return counts, rate, below, afd
+
+
+def circular_moments(g, orders=(1, 2)) -> np.ndarray:
+    """Circular moments mean(exp(j m theta)) of the phase theta of g, for each order m."""
+    g = _record(g)
+    a = np.abs(g)
+    u = np.where(a > 0, g / np.where(a > 0, a, 1.0), 0.0)
+    out = []
+    for m in orders:
+        out.append(np.mean(u**m))
+    return np.array(out)
+
+
+def phase_ks_distance(g) -> float:
+    """KS distance of the phase angle(g) against the uniform law on [-pi, pi)."""
+    g = _record(g)
+    return float(stats.kstest(np.angle(g), stats.uniform(loc=-np.pi, scale=2 * np.pi).cdf).statistic)
+
+
+def correlation_coefficient(a, b) -> complex:
+    """Complex correlation coefficient sum a b* / sqrt(sum |a|^2 sum |b|^2)."""
+    a = _record(a)
+    b = _record(b)
+    if a.size != b.size:
+        raise ValueError(f"records differ in length: {a.size} and {b.size}")
+    den = math.sqrt(float(np.vdot(a, a).real) * float(np.vdot(b, b).real))
+    if den == 0:
+        return complex("nan")
+    return complex(np.vdot(b, a)) / den
+
+
+def _record(g) -> np.ndarray:
+    g = np.asarray(g)
+    if g.ndim != 1:
+        raise ValueError(f"a record must be 1-D, got shape {g.shape}")
+    return g.astype(np.complex128, copy=False)
+
+
+def _fast_len(n: int) -> int:
+    from scipy import fft
+
+    return fft.next_fast_len(n)
+
+
+__all__ = [
+    "mean_power",
+    "k_factor_moments",
+    "envelope_ks_distance",
+    "remove_direct",
+    "autocorrelation",
+    "welch_psd",
+    "out_of_band_ratio",
+    "envelope_upsampled",
+    "level_crossings",
+    "crossing_statistics",
+    "circular_moments",
+    "phase_ks_distance",
+    "correlation_coefficient",
+]

@@ -1,0 +1,1021 @@
+"""Verify a bundle (or foreign tap gains) against the theory its profile promises.
+
+``emucompile verify OUTDIR`` and :func:`verify_bundle` run, in order:
+
+1. **Integrity** (bundles only): the manifest against its schema, every listed
+   file's size, npy header (shape, dtype) and SHA-256
+   (:func:`emucompile.bundle.verify_integrity`). Any mismatch raises
+   :class:`IntegrityError` (exit 2) naming the file: "corrupted or edited after
+   compiling". Foreign gains have no manifest: integrity is "not applicable".
+2. **A decimated copy of every tap** (and link): a Kaiser-windowed low-pass FIR
+   (passband to the largest frequency f_b in the gains, stopband from the
+   record rate minus f_b, 80 dB by design) keeps every q-th sample, so the record rate is
+   about :data:`RECORD_RATE_FACTOR` x that frequency. The statistics need only
+   that band, so verify reads each sample once and works on q times fewer
+   samples than compile wrote (the speed target: verify no slower than
+   compile). Periodic bundles are filtered circularly, so the copy is periodic
+   too and the checks look across the wrap.
+3. **Checks** from :mod:`emucompile.tolerance` (tolerances calibrated by Monte
+   Carlo of an exact reference process): per tap and link ``check_tap`` (mean
+   power, K-factor, envelope KS, autocorrelation, Doppler PSD and the power
+   beyond f_D, level-crossing rate, average fade duration, phase);
+   ``check_cross_correlation`` between taps (expected 0) and, for MIMO, between
+   links of a tap (expected: the profile's spatial correlation); for a FIR map,
+   the grid's RMS delay spread and power against the profile (deterministic
+   comparisons, no false alarm). With ``delivered=True`` the same per-tap
+   checks run again on what the emulator receives (the ci16 codes decoded with
+   their scale). A check that cannot be meaningful says so (``passed`` None and
+   a ``reason``), never "pass".
+4. **Verdict**: the p-values are combined by Holm's step-down method at the
+   family-wise false-alarm rate ``false_alarm`` (default 0.01), so an intact
+   bundle from a perfect generator fails with probability <= ``false_alarm``.
+
+Result fields (the contract with :mod:`emucompile.plots` and :mod:`emucompile.report`)
+--------------------------------------------------------------------------------------
+:class:`Verification` has these attributes (all read-only by convention):
+
+``checks`` : list[emucompile.tolerance.CheckResult]
+    Every check, after Holm (``passed`` True / False / None, ``reason``).
+``passed`` : bool
+    True when no check failed (checks with ``passed`` None do not fail).
+``false_alarm`` : float
+    The family-wise false-alarm rate the verdict was made at.
+``identity`` : dict
+    Strict-JSON: ``source`` ("bundle" or "foreign"), ``path``, ``manifest_sha256``,
+    ``files`` (list of {name, role, sha256, size_bytes}), ``seed``, ``method``,
+    ``generator_version``, ``tool_version`` (of the bundle), ``verify_tool_version``,
+    ``profile_sha256``, ``resolved_profile_sha256``, ``platform`` (the bundle's),
+    ``verify_platform``, ``created_utc``, ``periodic``, ``n_samples``, ``n_rx``,
+    ``n_tx``, ``integrity`` ("intact" or "not applicable (foreign data)"),
+    ``delivered`` (list of formats checked as delivered).
+``profile`` : emucompile.profile.Profile
+``profile_stats`` : dict
+    :func:`emucompile.stats.profile_statistics` of the profile (as ``stats --json``).
+``update_rate_hz`` : float
+    Rate of the gains as stored.
+``duration_s`` : float
+``records`` : dict[int, numpy.ndarray]
+    Tap index -> decimated complex128 1-D record of link 0 (shadowing removed
+    when the bundle has shadowing and the components are available).
+``link_records`` : dict[int, numpy.ndarray] or None
+    MIMO only: tap index -> (m, n_links) decimated records of every link.
+``record_rate_hz`` : float
+    Sample rate of ``records``.
+``models`` : dict[int, emucompile.tolerance.TapModel]
+    Tap index -> the theory the tap should follow (spectrum, mean power, K,
+    direct-part Doppler); static taps included.
+``fir_map`` : numpy.ndarray or None
+    (n_taps, n_fir) map from tap gains to FIR coefficients, when the bundle has one.
+``sample_rate_hz`` : float or None
+    The FIR grid's sample rate.
+``fir_delays_s`` : numpy.ndarray or None
+    Delay of each FIR coefficient (bulk delay included), for the |H(f, t)| image.
+``foreign`` : bool
+    True for ``verify --gains`` (no manifest: integrity not applicable).
+``cautions`` : list[str]
+    Plain sentences the report prints (estimated gains carry noise, checks
+    skipped and why, ...).
+``elapsed_s`` : float
+    Wall time of the verification.
+
+``to_dict()`` gives the strict-JSON ``verification.json`` (contract 1's
+``verify --json`` keys ``passed``, ``false_alarm``, ``checks`` plus
+``identity``, ``profile_stats``, ``update_rate_hz``, ``record_rate_hz``,
+``cautions``).
+
+Where the files go
+------------------
+``write_outputs`` (and the command line) writes the HTML report, ``verification.json``
+and the figures' PNGs into ``OUTDIR/verification/`` by default (for foreign
+gains, ``GAINS.verification/`` beside the file). That directory is not in the
+manifest's hashed file list; the integrity check reads only listed files, and
+``compile --force`` accepts it as part of a bundle it may replace (the old
+verification goes with the old numbers). With ``--report FILE`` the HTML goes
+to FILE and ``verification.json`` beside it as ``STEM.verification.json``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+import os
+import time
+from pathlib import Path
+
+import numpy as np
+
+from emucompile._version import __version__
+from emucompile.bundle import VERIFICATION_DIRECTORY
+from emucompile.errors import InputError, Problem
+
+DEFAULT_FALSE_ALARM = 0.01
+RECORD_RATE_FACTOR = 8.0
+"""The decimated record's rate is at least this multiple of the largest frequency in the gains."""
+DECIMATOR_ATTENUATION_DB = 80.0
+"""Stopband attenuation of the decimating low-pass (Kaiser window, Kaiser's formula)."""
+CHUNK_SAMPLES = 1 << 16
+REPORT_DIRECTORY = VERIFICATION_DIRECTORY
+JSON_NAME = "verification.json"
+REPORT_NAME = "report.html"
+FOREIGN_INTEGRITY = "not applicable (foreign data: no manifest to check against)"
+MEASURED_GAINS_CAUTION = (
+    "Gains estimated from measurements carry measurement noise and estimator bias that these "
+    "checks do not model: a failed check may be the estimate's, not the channel's."
+)
+
+
+class IntegrityError(InputError):
+    """The bundle's files disagree with its manifest (exit 2); one line per problem, naming the file."""
+
+    def __init__(self, problems: list[Problem]):
+        self.problems = list(problems)
+        super().__init__("\n".join(p.format() for p in self.problems))
+
+
+@dataclasses.dataclass
+class Verification:
+    """The outcome of :func:`verify_bundle` / :func:`verify_gains`; see the module docstring."""
+
+    checks: list
+    false_alarm: float
+    identity: dict
+    profile: object
+    profile_stats: dict
+    update_rate_hz: float
+    duration_s: float
+    records: dict
+    link_records: dict | None
+    record_rate_hz: float
+    models: dict
+    fir_map: np.ndarray | None
+    sample_rate_hz: float | None
+    fir_delays_s: np.ndarray | None
+    foreign: bool
+    cautions: list
+    elapsed_s: float = 0.0
+
+    @property
+    def passed(self) -> bool:
+        """True when no check failed (a check that could not be made does not fail)."""
+        return not any(c.passed is False for c in self.checks)
+
+    @property
+    def failed(self) -> list:
+        """The checks that failed."""
+        return [c for c in self.checks if c.passed is False]
+
+    def to_dict(self) -> dict:
+        """Strict-JSON record (``verification.json``; ``verify --json`` prints it)."""
+        return _strict({
+            "passed": self.passed,
+            "false_alarm": self.false_alarm,
+            "checks": [c.to_dict() for c in self.checks],
+            "counts": {
+                "passed": sum(c.passed is True for c in self.checks),
+                "failed": sum(c.passed is False for c in self.checks),
+                "not_applicable": sum(c.passed is None for c in self.checks),
+            },
+            "identity": self.identity,
+            "profile_stats": self.profile_stats,
+            "update_rate_hz": self.update_rate_hz,
+            "duration_s": self.duration_s,
+            "record_rate_hz": self.record_rate_hz,
+            "foreign": self.foreign,
+            "cautions": list(self.cautions),
+            "elapsed_s": self.elapsed_s,
+        })
+
+    def summary(self) -> str:
+        """A few readable lines: the verdict, the counts, every failed check."""
+        counts = self.to_dict()["counts"]
+        verdict = "PASSED" if self.passed else "FAILED"
+        lines = [
+            f"{verdict}: {counts['passed']} check(s) passed, {counts['failed']} failed, "
+            f"{counts['not_applicable']} not applicable, at a family-wise false-alarm rate of {self.false_alarm:g}",
+            f"integrity   {self.identity.get('integrity')}",
+        ]
+        for check in self.failed:
+            lines.append(f"  FAIL {_check_label(check)}: value {_number(check.value)}, expected "
+                         f"{_number(check.expected)} +- {_number(check.tolerance)}"
+                         + (f" ({check.reason})" if check.reason else ""))
+        if counts["passed"] == 0 and counts["failed"] == 0:
+            lines.append("caution: no check could be made on this record (see the reasons); nothing is verified")
+        lines += [f"caution: {c}" for c in self.cautions]
+        return "\n".join(lines)
+
+
+# -- public entry points --------------------------------------------------------------------------
+
+
+def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: bool = False,
+                  progress=None) -> Verification:
+    """Check a bundle's integrity, then its statistics against its profile's theory.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The bundle directory.
+    false_alarm : float
+        Family-wise false-alarm rate of the whole verdict (Holm), in (0, 1).
+    delivered : bool
+        Also check what the emulator receives: the ci16 data decoded with its
+        scale, when the bundle holds them.
+    progress : callable(done, total), optional
+
+    Returns
+    -------
+    Verification
+
+    Raises
+    ------
+    IntegrityError
+        (exit 2) A file is missing, or its size, header or SHA-256 differs from the manifest.
+
+    Notes
+    -----
+    Cost: one pass over ``tap_gains.npy`` (hash) and one over the data
+    (decimation, O(N_h / q) per sample with an N_h-tap filter), then the
+    statistics on records q times shorter.
+    """
+    from emucompile import bundle as bd
+    from emucompile.profile import profile_from_document
+
+    began = time.perf_counter()
+    false_alarm = _check_false_alarm(false_alarm)
+    root = Path(path)
+    problems = bd.verify_integrity(root)
+    if problems:
+        raise IntegrityError(problems)
+    opened = bd.open_bundle(root)
+    manifest = opened.manifest
+    profile = profile_from_document(manifest["profile"], source=f"{root}/manifest.json#/profile")
+    models = {i: _tap_model(entry) for i, entry in enumerate(manifest["taps"])}
+    cautions = []
+    source, shadowing = _small_scale_source(root, opened, cautions)
+    sources = [("npy", source)]
+    if delivered:
+        entry = opened.entry("tap_gains_ci16")
+        if entry is None:
+            cautions.append("--delivered: the bundle holds no ci16 data; the npy gains are what it delivers")
+        else:
+            sources.append(("ci16", _ci16_source(root, entry, opened.tap_gains.shape, shadowing)))
+    session = _Session(
+        profile=profile, models=models, update_rate_hz=float(manifest["update_rate_hz"]),
+        n_samples=int(manifest["n_samples"]), n_rx=int(manifest["n_rx"]), n_tx=int(manifest["n_tx"]),
+        periodic=bool(manifest["periodic"]), false_alarm=false_alarm, cautions=cautions, progress=progress,
+        mimo=manifest.get("mimo"), components=_components_or_none(root, cautions) if manifest.get("mimo") else None,
+    )
+    checks, records, link_records = session.run(sources)
+    fir_matrix = opened.fir_map
+    fir = manifest.get("fir")
+    fir_checks = [] if fir is None else _fir_checks(manifest, np.asarray(fir_matrix, dtype=float), root)
+    if shadowing is not None:
+        cautions.append("shadowing is divided out before the small-scale checks; the shadowing trajectory "
+                        "itself (its sigma and correlation) is not checked yet")
+    checks = _holm(checks, false_alarm) + fir_checks
+    identity = _bundle_identity(root, manifest, delivered=[name for name, _ in sources[1:]])
+    return Verification(
+        checks=checks, false_alarm=false_alarm, identity=identity, profile=profile,
+        profile_stats=_profile_stats(profile), update_rate_hz=session.update_rate_hz,
+        duration_s=session.n_samples / session.update_rate_hz, records=records, link_records=link_records,
+        record_rate_hz=session.record_rate_hz, models=models,
+        fir_map=None if fir_matrix is None else np.asarray(fir_matrix, dtype=float),
+        sample_rate_hz=None if fir is None else float(fir["sample_rate_hz"]),
+        fir_delays_s=None if fir is None else (np.arange(fir["n_fir"]) - fir["bulk_delay_samples"]) / fir["sample_rate_hz"],
+        foreign=False, cautions=cautions, elapsed_s=time.perf_counter() - began,
+    )
+
+
+def verify_gains(gains_file, profile, update_rate_hz: float, *, false_alarm: float = DEFAULT_FALSE_ALARM,
+                 periodic: bool = False, progress=None) -> Verification:
+    """Check foreign tap gains (npy or cf32, columns = taps in profile order) against a profile.
+
+    Parameters
+    ----------
+    gains_file : str or os.PathLike
+        ``.npy``: complex, shape (n,), (n, n_taps) or (n, n_rx, n_tx, n_taps).
+        ``.cf32`` (or any other name): headerless little-endian interleaved
+        float32 I/Q, taps interleaved sample by sample, shape (n, n_taps).
+    profile : str, os.PathLike or Profile
+        The profile the gains claim to follow.
+    update_rate_hz : float
+        Rate of the gain samples.
+
+    Notes
+    -----
+    Integrity checks need a manifest and are marked not applicable. Gains
+    estimated from measurements carry noise and estimator bias that the
+    checks do not model.
+    """
+    from emucompile.profile import Profile, load_profile
+
+    began = time.perf_counter()
+    false_alarm = _check_false_alarm(false_alarm)
+    loaded = profile if isinstance(profile, Profile) else load_profile(profile)
+    rate = _positive_rate(update_rate_hz)
+    gains = _read_foreign(Path(gains_file), loaded.n_taps)
+    n, n_rx, n_tx, n_taps = gains.shape
+    models = {i: _tap_model_from_profile(tap) for i, tap in enumerate(loaded.taps)}
+    cautions = [MEASURED_GAINS_CAUTION]
+    if any(t.fading != "static" and t.los_phase_deg is None for t in loaded.taps if t.fading == "rician"):
+        cautions.append("the direct part's initial phase is not known for foreign gains; the phase check uses "
+                        "the profile's value when given")
+    session = _Session(
+        profile=loaded, models=models, update_rate_hz=rate, n_samples=n, n_rx=n_rx, n_tx=n_tx,
+        periodic=periodic, false_alarm=false_alarm, cautions=cautions, progress=progress,
+        mimo=None if n_rx * n_tx == 1 else {"foreign": True}, components=None,
+    )
+    source = _ArraySource(gains)
+    checks, records, link_records = session.run([("foreign", source)])
+    checks = _holm(checks, false_alarm)
+    identity = {
+        "source": "foreign", "path": os.fspath(gains_file), "sha256": _sha256(Path(gains_file)),
+        "size_bytes": Path(gains_file).stat().st_size, "profile_source": getattr(loaded, "source", None),
+        "resolved_profile_sha256": loaded.resolved_sha256(), "n_samples": n, "n_rx": n_rx, "n_tx": n_tx,
+        "periodic": periodic, "integrity": FOREIGN_INTEGRITY, "verify_tool_version": __version__,
+        "verify_platform": _platform(), "delivered": [],
+    }
+    return Verification(
+        checks=checks, false_alarm=false_alarm, identity=identity, profile=loaded,
+        profile_stats=_profile_stats(loaded), update_rate_hz=rate, duration_s=n / rate, records=records,
+        link_records=link_records, record_rate_hz=session.record_rate_hz, models=models, fir_map=None,
+        sample_rate_hz=None, fir_delays_s=None, foreign=True, cautions=cautions,
+        elapsed_s=time.perf_counter() - began,
+    )
+
+
+def default_output_directory(path, *, foreign: bool = False) -> Path:
+    """Where the report goes without ``--report``: ``OUTDIR/verification`` or ``GAINS.verification``."""
+    path = Path(path)
+    return path.with_name(path.name + ".verification") if foreign else path / REPORT_DIRECTORY
+
+
+def write_outputs(verification: Verification, *, directory=None, report_file=None, plots: bool = True) -> list[Path]:
+    """Write ``verification.json``, the HTML report and (in a directory) the figures' PNGs.
+
+    Parameters
+    ----------
+    directory : path, optional
+        Write ``report.html``, ``verification.json`` and ``figure-NN.png`` here.
+    report_file : path, optional
+        Write the HTML report to this file and ``STEM.verification.json`` beside it.
+    plots : bool
+        Draw the figures (``--no-plots`` turns them off).
+
+    Returns
+    -------
+    list of Path
+        The files written. When the plots or report modules are not part of
+        this build, only the JSON is written (and a caution says so).
+    """
+    if report_file is not None:
+        report_path = Path(report_file)
+        json_path = report_path.with_name(report_path.stem + ".verification.json")
+        figure_dir = None
+    else:
+        directory = Path(directory)
+        directory.mkdir(parents=True, exist_ok=True)
+        report_path, json_path, figure_dir = directory / REPORT_NAME, directory / JSON_NAME, directory
+    figures = []
+    written = []
+    if plots:
+        try:
+            from emucompile.plots import make_figures
+        except ImportError:
+            verification.cautions.append("figures not drawn: emucompile.plots is not part of this build")
+        else:
+            figures = make_figures(verification)
+    if figure_dir is not None:
+        for old in figure_dir.glob("figure-*.png"):
+            old.unlink()
+        for index, (_, png) in enumerate(figures, start=1):
+            target = figure_dir / f"figure-{index:02d}.png"
+            _write_atomic(target, png)
+            written.append(target)
+    try:
+        from emucompile.report import write_report
+    except ImportError:
+        verification.cautions.append("HTML report not written: emucompile.report is not part of this build")
+    else:
+        report_path.parent.mkdir(parents=True, exist_ok=True)
+        write_report(verification, figures, report_path)
+        written.append(report_path)
+    json_path.parent.mkdir(parents=True, exist_ok=True)
+    _write_atomic(json_path, (json.dumps(verification.to_dict(), indent=2, allow_nan=False) + "\n").encode())
+    written.append(json_path)
+    return written
+
+
+# -- the checks of one set of records ------------------------------------------------------------
+
+
+class _Session:
+    """Decimates each source and runs the per-tap, cross-tap and MIMO checks on the copies."""
+
+    def __init__(self, *, profile, models, update_rate_hz, n_samples, n_rx, n_tx, periodic, false_alarm,
+                 cautions, progress, mimo, components):
+        self.profile = profile
+        self.models = models
+        self.update_rate_hz = update_rate_hz
+        self.n_samples = n_samples
+        self.n_rx, self.n_tx = n_rx, n_tx
+        self.n_links = n_rx * n_tx
+        self.periodic = periodic
+        self.false_alarm = false_alarm
+        self.cautions = cautions
+        self.progress = progress
+        self.mimo = mimo
+        self.components = components
+        self.band_hz = _largest_frequency_hz(profile, models)
+        self.decimator = _Decimator(update_rate_hz, self.band_hz, n_samples, periodic)
+        self.record_rate_hz = self.decimator.record_rate_hz
+        self._direct = None
+
+    def run(self, sources):
+        """Checks of every source; records (tap -> link 0 record) and MIMO link records of the first."""
+        checks, records, link_records = [], {}, None
+        for position, (label, source) in enumerate(sources):
+            decimated = self.decimator.run(source, self.n_links, len(self.models), self.progress)
+            decimated = np.ascontiguousarray(decimated.transpose(2, 1, 0))  # (taps, links, m): contiguous records
+            for tap, model in self.models.items():
+                if model is not None and model.spectrum is None:
+                    # a static tap is one tone: undo the decimator's passband ripple at its frequency exactly
+                    decimated[tap] /= self.decimator.response(model.los_doppler_hz)
+            prefix = "" if position == 0 else f"delivered {label}: "
+            checks += self._tap_checks(decimated, prefix)
+            checks += self._beyond_band_checks(decimated, prefix)
+            if position == 0:
+                records = {i: decimated[i, 0] for i in range(decimated.shape[0])}
+                if self.n_links > 1:
+                    link_records = {i: decimated[i].T for i in range(decimated.shape[0])}
+                checks += self._cross_tap_checks(decimated)
+                if self.n_links > 1:
+                    checks += self._mimo_checks(decimated)
+        return checks, records, link_records
+
+    def _tap_checks(self, decimated, prefix):
+        tol = _tolerance()
+        found = []
+        for tap, model in self.models.items():
+            if model is None:
+                found += [tol.CheckResult(prefix + name, tap, None, None, None, None, None,
+                                          "not applicable: the direct part follows a Doppler trajectory "
+                                          "(no stationary model)", self.false_alarm)
+                          for name in tol.CHECK_NAMES if name != "cross_correlation"]
+                continue
+            for link in range(self.n_links):
+                results = tol.check_tap(decimated[tap, link], self.record_rate_hz, model,
+                                        periodic=self.periodic, tap=tap, level=self.false_alarm)
+                found += [_renamed(r, prefix, self._link_label(link)) for r in results]
+        return found
+
+    def _beyond_band_checks(self, decimated, prefix):
+        """Power the band-limited copy lacks, from the full-rate power of the same samples.
+
+        (P_full - P_record) / P_full against 0, within OUT_OF_BAND_LIMIT_DB
+        (-40 dB, the tolerance module's requirement on the power beyond f_D)
+        plus the decimator's largest passband power deviation plus 1 / N_record
+        for a non-periodic record (the midpoint-rule end effect of comparing a
+        sampled mean with the full-rate mean, ~0.1 / N for 8 samples per period
+        of |g|^2; taken 10x larger). It sees images and noise anywhere up to the
+        update rate's Nyquist frequency, which the record's own PSD checks cannot.
+        A bound, not a hypothesis test (p_value None, not in Holm).
+        """
+        decimator = self.decimator
+        if decimator.h is None:
+            return []
+        tol = _tolerance()
+        allowance = 10 ** (tol.OUT_OF_BAND_LIMIT_DB / 10) + decimator.passband_power_deviation
+        allowance += 0.0 if self.periodic else 1.0 / max(1, decimator.n_out)
+        found = []
+        for tap, model in self.models.items():
+            if model is None or model.spectrum is None:
+                continue
+            for link in range(self.n_links):
+                full = float(decimator.full_power[link, tap])
+                if not full > 0:
+                    continue
+                kept = float(np.mean(np.abs(decimated[tap, link]) ** 2))
+                value = (full - kept) / full
+                name = prefix + "power_beyond_record_band" + ("" if self.n_links == 1 else f" [{self._link_label(link)}]")
+                passed = abs(value) <= allowance
+                found.append(tol.CheckResult(
+                    name, tap, value, 0.0, allowance, None, passed,
+                    None if passed else f"{_db_text(value)} of the tap's power lies beyond the record band",
+                    None, allowance, "fraction of power",
+                    {"record_band_hz": decimator.record_rate_hz - decimator.band_hz,
+                     "full_rate_power": full, "record_power": kept,
+                     "source": "full-rate mean |g|^2 against the decimated copy's (same samples)"}))
+        return found
+
+    def _cross_tap_checks(self, decimated):
+        tol = _tolerance()
+        fading = [i for i, m in self.models.items() if m is not None and _is_fading(m)]
+        found = []
+        for a_index, a in enumerate(fading):
+            for b in fading[a_index + 1:]:
+                found.append(tol.check_cross_correlation(
+                    decimated[a, 0], decimated[b, 0], self.record_rate_hz, self.models[a], self.models[b],
+                    taps=(a, b), expected=0.0, level=self.false_alarm))
+        return found
+
+    def _mimo_checks(self, decimated):
+        tol = _tolerance()
+        if self.components is None:
+            self.cautions.append("the achieved MIMO correlation is not checked: the expected correlation "
+                                 "of the links needs the bundle's components (not available for this input)")
+            return []
+        found = []
+        for tap, model in self.models.items():
+            if model is None or not _is_fading(model):
+                continue
+            # expected[a, b] = E[h_a conj(h_b)] / P of the diffuse parts (components' convention)
+            expected = np.asarray(self.components.expected_correlation(tap))
+            diffuse_model = _diffuse_model(model)
+            diffuse = self._diffuse_links(decimated[tap], tap)
+            for a in range(self.n_links):
+                for b in range(a + 1, self.n_links):
+                    result = tol.check_cross_correlation(
+                        diffuse[a], diffuse[b], self.record_rate_hz, diffuse_model, diffuse_model,
+                        taps=(tap, tap), expected=complex(expected[a, b]), level=self.false_alarm)
+                    found.append(dataclasses.replace(
+                        result, name=f"mimo_correlation [links {self._link_label(a)}~{self._link_label(b)}]"))
+        return found
+
+    def _diffuse_links(self, links, tap):
+        """The links' records minus the (decimated) direct part, which is deterministic."""
+        model = self.models[tap]
+        if not (model.k_linear and model.k_linear > 0):
+            return links
+        if self._direct is None:
+            direct = self.decimator.run(_ComponentsDirect(self.components), self.n_links, len(self.models), None)
+            self._direct = direct.transpose(2, 1, 0)
+        return links - self._direct[tap]
+
+    def _link_label(self, link):
+        if self.n_links == 1:
+            return None
+        tx, rx = divmod(link, self.n_rx)
+        return f"rx{rx}-tx{tx}"
+
+
+class _Decimator:
+    """Band-limit and keep every q-th sample: y[m] = sum_k h[k] x[m q + D - k], D = (N - 1)/2.
+
+    The low-pass is a Kaiser-windowed sinc (``scipy.signal.firwin`` with
+    ``kaiserord``; Kaiser 1974): passband to the largest frequency f_b of the
+    gains, stopband from F_out - f_b (F_out = F_u / q), so nothing aliases
+    into |f| <= f_b, and the band f_b < |f| < F_out - f_b folds onto the
+    out-of-band part of the record (what the out-of-band check measures).
+    Zero phase: y[m] is centred on input sample m q. Without ``periodic``,
+    only outputs whose window lies inside the record are kept; with it, the
+    input wraps (q must divide n, else the nearest smaller divisor is taken).
+    """
+
+    def __init__(self, update_rate_hz, band_hz, n_samples, periodic):
+        from scipy import signal
+
+        self.n_samples, self.periodic = n_samples, periodic
+        self.update_rate_hz = update_rate_hz
+        band = band_hz if band_hz > 0 else update_rate_hz / (8 * RECORD_RATE_FACTOR)
+        q = max(1, int(update_rate_hz // (RECORD_RATE_FACTOR * band)))
+        if periodic:
+            while q > 1 and n_samples % q:
+                q -= 1
+        self.q = q
+        self.record_rate_hz = update_rate_hz / q
+        self.h = None
+        self.half = 0
+        self.band_hz = band
+        self.passband_power_deviation = 0.0
+        if q > 1:
+            stop = self.record_rate_hz - band
+            width = (stop - band) / (update_rate_hz / 2.0)
+            numtaps, beta = signal.kaiserord(DECIMATOR_ATTENUATION_DB, width)
+            numtaps += 1 - numtaps % 2
+            self.h = signal.firwin(numtaps, (band + stop) / 2.0, window=("kaiser", beta), fs=update_rate_hz)
+            self.h32 = self.h.astype(np.float32)
+            grid = np.linspace(0.0, band, 512)
+            response = np.abs(np.exp(-2j * np.pi * np.outer(grid, np.arange(numtaps)) / update_rate_hz) @ self.h) ** 2
+            self.passband_power_deviation = float(np.max(np.abs(response - 1.0)))
+            self.half = (numtaps - 1) // 2
+        if periodic:
+            self.first, self.last = 0, n_samples // q - 1
+        else:
+            self.first = -(-self.half // q)
+            self.last = (n_samples - 1 - self.half) // q
+        self.n_out = max(0, self.last - self.first + 1)
+
+    def response(self, frequency_hz):
+        """Complex gain of the centred filter at one frequency: sum_k h[k] exp(-j 2 pi f (k - D) / F_u)."""
+        if self.h is None:
+            return 1.0
+        k = np.arange(self.h.size) - self.half
+        return complex(np.sum(self.h * np.exp(-2j * np.pi * frequency_hz * k / self.update_rate_hz)))
+
+    def run(self, source, n_links, n_taps, progress):
+        """Decimated records of a source: complex128 (n_out, n_links, n_taps).
+
+        Also sets :attr:`full_power`, mean |x|^2 per link and tap over the
+        input samples the outputs stand for (output m for [m q - q/2, m q + q/2)),
+        at the full rate: the power the band-limited copy would lack is
+        ``full_power - mean |y|^2``.
+        """
+        out = np.empty((self.n_out, n_links, n_taps), dtype=np.complex128)
+        power = np.zeros((n_links, n_taps))
+        step = max(1, CHUNK_SAMPLES // self.q)
+        q, half = self.q, self.half
+        for m0 in range(self.first, self.first + self.n_out, step):
+            m1 = min(m0 + step, self.first + self.n_out)
+            if self.h is None:
+                block = source.read(m0, m1)
+                out[m0 - self.first:m1 - self.first] = block
+                power += np.sum(np.abs(block.astype(np.complex128)) ** 2, axis=0)
+            else:
+                segment = np.asarray(self._segment(source, m0 * q - half, (m1 - 1) * q + half + 1), dtype=np.complex64)
+                mid = segment[half - q // 2: half - q // 2 + (m1 - m0) * q]
+                power += np.einsum("ilt,ilt->lt", mid, mid.conj()).real
+                # y[m] = sum_k h[k] x[m q + D - k]: N strided passes over the segment (float32, cache-sized)
+                y = np.zeros((m1 - m0, n_links, n_taps), dtype=np.complex64)
+                stop = (m1 - m0 - 1) * q + 1
+                for k, coefficient in enumerate(self.h32):
+                    y += coefficient * segment[2 * half - k: 2 * half - k + stop: q]
+                out[m0 - self.first:m1 - self.first] = y
+            if progress is not None:
+                progress(min(m1 * q, self.n_samples), self.n_samples)
+        self.full_power = power / max(1, self.n_out * q)
+        return out
+
+    def _segment(self, source, a, b):
+        n = self.n_samples
+        if 0 <= a and b <= n:
+            return source.read(a, b)
+        if not self.periodic:
+            return source.read(max(a, 0), min(b, n))
+        pieces, position = [], a
+        while position < b:
+            start = position % n
+            stop = min(n, start + (b - position))
+            pieces.append(source.read(start, stop))
+            position += stop - start
+        return np.concatenate(pieces, axis=0)
+
+
+class _MappedSource:
+    """Rows of a (n, n_rx, n_tx, n_taps) array as (m, n_links, n_taps) link vectors, complex64."""
+
+    def __init__(self, array, divide_by=None):
+        self.array = array
+        self.divide_by = divide_by
+
+    def read(self, start, stop):
+        from emucompile.mimo import links_from_gains
+
+        block = np.asarray(self.array[start:stop])
+        if self.divide_by is not None:
+            block = block / self.divide_by(start, stop)[:, None, None, None]
+        return links_from_gains(block)
+
+
+_ArraySource = _MappedSource
+
+
+class _Ci16Source(_MappedSource):
+    """The ci16 codes decoded with their scale (what an emulator fed the ci16 file receives)."""
+
+    def __init__(self, codes, scale, divide_by=None):
+        super().__init__(codes, divide_by)
+        self.scale = scale
+
+    def read(self, start, stop):
+        from emucompile.mimo import links_from_gains
+
+        codes = np.asarray(self.array[start:stop], dtype=np.float32)
+        block = (codes[..., 0] + 1j * codes[..., 1]) / self.scale
+        if self.divide_by is not None:
+            block = block / self.divide_by(start, stop)[:, None, None, None]
+        return links_from_gains(block)
+
+
+class _ComponentsDirect:
+    def __init__(self, components):
+        self.components = components
+
+    def read(self, start, stop):
+        from emucompile.mimo import links_from_gains
+
+        return links_from_gains(self.components.direct(start, stop))
+
+
+# -- helpers: sources, models, checks --------------------------------------------------------------
+
+
+def _tolerance():
+    from emucompile import tolerance
+
+    return tolerance
+
+
+def _small_scale_source(root, opened, cautions):
+    """The npy source, with the shadowing divided out when the bundle has shadowing."""
+    if opened.entry("shadowing_db") is None and not _has_shadowing(opened.manifest):
+        return _MappedSource(opened.tap_gains), None
+    components = _components_or_none(root, cautions)
+    if components is None or components.shadowing_amplitude(0, 1) is None:
+        cautions.append("the bundle has shadowing but its trajectory could not be read: the small-scale "
+                        "checks see the large-scale variation too")
+        return _MappedSource(opened.tap_gains), None
+    return _MappedSource(opened.tap_gains, components.shadowing_amplitude), components
+
+
+def _has_shadowing(manifest):
+    return bool((manifest.get("conditions") or {}).get("shadowing"))
+
+
+def _components_or_none(root, cautions):
+    try:
+        from emucompile.components import open_components
+    except ImportError:
+        cautions.append("bundle components (shadowing, MIMO correlation) are not part of this build")
+        return None
+    return open_components(root)
+
+
+def _ci16_source(root, entry, shape, shadowing):
+    codes = np.memmap(root / entry["name"], dtype="<i2", mode="r", offset=entry["data_offset"],
+                      shape=(*shape, 2))
+    divide = None if shadowing is None else shadowing.shadowing_amplitude
+    return _Ci16Source(codes, float(entry["quantisation"]["scale_factor"]), divide)
+
+
+def _tap_model(entry):
+    """The theory of one tap from its manifest entry (values as compiled: rounded Doppler, drawn phase).
+
+    Returns None for a direct part whose Doppler follows a trajectory (no
+    stationary model: its checks are marked not applicable).
+    """
+    from emucompile.theory import DopplerSpectrum
+
+    tol = _tolerance()
+    power = entry.get("power_linear")
+    if power is None:
+        power = 0.0 if entry.get("power_db") is None else 10.0 ** (entry["power_db"] / 10.0)
+    k = _k_linear(entry["fading"], entry.get("k_db"))
+    los = entry.get("los_doppler_hz")
+    if k > 0 and los is None:
+        return None
+    spectrum = None
+    if entry["fading"] != "static":
+        kind = entry.get("spectrum") or "classical"
+        spectrum = DopplerSpectrum(kind, float(entry["max_doppler_hz"]),
+                                   float(entry["sigma_hz"]) if kind == "gaussian" else None)
+    return tol.TapModel(spectrum=spectrum, mean_power=float(power), k_linear=k,
+                        los_doppler_hz=float(los) if k > 0 else 0.0)
+
+
+def _tap_model_from_profile(tap):
+    try:
+        return _tolerance().TapModel.from_tap(tap)
+    except ValueError:  # a direct part on a Doppler trajectory
+        return None
+
+
+def _k_linear(fading, k_db):
+    if fading == "rician":
+        return 10.0 ** (float(k_db) / 10.0)
+    if fading == "static":
+        return math.inf
+    return 0.0
+
+
+def _is_fading(model):
+    return model.spectrum is not None
+
+
+def _diffuse_model(model):
+    """The model of a tap's diffuse part alone: Rayleigh with power P / (K + 1)."""
+    k = model.k_linear or 0.0
+    return dataclasses.replace(model, mean_power=model.diffuse_power, k_linear=0.0, los_doppler_hz=0.0)
+
+
+def _largest_frequency_hz(profile, models):
+    band = 0.0
+    for model in models.values():
+        if model is None:
+            continue
+        if model.spectrum is not None:
+            band = max(band, model.spectrum.band_edge_hz)
+        band = max(band, abs(model.los_doppler_hz))
+    largest = getattr(profile, "largest_doppler_hz", None)
+    if largest is not None and math.isfinite(largest):
+        band = max(band, float(largest))
+    return band
+
+
+def _renamed(result, prefix, link):
+    name = prefix + result.name + ("" if link is None else f" [{link}]")
+    return dataclasses.replace(result, name=name) if name != result.name else result
+
+
+def _holm(checks, false_alarm):
+    return _tolerance().holm(checks, family_wise=false_alarm) if checks else []
+
+
+def _db_text(fraction):
+    return f"{10 * math.log10(fraction):.1f} dB" if fraction > 0 else f"{fraction:.2g}"
+
+
+def _check_label(check):
+    return check.name + ("" if check.tap is None else f" (tap {check.tap})")
+
+
+def _fir_checks(manifest, matrix, root):
+    """The FIR map against the profile: deterministic comparisons (no false alarm, not in Holm).
+
+    ``fir_map_rebuilt``: the map compile makes for this manifest's profile and
+    options (target fit included), rebuilt here, against ``fir_map.npy``
+    (catches a map edited with its hash regenerated). ``fir_power``: energy
+    kept, sum_i P_i sum_n m_in^2 / sum_i P_i, against 1 with the map's own
+    worst-case loss (1 - G/pi^2 of a half-sample sinc row; 0 for nearest)
+    and the target fit's dropped power as tolerance. ``fir_rms_delay_spread``:
+    the grid's RMS delay spread (coefficient powers) against the profile's;
+    for ``nearest`` every delay moves by at most half a grid step, so the
+    spread moves by at most that (|sigma(x + e) - sigma(x)| <= max |e|, the
+    triangle inequality for the weighted standard deviation); for ``sinc``
+    each fractional tap's energy spreads over its window, which has no such
+    bound, so the figure is reported, not judged.
+    """
+    from emucompile.compiler import _replan
+    from emucompile.grid import rms_delay_spread
+
+    tol = _tolerance()
+    fir = manifest["fir"]
+    powers = np.array([t.get("power_linear") or (0.0 if t.get("power_db") is None else 10 ** (t["power_db"] / 10))
+                       for t in manifest["taps"]])
+    delays = np.array([t["delay_s"] for t in manifest["taps"]])
+    rate = float(fir["sample_rate_hz"])
+    coefficient_delays = (np.arange(matrix.shape[1]) - fir["bulk_delay_samples"]) / rate
+    checks = []
+    try:
+        rebuilt = _replan(manifest, root).fir
+    except Exception as error:  # noqa: BLE001 - a map we cannot rebuild is reported, not fatal
+        rebuilt, why = None, f"could not rebuild the map from the manifest: {error}"
+    if rebuilt is not None and rebuilt.matrix.shape == matrix.shape:
+        difference = float(np.max(np.abs(rebuilt.matrix - matrix), initial=0.0))
+        checks.append(_deterministic(tol, "fir_map_rebuilt", difference, 0.0, 1e-12, "",
+                                     "max |fir_map.npy - map rebuilt from the profile|"))
+    else:
+        why = why if rebuilt is None else f"shape {list(matrix.shape)} differs from the rebuilt {list(rebuilt.matrix.shape)}"
+        checks.append(_deterministic(tol, "fir_map_rebuilt", None, 0.0, 1e-12, "", why, passed=False))
+    kept = float(powers @ np.sum(matrix * matrix, axis=1) / powers.sum())
+    worst = (fir.get("parameters") or {}).get("energy_kept_worst")
+    dropped_db = ((manifest.get("target") or {}).get("costs") or {}).get("power_dropped_db") or 0.0
+    allowance = (1.0 - (worst if worst is not None else 1.0)) + (1.0 - 10 ** (-dropped_db / 10.0))
+    checks.append(_deterministic(tol, "fir_power", kept, 1.0, allowance + 1e-9, "",
+                                 "power-weighted energy kept by the grid vs the profile's power"))
+    grid_spread = rms_delay_spread(coefficient_delays, powers @ (matrix * matrix))
+    profile_spread = rms_delay_spread(delays, powers)
+    costs = (manifest.get("target") or {}).get("costs") or {}
+    expected = costs.get("fit_rms_delay_spread_s", profile_spread)
+    if fir["delay_mapping"] == "nearest":
+        step = (fir.get("parameters") or {}).get("delay_step_samples") or 1
+        checks.append(_deterministic(tol, "fir_rms_delay_spread", grid_spread, expected, 0.5 * step / rate * (1 + 1e-9),
+                                     "s", "grid RMS delay spread vs the profile's (nearest: half a grid step)"))
+    else:
+        checks.append(_deterministic(tol, "fir_rms_delay_spread", grid_spread, expected, None, "s",
+                                     "sinc mapping: each fractional tap spreads over its window; no bound to judge "
+                                     "against (reported only)", passed=None))
+    return checks
+
+
+def _deterministic(tol, name, value, expected, tolerance, unit, detail, *, passed="judge"):
+    if passed == "judge":
+        passed = value is not None and abs(value - expected) <= tolerance
+    reason = None if passed is not False or value is None else f"differs by {abs(value - expected):.3g} {unit}".strip()
+    if passed is None:
+        reason = detail
+    return tol.CheckResult(name=name, tap=None, value=value, expected=expected, tolerance=tolerance,
+                           p_value=None, passed=passed, reason=reason, level=None, min_detectable=tolerance,
+                           unit=unit, detail=detail)
+
+
+# -- helpers: identity, input, output ------------------------------------------------------------------
+
+
+def _bundle_identity(root, manifest, *, delivered):
+    files = [{k: e.get(k) for k in ("name", "role", "sha256", "size_bytes")} for e in manifest["files"]]
+    keys = ("seed", "method", "generator_version", "tool_version", "profile_sha256", "resolved_profile_sha256",
+            "platform", "created_utc", "periodic", "n_samples", "n_rx", "n_tx")
+    identity = {"source": "bundle", "path": os.fspath(root), "manifest_sha256": _sha256(root / "manifest.json"),
+                "files": files}
+    identity.update({k: manifest.get(k) for k in keys})
+    identity.update(integrity="intact (manifest valid; every file's size, header and SHA-256 match)",
+                    verify_tool_version=__version__, verify_platform=_platform(), delivered=list(delivered),
+                    profile_name=(manifest.get("profile") or {}).get("name"))
+    return identity
+
+
+def _profile_stats(profile):
+    from emucompile.stats import profile_statistics
+
+    return _strict(profile_statistics(profile))
+
+
+def _read_foreign(path: Path, n_taps: int) -> np.ndarray:
+    """Foreign gains as complex (n, n_rx, n_tx, n_taps)."""
+    if not path.is_file():
+        raise InputError(f"{path}: no such file")
+    if path.suffix == ".npy":
+        try:
+            array = np.load(path, mmap_mode="r", allow_pickle=False)
+        except (OSError, ValueError) as error:
+            raise InputError(f"{path}: not a readable npy file: {error}") from None
+        if not np.iscomplexobj(array):
+            raise InputError(f"{path}: holds {array.dtype}, expected complex tap gains")
+        if array.ndim == 1:
+            array = array[:, None]
+        if array.ndim == 2:
+            array = array[:, None, None, :]
+        if array.ndim != 4:
+            raise InputError(f"{path}: shape {list(array.shape)}; expected (n,), (n, n_taps) or (n, n_rx, n_tx, n_taps)")
+    else:
+        size = path.stat().st_size
+        if size % (8 * n_taps):
+            raise InputError(f"{path}: {size} bytes is not a whole number of cf32 samples x {n_taps} taps",
+                             hint="cf32 is interleaved float32 I/Q, taps interleaved sample by sample")
+        array = np.memmap(path, dtype="<c8", mode="r", shape=(size // (8 * n_taps), 1, 1, n_taps))
+    if array.shape[-1] != n_taps:
+        raise InputError(f"{path}: {array.shape[-1]} tap column(s), the profile has {n_taps}",
+                         hint="columns are the profile's taps in order")
+    if array.shape[0] < 2:
+        raise InputError(f"{path}: holds {array.shape[0]} sample(s); nothing to verify")
+    return array
+
+
+def _check_false_alarm(value):
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"--false-alarm must be a number, got {value!r}") from None
+    if not 0.0 < number < 1.0:
+        raise InputError(f"--false-alarm must lie in (0, 1), got {value!r}")
+    return number
+
+
+def _positive_rate(value):
+    if value is None:
+        raise InputError("--update-rate HZ is required with --gains")
+    number = float(value)
+    if not (number > 0 and math.isfinite(number)):
+        raise InputError(f"--update-rate must be finite and > 0 Hz, got {value!r}")
+    return number
+
+
+def _sha256(path: Path) -> str:
+    from emucompile.formats import sha256_file
+
+    return sha256_file(path)
+
+
+def _platform():
+    from emucompile.bundle import platform_info
+
+    return platform_info()
+
+
+def _write_atomic(path: Path, data: bytes) -> None:
+    temporary = path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    temporary.write_bytes(data)
+    os.replace(temporary, path)
+
+
+def _strict(value):
+    """A deep copy with numpy values made plain and non-finite floats made null."""
+    if isinstance(value, dict):
+        return {str(k): _strict(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_strict(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _strict(value.tolist())
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, complex):
+        return {"real": _strict(value.real), "imag": _strict(value.imag)}
+    if isinstance(value, Path):
+        return os.fspath(value)
+    return value
+
+
+def _number(value):
+    if value is None:
+        return "n/a"
+    if isinstance(value, float):
+        return f"{value:.4g}"
+    return str(value)
+
+
+__all__ = ["Verification", "IntegrityError", "verify_bundle", "verify_gains", "write_outputs",
+           "default_output_directory", "DEFAULT_FALSE_ALARM"]
