@@ -36,8 +36,7 @@ CAUTIONS = (
     "A compiled and verified profile is no substitute for accredited conformance testing: "
     "these checks show that the numbers follow the profile's statistics, not that a device "
     "under test meets a standard.",
-    "Follow the laboratory's own procedures and the local regulations on radio transmission; "
-    "keep conducted set-ups conducted.",
+    "Follow the laboratory's own procedures and the local regulations on radio transmission.",
 )
 
 FOREIGN_NOTE = (
@@ -111,7 +110,7 @@ def render_report(verification, figures=(), *, title: str | None = None,
         _checks_section(verification, checks),
         _figures_section(figures),
         _identity_section(getattr(verification, "identity", None) or {}),
-        _cautions_section(),
+        _cautions_section(getattr(verification, "cautions", None) or ()),
         _signature_section(),
         "</body></html>",
     ]
@@ -225,9 +224,8 @@ def _checks_section(verification, checks) -> str:
             mark, css = "\u2013 not enough data", "na"
         else:
             mark, css = "\u2013 not applicable", "na"
-        tap = _get(check, "tap")
         cells = [
-            str(i), _get(check, "name") or "", "all" if tap is None else str(tap), mark,
+            str(i), _get(check, "name") or "", _tap_text(_get(check, "tap")), mark,
             _number(_get(check, "value")), _number(_get(check, "expected")),
             _number(_get(check, "tolerance"), plus_minus=True), _number(_get(check, "min_detectable")),
             _get(check, "unit") or "", _number(_get(check, "p_value")), _number(_get(check, "level")),
@@ -258,18 +256,36 @@ def _figures_section(figures) -> str:
 
 
 def _identity_section(identity) -> str:
+    """Scalars and nested dicts as key/value rows; a list of records (the files) as its own table."""
     out = ["<h2>Identity of the checked data</h2>", '<table class="kv mono">']
-    rows = list(_flatten(identity))
-    if not rows:
+    tables = {k: v for k, v in identity.items() if _is_records(v)}
+    rows = list(_flatten({k: v for k, v in identity.items() if k not in tables}))
+    if not rows and not tables:
         rows = [("identity", "not recorded")]
     out += [f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in rows]
     out.append("</table>")
+    for key, records in tables.items():
+        columns = list(dict.fromkeys(c for record in records for c in record))
+        out.append(f"<h3>{_e(key)}</h3><table class=\"grid mono\"><tr>"
+                   + "".join(f"<th>{_e(c)}</th>" for c in columns) + "</tr>")
+        for record in records:
+            out.append("<tr>" + "".join(f"<td>{_e(_plain(record.get(c)))}</td>" for c in columns) + "</tr>")
+        out.append("</table>")
     return "\n".join(out)
 
 
-def _cautions_section() -> str:
-    items = "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS)
-    return f'<h2>Cautions</h2><ul class="cautions">{items}</ul>'
+def _is_records(value) -> bool:
+    return isinstance(value, (list, tuple)) and bool(value) and all(isinstance(v, dict) for v in value)
+
+
+def _cautions_section(run_cautions) -> str:
+    out = ["<h2>Cautions</h2>"]
+    if run_cautions:
+        items = "".join(f"<li>{_e(c)}</li>" for c in run_cautions)
+        out.append(f'<h3>From this verification</h3><ul class="cautions run">{items}</ul>')
+        out.append("<h3>Always</h3>")
+    out.append('<ul class="cautions">' + "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS) + "</ul>")
+    return "".join(out)
 
 
 def _signature_section() -> str:
@@ -303,6 +319,15 @@ def _holm_explanation(verification) -> str:
         "is the deviation this record length can reveal. Checks that cannot be meaningful are "
         "marked not applicable or not enough data, never pass."
     )
+
+
+def _tap_text(tap) -> str:
+    """A check's tap: "all", "3", or "0, 1" for a pair (cross-correlation) or a link."""
+    if tap is None:
+        return "all"
+    if isinstance(tap, (list, tuple)):
+        return ", ".join(str(t) for t in tap)
+    return str(tap)
 
 
 def _e(value) -> str:
@@ -362,12 +387,19 @@ def _flatten(value, prefix=""):
     if isinstance(value, dict):
         for key, item in value.items():
             yield from _flatten(item, f"{prefix}.{key}" if prefix else str(key))
-    elif isinstance(value, (list, tuple)) and value and all(isinstance(v, dict) for v in value):
+    elif _is_records(value):
         for i, item in enumerate(value):
             yield from _flatten(item, f"{prefix}[{i}]")
     else:
-        yield prefix, "\u2013" if value is None else (
-            ", ".join(map(str, value)) if isinstance(value, (list, tuple)) else str(value))
+        yield prefix, _plain(value)
+
+
+def _plain(value) -> str:
+    if value is None:
+        return "\u2013"
+    if isinstance(value, (list, tuple)):
+        return ", ".join(map(str, value)) if value else "none"
+    return str(value)
 
 
 def _fsync_directory(directory: Path) -> None:
@@ -398,7 +430,10 @@ th,td{border:1px solid #c9cbd3;padding:.28em .55em;text-align:left;vertical-alig
 th{background:#eef0f5}
 table.kv th{width:22em;font-weight:600}
 table.mono td{font-family:ui-monospace,"DejaVu Sans Mono",monospace;word-break:break-all}
+table.checks{width:100%}
 table.checks td:nth-child(n+5):nth-child(-n+11){font-variant-numeric:tabular-nums;text-align:right}
+table.checks td:nth-child(3){white-space:nowrap}
+table.checks td:last-child{min-width:16em}
 td.pass{color:#125c24;font-weight:bold;white-space:nowrap}
 td.fail{color:#fff;background:#c62828;font-weight:bold;white-space:nowrap}
 td.na{color:#666;white-space:nowrap}
