@@ -181,3 +181,23 @@ def test_autocorrelation_sign_convention_matches_theory():
     x = np.exp(1j * w * np.arange(4096))
     r = plots._autocorrelation(x, 10)
     np.testing.assert_allclose(r, np.exp(1j * w * np.arange(11)), atol=1e-9)
+
+
+# -- with a real verification ------------------------------------------------------------
+
+
+def test_report_of_a_real_verification(tmp_path):
+    from emucompile import compiler
+    from emucompile import verify as verifier
+
+    bundle = tmp_path / "crane"
+    compiler.compile_profile("profiles_demo/port-crane-los.yaml", bundle, duration_s=10.0, seed=5)
+    verification = verifier.verify_bundle(bundle)
+    figures = plots.make_figures(verification)
+    path = report.write_report(verification, figures, tmp_path / "report.html")
+    page = path.read_text(encoding="utf-8")
+    assert len(re.findall(r'<tr class="row-(?:pass|fail|na)">', page)) == len(verification.checks)
+    assert len(_decoded_images(page)) == len(figures) == 7
+    for entry in verification.identity["files"]:
+        assert entry["sha256"] in page
+    assert "http" not in DATA_URI.sub("data:", page)
