@@ -316,7 +316,7 @@ def _transfer_figure(profile, records, rate_hz, fir, sample_rate_hz, models):
     if not columns or not sample_rate_hz:
         return None
     edges = [max(m.spectrum.band_edge_hz if m.spectrum is not None else 0.0, abs(m.los_doppler_hz or 0.0))
-             for m in models.values()]
+             for m in models.values() if m is not None]
     edge = max(edges, default=0.0)
     length = min(len(c) for c in columns.values())
     n = length if edge <= 0 else min(length, max(2, int(_STRETCH_PERIODS / edge * rate_hz)))

@@ -97,6 +97,20 @@ def test_static_taps_appear_in_the_delay_profile_only():
     assert titles == ["Power delay profile", "Channel magnitude |H(f, t)| across the band"]
 
 
+def test_a_tap_without_a_model_is_left_out_of_the_statistics(monkeypatch):
+    # verify gives no model (None) for a direct part on a Doppler trajectory.
+    verification = standin_verification(periods=50.0)
+    verification.models[0] = None
+    drawn = []
+    monkeypatch.setattr(plots, "_png", lambda figure: b"")
+    original = plots._grid_figure
+    monkeypatch.setattr(plots, "_grid_figure",
+                        lambda group, draw, title: drawn.append([t.key for t in group]) or original(group, draw, title))
+    titles = [t for t, _ in plots.make_figures(verification)]
+    assert len(titles) == 7 and titles[-1].startswith("Channel magnitude")
+    assert drawn == [[1, 2, 3, 4, 5]] * 5
+
+
 def test_checks_table_has_one_row_per_check_with_its_verdict(inputs, page):
     verification, _ = inputs
     rows = re.findall(r'<tr class="row-(pass|fail|na)">', page)
