@@ -61,6 +61,9 @@ _API = {
     "plan_fading": "emucompile.fading",
     "generate_tap_gains": "emucompile.fading",
     "stream_tap_gains": "emucompile.fading",
+    "make_figures": "emucompile.plots",
+    "render_report": "emucompile.report",
+    "write_report": "emucompile.report",
 }
 
 

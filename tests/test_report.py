@@ -215,3 +215,11 @@ def test_report_of_a_real_verification(tmp_path):
     for entry in verification.identity["files"]:
         assert entry["sha256"] in page
     assert "http" not in DATA_URI.sub("data:", page)
+
+
+def test_the_package_root_exposes_the_report_api():
+    import emucompile
+
+    assert emucompile.render_report is report.render_report
+    assert emucompile.write_report is report.write_report
+    assert emucompile.make_figures is plots.make_figures
