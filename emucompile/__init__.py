@@ -64,6 +64,9 @@ _API = {
     "open_components": "emucompile.components",
     "Components": "emucompile.components",
     "ChannelPlan": "emucompile.channel",
+    "make_figures": "emucompile.plots",
+    "render_report": "emucompile.report",
+    "write_report": "emucompile.report",
 }
 
 

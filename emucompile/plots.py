@@ -1,0 +1,451 @@
+"""Figures of a verification: the measured statistics of each tap beside their theory.
+
+:func:`make_figures` turns a verification result (see :mod:`emucompile.verify`)
+into PNG images, each a ``(title, bytes)`` pair, for the HTML report
+(:mod:`emucompile.report`). Only ``matplotlib.figure.Figure`` with the Agg
+canvas is used: no pyplot, no global state, no display needed, safe in threads.
+
+What is drawn (measured in colour, theory in black dashes):
+
+* the power delay profile: the profile's tap powers as stems, the measured
+  mean power of each record as crosses;
+* per tap, the envelope CDF P(R < r) on a logarithmic probability axis against
+  ``theory.envelope_distribution`` (``scipy.stats.rice`` / ``rayleigh``);
+* the normalised autocorrelation (real part and magnitude) against
+  (K exp(j 2 pi f_los tau) + r(tau)) / (K + 1), r the spectrum's closed form;
+* the Doppler power spectrum (``scipy.signal.welch``, two-sided) against the
+  diffuse part's spectrum, the direct part drawn as a line at f_los;
+* the level crossing rate against Rice's formula (``theory.level_crossing_rate``);
+* a stretch of the envelope in dB re RMS;
+* with a FIR map, |H(f, t)| across the band, H(f, t) = sum_n FIR_n(t)
+  exp(-j 2 pi f n / f_s), FIR(t) = gains(t) @ fir_map.
+
+Taps are grouped, up to :data:`TAPS_PER_FIGURE` per figure, so a 12-tap
+profile gives a dozen images, not seventy. Static taps (no Doppler spectrum)
+appear in the delay profile and |H(f, t)| only.
+
+Levels are in dB relative to the RMS envelope the *profile* promises
+(sqrt of the tap's expected mean power), so a tap with the wrong power shows
+as a shifted curve rather than being normalised away.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+
+import numpy as np
+from matplotlib import colormaps
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
+from scipy import signal
+
+from emucompile import theory
+
+TAPS_PER_FIGURE = 6
+DPI = 100
+MEASURED_COLOR = "#1f77b4"
+THEORY_STYLE = {"color": "black", "linestyle": "--", "linewidth": 1.3}
+
+_COLUMNS = 3
+_PANEL_SIZE_IN = (4.2, 3.1)
+_MAX_RECORD = 1 << 20  # samples per tap used for the CDF, autocorrelation and PSD
+_MAX_LCR_RECORD = 1 << 17  # record samples (before upsampling) for the crossing count
+_STRETCH_PERIODS = 20.0  # envelope stretch and |H(f, t)|: 20 / f_D
+_LCR_OVERSAMPLE_HZ = 32.0  # upsample so the record rate is >= 32 x the largest Doppler
+
+
+def make_figures(verification) -> list[tuple[str, bytes]]:
+    """PNG figures of a verification result, in reading order.
+
+    Parameters
+    ----------
+    verification : object
+        A verification result (:class:`emucompile.verify.Verification` or
+        anything with the same attributes): ``profile``, ``records`` (tap ->
+        complex 1-D array at ``record_rate_hz``), ``record_rate_hz``,
+        ``models`` (tap -> object with ``spectrum``, ``mean_power``,
+        ``k_linear``, ``los_doppler_hz``), ``fir_map`` (ndarray (n_taps,
+        n_fir) or None) and ``sample_rate_hz``.
+
+    Returns
+    -------
+    list of (str, bytes)
+        Title and PNG bytes of each figure (DPI :data:`DPI`).
+
+    Notes
+    -----
+    Cost: one FFT of at most 2^21 points per tap (autocorrelation), a Welch
+    estimate, a histogram, and a polyphase upsampling of at most 2^17 samples
+    for the crossing count; rendering dominates (about 0.1-0.2 s per figure).
+    """
+    profile = verification.profile
+    records = dict(getattr(verification, "records", None) or {})
+    models = dict(getattr(verification, "models", None) or {})
+    rate = getattr(verification, "record_rate_hz", None)
+    figures = [("Power delay profile", _png(_delay_profile_figure(profile, records)))]
+
+    fading = [key for key in records if _spectrum(models.get(key)) is not None and rate]
+    panels = []
+    for key in fading:
+        panels.append(_TapData(key, _tap_label(key, profile), records[key], rate, models[key]))
+    for start in range(0, len(panels), TAPS_PER_FIGURE):
+        group = panels[start : start + TAPS_PER_FIGURE]
+        suffix = _group_suffix(group, len(panels))
+        for title, draw in _STATISTICS:
+            figures.append((f"{title}{suffix}", _png(_grid_figure(group, draw, title + suffix))))
+
+    fir = getattr(verification, "fir_map", None)
+    if fir is not None and records and rate:
+        figure = _transfer_figure(profile, records, rate, np.asarray(fir),
+                                  getattr(verification, "sample_rate_hz", None), models)
+        if figure is not None:
+            figures.append(("Channel magnitude |H(f, t)| across the band", _png(figure)))
+    return figures
+
+
+# -- per-tap data ------------------------------------------------------------------
+
+
+class _TapData:
+    """One tap's record and model, with the derived quantities the panels share."""
+
+    def __init__(self, key, label, record, rate_hz, model):
+        self.key = key
+        self.label = label
+        self.rate_hz = float(rate_hz)
+        x = np.asarray(record)[:_MAX_RECORD]
+        self.x = x.astype(np.complex128, copy=False)
+        self.spectrum = model.spectrum
+        self.k = float(model.k_linear or 0.0)
+        self.los_hz = float(model.los_doppler_hz or 0.0)
+        self.mean_power = float(model.mean_power)
+        self.rms = math.sqrt(self.mean_power)
+        self.edge_hz = max(self.spectrum.band_edge_hz, abs(self.los_hz))
+        self._fine = None
+
+    def fine(self):
+        """The first samples of g / R_rms, upsampled (band-limited), and their rate."""
+        if self._fine is None:
+            factor = max(1, min(8, math.ceil(_LCR_OVERSAMPLE_HZ * self.edge_hz / self.rate_hz)))
+            x = self.x[:_MAX_LCR_RECORD]
+            if factor > 1:
+                x = signal.resample_poly(x, factor, 1)
+            self._fine = (x / self.rms, self.rate_hz * factor)
+        return self._fine
+
+
+def _draw_cdf(ax, tap: _TapData):
+    levels_db = np.linspace(-40.0, 12.0, 261)
+    envelope_db = 20.0 * np.log10(np.maximum(np.abs(tap.x) / tap.rms, 1e-30))
+    counts, _ = np.histogram(envelope_db, bins=np.concatenate(([-np.inf], levels_db)))
+    measured = np.cumsum(counts) / len(envelope_db)
+    law = theory.envelope_distribution(tap.k, 1.0)
+    expected = law.cdf(10.0 ** (levels_db / 20.0))
+    floor = max(1e-5, 1.0 / len(envelope_db))
+    shown = measured > 0
+    ax.semilogy(levels_db[shown], measured[shown], color=MEASURED_COLOR, label="measured")
+    ax.semilogy(levels_db, np.maximum(expected, floor / 10), **THEORY_STYLE,
+                label="Rician, K = %.3g dB" % (10.0 * math.log10(tap.k)) if tap.k else "Rayleigh")
+    ax.set_ylim(floor, 1.5)
+    _log_axis(ax)
+    low = levels_db[np.argmax(expected > floor)] if np.any(expected > floor) else -40.0
+    ax.set_xlim(max(-40.0, low - 3.0), 10.0)
+    ax.set_xlabel("level r (dB re RMS)")
+    ax.set_ylabel("P(R < r)")
+
+
+def _draw_autocorrelation(ax, tap: _TapData):
+    max_lag = max(1, min(len(tap.x) // 4, int(round(4.0 / tap.spectrum.band_edge_hz * tap.rate_hz))))
+    measured = _autocorrelation(tap.x, max_lag)
+    lag_s = np.arange(max_lag + 1) / tap.rate_hz
+    expected = (tap.k * np.exp(2j * np.pi * tap.los_hz * lag_s)
+                + tap.spectrum.autocorrelation(lag_s)) / (tap.k + 1.0)
+    lag_ms = lag_s * 1e3
+    ax.plot(lag_ms, measured.real, color=MEASURED_COLOR, label="measured Re R")
+    ax.plot(lag_ms, np.abs(measured), color="#ff7f0e", label="measured |R|")
+    ax.plot(lag_ms, expected.real, **THEORY_STYLE, label="theory")
+    ax.plot(lag_ms, np.abs(expected), **THEORY_STYLE)
+    ax.axhline(0.0, color="0.7", linewidth=0.8)
+    ax.set_xlim(0.0, lag_ms[-1])
+    ax.set_ylim(-1.05, 1.05)
+    ax.set_xlabel("lag (ms)")
+    ax.set_ylabel("normalised autocorrelation")
+
+
+def _draw_psd(ax, tap: _TapData):
+    resolution_hz = tap.spectrum.band_edge_hz / 32.0
+    nperseg = int(min(len(tap.x), 2 ** math.ceil(math.log2(tap.rate_hz / resolution_hz))))
+    f, s = signal.welch(tap.x, fs=tap.rate_hz, window="hann", nperseg=nperseg,
+                        return_onesided=False, detrend=False, scaling="density")
+    order = np.argsort(f)
+    f, s = f[order], s[order] / tap.mean_power
+    measured_db = 10.0 * np.log10(np.maximum(s, 1e-30))
+    edge = tap.spectrum.band_edge_hz
+    inside = np.linspace(-edge, edge, 801)[1:-1]
+    expected_db = 10.0 * np.log10(np.maximum(tap.spectrum.psd(inside) / (tap.k + 1.0), 1e-30))
+    ax.plot(f, measured_db, color=MEASURED_COLOR, label="measured (Welch)")
+    ax.plot(inside, expected_db, **THEORY_STYLE, label="theory, diffuse part")
+    top = max(np.percentile(measured_db, 99.5), np.median(expected_db)) + 8.0
+    if tap.k > 0:
+        ax.axvline(tap.los_hz, color="#d62728", linewidth=1.2, linestyle=":",
+                   label="direct part, %.0f %% of power" % (100.0 * tap.k / (tap.k + 1.0)))
+    ax.set_ylim(top - 60.0, top)
+    span = min(f[-1], max(2.5 * edge, 1.5 * abs(tap.los_hz)))
+    ax.set_xlim(-span, span)
+    ax.set_xlabel("Doppler frequency (Hz)")
+    ax.set_ylabel("PSD (dB re tap power / Hz)")
+
+
+def _draw_level_crossings(ax, tap: _TapData):
+    gains, fine_rate = tap.fine()
+    levels_db = np.linspace(-30.0, 10.0, 161)
+    rho = 10.0 ** (levels_db / 20.0)
+    duration_s = len(gains) / fine_rate
+    measured = _upward_crossings(gains, rho) / duration_s
+    expected = theory.level_crossing_rate(rho, rms_doppler_hz=tap.spectrum.rms_doppler_hz,
+                                          k_linear=tap.k, los_doppler_hz=tap.los_hz)
+    floor = 1.0 / duration_s
+    shown = measured > 0
+    ax.semilogy(levels_db[shown], measured[shown], color=MEASURED_COLOR, label="measured")
+    ax.semilogy(levels_db, np.maximum(expected, floor / 10), **THEORY_STYLE, label="Rice's formula")
+    peak = max(np.max(expected), np.max(measured))
+    ax.set_ylim(floor, 3.0 * peak)
+    _log_axis(ax)
+    ax.set_xlim(levels_db[0], levels_db[-1])
+    ax.set_xlabel("level r (dB re RMS)")
+    ax.set_ylabel("crossings per second")
+
+
+def _draw_envelope(ax, tap: _TapData):
+    gains, fine_rate = tap.fine()
+    envelope = np.abs(gains)
+    n = min(len(envelope), max(2, int(_STRETCH_PERIODS / tap.edge_hz * fine_rate)))
+    t_s = np.arange(n) / fine_rate
+    scale, unit = _time_unit(t_s[-1])
+    ax.plot(t_s * scale, 20.0 * np.log10(np.maximum(envelope[:n], 1e-6)), color=MEASURED_COLOR,
+            linewidth=0.9, label="|g| (dB re RMS)")
+    ax.axhline(0.0, color="0.6", linewidth=0.8)
+    ax.set_ylim(-40.0, 12.0)
+    ax.set_xlim(0.0, t_s[-1] * scale)
+    ax.set_xlabel(f"time ({unit})")
+    ax.set_ylabel("envelope (dB re RMS)")
+
+
+_STATISTICS = (
+    ("Envelope CDF", _draw_cdf),
+    ("Autocorrelation", _draw_autocorrelation),
+    ("Doppler spectrum", _draw_psd),
+    ("Level crossing rate", _draw_level_crossings),
+    ("Envelope over time", _draw_envelope),
+)
+
+
+# -- figures -----------------------------------------------------------------------
+
+
+def _grid_figure(group, draw, title):
+    columns = min(_COLUMNS, len(group))
+    rows = math.ceil(len(group) / columns)
+    width_in = _PANEL_SIZE_IN[0] * columns
+    height_in = _PANEL_SIZE_IN[1] * rows + 0.6
+    figure = Figure(figsize=(width_in, height_in), dpi=DPI)
+    figure.suptitle(title, fontsize=13, fontweight="bold", y=1.0 - 0.12 / height_in)
+    # Fixed margins in inches (tight_layout measures every label: slow and not needed).
+    figure.subplots_adjust(left=0.75 / width_in, right=1.0 - 0.2 / width_in,
+                           bottom=0.55 / height_in, top=1.0 - 0.6 / height_in,
+                           wspace=1.0 / (_PANEL_SIZE_IN[0] - 1.0), hspace=1.0 / (_PANEL_SIZE_IN[1] - 1.0))
+    for i, tap in enumerate(group):
+        ax = figure.add_subplot(rows, columns, i + 1)
+        draw(ax, tap)
+        # An explicit y turns off matplotlib's automatic title placement (a costly measurement).
+        ax.set_title(tap.label, fontsize=9.5, y=1.0, pad=5.0)
+        ax.locator_params(axis="x", nbins=6)
+        if ax.get_yscale() == "linear":
+            ax.locator_params(axis="y", nbins=6)
+        ax.grid(True, which="major", color="0.88", linewidth=0.7)
+        if i == 0:
+            ax.legend(fontsize=7.5, loc="best", framealpha=0.85)
+    return figure
+
+
+def _delay_profile_figure(profile, records):
+    delays = np.array([t.delay_s for t in profile.taps], dtype=float)
+    powers_db = np.array([10.0 * math.log10(t.power_linear) for t in profile.taps])
+    scale, unit = (1e9, "ns") if np.max(delays, initial=0.0) < 2e-6 else (1e6, "\u00b5s")
+    figure = Figure(figsize=(8.0, 3.8), dpi=DPI)
+    ax = figure.add_subplot(1, 1, 1)
+    bottom = math.floor((powers_db.min() - 10.0) / 5.0) * 5.0
+    markers, stems, base = ax.stem(delays * scale, powers_db, bottom=bottom, label="profile")
+    stems.set_color(MEASURED_COLOR)
+    markers.set_color(MEASURED_COLOR)
+    base.set_color("0.6")
+    measured = []
+    for key, record in records.items():
+        index = _tap_index(key)
+        if index is not None and index < len(delays) and len(record):
+            power = float(np.mean(np.abs(np.asarray(record, dtype=np.complex128)) ** 2))
+            if power > 0:
+                measured.append((delays[index] * scale, 10.0 * math.log10(power)))
+    if measured:
+        x, y = zip(*measured)
+        ax.plot(x, y, "x", color="#d62728", markersize=9, markeredgewidth=2, label="measured mean power")
+    for i, (d, p) in enumerate(zip(delays * scale, powers_db)):
+        ax.annotate(str(i), (d, p), textcoords="offset points", xytext=(0, 7), ha="center", fontsize=8)
+    span = max(np.ptp(delays * scale), 1.0)
+    ax.set_xlim(delays.min() * scale - 0.05 * span, delays.max() * scale + 0.05 * span)
+    ax.set_ylim(bottom, max(powers_db.max(), max((m[1] for m in measured), default=-np.inf)) + 4.0)
+    ax.set_xlabel(f"excess delay ({unit})")
+    ax.set_ylabel("mean tap power (dB)")
+    ax.set_title(f"Power delay profile: {profile.name} ({profile.n_taps} taps)", fontsize=12)
+    ax.grid(True, color="0.88", linewidth=0.7)
+    ax.legend(fontsize=9)
+    figure.tight_layout()
+    return figure
+
+
+def _transfer_figure(profile, records, rate_hz, fir, sample_rate_hz, models):
+    """|H(f, t)| over a stretch of ~20 / f_D, or None without the rows it needs."""
+    n_taps, n_fir = fir.shape
+    columns = {}
+    for key, record in records.items():
+        index = _tap_index(key)
+        if index is not None and index < n_taps and index not in columns:
+            columns[index] = np.asarray(record)
+    if not columns or not sample_rate_hz:
+        return None
+    edges = [max(m.spectrum.band_edge_hz if m.spectrum is not None else 0.0, abs(m.los_doppler_hz or 0.0))
+             for m in models.values() if m is not None]
+    edge = max(edges, default=0.0)
+    length = min(len(c) for c in columns.values())
+    n = length if edge <= 0 else min(length, max(2, int(_STRETCH_PERIODS / edge * rate_hz)))
+    stride = max(1, n // 300)
+    gains = np.zeros((len(range(0, n, stride)), n_taps), np.complex128)
+    for index, record in columns.items():
+        gains[:, index] = record[:n:stride]
+    coefficients = gains @ fir
+    n_fft = max(256, 1 << math.ceil(math.log2(max(n_fir, 1))))
+    spectrum = np.fft.fftshift(np.fft.fft(coefficients, n_fft, axis=1), axes=1)
+    magnitude_db = 20.0 * np.log10(np.maximum(np.abs(spectrum), 1e-12))
+    top = float(np.max(magnitude_db))
+    frequency_mhz = np.fft.fftshift(np.fft.fftfreq(n_fft, 1.0 / sample_rate_hz)) / 1e6
+    t_s = np.arange(0, n, stride) / rate_hz
+    scale, unit = _time_unit(max(t_s[-1], 1.0 / rate_hz))
+    figure = Figure(figsize=(10.0, 4.6), dpi=DPI)
+    ax = figure.add_subplot(1, 1, 1)
+    # 2 dB colour steps without interpolation: readable as contours, and the PNG stays small.
+    palette = colormaps["viridis"].resampled(20)
+    image = ax.imshow(magnitude_db.T, origin="lower", aspect="auto", cmap=palette, interpolation="nearest",
+                      vmin=top - 40.0, vmax=top,
+                      extent=(t_s[0] * scale, t_s[-1] * scale, frequency_mhz[0], frequency_mhz[-1]))
+    colorbar = figure.colorbar(image, ax=ax, pad=0.02)
+    colorbar.set_label("|H(f, t)| (dB)")
+    ax.set_xlabel(f"time ({unit})")
+    ax.set_ylabel("frequency offset in the band (MHz)")
+    missing = n_taps - len(columns)
+    note = f"; {missing} tap(s) without a record left out" if missing else ""
+    ax.set_title(f"|H(f, t)| at {sample_rate_hz / 1e6:.6g} MHz sampling, {n_fir} FIR coefficients{note}",
+                 fontsize=11)
+    figure.tight_layout()
+    return figure
+
+
+# -- helpers -----------------------------------------------------------------------
+
+
+def _png(figure) -> bytes:
+    buffer = io.BytesIO()
+    FigureCanvasAgg(figure).print_png(buffer)
+    return buffer.getvalue()
+
+
+def _log_axis(ax):
+    """Decade ticks labelled as plain numbers (1e-3), no minor ticks.
+
+    The default minor ticks (eight per decade, each an artist) and mathtext
+    labels were most of a log panel's rendering time.
+    """
+    ax.yaxis.set_major_locator(LogLocator(base=10.0, numticks=12))
+    ax.yaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:.0e}".replace("e+00", "").replace("e-0", "e-")
+                                               .replace("e+0", "e")))
+    ax.yaxis.set_minor_locator(NullLocator())
+
+
+def _autocorrelation(x, max_lag):
+    """Unbiased normalised autocorrelation R[m] = mean(x[n+m] conj x[n]) / mean|x|^2, m <= max_lag."""
+    n = len(x)
+    size = 1 << math.ceil(math.log2(n + max_lag + 1))
+    spectrum = np.fft.fft(x, size)
+    r = np.fft.ifft(np.abs(spectrum) ** 2)[: max_lag + 1]
+    r = r / (n - np.arange(max_lag + 1))  # ifft(|X|^2)[m] = sum_n x[n+m] conj x[n]
+    return r / r[0].real
+
+
+def _upward_crossings(gains, levels):
+    """Upward crossings of |g| through each level, g joined by straight lines in the complex plane.
+
+    On a segment g(t) = a + t (b - a), t in [0, 1], |g(t)| is convex, so it
+    crosses a level r upwards at most once: exactly when its minimum m < r <= |b|.
+    Counting against the segment minimum (not only the end points) keeps the
+    short, deep fades that fall between samples. O(N log N) for all levels.
+    """
+    a, b = gains[:-1], gains[1:]
+    step = b - a
+    power = np.abs(step) ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.clip(-(np.conj(a) * step).real / power, 0.0, 1.0)
+    t = np.where(power > 0, t, 0.0)
+    lowest = np.abs(a + t * step)
+    end = np.abs(b)
+    rises = lowest < end
+    starts = np.sort(lowest[rises])
+    ends = np.sort(end[rises])
+    # count of segments with lowest < r <= end = #(lowest < r) - #(end < r)
+    return np.searchsorted(starts, levels, side="left") - np.searchsorted(ends, levels, side="left")
+
+
+def _spectrum(model):
+    return None if model is None else getattr(model, "spectrum", None)
+
+
+def _tap_index(key):
+    """Tap index of a record key: an int, the last element of a tuple, or 'tap N'."""
+    if isinstance(key, (int, np.integer)):
+        return int(key)
+    if isinstance(key, tuple) and key and isinstance(key[-1], (int, np.integer)):
+        return int(key[-1])
+    if isinstance(key, str):
+        tail = key.rsplit(" ", 1)[-1].rsplit("_", 1)[-1]
+        if tail.isdigit():
+            return int(tail)
+    return None
+
+
+def _tap_label(key, profile):
+    index = _tap_index(key)
+    if index is None or index >= profile.n_taps:
+        return str(key)
+    tap = profile.taps[index]
+    delay = tap.delay_s
+    delay_text = f"{delay * 1e9:.4g} ns" if delay < 2e-6 else f"{delay * 1e6:.4g} \u00b5s"
+    kind = tap.fading if tap.fading != "rician" else f"rician K {tap.k_db:.3g} dB"
+    prefix = f"{key}" if not isinstance(key, (int, np.integer)) else f"tap {index}"
+    return f"{prefix}: {delay_text}, {10 * math.log10(tap.power_linear):.3g} dB, {kind}"
+
+
+def _group_suffix(group, total):
+    if total <= len(group):
+        return ""
+    first, last = _tap_index(group[0].key), _tap_index(group[-1].key)
+    if first is None or last is None:
+        return f" ({group[0].key} to {group[-1].key})"
+    return f", taps {first}-{last}" if first != last else f", tap {first}"
+
+
+def _time_unit(span_s):
+    if span_s < 2e-3:
+        return 1e6, "\u00b5s"
+    if span_s < 2.0:
+        return 1e3, "ms"
+    return 1.0, "s"

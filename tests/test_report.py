@@ -1,0 +1,225 @@
+"""The verification report (emucompile.report) and its figures (emucompile.plots), in Python.
+
+The inputs are a stand-in verification (tests/verification_standin.py): records
+from the fading engine, models from the profile, a few invented checks.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import os
+import re
+
+import numpy as np
+import pytest
+from matplotlib import image as mpimage
+
+from emucompile import plots, report
+from verification_standin import StandInCheck, report_inputs, standin_verification
+
+DATA_URI = re.compile(r"data:image/png;base64,([A-Za-z0-9+/=]+)")
+
+
+@pytest.fixture(scope="module")
+def inputs():
+    return report_inputs()
+
+
+@pytest.fixture(scope="module")
+def page(inputs):
+    verification, figures = inputs
+    return report.render_report(verification, figures, created_utc="2026-01-01T00:00:00Z")
+
+
+def _colour_count(pixels):
+    rgb = np.round(pixels[..., :3] * 255).astype(np.uint32)
+    return len(np.unique(rgb[..., 0] << 16 | rgb[..., 1] << 8 | rgb[..., 2]))
+
+
+def _decoded_images(text):
+    return [base64.b64decode(m) for m in DATA_URI.findall(text)]
+
+
+def test_no_external_reference_and_no_script(page):
+    # Base64 data may contain "//", so look at the page with the data URIs taken out.
+    text = DATA_URI.sub("data:", page)
+    for forbidden in ("http:", "https:", "//", "<script", "url(", "@import", "<link"):
+        assert forbidden not in text.lower(), forbidden
+    assert re.findall(r'src="([^"]*)"', text) == ["data:"] * len(re.findall(r"<img ", text))
+
+
+def test_every_embedded_png_decodes_and_is_not_blank(inputs, page):
+    _, figures = inputs
+    images = _decoded_images(page)
+    assert images == [png for _, png in figures]
+    for png in images:
+        assert png.startswith(b"\x89PNG\r\n\x1a\n")
+        pixels = mpimage.imread(io.BytesIO(png), format="png")
+        assert pixels.ndim == 3 and pixels.shape[0] > 200 and pixels.shape[1] > 400
+        assert pixels[..., :3].var() > 0
+        # More than a few colours: curves, text and grid, not one flat field.
+        assert _colour_count(pixels) > 8
+        assert len(png) < 400_000  # modest: a report of a dozen figures stays a few MB
+
+
+def test_figures_cover_each_statistic(inputs):
+    verification, figures = inputs
+    titles = [t for t, _ in figures]
+    assert titles[0] == "Power delay profile"
+    for statistic in ("Envelope CDF", "Autocorrelation", "Doppler spectrum", "Level crossing rate",
+                      "Envelope over time"):
+        assert titles.count(statistic) == 1  # six fading taps: one figure of six panels
+    assert titles[-1].startswith("Channel magnitude |H(f, t)|")
+    assert len(titles) == 7
+
+
+def test_twelve_taps_are_grouped_not_one_image_each(monkeypatch):
+    monkeypatch.setattr(plots, "_png", lambda figure: b"")  # the layout, without rendering
+    verification = standin_verification("profiles_demo/port-crane-los.yaml", periods=50.0)
+    from dataclasses import replace
+
+    taps = verification.profile.taps
+    twelve = tuple(replace(t, index=i) for i, t in enumerate(taps + taps))
+    verification.profile = replace(verification.profile, taps=twelve)
+    verification.records = {i: verification.records[i % 6] for i in range(12)}
+    verification.models = {i: verification.models[i % 6] for i in range(12)}
+    verification.fir_map = np.vstack([verification.fir_map, verification.fir_map])
+    titles = [t for t, _ in plots.make_figures(verification)]
+    assert len(titles) == 1 + 5 * 2 + 1
+    assert "Envelope CDF, taps 0-5" in titles and "Envelope CDF, taps 6-11" in titles
+
+
+def test_static_taps_appear_in_the_delay_profile_only():
+    verification = standin_verification("profiles_demo/bench-two-path.json", periods=50.0,
+                                        sample_rate_hz=61.44e6)
+    titles = [t for t, _ in plots.make_figures(verification)]
+    assert titles == ["Power delay profile", "Channel magnitude |H(f, t)| across the band"]
+
+
+def test_a_tap_without_a_model_is_left_out_of_the_statistics(monkeypatch):
+    # verify gives no model (None) for a direct part on a Doppler trajectory.
+    verification = standin_verification(periods=50.0)
+    verification.models[0] = None
+    drawn = []
+    monkeypatch.setattr(plots, "_png", lambda figure: b"")
+    original = plots._grid_figure
+    monkeypatch.setattr(plots, "_grid_figure",
+                        lambda group, draw, title: drawn.append([t.key for t in group]) or original(group, draw, title))
+    titles = [t for t, _ in plots.make_figures(verification)]
+    assert len(titles) == 7 and titles[-1].startswith("Channel magnitude")
+    assert drawn == [[1, 2, 3, 4, 5]] * 5
+
+
+def test_checks_table_has_one_row_per_check_with_its_verdict(inputs, page):
+    verification, _ = inputs
+    rows = re.findall(r'<tr class="row-(pass|fail|na)">', page)
+    expected = ["pass" if c.passed else "fail" if c.passed is False else "na" for c in verification.checks]
+    assert rows == expected
+    assert "\u2718 FAIL" in page and "\u2714 pass" in page and "not applicable" in page
+    assert "FAILED" in page  # the stand-in has a failed check
+
+
+def test_not_enough_data_is_never_shown_as_pass():
+    checks = [StandInCheck("autocorrelation", 3, None, None, None, None, None,
+                           reason="not enough data: T f_D = 12 < 50")]
+    verification = standin_verification(periods=20.0, sample_rate_hz=None, checks=checks)
+    page = report.render_report(verification, [])
+    assert "\u2013 not enough data" in page and "\u2714 pass" not in page
+    assert 'class="verdict pass"' in page  # nothing failed
+
+
+def test_text_from_the_data_is_escaped(inputs):
+    verification, _ = inputs
+    page = report.render_report(verification, [], title='<img src=x onerror="alert(1)">')
+    assert "<img src=x" not in page
+    assert "&lt;img src=x onerror=&quot;alert(1)&quot;&gt;" in page
+    # The stand-in check name carries markup characters.
+    assert "level_crossing_rate &lt;5 &amp; &#x27;x&#x27;&gt;" in page
+    assert "<5 & 'x'>" not in page
+
+
+def test_report_states_the_rate_identity_note_cautions_and_signature(inputs, page):
+    verification, _ = inputs
+    assert "1 %" in page and "Holm" in page
+    for digest in verification.identity["hashes"].values():
+        assert digest in page
+    assert f"<td>{verification.identity['seed']}</td>" in page
+    assert "estimator bias" in page  # the stand-in is marked foreign
+    for caution in report.CAUTIONS:
+        assert report._e(caution) in page
+    assert "Signature:" in page and "Date:" in page and "Name:" in page
+    assert "157.3 ns" in page  # RMS delay spread of the port-crane demo (its expect: block)
+
+
+def test_foreign_note_only_for_foreign_data():
+    verification = standin_verification(periods=20.0, sample_rate_hz=None)
+    assert "estimator bias" not in report.render_report(verification, [])
+
+
+def test_write_report_is_atomic(tmp_path, inputs, monkeypatch):
+    verification, figures = inputs
+    target = tmp_path / "report.html"
+    target.write_text("old report")
+    written = report.write_report(verification, figures[:1], target, created_utc="2026-01-01T00:00:00Z")
+    assert written == target
+    assert target.read_text(encoding="utf-8") == report.render_report(
+        verification, figures[:1], created_utc="2026-01-01T00:00:00Z")
+    assert sorted(os.listdir(tmp_path)) == ["report.html"]
+
+    def failing_replace(source, destination):
+        raise OSError("disk went away")
+
+    monkeypatch.setattr(report.os, "replace", failing_replace)
+    with pytest.raises(OSError, match="disk went away"):
+        report.write_report(verification, figures[:1], target)
+    assert target.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")  # the previous one, whole
+    assert sorted(os.listdir(tmp_path)) == ["report.html"]  # no temporary left behind
+
+
+# -- the numerics behind the figures -----------------------------------------------------
+
+
+def test_upward_crossings_count_a_fade_between_two_samples():
+    # One straight segment passing 0.1 from the origin: both ends above 0.5, the middle below.
+    gains = np.array([-1.0 - 0.1j, 1.0 - 0.1j])
+    assert plots._upward_crossings(gains, np.array([0.05, 0.5, 2.0])).tolist() == [0, 1, 0]
+    # End points alone: a rise from 0.2 to 0.8 crosses 0.5 once, a fall never upwards.
+    assert plots._upward_crossings(np.array([0.2, 0.8, 0.2]), np.array([0.5])).tolist() == [1]
+
+
+def test_autocorrelation_sign_convention_matches_theory():
+    # R(m) = E[g(n + m) conj g(n)]: a tone exp(j w n) gives exp(j w m), as
+    # (K exp(j 2 pi f_los tau) + r(tau)) / (K + 1) does for a direct part alone.
+    w = 0.3
+    x = np.exp(1j * w * np.arange(4096))
+    r = plots._autocorrelation(x, 10)
+    np.testing.assert_allclose(r, np.exp(1j * w * np.arange(11)), atol=1e-9)
+
+
+# -- with a real verification ------------------------------------------------------------
+
+
+def test_report_of_a_real_verification(tmp_path):
+    from emucompile import compiler
+    from emucompile import verify as verifier
+
+    bundle = tmp_path / "crane"
+    compiler.compile_profile("profiles_demo/port-crane-los.yaml", bundle, duration_s=10.0, seed=5)
+    verification = verifier.verify_bundle(bundle)
+    figures = plots.make_figures(verification)
+    path = report.write_report(verification, figures, tmp_path / "report.html")
+    page = path.read_text(encoding="utf-8")
+    assert len(re.findall(r'<tr class="row-(?:pass|fail|na)">', page)) == len(verification.checks)
+    assert len(_decoded_images(page)) == len(figures) == 7
+    for entry in verification.identity["files"]:
+        assert entry["sha256"] in page
+    assert "http" not in DATA_URI.sub("data:", page)
+
+
+def test_the_package_root_exposes_the_report_api():
+    import emucompile
+
+    assert emucompile.render_report is report.render_report
+    assert emucompile.write_report is report.write_report
+    assert emucompile.make_figures is plots.make_figures
