@@ -372,3 +372,15 @@ def test_target_block_in_the_profile_is_used_and_the_option_overrides_it(tmp_pat
     plan = compiler.plan_compile(profile, tmp_path / "x", duration_s=1, seed=1, update_rate_hz=2000,
                                  target=other)
     assert plan.sources["target"] == "option" and plan.fir.delay_step_samples == 2
+
+
+def test_sum_of_sinusoids_on_a_gaussian_spectrum_warns(tmp_path):
+    # The limitation measured in tests/test_theory.py (Doppler PSD of the Gaussian tails).
+    from emucompile.profile import Profile, Tap
+
+    profile = Profile(name="g", taps=(Tap(0.0, 1.0, max_doppler_hz=50.0, spectrum="gaussian", sigma_hz=15.0),
+                                      Tap(1e-7, 0.5, max_doppler_hz=50.0)))
+    plan = compiler.plan_compile(profile, tmp_path / "b", duration_s=1.0, seed=1, method="sum-of-sinusoids")
+    assert any("Gaussian spectrum of tap(s) 0" in w for w in plan.warnings)
+    plan = compiler.plan_compile(profile, tmp_path / "b", duration_s=1.0, seed=1)
+    assert not any("Gaussian" in w for w in plan.warnings)

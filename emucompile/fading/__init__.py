@@ -24,7 +24,10 @@ crossings are right for any record length, its autocorrelation error is a
 design figure (~2e-4 up to 3/f_D), and its cost does not grow with the
 accuracy asked for. The sum of M sinusoids is non-Gaussian (envelope KS
 bias ~0.1/M), so M = 256 per quadrature is needed already at T f_D = 5e4,
-at a cost proportional to M.
+at a cost proportional to M; and its spectrum is M lines, so a Gaussian
+spectrum's thin tails hold only a few of them: the calibrated Doppler PSD
+check fails it at T f_D = 5e4 (0.66 dB off at 0.81 f_D; tests/test_theory.py,
+a strict xfail), and compile warns when it is asked for there.
 
 Random access and streaming: every tap's output is computed on a fixed grid
 of synthesis blocks tied to the absolute sample index, each from its own
