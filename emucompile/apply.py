@@ -990,7 +990,7 @@ class _OutputWriter:
                     os.unlink(path)
             raise
         with contextlib.suppress(OSError):
-            bd._fsync_directory(self.paths[0].parent)  # the bundle writer's own helpers, shared
+            bd.fsync_directory(self.paths[0].parent)
 
     def abort(self) -> None:
         if self._data is not None:
@@ -1028,12 +1028,12 @@ def _guarded_write(shown: Path):
         if hasattr(signal, "SIGXFSZ"):  # past `ulimit -f`: fail with EFBIG instead of dying
             saved[signal.SIGXFSZ] = signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
         if signal.getsignal(signal.SIGTERM) == signal.SIG_DFL:
-            saved[signal.SIGTERM] = signal.signal(signal.SIGTERM, bd._raise_terminated)
+            saved[signal.SIGTERM] = signal.signal(signal.SIGTERM, bd.raise_terminated)
     removed = "nothing was written (the partial output was removed)"
     try:
         yield
     except KeyboardInterrupt as error:
-        terminated = isinstance(error, bd._Terminated)
+        terminated = isinstance(error, bd.Terminated)
         interrupted = bd.WriteInterrupted(f"{shown}: {'terminated (SIGTERM)' if terminated else 'interrupted'}; {removed}")
         interrupted.exit_code = 143 if terminated else 130
         raise interrupted from None

@@ -454,8 +454,8 @@ class BundleWriter:
             manifest_file.write(text)
             manifest_file.close()
             if "sigmf" in self.layout.formats:
-                _fsync_directory(self._temp / fmt.SigmfWriter.directory)
-            _fsync_directory(self._temp)
+                fsync_directory(self._temp / fmt.SigmfWriter.directory)
+            fsync_directory(self._temp)
             interrupted_meanwhile = self._commit()
         except BaseException as error:
             self._fail(error)
@@ -585,7 +585,7 @@ class BundleWriter:
             with contextlib.suppress(OSError):
                 # Durability of the rename against a power cut; the bundle is already
                 # visible and whole, so a failure here is not a failed write.
-                _fsync_directory(self._target.parent)
+                fsync_directory(self._target.parent)
             if old is not None:
                 shutil.rmtree(old, ignore_errors=True)
         return bool(arrived)
@@ -598,7 +598,7 @@ class BundleWriter:
             # process before any cleanup; ignored, the write fails with EFBIG.
             self._saved_handlers[signal.SIGXFSZ] = signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
         if signal.getsignal(signal.SIGTERM) == signal.SIG_DFL:
-            self._saved_handlers[signal.SIGTERM] = signal.signal(signal.SIGTERM, _raise_terminated)
+            self._saved_handlers[signal.SIGTERM] = signal.signal(signal.SIGTERM, raise_terminated)
 
     def _restore_signal_handlers(self):
         while self._saved_handlers:
@@ -828,12 +828,12 @@ _RENAME_EXCHANGE = 2
 _AT_FDCWD = -100
 
 
-class _Terminated(KeyboardInterrupt):
+class Terminated(KeyboardInterrupt):
     """SIGTERM during a write, raised in the main thread like Ctrl-C."""
 
 
-def _raise_terminated(signum, frame):
-    raise _Terminated()
+def raise_terminated(signum, frame):
+    raise Terminated()
 
 
 def _check_destination(shown: Path, target: Path, *, force: bool) -> bool:
@@ -1119,7 +1119,8 @@ def _replace_directory(new: Path, target: Path) -> Path:
     return aside
 
 
-def _fsync_directory(directory: Path) -> None:
+def fsync_directory(directory: Path) -> None:
+    """Make a rename or a new file in ``directory`` durable (shared by apply and report)."""
     fd = os.open(directory, os.O_RDONLY)
     try:
         os.fsync(fd)
@@ -1150,8 +1151,8 @@ def _user_error(error: BaseException, outdir) -> EmucompileError | None:
     if isinstance(error, EmucompileError):
         return None
     if isinstance(error, KeyboardInterrupt):
-        interrupted = WriteInterrupted(f"{outdir}: {'terminated (SIGTERM)' if isinstance(error, _Terminated) else 'interrupted'}; {removed}")
-        interrupted.exit_code = 143 if isinstance(error, _Terminated) else 130
+        interrupted = WriteInterrupted(f"{outdir}: {'terminated (SIGTERM)' if isinstance(error, Terminated) else 'interrupted'}; {removed}")
+        interrupted.exit_code = 143 if isinstance(error, Terminated) else 130
         return interrupted
     if isinstance(error, OSError):
         where = os.path.basename(error.filename) if error.filename else "the bundle"

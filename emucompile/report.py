@@ -27,6 +27,7 @@ import secrets
 from pathlib import Path
 
 from emucompile._version import __version__
+from emucompile.bundle import fsync_directory
 
 #: The cautions printed in every report (common practice for lab test records).
 CAUTIONS = (
@@ -138,7 +139,7 @@ def write_report(verification, figures, path, **options) -> Path:
     except BaseException:
         temporary.unlink(missing_ok=True)
         raise
-    _fsync_directory(path.parent)
+    fsync_directory(path.parent)
     return path
 
 
@@ -402,17 +403,6 @@ def _plain(value) -> str:
     return str(value)
 
 
-def _fsync_directory(directory: Path) -> None:
-    try:
-        descriptor = os.open(directory, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(descriptor)
-    except OSError:
-        pass
-    finally:
-        os.close(descriptor)
 
 
 _CSS = """
