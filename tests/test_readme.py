@@ -24,3 +24,16 @@ def test_ci_runs_the_readme_test_command_verbatim():
     test_command = _readme_commands()[1]
     ci_lines = (ROOT / ".ci" / "run").read_text(encoding="utf-8").splitlines()
     assert test_command in ci_lines
+
+
+def test_readme_python_example_runs(tmp_path, monkeypatch):
+    # The README's Python block, run as written from a directory holding the demos.
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    block = re.search(r"^```python\n(.+?)\n```", text, flags=re.M | re.S).group(1)
+    (tmp_path / "profiles_demo").symlink_to(ROOT / "profiles_demo")
+    monkeypatch.chdir(tmp_path)
+    namespace: dict = {}
+    exec(compile(block, "README.md", "exec"), namespace)
+    assert namespace["verification"].passed is True
+    assert namespace["gains"].shape == (10_000, 7)
+    assert (tmp_path / "out" / "robot" / "manifest.json").is_file()
