@@ -513,6 +513,16 @@ def _compile_summary(result) -> str:
         f"method      {plan.method}, generator version {manifest['generator_version']}",
         f"seed        {plan.seed}{seed_note}",
     ]
+    mimo_setup = plan.profile.mimo
+    if mimo_setup is not None:
+        from emucompile.blocks import correlation_text
+
+        lines.append(f"links       {mimo_setup.n_rx} rx x {mimo_setup.n_tx} tx, correlation "
+                     + correlation_text(mimo_setup.correlation))
+    conditions = {name: entry for name, entry in (manifest.get("conditions") or {}).items() if entry}
+    if conditions:
+        lines.append("conditions  " + ", ".join(name.replace("_", " ") for name in conditions)
+                     + " (trajectories in manifest.json)")
     fir = manifest.get("fir")
     if fir:
         lines.append(

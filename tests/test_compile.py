@@ -384,3 +384,13 @@ def test_sum_of_sinusoids_on_a_gaussian_spectrum_warns(tmp_path):
     assert any("Gaussian spectrum of tap(s) 0" in w for w in plan.warnings)
     plan = compiler.plan_compile(profile, tmp_path / "b", duration_s=1.0, seed=1)
     assert not any("Gaussian" in w for w in plan.warnings)
+
+
+def test_summary_names_links_and_conditions(tmp_path):
+    demos = Path(__file__).resolve().parent.parent / "profiles_demo"
+    result = _run("compile", demos / "campus-eva-2x2.yaml", "-o", tmp_path / "mimo", "--duration", "1")
+    assert result.exit_code == 0, result.output
+    assert "links       2 rx x 2 tx, correlation medium (ts36101" in result.output
+    result = _run("compile", demos / "viaduct-high-speed-train.yaml", "-o", tmp_path / "hst", "--duration", "1")
+    assert result.exit_code == 0, result.output
+    assert "conditions  high speed train, shadowing" in result.output
