@@ -69,13 +69,14 @@ def test_figures_cover_each_statistic(inputs):
     assert titles[0] == "Power delay profile"
     for statistic in ("Envelope CDF", "Autocorrelation", "Doppler spectrum", "Level crossing rate",
                       "Envelope over time"):
-        assert titles.count(statistic) == 1  # six fading taps: one figure of six panels
+        assert titles.count(statistic) == 1  # six fading taps: one figure, two panels of three
     assert titles[-1].startswith("Channel magnitude |H(f, t)|")
     assert len(titles) == 7
 
 
 def test_twelve_taps_are_grouped_not_one_image_each(monkeypatch):
-    monkeypatch.setattr(plots, "_png", lambda figure: b"")  # the layout, without rendering
+    drawn = []
+    monkeypatch.setattr(plots, "_png", lambda figure: drawn.append(figure) or b"")  # the layout, without rendering
     verification = standin_verification("profiles_demo/port-crane-los.yaml", periods=50.0)
     from dataclasses import replace
 
@@ -86,8 +87,15 @@ def test_twelve_taps_are_grouped_not_one_image_each(monkeypatch):
     verification.models = {i: verification.models[i % 6] for i in range(12)}
     verification.fir_map = np.vstack([verification.fir_map, verification.fir_map])
     titles = [t for t, _ in plots.make_figures(verification)]
-    assert len(titles) == 1 + 5 * 2 + 1
-    assert "Envelope CDF, taps 0-5" in titles and "Envelope CDF, taps 6-11" in titles
+    # One figure per statistic, its panels holding up to four taps each (taps 0-3, 4-7, 8-11).
+    assert len(titles) == 1 + 5 + 1
+    for statistic, figure in zip(titles[1:6], drawn[1:6]):
+        assert [ax.get_title() for ax in figure.axes] == ["taps 0-3", "taps 4-7", "taps 8-11"], statistic
+        # Every tap is named in the key below its panel, and has a measured curve in it.
+        named = [t.get_text() for ax in figure.axes for t in ax.texts if "tap " in t.get_text()]
+        assert [int(re.search(r"tap (\d+):", n).group(1)) for n in named] == list(range(12)), statistic
+        measured = [line for ax in figure.axes for line in ax.get_lines() if line.get_label().startswith("tap ")]
+        assert len(measured) == 12, statistic
 
 
 def test_static_taps_appear_in_the_delay_profile_only():
