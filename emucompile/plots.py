@@ -33,6 +33,9 @@ from __future__ import annotations
 
 import io
 import math
+import os
+import pickle
+import threading
 
 import numpy as np
 from matplotlib import colormaps
@@ -63,7 +66,7 @@ _STRETCH_PERIODS = 20.0  # envelope stretch and |H(f, t)|: 20 / f_D
 _LCR_OVERSAMPLE_HZ = 32.0  # upsample so the record rate is >= 32 x the largest Doppler
 
 
-def make_figures(verification) -> list[tuple[str, bytes]]:
+def make_figures(verification, *, processes: int = 2) -> list[tuple[str, bytes]]:
     """PNG figures of a verification result, in reading order.
 
     Parameters
@@ -75,6 +78,10 @@ def make_figures(verification) -> list[tuple[str, bytes]]:
         ``models`` (tap -> object with ``spectrum``, ``mean_power``,
         ``k_linear``, ``los_doppler_hz``), ``fir_map`` (ndarray (n_taps,
         n_fir) or None) and ``sample_rate_hz``.
+    processes : int, optional
+        Build and render the figures in up to this many processes (a fork of
+        this one renders every other figure). 1, or a process with other
+        threads running, or a system without ``os.fork``, draws them all here.
 
     Returns
     -------
@@ -85,31 +92,87 @@ def make_figures(verification) -> list[tuple[str, bytes]]:
     -----
     Cost: one FFT of at most 2^21 points per tap (autocorrelation), a Welch
     estimate, a histogram, and a polyphase upsampling of at most 2^17 samples
-    for the crossing count; rendering dominates (about 0.1-0.2 s per figure).
+    for the crossing count; making the axes and rendering their text
+    dominate (about 0.1 s per panel, 5 panels per 4 taps), see
+    ``benchmarks/bench_plots.py``.
     """
     profile = verification.profile
     records = dict(getattr(verification, "records", None) or {})
     models = dict(getattr(verification, "models", None) or {})
     rate = getattr(verification, "record_rate_hz", None)
-    figures = [("Power delay profile", _png(_delay_profile_figure(profile, records)))]
+    tasks = [("Power delay profile", lambda: _delay_profile_figure(profile, records))]
 
     fading = [key for key in records if _spectrum(models.get(key)) is not None and rate]
-    panels = []
-    for key in fading:
-        panels.append(_TapData(key, _tap_label(key, profile), records[key], rate, models[key]))
+    panels = [_TapData(key, _tap_label(key, profile), records[key], rate, models[key]) for key in fading]
     for start in range(0, len(panels), TAPS_PER_FIGURE):
         group = panels[start : start + TAPS_PER_FIGURE]
         suffix = _group_suffix(group, len(panels))
         for title, draw in _STATISTICS:
-            figures.append((f"{title}{suffix}", _png(_grid_figure(group, draw, title + suffix))))
+            tasks.append((f"{title}{suffix}",
+                          lambda group=group, draw=draw, title=title + suffix: _grid_figure(group, draw, title)))
 
     fir = getattr(verification, "fir_map", None)
     if fir is not None and records and rate:
-        figure = _transfer_figure(profile, records, rate, np.asarray(fir),
-                                  getattr(verification, "sample_rate_hz", None), models)
-        if figure is not None:
-            figures.append(("Channel magnitude |H(f, t)| across the band", _png(figure)))
-    return figures
+        tasks.append(("Channel magnitude |H(f, t)| across the band",
+                      lambda: _transfer_figure(profile, records, rate, np.asarray(fir),
+                                               getattr(verification, "sample_rate_hz", None), models)))
+    pngs = _render_tasks([make for _, make in tasks], processes)
+    return [(title, png) for (title, _), png in zip(tasks, pngs) if png is not None]
+
+
+def _render_tasks(makers, processes):
+    """PNG bytes (or None) of each figure maker's figure; every other one in a forked process.
+
+    matplotlib's Python-side work (axes, ticks, text layout) holds the GIL, so
+    threads do not overlap it; a fork does. The child inherits the data, draws
+    its share and sends the bytes back through a pipe; if it fails in any way,
+    its share is drawn here. No fork when other threads run (a fork copies
+    their locks in whatever state they are).
+    """
+    def one(make):
+        figure = make()
+        return None if figure is None else _png(figure)
+
+    if (processes < 2 or len(makers) < 4 or not hasattr(os, "fork") or threading.active_count() > 1
+            or _cpus() < 2):
+        return [one(make) for make in makers]
+    # The child: every other figure and the last (|H(f, t)|, cheap), so the two halves weigh alike.
+    theirs = [i for i in range(len(makers)) if i % 2 or i == len(makers) - 1]
+    read_fd, write_fd = os.pipe()
+    pid = os.fork()
+    if pid == 0:  # the child: draw its share, send it, leave without running any cleanup
+        status = 1
+        try:
+            os.close(read_fd)
+            payload = pickle.dumps([one(makers[i]) for i in theirs])
+            with os.fdopen(write_fd, "wb") as pipe:
+                pipe.write(payload)
+            status = 0
+        finally:
+            os._exit(status)
+    os.close(write_fd)
+    results = [None] * len(makers)
+    for i in sorted(set(range(len(makers))) - set(theirs)):
+        results[i] = one(makers[i])
+    with os.fdopen(read_fd, "rb") as pipe:
+        payload = pipe.read()
+    _, status = os.waitpid(pid, 0)
+    try:
+        received = pickle.loads(payload) if status == 0 else None
+    except Exception:  # noqa: BLE001 - a broken child only costs its share drawn here
+        received = None
+    if not isinstance(received, list) or len(received) != len(theirs):
+        received = [one(makers[i]) for i in theirs]
+    for i, png in zip(theirs, received):
+        results[i] = png
+    return results
+
+
+def _cpus():
+    try:
+        return len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
 
 
 # -- per-tap data ------------------------------------------------------------------
@@ -294,7 +357,7 @@ def _grid_figure(group, draw, title):
     panels = _split(group)
     columns = min(_COLUMNS, len(panels))
     rows = math.ceil(len(panels) / columns)
-    width_in = _PANEL_SIZE_IN[0] * columns
+    width_in = _PANEL_SIZE_IN[0] * columns + 0.6
     height_in = _PANEL_SIZE_IN[1] * rows + 0.75
     figure = Figure(figsize=(width_in, height_in), dpi=DPI)
     figure.text(0.5 / width_in, 1.0 - 0.3 / height_in, title, fontsize=13, fontweight="bold", va="center")
@@ -305,10 +368,11 @@ def _grid_figure(group, draw, title):
     # Fixed margins in inches (tight_layout measures every label: slow and not needed).
     figure.subplots_adjust(left=0.8 / width_in, right=1.0 - 0.2 / width_in,
                            bottom=_LEGEND_IN / height_in, top=1.0 - 0.75 / height_in,
-                           wspace=1.0 / (_PANEL_SIZE_IN[0] - 1.0),
+                           wspace=0.35 / (_PANEL_SIZE_IN[0] - 1.0),
                            hspace=(_LEGEND_IN + 0.3) / (_PANEL_SIZE_IN[1] - _LEGEND_IN - 0.3))
     for i, taps in enumerate(panels):
         ax = figure.add_subplot(rows, columns, i + 1)
+        ax.set_autoscale_on(False)  # every panel sets its limits; autoscaling each curve costs
         colors = TAP_COLORS[: len(taps)]
         draw(ax, taps, colors)
         # An explicit y turns off matplotlib's automatic title placement (a costly measurement).
@@ -319,6 +383,15 @@ def _grid_figure(group, draw, title):
             ax.locator_params(axis="x", nbins=6)
         ax.grid(True, which="major", color="0.88", linewidth=0.7)
         _tap_key(figure, ax, taps, colors)
+    # One y range per figure, labelled in the first column only: panels compare at a glance,
+    # and the labels not drawn (text is most of the rendering time) are not paid for.
+    low = min(ax.get_ylim()[0] for ax in figure.axes)
+    high = max(ax.get_ylim()[1] for ax in figure.axes)
+    for i, ax in enumerate(figure.axes):
+        ax.set_ylim(low, high)
+        if i % columns:
+            ax.tick_params(labelleft=False)
+            ax.set_ylabel("")
     return figure
 
 
