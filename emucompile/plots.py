@@ -437,7 +437,7 @@ def _delay_profile_figure(profile, records):
     ax.set_ylabel("mean tap power (dB)")
     ax.set_title(f"Power delay profile: {profile.name} ({profile.n_taps} taps)", fontsize=12)
     ax.grid(True, color="0.88", linewidth=0.7)
-    ax.legend(fontsize=9, loc="lower right")
+    ax.legend(fontsize=9, loc="upper right")  # powers fall with delay: the top right is free
     figure.subplots_adjust(left=0.9 / 8.0, right=1.0 - 0.2 / 8.0, bottom=0.6 / 3.8, top=1.0 - 0.4 / 3.8)
     return figure
 
