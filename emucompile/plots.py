@@ -5,24 +5,26 @@ into PNG images, each a ``(title, bytes)`` pair, for the HTML report
 (:mod:`emucompile.report`). Only ``matplotlib.figure.Figure`` with the Agg
 canvas is used: no pyplot, no global state, no display needed, safe in threads.
 
-What is drawn (measured in colour, theory in black dashes):
+What is drawn (each tap in its own colour: measured as a wide pale line,
+theory dashed on it in the same colour; up to :data:`TAPS_PER_AXES` taps per
+panel, one figure per statistic):
 
 * the power delay profile: the profile's tap powers as stems, the measured
   mean power of each record as crosses;
 * per tap, the envelope CDF P(R < r) on a logarithmic probability axis against
   ``theory.envelope_distribution`` (``scipy.stats.rice`` / ``rayleigh``);
-* the normalised autocorrelation (real part and magnitude) against
-  (K exp(j 2 pi f_los tau) + r(tau)) / (K + 1), r the spectrum's closed form;
+* the real part of the normalised autocorrelation against
+  Re (K exp(j 2 pi f_los tau) + r(tau)) / (K + 1), r the spectrum's closed form;
 * the Doppler power spectrum (``scipy.signal.welch``, two-sided) against the
   diffuse part's spectrum, the direct part drawn as a line at f_los;
 * the level crossing rate against Rice's formula (``theory.level_crossing_rate``);
-* a stretch of the envelope in dB re RMS;
+* a stretch of the envelope in dB re RMS, the panel's taps stacked, each on its own 0 dB line;
 * with a FIR map, |H(f, t)| across the band, H(f, t) = sum_n FIR_n(t)
   exp(-j 2 pi f n / f_s), FIR(t) = gains(t) @ fir_map.
 
-Taps are grouped, up to :data:`TAPS_PER_FIGURE` per figure, so a 12-tap
-profile gives a dozen images, not seventy. Static taps (no Doppler spectrum)
-appear in the delay profile and |H(f, t)| only.
+A 12-tap profile gives 7 images of 17 panels (one per tap per statistic was
+60 panels; each costs about 0.1 s, mostly ticks and text). Static taps (no
+Doppler spectrum) appear in the delay profile and |H(f, t)| only.
 
 Levels are in dB relative to the RMS envelope the *profile* promises
 (sqrt of the tap's expected mean power), so a tap with the wrong power shows
