@@ -68,7 +68,7 @@ _STRETCH_PERIODS = 20.0  # envelope stretch and |H(f, t)|: 20 / f_D
 _LCR_OVERSAMPLE_HZ = 32.0  # upsample so the record rate is >= 32 x the largest Doppler
 
 
-def make_figures(verification, *, processes: int = 2) -> list[tuple[str, bytes]]:
+def make_figures(verification, *, processes: int = 1) -> list[tuple[str, bytes]]:
     """PNG figures of a verification result, in reading order.
 
     Parameters
@@ -81,9 +81,11 @@ def make_figures(verification, *, processes: int = 2) -> list[tuple[str, bytes]]
         ``k_linear``, ``los_doppler_hz``), ``fir_map`` (ndarray (n_taps,
         n_fir) or None) and ``sample_rate_hz``.
     processes : int, optional
-        Build and render the figures in up to this many processes (a fork of
-        this one renders every other figure). 1, or a process with other
-        threads running, or a system without ``os.fork``, draws them all here.
+        2: build and render every other figure in a fork of this process.
+        Off by default: measured, it pays only with a core free (inside a
+        loaded ``verify`` it was 1.1-1.4 x slower: the child's copy-on-write
+        pages and the second process competing). With other threads running,
+        one CPU, or no ``os.fork``, everything is drawn here anyway.
 
     Returns
     -------
