@@ -5,24 +5,26 @@ into PNG images, each a ``(title, bytes)`` pair, for the HTML report
 (:mod:`emucompile.report`). Only ``matplotlib.figure.Figure`` with the Agg
 canvas is used: no pyplot, no global state, no display needed, safe in threads.
 
-What is drawn (measured in colour, theory in black dashes):
+What is drawn (each tap in its own colour: measured as a wide pale line,
+theory dashed on it in the same colour; up to :data:`TAPS_PER_AXES` taps per
+panel, one figure per statistic):
 
 * the power delay profile: the profile's tap powers as stems, the measured
   mean power of each record as crosses;
 * per tap, the envelope CDF P(R < r) on a logarithmic probability axis against
   ``theory.envelope_distribution`` (``scipy.stats.rice`` / ``rayleigh``);
-* the normalised autocorrelation (real part and magnitude) against
-  (K exp(j 2 pi f_los tau) + r(tau)) / (K + 1), r the spectrum's closed form;
+* the real part of the normalised autocorrelation against
+  Re (K exp(j 2 pi f_los tau) + r(tau)) / (K + 1), r the spectrum's closed form;
 * the Doppler power spectrum (``scipy.signal.welch``, two-sided) against the
   diffuse part's spectrum, the direct part drawn as a line at f_los;
 * the level crossing rate against Rice's formula (``theory.level_crossing_rate``);
-* a stretch of the envelope in dB re RMS;
+* a stretch of the envelope in dB re RMS, the panel's taps stacked, each on its own 0 dB line;
 * with a FIR map, |H(f, t)| across the band, H(f, t) = sum_n FIR_n(t)
   exp(-j 2 pi f n / f_s), FIR(t) = gains(t) @ fir_map.
 
-Taps are grouped, up to :data:`TAPS_PER_FIGURE` per figure, so a 12-tap
-profile gives a dozen images, not seventy. Static taps (no Doppler spectrum)
-appear in the delay profile and |H(f, t)| only.
+A 12-tap profile gives 7 images of 17 panels (one per tap per statistic was
+60 panels; each costs about 0.1 s, mostly ticks and text). Static taps (no
+Doppler spectrum) appear in the delay profile and |H(f, t)| only.
 
 Levels are in dB relative to the RMS envelope the *profile* promises
 (sqrt of the tap's expected mean power), so a tap with the wrong power shows
@@ -33,30 +35,40 @@ from __future__ import annotations
 
 import io
 import math
+import os
+import pickle
+import threading
 
 import numpy as np
 from matplotlib import colormaps
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.transforms import ScaledTranslation
 from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
 from scipy import signal
 
 from emucompile import theory
 
-TAPS_PER_FIGURE = 6
+TAPS_PER_AXES = 4
+TAPS_PER_FIGURE = 4 * TAPS_PER_AXES * 3  # 3 columns x 4 rows of panels at most
 DPI = 100
 MEASURED_COLOR = "#1f77b4"
-THEORY_STYLE = {"color": "black", "linestyle": "--", "linewidth": 1.3}
+# One colour per tap of a panel (matplotlib's tab10 blue, red, green, purple): distinct in print too.
+TAP_COLORS = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd")
+MEASURED_STYLE = {"linewidth": 3.2, "alpha": 0.4, "solid_capstyle": "butt"}
+THEORY_STYLE = {"linestyle": "--", "linewidth": 1.2}
 
 _COLUMNS = 3
-_PANEL_SIZE_IN = (4.2, 3.1)
+_PANEL_SIZE_IN = (4.6, 4.2)  # one panel with its legend of up to four taps below
+_LEGEND_IN = 1.35  # room below each panel for the x label and the tap legend
+_ENVELOPE_OFFSET_DB = 60.0  # between stacked envelope traces
 _MAX_RECORD = 1 << 20  # samples per tap used for the CDF, autocorrelation and PSD
 _MAX_LCR_RECORD = 1 << 17  # record samples (before upsampling) for the crossing count
 _STRETCH_PERIODS = 20.0  # envelope stretch and |H(f, t)|: 20 / f_D
 _LCR_OVERSAMPLE_HZ = 32.0  # upsample so the record rate is >= 32 x the largest Doppler
 
 
-def make_figures(verification) -> list[tuple[str, bytes]]:
+def make_figures(verification, *, processes: int = 1) -> list[tuple[str, bytes]]:
     """PNG figures of a verification result, in reading order.
 
     Parameters
@@ -68,6 +80,12 @@ def make_figures(verification) -> list[tuple[str, bytes]]:
         ``models`` (tap -> object with ``spectrum``, ``mean_power``,
         ``k_linear``, ``los_doppler_hz``), ``fir_map`` (ndarray (n_taps,
         n_fir) or None) and ``sample_rate_hz``.
+    processes : int, optional
+        2: build and render every other figure in a fork of this process.
+        Off by default: measured, it pays only with a core free (inside a
+        loaded ``verify`` it was 1.1-1.4 x slower: the child's copy-on-write
+        pages and the second process competing). With other threads running,
+        one CPU, or no ``os.fork``, everything is drawn here anyway.
 
     Returns
     -------
@@ -78,31 +96,87 @@ def make_figures(verification) -> list[tuple[str, bytes]]:
     -----
     Cost: one FFT of at most 2^21 points per tap (autocorrelation), a Welch
     estimate, a histogram, and a polyphase upsampling of at most 2^17 samples
-    for the crossing count; rendering dominates (about 0.1-0.2 s per figure).
+    for the crossing count; making the axes and rendering their text
+    dominate (about 0.1 s per panel, 5 panels per 4 taps), see
+    ``benchmarks/bench_plots.py``.
     """
     profile = verification.profile
     records = dict(getattr(verification, "records", None) or {})
     models = dict(getattr(verification, "models", None) or {})
     rate = getattr(verification, "record_rate_hz", None)
-    figures = [("Power delay profile", _png(_delay_profile_figure(profile, records)))]
+    tasks = [("Power delay profile", lambda: _delay_profile_figure(profile, records))]
 
     fading = [key for key in records if _spectrum(models.get(key)) is not None and rate]
-    panels = []
-    for key in fading:
-        panels.append(_TapData(key, _tap_label(key, profile), records[key], rate, models[key]))
+    panels = [_TapData(key, _tap_label(key, profile), records[key], rate, models[key]) for key in fading]
     for start in range(0, len(panels), TAPS_PER_FIGURE):
         group = panels[start : start + TAPS_PER_FIGURE]
         suffix = _group_suffix(group, len(panels))
         for title, draw in _STATISTICS:
-            figures.append((f"{title}{suffix}", _png(_grid_figure(group, draw, title + suffix))))
+            tasks.append((f"{title}{suffix}",
+                          lambda group=group, draw=draw, title=title + suffix: _grid_figure(group, draw, title)))
 
     fir = getattr(verification, "fir_map", None)
     if fir is not None and records and rate:
-        figure = _transfer_figure(profile, records, rate, np.asarray(fir),
-                                  getattr(verification, "sample_rate_hz", None), models)
-        if figure is not None:
-            figures.append(("Channel magnitude |H(f, t)| across the band", _png(figure)))
-    return figures
+        tasks.append(("Channel magnitude |H(f, t)| across the band",
+                      lambda: _transfer_figure(profile, records, rate, np.asarray(fir),
+                                               getattr(verification, "sample_rate_hz", None), models)))
+    pngs = _render_tasks([make for _, make in tasks], processes)
+    return [(title, png) for (title, _), png in zip(tasks, pngs) if png is not None]
+
+
+def _render_tasks(makers, processes):
+    """PNG bytes (or None) of each figure maker's figure; every other one in a forked process.
+
+    matplotlib's Python-side work (axes, ticks, text layout) holds the GIL, so
+    threads do not overlap it; a fork does. The child inherits the data, draws
+    its share and sends the bytes back through a pipe; if it fails in any way,
+    its share is drawn here. No fork when other threads run (a fork copies
+    their locks in whatever state they are).
+    """
+    def one(make):
+        figure = make()
+        return None if figure is None else _png(figure)
+
+    if (processes < 2 or len(makers) < 4 or not hasattr(os, "fork") or threading.active_count() > 1
+            or _cpus() < 2):
+        return [one(make) for make in makers]
+    # The child: every other figure and the last (|H(f, t)|, cheap), so the two halves weigh alike.
+    theirs = [i for i in range(len(makers)) if i % 2 or i == len(makers) - 1]
+    read_fd, write_fd = os.pipe()
+    pid = os.fork()
+    if pid == 0:  # the child: draw its share, send it, leave without running any cleanup
+        status = 1
+        try:
+            os.close(read_fd)
+            payload = pickle.dumps([one(makers[i]) for i in theirs])
+            with os.fdopen(write_fd, "wb") as pipe:
+                pipe.write(payload)
+            status = 0
+        finally:
+            os._exit(status)
+    os.close(write_fd)
+    results = [None] * len(makers)
+    for i in sorted(set(range(len(makers))) - set(theirs)):
+        results[i] = one(makers[i])
+    with os.fdopen(read_fd, "rb") as pipe:
+        payload = pipe.read()
+    _, status = os.waitpid(pid, 0)
+    try:
+        received = pickle.loads(payload) if status == 0 else None
+    except Exception:  # noqa: BLE001 - a broken child only costs its share drawn here
+        received = None
+    if not isinstance(received, list) or len(received) != len(theirs):
+        received = [one(makers[i]) for i in theirs]
+    for i, png in zip(theirs, received):
+        results[i] = png
+    return results
+
+
+def _cpus():
+    try:
+        return len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
 
 
 # -- per-tap data ------------------------------------------------------------------
@@ -136,101 +210,131 @@ class _TapData:
         return self._fine
 
 
-def _draw_cdf(ax, tap: _TapData):
+def _draw_cdf(ax, taps, colors):
     levels_db = np.linspace(-40.0, 12.0, 261)
-    envelope_db = 20.0 * np.log10(np.maximum(np.abs(tap.x) / tap.rms, 1e-30))
-    counts, _ = np.histogram(envelope_db, bins=np.concatenate(([-np.inf], levels_db)))
-    measured = np.cumsum(counts) / len(envelope_db)
-    law = theory.envelope_distribution(tap.k, 1.0)
-    expected = law.cdf(10.0 ** (levels_db / 20.0))
-    floor = max(1e-5, 1.0 / len(envelope_db))
-    shown = measured > 0
-    ax.semilogy(levels_db[shown], measured[shown], color=MEASURED_COLOR, label="measured")
-    ax.semilogy(levels_db, np.maximum(expected, floor / 10), **THEORY_STYLE,
-                label="Rician, K = %.3g dB" % (10.0 * math.log10(tap.k)) if tap.k else "Rayleigh")
+    floor, low = 1e-5, -40.0
+    for tap, color in zip(taps, colors):
+        envelope_db = 20.0 * np.log10(np.maximum(np.abs(tap.x) / tap.rms, 1e-30))
+        counts, _ = np.histogram(envelope_db, bins=np.concatenate(([-np.inf], levels_db)))
+        measured = np.cumsum(counts) / len(envelope_db)
+        expected = theory.envelope_distribution(tap.k, 1.0).cdf(10.0 ** (levels_db / 20.0))
+        floor = max(floor, 1.0 / len(envelope_db))
+        shown = measured > 0
+        ax.plot(levels_db[shown], measured[shown], color=color, **MEASURED_STYLE, label=tap.label)
+        ax.plot(levels_db, np.maximum(expected, 1e-12), color=color, **THEORY_STYLE)
+        if np.any(expected > floor):
+            low = max(low, levels_db[np.argmax(expected > floor)] - 3.0)
+    ax.set_yscale("log")
     ax.set_ylim(floor, 1.5)
     _log_axis(ax)
-    low = levels_db[np.argmax(expected > floor)] if np.any(expected > floor) else -40.0
-    ax.set_xlim(max(-40.0, low - 3.0), 10.0)
+    low = min(low, -10.0)
+    ax.set_xlim(low, 10.0)
+    ax.set_xticks(np.arange(math.ceil(low / 10.0) * 10.0, 10.1, 10.0))
     ax.set_xlabel("level r (dB re RMS)")
     ax.set_ylabel("P(R < r)")
+    return "lower right"
 
 
-def _draw_autocorrelation(ax, tap: _TapData):
-    max_lag = max(1, min(len(tap.x) // 4, int(round(4.0 / tap.spectrum.band_edge_hz * tap.rate_hz))))
-    measured = _autocorrelation(tap.x, max_lag)
-    lag_s = np.arange(max_lag + 1) / tap.rate_hz
-    expected = (tap.k * np.exp(2j * np.pi * tap.los_hz * lag_s)
-                + tap.spectrum.autocorrelation(lag_s)) / (tap.k + 1.0)
-    lag_ms = lag_s * 1e3
-    ax.plot(lag_ms, measured.real, color=MEASURED_COLOR, label="measured Re R")
-    ax.plot(lag_ms, np.abs(measured), color="#ff7f0e", label="measured |R|")
-    ax.plot(lag_ms, expected.real, **THEORY_STYLE, label="theory")
-    ax.plot(lag_ms, np.abs(expected), **THEORY_STYLE)
-    ax.axhline(0.0, color="0.7", linewidth=0.8)
-    ax.set_xlim(0.0, lag_ms[-1])
+def _draw_autocorrelation(ax, taps, colors):
+    end_ms = 0.0
+    for tap, color in zip(taps, colors):
+        max_lag = max(1, min(len(tap.x) // 4, int(round(4.0 / tap.spectrum.band_edge_hz * tap.rate_hz))))
+        measured = _autocorrelation(tap.x, max_lag)
+        lag_s = np.arange(max_lag + 1) / tap.rate_hz
+        fine_s = np.linspace(0.0, lag_s[-1], 400)
+        expected = (tap.k * np.cos(2.0 * np.pi * tap.los_hz * fine_s)
+                    + tap.spectrum.autocorrelation(fine_s).real) / (tap.k + 1.0)
+        ax.plot(lag_s * 1e3, measured.real, color=color, **MEASURED_STYLE, label=tap.label)
+        ax.plot(fine_s * 1e3, expected, color=color, **THEORY_STYLE)
+        end_ms = max(end_ms, lag_s[-1] * 1e3)
+    ax.axhline(0.0, color="0.6", linewidth=0.8)
+    ax.set_xlim(0.0, end_ms)
     ax.set_ylim(-1.05, 1.05)
-    ax.set_xlabel("lag (ms)")
-    ax.set_ylabel("normalised autocorrelation")
+    ax.set_yticks([-1.0, -0.5, 0.0, 0.5, 1.0])
+    ax.set_xlabel("lag \u03c4 (ms)")
+    ax.set_ylabel("Re R(\u03c4) / R(0)")
+    return "upper right"
 
 
-def _draw_psd(ax, tap: _TapData):
-    resolution_hz = tap.spectrum.band_edge_hz / 32.0
-    nperseg = int(min(len(tap.x), 2 ** math.ceil(math.log2(tap.rate_hz / resolution_hz))))
-    f, s = signal.welch(tap.x, fs=tap.rate_hz, window="hann", nperseg=nperseg,
-                        return_onesided=False, detrend=False, scaling="density")
-    order = np.argsort(f)
-    f, s = f[order], s[order] / tap.mean_power
-    measured_db = 10.0 * np.log10(np.maximum(s, 1e-30))
-    edge = tap.spectrum.band_edge_hz
-    inside = np.linspace(-edge, edge, 801)[1:-1]
-    expected_db = 10.0 * np.log10(np.maximum(tap.spectrum.psd(inside) / (tap.k + 1.0), 1e-30))
-    ax.plot(f, measured_db, color=MEASURED_COLOR, label="measured (Welch)")
-    ax.plot(inside, expected_db, **THEORY_STYLE, label="theory, diffuse part")
-    top = max(np.percentile(measured_db, 99.5), np.median(expected_db)) + 8.0
-    if tap.k > 0:
-        ax.axvline(tap.los_hz, color="#d62728", linewidth=1.2, linestyle=":",
-                   label="direct part, %.0f %% of power" % (100.0 * tap.k / (tap.k + 1.0)))
+def _draw_psd(ax, taps, colors):
+    top, span = -np.inf, 0.0
+    for tap, color in zip(taps, colors):
+        resolution_hz = tap.spectrum.band_edge_hz / 32.0
+        nperseg = int(min(len(tap.x), 2 ** math.ceil(math.log2(tap.rate_hz / resolution_hz))))
+        f, s = signal.welch(tap.x, fs=tap.rate_hz, window="hann", nperseg=nperseg,
+                            return_onesided=False, detrend=False, scaling="density")
+        order = np.argsort(f)
+        f, s = f[order], s[order] / tap.mean_power
+        measured_db = 10.0 * np.log10(np.maximum(s, 1e-30))
+        edge = tap.spectrum.band_edge_hz
+        inside = np.linspace(-edge, edge, 401)[1:-1]
+        expected_db = 10.0 * np.log10(np.maximum(tap.spectrum.psd(inside) / (tap.k + 1.0), 1e-30))
+        ax.plot(f, measured_db, color=color, **MEASURED_STYLE, label=tap.label)
+        ax.plot(inside, expected_db, color=color, **THEORY_STYLE)
+        if tap.k > 0:
+            ax.axvline(tap.los_hz, color=color, linewidth=1.4, linestyle=":")
+            ax.annotate("direct part\n%.0f %% of power" % (100.0 * tap.k / (tap.k + 1.0)),
+                        (tap.los_hz, 0.97), xycoords=("data", "axes fraction"), xytext=(3, 0),
+                        textcoords="offset points", va="top", fontsize=7, color=color)
+        top = max(top, np.percentile(measured_db, 99.5) + 8.0, np.median(expected_db) + 8.0)
+        span = max(span, min(f[-1], max(2.5 * edge, 1.5 * abs(tap.los_hz))))
     ax.set_ylim(top - 60.0, top)
-    span = min(f[-1], max(2.5 * edge, 1.5 * abs(tap.los_hz)))
     ax.set_xlim(-span, span)
     ax.set_xlabel("Doppler frequency (Hz)")
     ax.set_ylabel("PSD (dB re tap power / Hz)")
+    return "lower center"
 
 
-def _draw_level_crossings(ax, tap: _TapData):
-    gains, fine_rate = tap.fine()
+def _draw_level_crossings(ax, taps, colors):
     levels_db = np.linspace(-30.0, 10.0, 161)
     rho = 10.0 ** (levels_db / 20.0)
-    duration_s = len(gains) / fine_rate
-    measured = _upward_crossings(gains, rho) / duration_s
-    expected = theory.level_crossing_rate(rho, rms_doppler_hz=tap.spectrum.rms_doppler_hz,
-                                          k_linear=tap.k, los_doppler_hz=tap.los_hz)
-    floor = 1.0 / duration_s
-    shown = measured > 0
-    ax.semilogy(levels_db[shown], measured[shown], color=MEASURED_COLOR, label="measured")
-    ax.semilogy(levels_db, np.maximum(expected, floor / 10), **THEORY_STYLE, label="Rice's formula")
-    peak = max(np.max(expected), np.max(measured))
+    floor, peak = 0.0, 0.0
+    for tap, color in zip(taps, colors):
+        gains, fine_rate = tap.fine()
+        duration_s = len(gains) / fine_rate
+        measured = _upward_crossings(gains, rho) / duration_s
+        expected = theory.level_crossing_rate(rho, rms_doppler_hz=tap.spectrum.rms_doppler_hz,
+                                              k_linear=tap.k, los_doppler_hz=tap.los_hz)
+        floor = max(floor, 1.0 / duration_s)
+        shown = measured > 0
+        ax.plot(levels_db[shown], measured[shown], color=color, **MEASURED_STYLE, label=tap.label)
+        ax.plot(levels_db, np.maximum(expected, 1e-12), color=color, **THEORY_STYLE)
+        peak = max(peak, np.max(expected), np.max(measured))
+    ax.set_yscale("log")
     ax.set_ylim(floor, 3.0 * peak)
     _log_axis(ax)
     ax.set_xlim(levels_db[0], levels_db[-1])
+    ax.set_xticks(np.arange(-30.0, 10.1, 10.0))
     ax.set_xlabel("level r (dB re RMS)")
-    ax.set_ylabel("crossings per second")
+    ax.set_ylabel("upward crossings per second")
+    return "lower center"
 
 
-def _draw_envelope(ax, tap: _TapData):
-    gains, fine_rate = tap.fine()
-    envelope = np.abs(gains)
-    n = min(len(envelope), max(2, int(_STRETCH_PERIODS / tap.edge_hz * fine_rate)))
-    t_s = np.arange(n) / fine_rate
-    scale, unit = _time_unit(t_s[-1])
-    ax.plot(t_s * scale, 20.0 * np.log10(np.maximum(envelope[:n], 1e-6)), color=MEASURED_COLOR,
-            linewidth=0.9, label="|g| (dB re RMS)")
-    ax.axhline(0.0, color="0.6", linewidth=0.8)
-    ax.set_ylim(-40.0, 12.0)
-    ax.set_xlim(0.0, t_s[-1] * scale)
+def _draw_envelope(ax, taps, colors):
+    """The taps' envelopes stacked, each trace offset so its 0 dB sits on its own line."""
+    fastest = max(tap.edge_hz for tap in taps)
+    stretches = []
+    for tap in taps:
+        gains, fine_rate = tap.fine()
+        n = min(len(gains), max(2, int(_STRETCH_PERIODS / fastest * fine_rate)))
+        stretches.append((gains[:n], fine_rate))
+    end_s = min((len(g) - 1) / rate for g, rate in stretches)
+    scale, unit = _time_unit(end_s)
+    ticks, labels = [], []
+    for j, ((gains, fine_rate), tap, color) in enumerate(zip(stretches, taps, colors)):
+        offset = -_ENVELOPE_OFFSET_DB * j
+        level_db = np.clip(20.0 * np.log10(np.maximum(np.abs(gains), 1e-6)), -40.0, 12.0)
+        ax.plot(np.arange(len(gains)) * (scale / fine_rate), level_db + offset, color=color,
+                linewidth=0.9, label=tap.label)
+        ax.axhline(offset, color="0.6", linewidth=0.7)
+        ticks += [offset, offset - 20.0]
+        labels += ["0", "\u221220"]
+    ax.set_xlim(0.0, end_s * scale)
+    ax.set_ylim(-_ENVELOPE_OFFSET_DB * (len(taps) - 1) - 42.0, 14.0)
+    ax.set_yticks(ticks, labels, fontsize=7)
     ax.set_xlabel(f"time ({unit})")
-    ax.set_ylabel("envelope (dB re RMS)")
+    ax.set_ylabel("|g| (dB re RMS), one trace per tap")
+    return None
 
 
 _STATISTICS = (
@@ -245,29 +349,66 @@ _STATISTICS = (
 # -- figures -----------------------------------------------------------------------
 
 
+def _split(taps):
+    """Taps into panels of at most :data:`TAPS_PER_AXES`, as even as the count allows."""
+    n_axes = max(1, math.ceil(len(taps) / TAPS_PER_AXES))
+    size = math.ceil(len(taps) / n_axes)
+    return [taps[i : i + size] for i in range(0, len(taps), size)]
+
+
 def _grid_figure(group, draw, title):
-    columns = min(_COLUMNS, len(group))
-    rows = math.ceil(len(group) / columns)
-    width_in = _PANEL_SIZE_IN[0] * columns
-    height_in = _PANEL_SIZE_IN[1] * rows + 0.6
+    """One statistic for a group of taps: up to :data:`TAPS_PER_AXES` taps per panel."""
+    panels = _split(group)
+    columns = min(_COLUMNS, len(panels))
+    rows = math.ceil(len(panels) / columns)
+    width_in = _PANEL_SIZE_IN[0] * columns + 0.6
+    height_in = _PANEL_SIZE_IN[1] * rows + 0.75
     figure = Figure(figsize=(width_in, height_in), dpi=DPI)
-    figure.suptitle(title, fontsize=13, fontweight="bold", y=1.0 - 0.12 / height_in)
+    figure.text(0.5 / width_in, 1.0 - 0.3 / height_in, title, fontsize=13, fontweight="bold", va="center")
+    key = ("measured: wide pale line; theory: dashed, in the tap's colour" if draw is not _draw_envelope
+           else "each tap's trace on its own 0 dB line")
+    figure.text(1.0 - 0.2 / width_in, 1.0 - 0.3 / height_in, key, fontsize=9, ha="right", va="center",
+                color="0.3")
     # Fixed margins in inches (tight_layout measures every label: slow and not needed).
-    figure.subplots_adjust(left=0.75 / width_in, right=1.0 - 0.2 / width_in,
-                           bottom=0.55 / height_in, top=1.0 - 0.6 / height_in,
-                           wspace=1.0 / (_PANEL_SIZE_IN[0] - 1.0), hspace=1.0 / (_PANEL_SIZE_IN[1] - 1.0))
-    for i, tap in enumerate(group):
+    figure.subplots_adjust(left=0.8 / width_in, right=1.0 - 0.2 / width_in,
+                           bottom=_LEGEND_IN / height_in, top=1.0 - 0.75 / height_in,
+                           wspace=0.35 / (_PANEL_SIZE_IN[0] - 1.0),
+                           hspace=(_LEGEND_IN + 0.3) / (_PANEL_SIZE_IN[1] - _LEGEND_IN - 0.3))
+    for i, taps in enumerate(panels):
         ax = figure.add_subplot(rows, columns, i + 1)
-        draw(ax, tap)
+        ax.set_autoscale_on(False)  # every panel sets its limits; autoscaling each curve costs
+        colors = TAP_COLORS[: len(taps)]
+        draw(ax, taps, colors)
         # An explicit y turns off matplotlib's automatic title placement (a costly measurement).
-        ax.set_title(tap.label, fontsize=9.5, y=1.0, pad=5.0)
-        ax.locator_params(axis="x", nbins=6)
-        if ax.get_yscale() == "linear":
+        ax.set_title(_panel_title(taps), fontsize=10, y=1.0, pad=4.0)
+        if ax.get_yscale() == "linear" and draw is not _draw_envelope:
             ax.locator_params(axis="y", nbins=6)
+        if draw in (_draw_psd, _draw_autocorrelation, _draw_envelope):
+            ax.locator_params(axis="x", nbins=6)
         ax.grid(True, which="major", color="0.88", linewidth=0.7)
-        if i == 0:
-            ax.legend(fontsize=7.5, loc="best", framealpha=0.85)
+        _tap_key(figure, ax, taps, colors)
+    # One y range per figure, labelled in the first column only: panels compare at a glance,
+    # and the labels not drawn (text is most of the rendering time) are not paid for.
+    low = min(ax.get_ylim()[0] for ax in figure.axes)
+    high = max(ax.get_ylim()[1] for ax in figure.axes)
+    for i, ax in enumerate(figure.axes):
+        ax.set_ylim(low, high)
+        if i % columns:
+            ax.tick_params(labelleft=False)
+            ax.set_ylabel("")
     return figure
+
+
+def _tap_key(figure, ax, taps, colors):
+    """The panel's taps named below it, each in its colour after a short bar of it.
+
+    Plain text lines rather than ``ax.legend``: a legend's box layout cost as
+    much as the rest of the panel, and below the axes no curve is hidden.
+    """
+    for j, (tap, color) in enumerate(zip(taps, colors)):
+        shift = ScaledTranslation(0.0, -(0.55 + 0.17 * j), figure.dpi_scale_trans)
+        ax.text(0.02, 0.0, "\u2501\u2501 " + tap.label, transform=ax.transAxes + shift, fontsize=8,
+                color=color, va="top", ha="left")
 
 
 def _delay_profile_figure(profile, records):
@@ -300,8 +441,8 @@ def _delay_profile_figure(profile, records):
     ax.set_ylabel("mean tap power (dB)")
     ax.set_title(f"Power delay profile: {profile.name} ({profile.n_taps} taps)", fontsize=12)
     ax.grid(True, color="0.88", linewidth=0.7)
-    ax.legend(fontsize=9)
-    figure.tight_layout()
+    ax.legend(fontsize=9, loc="upper right")  # powers fall with delay: the top right is free
+    figure.subplots_adjust(left=0.9 / 8.0, right=1.0 - 0.2 / 8.0, bottom=0.6 / 3.8, top=1.0 - 0.4 / 3.8)
     return figure
 
 
@@ -333,13 +474,14 @@ def _transfer_figure(profile, records, rate_hz, fir, sample_rate_hz, models):
     t_s = np.arange(0, n, stride) / rate_hz
     scale, unit = _time_unit(max(t_s[-1], 1.0 / rate_hz))
     figure = Figure(figsize=(10.0, 4.6), dpi=DPI)
+    figure.subplots_adjust(left=0.9 / 10.0, right=1.0 - 1.2 / 10.0, bottom=0.6 / 4.6, top=1.0 - 0.4 / 4.6)
     ax = figure.add_subplot(1, 1, 1)
     # 2 dB colour steps without interpolation: readable as contours, and the PNG stays small.
     palette = colormaps["viridis"].resampled(20)
     image = ax.imshow(magnitude_db.T, origin="lower", aspect="auto", cmap=palette, interpolation="nearest",
                       vmin=top - 40.0, vmax=top,
                       extent=(t_s[0] * scale, t_s[-1] * scale, frequency_mhz[0], frequency_mhz[-1]))
-    colorbar = figure.colorbar(image, ax=ax, pad=0.02)
+    colorbar = figure.colorbar(image, cax=figure.add_axes((1.0 - 1.05 / 10.0, 0.6 / 4.6, 0.2 / 10.0, 1.0 - 1.0 / 4.6)))
     colorbar.set_label("|H(f, t)| (dB)")
     ax.set_xlabel(f"time ({unit})")
     ax.set_ylabel("frequency offset in the band (MHz)")
@@ -347,7 +489,6 @@ def _transfer_figure(profile, records, rate_hz, fir, sample_rate_hz, models):
     note = f"; {missing} tap(s) without a record left out" if missing else ""
     ax.set_title(f"|H(f, t)| at {sample_rate_hz / 1e6:.6g} MHz sampling, {n_fir} FIR coefficients{note}",
                  fontsize=11)
-    figure.tight_layout()
     return figure
 
 
@@ -441,6 +582,17 @@ def _group_suffix(group, total):
     if first is None or last is None:
         return f" ({group[0].key} to {group[-1].key})"
     return f", taps {first}-{last}" if first != last else f", tap {first}"
+
+
+def _panel_title(taps):
+    indices = [_tap_index(tap.key) for tap in taps]
+    if None in indices:
+        return ", ".join(str(tap.key) for tap in taps)
+    if len(indices) == 1:
+        return f"tap {indices[0]}"
+    if indices == list(range(indices[0], indices[-1] + 1)):
+        return f"taps {indices[0]}-{indices[-1]}"
+    return "taps " + ", ".join(map(str, indices))
 
 
 def _time_unit(span_s):

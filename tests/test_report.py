@@ -69,13 +69,14 @@ def test_figures_cover_each_statistic(inputs):
     assert titles[0] == "Power delay profile"
     for statistic in ("Envelope CDF", "Autocorrelation", "Doppler spectrum", "Level crossing rate",
                       "Envelope over time"):
-        assert titles.count(statistic) == 1  # six fading taps: one figure of six panels
+        assert titles.count(statistic) == 1  # six fading taps: one figure, two panels of three
     assert titles[-1].startswith("Channel magnitude |H(f, t)|")
     assert len(titles) == 7
 
 
 def test_twelve_taps_are_grouped_not_one_image_each(monkeypatch):
-    monkeypatch.setattr(plots, "_png", lambda figure: b"")  # the layout, without rendering
+    drawn = []
+    monkeypatch.setattr(plots, "_png", lambda figure: drawn.append(figure) or b"")  # the layout, without rendering
     verification = standin_verification("profiles_demo/port-crane-los.yaml", periods=50.0)
     from dataclasses import replace
 
@@ -85,9 +86,16 @@ def test_twelve_taps_are_grouped_not_one_image_each(monkeypatch):
     verification.records = {i: verification.records[i % 6] for i in range(12)}
     verification.models = {i: verification.models[i % 6] for i in range(12)}
     verification.fir_map = np.vstack([verification.fir_map, verification.fir_map])
-    titles = [t for t, _ in plots.make_figures(verification)]
-    assert len(titles) == 1 + 5 * 2 + 1
-    assert "Envelope CDF, taps 0-5" in titles and "Envelope CDF, taps 6-11" in titles
+    titles = [t for t, _ in plots.make_figures(verification, processes=1)]  # drawn here, seen here
+    # One figure per statistic, its panels holding up to four taps each (taps 0-3, 4-7, 8-11).
+    assert len(titles) == 1 + 5 + 1
+    for statistic, figure in zip(titles[1:6], drawn[1:6]):
+        assert [ax.get_title() for ax in figure.axes] == ["taps 0-3", "taps 4-7", "taps 8-11"], statistic
+        # Every tap is named in the key below its panel, and has a measured curve in it.
+        named = [t.get_text() for ax in figure.axes for t in ax.texts if "tap " in t.get_text()]
+        assert [int(re.search(r"tap (\d+):", n).group(1)) for n in named] == list(range(12)), statistic
+        measured = [line for ax in figure.axes for line in ax.get_lines() if line.get_label().startswith("tap ")]
+        assert len(measured) == 12, statistic
 
 
 def test_static_taps_appear_in_the_delay_profile_only():
@@ -106,9 +114,36 @@ def test_a_tap_without_a_model_is_left_out_of_the_statistics(monkeypatch):
     original = plots._grid_figure
     monkeypatch.setattr(plots, "_grid_figure",
                         lambda group, draw, title: drawn.append([t.key for t in group]) or original(group, draw, title))
-    titles = [t for t, _ in plots.make_figures(verification)]
+    titles = [t for t, _ in plots.make_figures(verification, processes=1)]  # drawn here, seen here
     assert len(titles) == 7 and titles[-1].startswith("Channel magnitude")
     assert drawn == [[1, 2, 3, 4, 5]] * 5
+
+
+def _counting_forks(monkeypatch):
+    forks = []
+    fork = os.fork
+    monkeypatch.setattr(plots.os, "fork", lambda: forks.append(1) or fork())
+    if plots._cpus() < 2 or not hasattr(os, "fork"):
+        pytest.skip("one CPU or no fork: make_figures draws everything in this process")
+    return forks
+
+
+def test_two_processes_draw_the_same_figures_as_one(monkeypatch):
+    # Agg renders deterministically, so the forked half must come back byte for byte.
+    verification = standin_verification(periods=50.0)
+    serial = plots.make_figures(verification, processes=1)
+    forks = _counting_forks(monkeypatch)
+    assert plots.make_figures(verification, processes=2) == serial
+    assert len(serial) == 7 and forks == [1]
+
+
+def test_a_failed_child_process_costs_only_time(monkeypatch):
+    verification = standin_verification(periods=50.0)
+    serial = plots.make_figures(verification, processes=1)
+    forks = _counting_forks(monkeypatch)
+    monkeypatch.setattr(plots.pickle, "dumps", lambda _: b"not a pickle")  # the child sends garbage
+    assert plots.make_figures(verification, processes=2) == serial
+    assert forks == [1]
 
 
 def test_checks_table_has_one_row_per_check_with_its_verdict(inputs, page):
