@@ -119,6 +119,7 @@ RECORD_RATE_FACTOR = 8.0
 DECIMATOR_ATTENUATION_DB = 80.0
 """Stopband attenuation of the decimating low-pass (Kaiser window, Kaiser's formula)."""
 CHUNK_SAMPLES = 1 << 16
+CHUNK_BYTES = 3 << 19  # decimator segments of ~1.5 MiB of complex64 rows: cache-sized (1e7 x 12 taps: 2x faster than 6 MiB)
 CHECK_THREADS = 2  # threads for the per-tap and cross-tap checks when no worker processes are asked for
 REPORT_DIRECTORY = VERIFICATION_DIRECTORY
 JSON_NAME = "verification.json"
@@ -693,7 +694,8 @@ class _Decimator:
         """
         out = np.empty((self.n_out, n_links, n_taps), dtype=np.complex128)
         power = np.zeros((n_links, n_taps))
-        step = max(1, CHUNK_SAMPLES // self.q)
+        rows = max(1, min(CHUNK_SAMPLES, CHUNK_BYTES // (8 * max(1, n_links * n_taps))))
+        step = max(1, rows // self.q)
         q, half = self.q, self.half
         for m0 in range(self.first, self.first + self.n_out, step):
             m1 = min(m0 + step, self.first + self.n_out)
