@@ -174,6 +174,11 @@ def envelope_upsampled(g, factor: int) -> np.ndarray:
         return np.abs(g)
     n = g.size
     spec = sp_fft.fft(g.astype(np.complex64))
+    if factor & (factor - 1) == 0:  # a power of two scales exactly: fold it into the spectrum (one pass less)
+        spec *= np.float32(factor)
+        scale = 1
+    else:
+        scale = factor
     out = np.zeros(n * factor, np.complex64)
     h = (n + 1) // 2
     out[:h] = spec[:h]
@@ -181,7 +186,8 @@ def envelope_upsampled(g, factor: int) -> np.ndarray:
     if n % 2 == 0:  # split the Nyquist bin between +/- rate/2
         out[n * factor - (n - h)] *= 0.5
         out[h] = out[n * factor - (n - h)]
-    return np.abs(sp_fft.ifft(out, overwrite_x=True)) * factor
+    env = np.abs(sp_fft.ifft(out, overwrite_x=True))
+    return env * scale if scale != 1 else env
 
 
 def level_crossings(envelope, level: float) -> int:

@@ -539,8 +539,11 @@ def _check_crossings(ctx):
     rate_up = ctx.rate * up
     duration = kept / ctx.rate
     levels, rho, n_exp = levels[use], rho[use], n_exp[use]
-    counts = np.array([estimators.level_crossings(env, lv) for lv in levels], dtype=float)
-    below = np.array([np.count_nonzero(env[: kept * up] < lv) / (kept * up) for lv in levels])
+    counts, below = np.zeros(levels.size), np.zeros(levels.size)
+    for i, lv in enumerate(levels):  # one comparison pass per level for both counts
+        under = env < lv
+        counts[i] = np.count_nonzero(under[:-1] & ~under[1:])  # upward crossings (estimators.level_crossings)
+        below[i] = np.count_nonzero(under[: kept * up]) / (kept * up)
     rate_hat = counts / duration
     m = int(use.sum())
     common = {"levels_rho": rho.tolist(), "quantiles": [q for q, u in zip(CROSSING_QUANTILES, use) if u],
