@@ -120,7 +120,8 @@ DECIMATOR_ATTENUATION_DB = 80.0
 """Stopband attenuation of the decimating low-pass (Kaiser window, Kaiser's formula)."""
 CHUNK_SAMPLES = 1 << 16
 CHUNK_BYTES = 3 << 19  # decimator segments of ~1.5 MiB of complex64 rows: cache-sized (1e7 x 12 taps: 2x faster than 6 MiB)
-CHECK_THREADS = 2  # threads for the per-tap and cross-tap checks when no worker processes are asked for
+CHECK_THREADS = 1  # threads for the per-tap and cross-tap checks without worker processes (2 did not pay under
+# load 2.2-2.4 on this 2-core machine: 1e7 x 12 taps, checks 8.1-9.1 s with one, 8.5-9.0 s with two)
 REPORT_DIRECTORY = VERIFICATION_DIRECTORY
 JSON_NAME = "verification.json"
 REPORT_NAME = "report.html"
@@ -237,7 +238,8 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         either way). Default: no processes, the checks run in
         :data:`CHECK_THREADS` threads (two processes did not pay on this
         2-core machine: 1e7 x 12 taps, checks 16.0 s with one, 18.3 s with
-        two, measured with ``benchmarks/bench_verify.py --workers``).
+        two, measured with ``benchmarks/bench_verify.py --workers``; nor did
+        two threads).
 
     Returns
     -------
