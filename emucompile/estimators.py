@@ -88,17 +88,37 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
     ``periodic=False``: the unbiased linear estimate sum_{n<N-k} g[n+k] g*[n] / (N-k).
     ``periodic=True``: the circular estimate over the whole record,
     sum_n g[(n+k) mod N] g*[n] / N, so a periodic record's wrap is part of
-    what is checked. By FFT (zero-padded for the linear estimate), O(N log N).
+    what is checked. By blocked FFTs (blocks of B = max(2^14, 4 n_lags) samples), O(N log B).
     """
     g = _record(g)
     n = g.size
     n_lags = int(min(n_lags, n))
-    if periodic:
-        spec = sp_fft.fft(g)
-        return sp_fft.ifft(spec.real**2 + spec.imag**2)[:n_lags] / n
-    spec = sp_fft.fft(g, _fast_len(2 * n))
-    r = sp_fft.ifft(spec.real**2 + spec.imag**2)[:n_lags]
-    return r / (n - np.arange(n_lags))
+    # Blocks of B samples against the same samples followed by the next n_lags (zero-padded
+    # past the end, or wrapped when periodic): sum_b sum_{i<B} y_b[i+k] x_b*[i] is the sum
+    # above, term for term; FFTs of length ~B + n_lags instead of ~2N (equal to rounding).
+    tail = g[:n_lags] if periodic else np.zeros(n_lags, g.dtype)
+    ext = np.concatenate([g, tail])
+    block = max(_ACF_BLOCK, 4 * n_lags)
+    batch = max(1, _ACF_BATCH * _ACF_BLOCK // block)  # bounded memory
+    size = _fast_len(block + n_lags)
+    total = np.zeros(size, np.complex128)
+    n_blocks = -(-n // block)
+    for b0 in range(0, n_blocks, batch):
+        b1 = min(n_blocks, b0 + batch)
+        x = np.zeros((b1 - b0, size), np.complex128)
+        y = np.zeros((b1 - b0, size), np.complex128)
+        for i, b in enumerate(range(b0, b1)):
+            s, e = b * block, min(n, (b + 1) * block)
+            x[i, : e - s] = g[s:e]
+            y[i, : e - s + n_lags] = ext[s : e + n_lags]
+        total += np.sum(sp_fft.fft(y, axis=1, overwrite_x=True) * sp_fft.fft(x, axis=1, overwrite_x=True).conj(),
+                        axis=0)
+    r = sp_fft.ifft(total)[:n_lags]
+    return r / n if periodic else r / (n - np.arange(n_lags))
+
+
+_ACF_BLOCK = 1 << 14
+_ACF_BATCH = 64
 
 
 def welch_psd(g, rate_hz: float, nperseg: int, *, window="hann"):
@@ -154,6 +174,11 @@ def envelope_upsampled(g, factor: int) -> np.ndarray:
         return np.abs(g)
     n = g.size
     spec = sp_fft.fft(g.astype(np.complex64))
+    if factor & (factor - 1) == 0:  # a power of two scales exactly: fold it into the spectrum (one pass less)
+        spec *= np.float32(factor)
+        scale = 1
+    else:
+        scale = factor
     out = np.zeros(n * factor, np.complex64)
     h = (n + 1) // 2
     out[:h] = spec[:h]
@@ -161,7 +186,8 @@ def envelope_upsampled(g, factor: int) -> np.ndarray:
     if n % 2 == 0:  # split the Nyquist bin between +/- rate/2
         out[n * factor - (n - h)] *= 0.5
         out[h] = out[n * factor - (n - h)]
-    return np.abs(sp_fft.ifft(out, overwrite_x=True)) * factor
+    env = np.abs(sp_fft.ifft(out, overwrite_x=True))
+    return env * scale if scale != 1 else env
 
 
 def level_crossings(envelope, level: float) -> int:

@@ -108,7 +108,6 @@ import time
 from pathlib import Path
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 
 from emucompile._version import __version__
 from emucompile.bundle import VERIFICATION_DIRECTORY
@@ -120,6 +119,9 @@ RECORD_RATE_FACTOR = 8.0
 DECIMATOR_ATTENUATION_DB = 80.0
 """Stopband attenuation of the decimating low-pass (Kaiser window, Kaiser's formula)."""
 CHUNK_SAMPLES = 1 << 16
+CHUNK_BYTES = 3 << 19  # decimator segments of ~1.5 MiB of complex64 rows: cache-sized (1e7 x 12 taps: 2x faster than 6 MiB)
+CHECK_THREADS = 1  # threads for the per-tap and cross-tap checks without worker processes (2 did not pay under
+# load 2.2-2.4 on this 2-core machine: 1e7 x 12 taps, checks 8.1-9.1 s with one, 8.5-9.0 s with two)
 REPORT_DIRECTORY = VERIFICATION_DIRECTORY
 JSON_NAME = "verification.json"
 REPORT_NAME = "report.html"
@@ -233,9 +235,11 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
     progress : callable(done, total), optional
     workers : int, optional
         Forked processes for the per-tap and cross-tap checks (the same results
-        either way). Default 1: on this 2-core machine two did not pay
-        (1e7 x 12 taps: checks 16.0 s with one, 18.3 s with two, measured
-        with ``benchmarks/bench_verify.py --workers``).
+        either way). Default: no processes, the checks run in
+        :data:`CHECK_THREADS` threads (two processes did not pay on this
+        2-core machine: 1e7 x 12 taps, checks 16.0 s with one, 18.3 s with
+        two, measured with ``benchmarks/bench_verify.py --workers``; nor did
+        two threads).
 
     Returns
     -------
@@ -692,7 +696,8 @@ class _Decimator:
         """
         out = np.empty((self.n_out, n_links, n_taps), dtype=np.complex128)
         power = np.zeros((n_links, n_taps))
-        step = max(1, CHUNK_SAMPLES // self.q)
+        rows = max(1, min(CHUNK_SAMPLES, CHUNK_BYTES // (8 * max(1, n_links * n_taps))))
+        step = max(1, rows // self.q)
         q, half = self.q, self.half
         for m0 in range(self.first, self.first + self.n_out, step):
             m1 = min(m0 + step, self.first + self.n_out)
@@ -703,13 +708,18 @@ class _Decimator:
             else:
                 segment = np.asarray(self._segment(source, m0 * q - half, (m1 - 1) * q + half + 1), dtype=np.complex64)
                 mid = segment[half - q // 2: half - q // 2 + (m1 - m0) * q]
-                power += np.einsum("ilt,ilt->lt", mid, mid.conj()).real
-                # y[m] = sum_k h[k] x[m q + D - k]: windows of N samples every q-th sample times the
-                # reversed filter, one float32 product on the real and imaginary parts (cache-sized chunks)
-                parts = segment.view(np.float32).reshape(segment.shape[0], n_links, n_taps, 2)
-                windows = sliding_window_view(parts, self.h.size, axis=0)[: (m1 - m0 - 1) * q + 1: q]
-                y = windows @ self.h32_reversed
-                out[m0 - self.first:m1 - self.first] = y[..., 0] + 1j * y[..., 1]
+                parts = mid.view(np.float32)  # |x|^2 summed in float64 (re^2 + im^2 per link and tap)
+                power += np.einsum("ilt,ilt->lt", parts, parts, dtype=np.float64,
+                                   casting="safe").reshape(n_links, n_taps, 2).sum(axis=2)
+                # y[m] = sum_k h[k] x[m q + D - k] = sum_j hr[j] x[m q - D + j]: one float32 multiply-add
+                # of a q-strided slice per filter tap (cache-sized chunks)
+                count = (m1 - m0 - 1) * q + 1
+                y = np.zeros((m1 - m0, n_links, n_taps), np.complex64)
+                term = np.empty_like(y)
+                for j, coefficient in enumerate(self.h32_reversed):
+                    np.multiply(segment[j: j + count: q], coefficient, out=term)
+                    y += term
+                out[m0 - self.first:m1 - self.first] = y
             if progress is not None:
                 progress(min(m1 * q, self.n_samples), self.n_samples)
         self.full_power = power / max(1, self.n_out * q)
@@ -816,7 +826,16 @@ def _map_jobs(function, shared, jobs, workers):
     """
     global _SHARED
     if workers <= 1 or len(jobs) < 3:
-        return [function(shared, *job) for job in jobs]
+        threads = min(CHECK_THREADS, os.cpu_count() or 1)
+        if threads <= 1 or len(jobs) < 3:
+            return [function(shared, *job) for job in jobs]
+        from concurrent.futures import ThreadPoolExecutor
+
+        # the first job alone fills the tolerance module's caches; the rest run in threads
+        # (the FFTs, sorts and array passes release the GIL); results in job order either way
+        first = function(shared, *jobs[0])
+        with ThreadPoolExecutor(max_workers=threads) as pool:
+            return [first] + list(pool.map(lambda job: function(shared, *job), jobs[1:]))
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 

@@ -48,6 +48,24 @@ def test_autocorrelation_equals_direct_sums(periodic):
         assert abs(got[k] - want) < 1e-12
 
 
+@pytest.mark.parametrize("periodic", [False, True])
+@pytest.mark.parametrize("n_lags", [1, 10, 501])
+def test_autocorrelation_blocks_equal_direct_sums(periodic, n_lags, monkeypatch):
+    """Small blocks and batches, so that several blocks, batches and a partial last block are summed."""
+    monkeypatch.setattr(estimators, "_ACF_BLOCK", 64)
+    monkeypatch.setattr(estimators, "_ACF_BATCH", 3)
+    x = cn(501)
+    n = x.size
+    got = estimators.autocorrelation(x, n_lags, periodic=periodic)
+    assert got.size == n_lags
+    for k in range(n_lags):
+        if periodic:
+            want = np.sum(np.roll(x, -k) * x.conj()) / n
+        else:
+            want = np.sum(x[k:] * x[: n - k].conj()) / (n - k)
+        assert abs(got[k] - want) < 1e-12
+
+
 def test_envelope_ks_equals_kstest():
     x = cn(20_000) + 0.8
     law = stats.rice(b=0.8 * math.sqrt(2.0), scale=math.sqrt(0.5))

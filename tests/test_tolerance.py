@@ -183,3 +183,30 @@ def test_calibration_is_committed():
     cal = tolerance.calibration()
     assert set(cal["factors"]) == set(tolerance.CHECK_NAMES) - {"out_of_band_power"}
     assert all(0.2 < c < 5 for c in cal["factors"].values())
+
+
+@pytest.mark.parametrize("periodic", [False, True])
+@pytest.mark.parametrize("n_lags", [3, 40])
+def test_bartlett_sums_equal_their_definition(periodic, n_lags):
+    """S0 = sum_j w_j r_j^2, c1(k) = sum_j w_j r_j r_{j+k}, c2(k) = c1(2k) over all lags -(n-1)..n-1.
+
+    n_lags 3 takes the direct sums, 40 the FFT (2 n_lags + 2 >= n / 8); both against the sums
+    written out (circular lags for a periodic record).
+    """
+    n = 400
+    spectrum = DopplerSpectrum("classical", FD)
+    tolerance._bartlett_sums.cache_clear()
+    s0, c1, c2 = tolerance._bartlett_sums(spectrum, RATE, n, periodic, n_lags)
+    r = tolerance._lags(spectrum, RATE, n, periodic)
+    w = tolerance._weights(n, periodic)
+    np.testing.assert_allclose(s0, np.sum(w * r * r), rtol=1e-12)
+    if periodic:
+        want = [np.sum(r * np.roll(r, -k)) for k in range(2 * n_lags)]
+    else:
+        j = np.arange(-(n - 1), n)
+        rr = r[np.abs(j)]
+        wj = 1.0 - np.abs(j) / n
+        want = [np.sum((wj * rr)[: rr.size - k] * rr[k:]) for k in range(2 * n_lags)]
+    scale = np.max(np.abs(want))
+    np.testing.assert_allclose(c1, want[:n_lags], atol=1e-12 * scale)
+    np.testing.assert_allclose(c2, want[: 2 * n_lags: 2], atol=1e-12 * scale)
