@@ -5,9 +5,7 @@
 The baseline is matplotlib's own floor on this machine: one 2 x 3 grid of
 empty axes rendered to PNG at the same size and DPI (what any six-panel figure
 costs before a single curve is drawn). The scenario is invented: twelve taps,
-two Rician, at f_D = 60 Hz, records of T f_D = PERIODS at 10 f_D. make_figures
-is timed in one process (``processes=1``, the default) and with its forked
-helper (``processes=2``; it only pays with a second core free).
+two Rician, at f_D = 60 Hz, records of T f_D = PERIODS at 10 f_D.
 """
 
 from __future__ import annotations
@@ -53,28 +51,22 @@ def main() -> None:
     verification.fir_map = plots.np.vstack([verification.fir_map, verification.fir_map])
     _baseline()
     plots.make_figures(verification)  # warm: fonts, caches
-    best = {"baseline": [], "serial": [], "figures": [], "report": []}
+    best = {"baseline": [], "serial": [], "report": []}
     for _ in range(args.repeat):
         best["baseline"].append(_baseline())
         start = time.perf_counter()
-        plots.make_figures(verification, processes=1)
+        figures = plots.make_figures(verification)
         best["serial"].append(time.perf_counter() - start)
-        start = time.perf_counter()
-        figures = plots.make_figures(verification, processes=2)
-        best["figures"].append(time.perf_counter() - start)
         start = time.perf_counter()
         text = report.render_report(verification, figures)
         best["report"].append(time.perf_counter() - start)
-    baseline, serial_s, figures_s, report_s = (min(best[k]) for k in ("baseline", "serial", "figures", "report"))
+    baseline, serial_s, report_s = (min(best[k]) for k in ("baseline", "serial", "report"))
     size = sum(len(png) for _, png in figures)
     print(f"12 taps, T f_D = {args.periods:g}: {len(figures)} figures, {size / 1e6:.2f} MB of PNG, "
           f"report {len(text) / 1e6:.2f} MB")
     print(f"baseline (empty 2x3 grid to PNG): {baseline:.3f} s")
-    print(f"make_figures, one process (default): {serial_s:.2f} s = {serial_s / baseline:.1f} x baseline "
-          f"({serial_s / len(figures) / baseline:.2f} x per figure)")
-    print(f"make_figures, two processes: {figures_s:.2f} s = {figures_s / baseline:.1f} x baseline "
-          f"({serial_s / figures_s:.2f} x faster than one; {plots._cpus()} CPUs, load average "
-          f"{os.getloadavg()[0]:.1f})")
+    print(f"make_figures: {serial_s:.2f} s = {serial_s / baseline:.1f} x baseline "
+          f"({serial_s / len(figures) / baseline:.2f} x per figure; load average {os.getloadavg()[0]:.1f})")
     print(f"render_report: {report_s:.3f} s = {report_s / baseline:.2f} x baseline")
 
 

@@ -35,9 +35,6 @@ from __future__ import annotations
 
 import io
 import math
-import os
-import pickle
-import threading
 
 import numpy as np
 from matplotlib import colormaps
@@ -68,7 +65,7 @@ _STRETCH_PERIODS = 20.0  # envelope stretch and |H(f, t)|: 20 / f_D
 _LCR_OVERSAMPLE_HZ = 32.0  # upsample so the record rate is >= 32 x the largest Doppler
 
 
-def make_figures(verification, *, processes: int = 1) -> list[tuple[str, bytes]]:
+def make_figures(verification) -> list[tuple[str, bytes]]:
     """PNG figures of a verification result, in reading order.
 
     Parameters
@@ -80,13 +77,6 @@ def make_figures(verification, *, processes: int = 1) -> list[tuple[str, bytes]]
         ``models`` (tap -> object with ``spectrum``, ``mean_power``,
         ``k_linear``, ``los_doppler_hz``), ``fir_map`` (ndarray (n_taps,
         n_fir) or None) and ``sample_rate_hz``.
-    processes : int, optional
-        2: build and render every other figure in a fork of this process.
-        Off by default: measured, it pays only with a core free (inside a
-        loaded ``verify`` it was 1.1-1.4 x slower: the child's copy-on-write
-        pages and the second process competing). With other threads running,
-        one CPU, or no ``os.fork``, everything is drawn here anyway.
-
     Returns
     -------
     list of (str, bytes)
@@ -120,63 +110,19 @@ def make_figures(verification, *, processes: int = 1) -> list[tuple[str, bytes]]
         tasks.append(("Channel magnitude |H(f, t)| across the band",
                       lambda: _transfer_figure(profile, records, rate, np.asarray(fir),
                                                getattr(verification, "sample_rate_hz", None), models)))
-    pngs = _render_tasks([make for _, make in tasks], processes)
+    pngs = [_render(make) for _, make in tasks]
     return [(title, png) for (title, _), png in zip(tasks, pngs) if png is not None]
 
 
-def _render_tasks(makers, processes):
-    """PNG bytes (or None) of each figure maker's figure; every other one in a forked process.
+def _render(make):
+    """PNG bytes of one figure maker's figure, or None when it has nothing to draw.
 
-    matplotlib's Python-side work (axes, ticks, text layout) holds the GIL, so
-    threads do not overlap it; a fork does. The child inherits the data, draws
-    its share and sends the bytes back through a pipe; if it fails in any way,
-    its share is drawn here. No fork when other threads run (a fork copies
-    their locks in whatever state they are).
+    One process, one thread: matplotlib's Python-side work (axes, ticks, text
+    layout) holds the GIL, so threads do not overlap it, and a forked second
+    process measured 1.1-1.4 x slower inside a loaded ``verify``.
     """
-    def one(make):
-        figure = make()
-        return None if figure is None else _png(figure)
-
-    if (processes < 2 or len(makers) < 4 or not hasattr(os, "fork") or threading.active_count() > 1
-            or _cpus() < 2):
-        return [one(make) for make in makers]
-    # The child: every other figure and the last (|H(f, t)|, cheap), so the two halves weigh alike.
-    theirs = [i for i in range(len(makers)) if i % 2 or i == len(makers) - 1]
-    read_fd, write_fd = os.pipe()
-    pid = os.fork()
-    if pid == 0:  # the child: draw its share, send it, leave without running any cleanup
-        status = 1
-        try:
-            os.close(read_fd)
-            payload = pickle.dumps([one(makers[i]) for i in theirs])
-            with os.fdopen(write_fd, "wb") as pipe:
-                pipe.write(payload)
-            status = 0
-        finally:
-            os._exit(status)
-    os.close(write_fd)
-    results = [None] * len(makers)
-    for i in sorted(set(range(len(makers))) - set(theirs)):
-        results[i] = one(makers[i])
-    with os.fdopen(read_fd, "rb") as pipe:
-        payload = pipe.read()
-    _, status = os.waitpid(pid, 0)
-    try:
-        received = pickle.loads(payload) if status == 0 else None
-    except Exception:  # noqa: BLE001 - a broken child only costs its share drawn here
-        received = None
-    if not isinstance(received, list) or len(received) != len(theirs):
-        received = [one(makers[i]) for i in theirs]
-    for i, png in zip(theirs, received):
-        results[i] = png
-    return results
-
-
-def _cpus():
-    try:
-        return len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        return os.cpu_count() or 1
+    figure = make()
+    return None if figure is None else _png(figure)
 
 
 # -- per-tap data ------------------------------------------------------------------

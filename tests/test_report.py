@@ -86,7 +86,7 @@ def test_twelve_taps_are_grouped_not_one_image_each(monkeypatch):
     verification.records = {i: verification.records[i % 6] for i in range(12)}
     verification.models = {i: verification.models[i % 6] for i in range(12)}
     verification.fir_map = np.vstack([verification.fir_map, verification.fir_map])
-    titles = [t for t, _ in plots.make_figures(verification, processes=1)]  # drawn here, seen here
+    titles = [t for t, _ in plots.make_figures(verification)]  # drawn here, seen here
     # One figure per statistic, its panels holding up to four taps each (taps 0-3, 4-7, 8-11).
     assert len(titles) == 1 + 5 + 1
     for statistic, figure in zip(titles[1:6], drawn[1:6]):
@@ -114,36 +114,9 @@ def test_a_tap_without_a_model_is_left_out_of_the_statistics(monkeypatch):
     original = plots._grid_figure
     monkeypatch.setattr(plots, "_grid_figure",
                         lambda group, draw, title: drawn.append([t.key for t in group]) or original(group, draw, title))
-    titles = [t for t, _ in plots.make_figures(verification, processes=1)]  # drawn here, seen here
+    titles = [t for t, _ in plots.make_figures(verification)]  # drawn here, seen here
     assert len(titles) == 7 and titles[-1].startswith("Channel magnitude")
     assert drawn == [[1, 2, 3, 4, 5]] * 5
-
-
-def _counting_forks(monkeypatch):
-    forks = []
-    fork = os.fork
-    monkeypatch.setattr(plots.os, "fork", lambda: forks.append(1) or fork())
-    if plots._cpus() < 2 or not hasattr(os, "fork"):
-        pytest.skip("one CPU or no fork: make_figures draws everything in this process")
-    return forks
-
-
-def test_two_processes_draw_the_same_figures_as_one(monkeypatch):
-    # Agg renders deterministically, so the forked half must come back byte for byte.
-    verification = standin_verification(periods=50.0)
-    serial = plots.make_figures(verification, processes=1)
-    forks = _counting_forks(monkeypatch)
-    assert plots.make_figures(verification, processes=2) == serial
-    assert len(serial) == 7 and forks == [1]
-
-
-def test_a_failed_child_process_costs_only_time(monkeypatch):
-    verification = standin_verification(periods=50.0)
-    serial = plots.make_figures(verification, processes=1)
-    forks = _counting_forks(monkeypatch)
-    monkeypatch.setattr(plots.pickle, "dumps", lambda _: b"not a pickle")  # the child sends garbage
-    assert plots.make_figures(verification, processes=2) == serial
-    assert forks == [1]
 
 
 def test_checks_table_has_one_row_per_check_with_its_verdict(inputs, page):
