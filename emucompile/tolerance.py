@@ -49,7 +49,7 @@ or over one period for periodic records):
 ``level_crossing_rate`` / ``fade_duration``
     Levels at the model envelope's 10 % and 50 % quantiles; upward crossings
     counted on the envelope of a band-limited (FFT) interpolation to >= 64 f_D
-    (over at most 1e5 Doppler periods, to bound memory); expected rate from
+    (over at most 5e4 Doppler periods, the longest calibrated record, to bound memory); expected rate from
     Rice's integral (``theory``).
     Nominal spread Poisson (sqrt of the expected count) for the count, and
     sqrt(1/count + var F/F^2) (var F from N_eff) for log of the fade duration;
@@ -113,9 +113,10 @@ CROSSING_QUANTILES = (0.1, 0.5)
 MIN_EXPECTED_CROSSINGS = 100.0
 #: Crossings are counted on the envelope interpolated to at least this many times f_D
 #: (measured on the reference process: at 64 f_D the count at the 10 % quantile is
-#: 0.2 % low, at 16 f_D 3 % low), over at most this many Doppler periods.
+#: 0.2 % low, at 16 f_D 3 % low), over at most this many Doppler periods: the longest
+#: record length the calibration covers (T f_D = 5e4), which also bounds memory and time.
 CROSSING_RATE_DOPPLER = 64.0
-MAX_CROSSING_PERIODS = 100_000.0
+MAX_CROSSING_PERIODS = 50_000.0
 #: Autocorrelation lags up to this many Doppler periods.
 AUTOCORRELATION_SPAN_PERIODS = 3.0
 AUTOCORRELATION_EFFECTIVE_LAGS = 24

@@ -105,6 +105,7 @@ import json
 import math
 import os
 import time
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -120,8 +121,9 @@ DECIMATOR_ATTENUATION_DB = 80.0
 """Stopband attenuation of the decimating low-pass (Kaiser window, Kaiser's formula)."""
 CHUNK_SAMPLES = 1 << 16
 CHUNK_BYTES = 3 << 19  # decimator segments of ~1.5 MiB of complex64 rows: cache-sized (1e7 x 12 taps: 2x faster than 6 MiB)
-CHECK_THREADS = 1  # threads for the per-tap and cross-tap checks without worker processes (2 did not pay under
-# load 2.2-2.4 on this 2-core machine: 1e7 x 12 taps, checks 8.1-9.1 s with one, 8.5-9.0 s with two)
+CHECK_THREADS = 2  # threads for the per-tap and cross-tap checks without worker processes
+DECIMATOR_THREADS = 2  # threads sharing the decimator's chunks (numpy's loops release the GIL)
+# Measured on an idle 2-core machine, 1e7 x 12 taps (benchmarks/bench_verify.py): see DEVELOPERS.md "Verify".
 REPORT_DIRECTORY = VERIFICATION_DIRECTORY
 JSON_NAME = "verification.json"
 REPORT_NAME = "report.html"
@@ -262,10 +264,39 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
     began = time.perf_counter()
     false_alarm = _check_false_alarm(false_alarm)
     root = Path(path)
-    problems = bd.verify_integrity(root)
+    problems = bd.verify_integrity(root, hashes=False)  # structure first: a bundle we can read
     if problems:
         raise IntegrityError(problems)
-    integrity_s = time.perf_counter() - began
+    # The SHA-256 pass runs beside the statistics (hashlib and file reads release the GIL);
+    # its answer is awaited before anything is reported, and a mismatch wins over any result.
+    with ThreadPoolExecutor(max_workers=1) as hasher:
+        hashing = hasher.submit(_timed, bd.verify_integrity, root)
+        try:
+            result = _verify_intact(root, began, false_alarm=false_alarm, delivered=delivered,
+                                    progress=progress, workers=workers)
+        except Exception:
+            problems, _ = hashing.result()
+            if problems:
+                raise IntegrityError(problems) from None
+            raise
+        problems, integrity_s = hashing.result()
+    if problems:
+        raise IntegrityError(problems)
+    result.timings_s["integrity"] = integrity_s
+    result.elapsed_s = time.perf_counter() - began
+    return result
+
+
+def _timed(function, *args):
+    start = time.perf_counter()
+    return function(*args), time.perf_counter() - start
+
+
+def _verify_intact(root, began, *, false_alarm, delivered, progress, workers):
+    """verify_bundle's statistics of a bundle whose structure was checked (hashes checked alongside)."""
+    from emucompile import bundle as bd
+    from emucompile.profile import profile_from_document
+
     opened = bd.open_bundle(root)
     manifest = opened.manifest
     profile = profile_from_document(manifest["profile"], source=f"{root}/manifest.json#/profile")
@@ -310,7 +341,7 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
         sample_rate_hz=None if fir is None else float(fir["sample_rate_hz"]),
         fir_delays_s=None if fir is None else (np.arange(fir["n_fir"]) - fir["bulk_delay_samples"]) / fir["sample_rate_hz"],
         foreign=False, cautions=cautions, elapsed_s=time.perf_counter() - began,
-        timings_s=dict(session.timings_s, integrity=integrity_s),
+        timings_s=dict(session.timings_s),
     )
 
 
@@ -698,32 +729,44 @@ class _Decimator:
         power = np.zeros((n_links, n_taps))
         rows = max(1, min(CHUNK_SAMPLES, CHUNK_BYTES // (8 * max(1, n_links * n_taps))))
         step = max(1, rows // self.q)
-        q, half = self.q, self.half
-        for m0 in range(self.first, self.first + self.n_out, step):
+        q = self.q
+        starts = range(self.first, self.first + self.n_out, step)
+
+        def chunk(m0):
             m1 = min(m0 + step, self.first + self.n_out)
-            if self.h is None:
-                block = source.read(m0, m1)
-                out[m0 - self.first:m1 - self.first] = block
-                power += np.sum(np.abs(block.astype(np.complex128)) ** 2, axis=0)
-            else:
-                segment = np.asarray(self._segment(source, m0 * q - half, (m1 - 1) * q + half + 1), dtype=np.complex64)
-                mid = segment[half - q // 2: half - q // 2 + (m1 - m0) * q]
-                parts = mid.view(np.float32)  # |x|^2 summed in float64 (re^2 + im^2 per link and tap)
-                power += np.einsum("ilt,ilt->lt", parts, parts, dtype=np.float64,
-                                   casting="safe").reshape(n_links, n_taps, 2).sum(axis=2)
-                # y[m] = sum_k h[k] x[m q + D - k] = sum_j hr[j] x[m q - D + j]: one float32 multiply-add
-                # of a q-strided slice per filter tap (cache-sized chunks)
-                count = (m1 - m0 - 1) * q + 1
-                y = np.zeros((m1 - m0, n_links, n_taps), np.complex64)
-                term = np.empty_like(y)
-                for j, coefficient in enumerate(self.h32_reversed):
-                    np.multiply(segment[j: j + count: q], coefficient, out=term)
-                    y += term
-                out[m0 - self.first:m1 - self.first] = y
-            if progress is not None:
-                progress(min(m1 * q, self.n_samples), self.n_samples)
+            out[m0 - self.first:m1 - self.first], part = self._chunk(source, m0, m1, n_links, n_taps)
+            return m1, part
+
+        # Chunks are independent and numpy's loops release the GIL: two threads share them, the
+        # parts of the power summed in chunk order (the same numbers for any thread count).
+        with ThreadPoolExecutor(max_workers=DECIMATOR_THREADS) as pool:
+            for m1, part in pool.map(chunk, starts):
+                power += part
+                if progress is not None:
+                    progress(min(m1 * q, self.n_samples), self.n_samples)
         self.full_power = power / max(1, self.n_out * q)
         return out
+
+    def _chunk(self, source, m0, m1, n_links, n_taps):
+        """Outputs m0..m1-1 (complex64) and the float64 power of the input samples they stand for."""
+        q, half = self.q, self.half
+        if self.h is None:
+            block = source.read(m0, m1)
+            return block, np.sum(np.abs(block.astype(np.complex128)) ** 2, axis=0)
+        segment = np.asarray(self._segment(source, m0 * q - half, (m1 - 1) * q + half + 1), dtype=np.complex64)
+        mid = segment[half - q // 2: half - q // 2 + (m1 - m0) * q]
+        parts = mid.view(np.float32)  # |x|^2 summed in float64 (re^2 + im^2 per link and tap)
+        power = np.einsum("ilt,ilt->lt", parts, parts, dtype=np.float64,
+                          casting="safe").reshape(n_links, n_taps, 2).sum(axis=2)
+        # y[m] = sum_k h[k] x[m q + D - k] = sum_j hr[j] x[m q - D + j]: one float32 multiply-add
+        # of a q-strided slice per filter tap (cache-sized chunks)
+        count = (m1 - m0 - 1) * q + 1
+        y = np.zeros((m1 - m0, n_links, n_taps), np.complex64)
+        term = np.empty_like(y)
+        for j, coefficient in enumerate(self.h32_reversed):
+            np.multiply(segment[j: j + count: q], coefficient, out=term)
+            y += term
+        return y, power
 
     def _segment(self, source, a, b):
         n = self.n_samples
