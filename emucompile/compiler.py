@@ -190,7 +190,6 @@ def plan_compile(
     seed_value = int(seed_value)
 
     method_value = _pick(sources, "method", method, defaults.method) or fading.DEFAULT_METHOD
-    _check_method(method_value, profile, warnings)
     periodic_value = bool(_pick(sources, "periodic", periodic, defaults.periodic) or False)
     formats_value = parse_formats(formats or ())
     mapping = _pick(sources, "delay_mapping", delay_mapping, defaults.delay_mapping)
@@ -503,19 +502,6 @@ def _positive(what, value, unit):
     if not (number > 0 and math.isfinite(number)):
         raise InputError(f"{what} must be finite and > 0 {unit}, got {value!r}")
     return number
-
-
-def _check_method(method, profile, warnings):
-    """Warn where the chosen generator is known to miss a statistic (tests/test_theory.py)."""
-    if method != "sum-of-sinusoids":
-        return
-    gaussian = [i for i, t in enumerate(profile.taps) if t.fading != "static" and t.spectrum == "gaussian"]
-    if gaussian:
-        warnings.append(
-            f"sum-of-sinusoids on the Gaussian spectrum of tap(s) {', '.join(map(str, gaussian))}: its "
-            "few lines in the spectrum's tails fail verify's Doppler PSD check on long records; "
-            "doppler-filter (the default) meets it"
-        )
 
 
 def _check_update_rate(rate, largest_doppler, warnings):

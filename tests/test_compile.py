@@ -374,18 +374,6 @@ def test_target_block_in_the_profile_is_used_and_the_option_overrides_it(tmp_pat
     assert plan.sources["target"] == "option" and plan.fir.delay_step_samples == 2
 
 
-def test_sum_of_sinusoids_on_a_gaussian_spectrum_warns(tmp_path):
-    # The limitation measured in tests/test_theory.py (Doppler PSD of the Gaussian tails).
-    from emucompile.profile import Profile, Tap
-
-    profile = Profile(name="g", taps=(Tap(0.0, 1.0, max_doppler_hz=50.0, spectrum="gaussian", sigma_hz=15.0),
-                                      Tap(1e-7, 0.5, max_doppler_hz=50.0)))
-    plan = compiler.plan_compile(profile, tmp_path / "b", duration_s=1.0, seed=1, method="sum-of-sinusoids")
-    assert any("Gaussian spectrum of tap(s) 0" in w for w in plan.warnings)
-    plan = compiler.plan_compile(profile, tmp_path / "b", duration_s=1.0, seed=1)
-    assert not any("Gaussian" in w for w in plan.warnings)
-
-
 def test_summary_names_links_and_conditions(tmp_path):
     demos = Path(__file__).resolve().parent.parent / "profiles_demo"
     result = _run("compile", demos / "campus-eva-2x2.yaml", "-o", tmp_path / "mimo", "--duration", "1")

@@ -104,13 +104,6 @@ def test_engine_against_theory(records, j, check):
         assert r.passed is None and "not applicable" in r.reason
         return
     assert r.passed is not None, r.reason
-    if (method, spectrum, check) == ("sum-of-sinusoids", "gaussian", "doppler_psd"):
-        # Measured finding, reported to the engine's owner: with the default 256
-        # sinusoids a record's spectrum is a few lines in the Gaussian spectrum's
-        # tails (0.66 dB off at 0.81 f_D, z ~ 12 at this length). Strict: the
-        # day it passes, this branch must go.
-        assert r.passed is False
-        pytest.xfail("sum-of-sinusoids: Gaussian-spectrum tails too sparse in one record's PSD")
     assert r.passed, (
         f"{method} {LABELS[j]} {check} against {source}: value {r.value} expected {r.expected} "
         f"tolerance {r.tolerance} {r.unit}, p = {r.p_value} (level {r.level}); detail {r.detail}"
@@ -149,14 +142,17 @@ def test_periodic_record_wrap_has_the_statistics():
 def test_few_sinusoids_are_detectably_wrong():
     """Support for the fading docstring: a sum of few sinusoids is detectably non-Gaussian.
 
-    The default (256 per quadrature) passes every check at T f_D = 5e4
+    The default (256 per quadrature, 1024 for a Gaussian spectrum) passes every check at T f_D = 5e4
     (tests above). With 8 per quadrature, on a T f_D = 2e5 record, the
-    envelope law (KS bias ~0.1/M), the Doppler PSD (the spectrum is a few
-    lines) and the level-crossing rate all fail.
+    envelope law (KS bias ~0.1/M) and the Doppler PSD (the spectrum is a few
+    lines) fail. (The level-crossing rate is counted over the first 5e4
+    Doppler periods only, ``tolerance.MAX_CROSSING_PERIODS``, the longest
+    calibrated record; there M = 8's 2 % crossing-rate bias is within its
+    2.3 % tolerance, so it is not asserted here.)
     """
     profile = Profile(name="sos (invented)", taps=(Tap(0.0, 1.0, max_doppler_hz=FD),))
     n = 4 * N
     gains = fading.generate(profile, RATE, n, SEED, method="sum-of-sinusoids", n_sinusoids=8)
     res = {r.name: r for r in tolerance.check_tap(gains[:, 0], RATE, tolerance.TapModel.from_tap(profile.taps[0]))}
-    for name in ("envelope_ks", "doppler_psd", "level_crossing_rate"):
+    for name in ("envelope_ks", "doppler_psd"):
         assert res[name].passed is False, res[name]

@@ -25,9 +25,9 @@ design figure (~2e-4 up to 3/f_D), and its cost does not grow with the
 accuracy asked for. The sum of M sinusoids is non-Gaussian (envelope KS
 bias ~0.1/M), so M = 256 per quadrature is needed already at T f_D = 5e4,
 at a cost proportional to M; and its spectrum is M lines, so a Gaussian
-spectrum's thin tails hold only a few of them: the calibrated Doppler PSD
-check fails it at T f_D = 5e4 (0.66 dB off at 0.81 f_D; tests/test_theory.py,
-a strict xfail), and compile warns when it is asked for there.
+spectrum's thin tails hold only a few of them: at M = 256 the calibrated
+Doppler PSD check failed records of T f_D = 5e4 (0.66 dB off at 0.81 f_D),
+so a Gaussian spectrum gets M = 1024 by default (GAUSSIAN_SINUSOIDS).
 
 Random access and streaming: every tap's output is computed on a fixed grid
 of synthesis blocks tied to the absolute sample index, each from its own
@@ -60,6 +60,7 @@ from emucompile.fading._plan import (
     DEFAULT_CHUNK,
     DEFAULT_METHOD,
     DEFAULT_SINUSOIDS,
+    GAUSSIAN_SINUSOIDS,
     METHODS,
     MIN_UPDATE_RATIO,
     SOS_EVALUATIONS,
@@ -67,8 +68,9 @@ from emucompile.fading._plan import (
 )
 from emucompile.fading._streams import BIT_GENERATOR
 
-#: Changes only when the numbers a seed produces change.
-GENERATOR_VERSION = 1
+#: Changes only when the numbers a seed produces change. 2: sum-of-sinusoids uses
+#: GAUSSIAN_SINUSOIDS (1024) for a Gaussian spectrum by default (was 256).
+GENERATOR_VERSION = 2
 
 #: Largest difference, relative to a tap's RMS gain, promised between runs of the
 #: same version on different machines or library versions (see :func:`reproducibility`):
@@ -99,9 +101,9 @@ def plan(profile, update_rate_hz, n_samples, seed, **options) -> FadingPlan:
         rate itself when none do), direct-part Doppler rounded to a multiple
         of 1/T (reported by :meth:`FadingPlan.tap_info`).
     n_sinusoids : int, keyword
-        Sinusoids per quadrature for ``sum-of-sinusoids`` (default 256, the
-        fewest that meet the statistics of a T f_D = 5e4 record; see
-        DEVELOPERS.md).
+        Sinusoids per quadrature for ``sum-of-sinusoids`` (default: 256, the
+        fewest that meet the statistics of a T f_D = 5e4 record, and 1024 for a
+        Gaussian spectrum, whose tails need more lines; see DEVELOPERS.md).
     sos_evaluation : {"interpolated", "exact"}, keyword
         ``exact`` sums the sinusoids at the update rate itself (no
         interpolation, roughly R1*R2 times dearer).
@@ -183,6 +185,7 @@ __all__ = [
     "METHODS",
     "DEFAULT_METHOD",
     "DEFAULT_SINUSOIDS",
+    "GAUSSIAN_SINUSOIDS",
     "SOS_EVALUATIONS",
     "FadingPlan",
     "plan",

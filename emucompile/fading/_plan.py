@@ -20,6 +20,10 @@ METHODS = ("doppler-filter", "sum-of-sinusoids")
 DEFAULT_METHOD = "doppler-filter"
 SOS_EVALUATIONS = ("interpolated", "exact")
 DEFAULT_SINUSOIDS = 256
+#: Sinusoids per quadrature for a Gaussian spectrum: its thin tails need more lines
+#: (measured, tests/test_theory.py and DEVELOPERS.md "Fading engine": at 256 the Doppler
+#: PSD check fails records of T f_D = 5e4, at 1024 it passes).
+GAUSSIAN_SINUSOIDS = 1024
 DEFAULT_CHUNK = 65536
 MIN_UPDATE_RATIO = 2.2  # update rate / f_D: Nyquist with a 10 % guard band
 _PARALLEL_MIN_WORK = 1 << 15  # samples x taps below which threads do not pay
@@ -65,9 +69,8 @@ class FadingPlan:
                 f"sos_evaluation must be one of {', '.join(SOS_EVALUATIONS)}, got {sos_evaluation!r}"
             )
         self.sos_evaluation = sos_evaluation
-        if n_sinusoids is None:
-            n_sinusoids = DEFAULT_SINUSOIDS
-        self.n_sinusoids = _positive_int(n_sinusoids, "n_sinusoids")
+        # None: by spectrum (DEFAULT_SINUSOIDS, or GAUSSIAN_SINUSOIDS for a Gaussian spectrum)
+        self.n_sinusoids = None if n_sinusoids is None else _positive_int(n_sinusoids, "n_sinusoids")
         if threads is not None and (isinstance(threads, bool) or not isinstance(threads, (int, np.integer))):
             raise InputError(f"threads must be an integer, got {threads!r}")
         self.threads = max(1, int(threads)) if threads is not None else DEFAULT_THREADS
@@ -151,7 +154,8 @@ class FadingPlan:
         else:
             out["sum_of_sinusoids"] = {
                 "model": "Zheng-Xiao 2002 (random phases, random angles), quantile form",
-                "n_sinusoids_per_quadrature": self.n_sinusoids,
+                "n_sinusoids_per_quadrature": self.n_sinusoids or {
+                    "classical": DEFAULT_SINUSOIDS, "flat": DEFAULT_SINUSOIDS, "gaussian": GAUSSIAN_SINUSOIDS},
                 "evaluation": self.sos_evaluation,
                 "phase_resolution_cycles": 2.0**-52,
             }
@@ -216,7 +220,8 @@ class FadingPlan:
         chain = _design.design_chain(rates, spectrum)
         internal_period = self.n_samples // rates.total if self.periodic else None
         if self.method == "sum-of-sinusoids":
-            return SumOfSinusoidsSource(spectrum, chain, self.n_sinusoids, self.seed, j, internal_period)
+            count = self.n_sinusoids or (GAUSSIAN_SINUSOIDS if spectrum.kind == "gaussian" else DEFAULT_SINUSOIDS)
+            return SumOfSinusoidsSource(spectrum, chain, count, self.seed, j, internal_period)
         try:
             design = _doppler_design(spectrum, rates)
         except ValueError as error:
