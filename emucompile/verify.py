@@ -259,7 +259,6 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
     statistics on records q times shorter.
     """
     from emucompile import bundle as bd
-    from emucompile.profile import profile_from_document
 
     began = time.perf_counter()
     false_alarm = _check_false_alarm(false_alarm)
@@ -872,7 +871,6 @@ def _map_jobs(function, shared, jobs, workers):
         threads = min(CHECK_THREADS, os.cpu_count() or 1)
         if threads <= 1 or len(jobs) < 3:
             return [function(shared, *job) for job in jobs]
-        from concurrent.futures import ThreadPoolExecutor
 
         # the first job alone fills the tolerance module's caches; the rest run in threads
         # (the FFTs, sorts and array passes release the GIL); results in job order either way
