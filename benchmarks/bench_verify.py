@@ -42,7 +42,7 @@ def main(argv=None):
     parser.add_argument("--workers", type=int, default=None, help="processes for the checks (default: verify's rule)")
     args = parser.parse_args(argv)
 
-    from emucompile import compiler, verify
+    from emucompile import compiler, tolerance, verify
 
     n = int(args.samples)
     work = Path(tempfile.mkdtemp(prefix="bench-verify-", dir=args.dir))
@@ -51,6 +51,8 @@ def main(argv=None):
     out = work / "bundle"
     try:
         for repeat in range(args.repeat):
+            shutil.rmtree(out, ignore_errors=True)  # each compile writes a new bundle (no replace cost)
+            tolerance.clear_caches()  # each verify computes its null sums afresh, as in a new process
             began = time.perf_counter()
             compiler.compile_profile(profile, out, update_rate_hz=UPDATE_RATE_HZ, duration_s=n / UPDATE_RATE_HZ,
                                      seed=1 + repeat, force=True, max_size_bytes=None)

@@ -217,10 +217,11 @@ def circular_moments(g, orders=(1, 2)) -> np.ndarray:
     """Circular moments mean(exp(j m theta)) of the phase theta of g, for each order m."""
     g = _record(g)
     a = np.abs(g)
-    u = np.where(a > 0, g / np.where(a > 0, a, 1.0), 0.0)
+    a[a == 0] = np.inf  # a zero sample has no phase: it contributes 0
+    u = g / a
     out = []
     for m in orders:
-        out.append(np.mean(u**m))
+        out.append(np.mean(u if m == 1 else u * u if m == 2 else u**m))
     return np.array(out)
 
 

@@ -120,7 +120,8 @@ RECORD_RATE_FACTOR = 8.0
 DECIMATOR_ATTENUATION_DB = 80.0
 """Stopband attenuation of the decimating low-pass (Kaiser window, Kaiser's formula)."""
 CHUNK_SAMPLES = 1 << 16
-CHUNK_BYTES = 3 << 19  # decimator segments of ~1.5 MiB of complex64 rows: cache-sized (1e7 x 12 taps: 2x faster than 6 MiB)
+SEGMENT_BYTES = 1 << 18  # decimator segments of ~256 KiB of complex64 rows, cache-sized (1e7 x 12 taps: 5x faster than 1.5 MiB)
+SEGMENTS_PER_TASK = 16  # consecutive segments one thread works through per task (fewer hand-offs)
 CHECK_THREADS = 2  # threads for the per-tap and cross-tap checks without worker processes
 DECIMATOR_THREADS = 2  # threads sharing the decimator's chunks (numpy's loops release the GIL)
 # Measured on an idle 2-core machine, 1e7 x 12 taps (benchmarks/bench_verify.py): see DEVELOPERS.md "Verify".
@@ -493,10 +494,9 @@ class _Session:
         checks, records, link_records = [], {}, None
         for position, (label, source) in enumerate(sources):
             began = time.perf_counter()
-            decimated = self.decimator.run(source, self.n_links, len(self.models), self.progress)
+            decimated = self.decimator.run(source, self.n_links, len(self.models), self.progress)  # (taps, links, m)
             self.timings_s["decimation"] = self.timings_s.get("decimation", 0.0) + time.perf_counter() - began
             began = time.perf_counter()
-            decimated = np.ascontiguousarray(decimated.transpose(2, 1, 0))  # (taps, links, m): contiguous records
             for tap, model in self.models.items():
                 if model is not None and model.spectrum is None:
                     # a static tap is one tone: undo the decimator's passband ripple at its frequency exactly
@@ -544,8 +544,7 @@ class _Session:
         """
         tol = _tolerance()
         n_fir = matrix.shape[1]
-        decimated = self.decimator.run(source, self.n_links, n_fir, None)
-        decimated = np.ascontiguousarray(decimated.transpose(2, 1, 0))
+        decimated = self.decimator.run(source, self.n_links, n_fir, None)  # (columns, links, m)
         found = []
         for column in range(n_fir):
             contributors = np.flatnonzero(matrix[:, column])
@@ -614,8 +613,15 @@ class _Session:
 
     def _cross_tap_checks(self, decimated):
         fading = [i for i, m in self.models.items() if m is not None and _is_fading(m)]
-        jobs = [(a, b, self.models[a], self.models[b]) for position, a in enumerate(fading) for b in fading[position + 1:]]
-        return _map_jobs(_cross_job, (decimated, self.record_rate_hz, self.false_alarm), jobs, self._workers(decimated))
+        if len(fading) < 2:
+            return []
+        tol = _tolerance()
+        rho = tol.correlation_matrix([decimated[i, 0] for i in fading], self.record_rate_hz,
+                                     [self.models[i] for i in fading])
+        return [tol.check_cross_correlation(decimated[a, 0], decimated[b, 0], self.record_rate_hz, self.models[a],
+                                            self.models[b], taps=(a, b), expected=0.0, level=self.false_alarm,
+                                            estimate=rho[i, j])
+                for i, a in enumerate(fading) for j, b in enumerate(fading) if j > i]
 
     def _mimo_checks(self, decimated):
         tol = _tolerance()
@@ -646,8 +652,7 @@ class _Session:
         if not (model.k_linear and model.k_linear > 0):
             return links
         if self._direct is None:
-            direct = self.decimator.run(_ComponentsDirect(self.components), self.n_links, len(self.models), None)
-            self._direct = direct.transpose(2, 1, 0)
+            self._direct = self.decimator.run(_ComponentsDirect(self.components), self.n_links, len(self.models), None)
         return links - self._direct[tap]
 
     def _link_label(self, link):
@@ -692,7 +697,10 @@ class _Decimator:
             numtaps, beta = signal.kaiserord(DECIMATOR_ATTENUATION_DB, width)
             numtaps += 1 - numtaps % 2
             self.h = signal.firwin(numtaps, (band + stop) / 2.0, window=("kaiser", beta), fs=update_rate_hz)
-            self.h32_reversed = np.ascontiguousarray(self.h[::-1], dtype=np.float32)
+            phases = -(-numtaps // q)  # hr = h reversed, zero-padded to phases * q taps, as (phases, q)
+            reversed_padded = np.zeros(phases * q, np.float32)
+            reversed_padded[:numtaps] = self.h[::-1]
+            self.phases = reversed_padded.reshape(phases, q)
             grid = np.linspace(0.0, band, 512)
             response = np.abs(np.exp(-2j * np.pi * np.outer(grid, np.arange(numtaps)) / update_rate_hz) @ self.h) ** 2
             self.passband_power_deviation = float(np.max(np.abs(response - 1.0)))
@@ -717,55 +725,70 @@ class _Decimator:
         return complex(np.sum(self.h * np.exp(-2j * np.pi * frequency_hz * k / self.update_rate_hz)))
 
     def run(self, source, n_links, n_taps, progress):
-        """Decimated records of a source: complex128 (n_out, n_links, n_taps).
+        """Decimated records of a source: complex128 (n_taps, n_links, n_out), each record contiguous.
 
         Also sets :attr:`full_power`, mean |x|^2 per link and tap over the
         input samples the outputs stand for (output m for [m q - q/2, m q + q/2)),
         at the full rate: the power the band-limited copy would lack is
         ``full_power - mean |y|^2``.
         """
-        out = np.empty((self.n_out, n_links, n_taps), dtype=np.complex128)
+        out = np.empty((n_taps, n_links, self.n_out), dtype=np.complex128)
         power = np.zeros((n_links, n_taps))
-        rows = max(1, min(CHUNK_SAMPLES, CHUNK_BYTES // (8 * max(1, n_links * n_taps))))
-        step = max(1, rows // self.q)
         q = self.q
-        starts = range(self.first, self.first + self.n_out, step)
+        rows = max(16 * q, SEGMENT_BYTES // (8 * max(1, n_links * n_taps)))
+        step = max(1, min(rows, CHUNK_SAMPLES) // q)
+        end = self.first + self.n_out
+        starts = range(self.first, end, step * SEGMENTS_PER_TASK)
 
-        def chunk(m0):
-            m1 = min(m0 + step, self.first + self.n_out)
-            out[m0 - self.first:m1 - self.first], part = self._chunk(source, m0, m1, n_links, n_taps)
-            return m1, part
+        def task(t0):
+            part = np.zeros((n_links, n_taps))
+            t1 = min(t0 + step * SEGMENTS_PER_TASK, end)
+            for m0 in range(t0, t1, step):
+                m1 = min(m0 + step, t1)
+                y, segment_power = self._chunk(source, m0, m1, n_links, n_taps)
+                out[:, :, m0 - self.first:m1 - self.first] = y.reshape(m1 - m0, n_links, n_taps).transpose(2, 1, 0)
+                part += segment_power
+            return t1, part
 
-        # Chunks are independent and numpy's loops release the GIL: two threads share them, the
-        # parts of the power summed in chunk order (the same numbers for any thread count).
+        # Tasks are independent and numpy's loops and BLAS release the GIL: two threads share
+        # them, the parts of the power summed in task order (the same numbers for any thread count).
         with ThreadPoolExecutor(max_workers=DECIMATOR_THREADS) as pool:
-            for m1, part in pool.map(chunk, starts):
+            for t1, part in pool.map(task, starts):
                 power += part
                 if progress is not None:
-                    progress(min(m1 * q, self.n_samples), self.n_samples)
+                    progress(min(t1 * q, self.n_samples), self.n_samples)
         self.full_power = power / max(1, self.n_out * q)
         return out
 
     def _chunk(self, source, m0, m1, n_links, n_taps):
-        """Outputs m0..m1-1 (complex64) and the float64 power of the input samples they stand for."""
+        """Outputs m0..m1-1, (m1 - m0, n_links, n_taps) complex64, and the float64 power of their input samples.
+
+        Polyphase form of y[m] = sum_j hr[j] x[m q - D + j] (hr the reversed
+        filter, zero-padded to L q taps): with the segment cut into blocks of q
+        rows, S[b, p] = x[(m0 + b) q - D + p], y[m0 + i] = sum_l P[l, i + l] for
+        P[l, b] = sum_p hr[l q + p] S[b, p] -- one float32 matrix product
+        (L x q) @ (q x blocks) over every link and tap, then L shifted sums.
+        """
         q, half = self.q, self.half
+        width = n_links * n_taps
         if self.h is None:
             block = source.read(m0, m1)
             return block, np.sum(np.abs(block.astype(np.complex128)) ** 2, axis=0)
-        segment = np.asarray(self._segment(source, m0 * q - half, (m1 - 1) * q + half + 1), dtype=np.complex64)
-        mid = segment[half - q // 2: half - q // 2 + (m1 - m0) * q]
-        parts = mid.view(np.float32)  # |x|^2 summed in float64 (re^2 + im^2 per link and tap)
-        power = np.einsum("ilt,ilt->lt", parts, parts, dtype=np.float64,
-                          casting="safe").reshape(n_links, n_taps, 2).sum(axis=2)
-        # y[m] = sum_k h[k] x[m q + D - k] = sum_j hr[j] x[m q - D + j]: one float32 multiply-add
-        # of a q-strided slice per filter tap (cache-sized chunks)
-        count = (m1 - m0 - 1) * q + 1
-        y = np.zeros((m1 - m0, n_links, n_taps), np.complex64)
-        term = np.empty_like(y)
-        for j, coefficient in enumerate(self.h32_reversed):
-            np.multiply(segment[j: j + count: q], coefficient, out=term)
-            y += term
-        return y, power
+        count = m1 - m0
+        a, b = m0 * q - half, (m1 - 1) * q + half + 1
+        blocks = count + self.phases.shape[0] - 1
+        s = np.empty((blocks, q, 2 * width), np.float32)
+        flat = s.reshape(blocks * q, 2 * width)
+        flat[: b - a] = np.asarray(self._segment(source, a, b), dtype=np.complex64).reshape(b - a, width).view(np.float32)
+        flat[b - a:] = 0.0  # rows past the segment meet only the zero padding of hr
+        # |x|^2 summed in float64 (re^2 + im^2 per link and tap; a float64 copy first: 2x faster than einsum casting)
+        mid = flat[half - q // 2: half - q // 2 + count * q].astype(np.float64)
+        power = np.einsum("ic,ic->c", mid, mid).reshape(n_links, n_taps, 2).sum(axis=2)
+        products = (self.phases @ s.transpose(1, 0, 2).reshape(q, -1)).reshape(-1, blocks, 2 * width)
+        y = products[0, :count].copy()
+        for lag in range(1, products.shape[0]):
+            y += products[lag, lag: lag + count]
+        return y.view(np.complex64).reshape(count, n_links, n_taps), power
 
     def _segment(self, source, a, b):
         n = self.n_samples
@@ -844,12 +867,6 @@ def _fast_length_at_most(n):
 def _tap_job(shared, tap, link, model):
     decimated, rate_hz, periodic, level = shared
     return _tolerance().check_tap(decimated[tap, link], rate_hz, model, periodic=periodic, tap=tap, level=level)
-
-
-def _cross_job(shared, a, b, model_a, model_b):
-    decimated, rate_hz, level = shared
-    return _tolerance().check_cross_correlation(decimated[a, 0], decimated[b, 0], rate_hz, model_a, model_b,
-                                                taps=(a, b), expected=0.0, level=level)
 
 
 _SHARED = None

@@ -117,6 +117,10 @@ def test_correlation_coefficient_and_circular_moments():
     assert abs(estimators.correlation_coefficient(1j * a, a) - 1j) < 1e-12
     np.testing.assert_allclose(estimators.circular_moments(np.full(10, 2 * np.exp(0.4j)), (1, 2)),
                                [np.exp(0.4j), np.exp(0.8j)])
+    g = np.array([0.0, 2.0 * np.exp(0.4j), 3.0 * np.exp(-1.1j), 0.0])  # a zero sample has no phase: it adds 0
+    np.testing.assert_allclose(estimators.circular_moments(g, (1, 2, 3)),
+                               [(np.exp(0.4j) + np.exp(-1.1j)) / 4, (np.exp(0.8j) + np.exp(-2.2j)) / 4,
+                                (np.exp(1.2j) + np.exp(-3.3j)) / 4])
 
 
 # -- reference process ----------------------------------------------------------------

@@ -14,7 +14,7 @@ import math
 import numpy as np
 import pytest
 
-from emucompile import reference, tolerance
+from emucompile import estimators, reference, tolerance
 from emucompile.profile import Tap
 from emucompile.theory import DopplerSpectrum
 
@@ -120,6 +120,27 @@ def test_cross_correlation_expected_nonzero():
     assert ok.passed is True and ok.tap == (1, 0)
     assert tolerance.check_cross_correlation(b, a, RATE, m, m, taps=(1, 0)).passed is False
     assert tolerance.check_cross_correlation(a, c, RATE, m, m, taps=(0, 2)).passed is True
+
+
+def test_correlation_matrix_is_the_pairwise_estimate():
+    """One Gram-matrix pass gives every pair's coefficient of the diffuse parts, a Rician tap's line removed."""
+    rician = tolerance.TapModel(CLASSICAL, 2.0, 3.0, 0.7 * CLASSICAL.band_edge_hz)
+    models = [tolerance.TapModel(CLASSICAL, 1.0), rician, tolerance.TapModel(CLASSICAL, 1.0)]
+    n = 3 * tolerance._GRAM_BLOCK + 17  # several blocks and a partial one
+    records = [record(seed=20 + i, n=n) for i in range(3)]
+    t = np.arange(n) / RATE
+    records[1] = records[1] + math.sqrt(1.5) * np.exp(2j * np.pi * rician.los_doppler_hz * t + 0.3j)
+    records[2] = 0.5 * records[0] + records[2]  # a correlated pair
+    rho = tolerance.correlation_matrix(records, RATE, models)
+    for i in range(3):
+        for j in range(3):
+            pairwise = estimators.correlation_coefficient(tolerance._diffuse(records[i], RATE, models[i]),
+                                                          tolerance._diffuse(records[j], RATE, models[j]))
+            assert abs(rho[i, j] - pairwise) < 1e-12
+    assert abs(rho[2, 0]) > 0.3 and abs(rho[1, 0]) < 0.1
+    given = tolerance.check_cross_correlation(records[2], records[0], RATE, models[2], models[0], estimate=rho[2, 0])
+    direct = tolerance.check_cross_correlation(records[2], records[0], RATE, models[2], models[0])
+    assert given.value == pytest.approx(direct.value, abs=1e-12) and given.passed is direct.passed is False
 
 
 def _synthetic(p, passed=True):
