@@ -646,8 +646,7 @@ def _static_checks(g, model, tap, names):
 # -- null sums ---------------------------------------------------------------------
 
 
-@functools.lru_cache(maxsize=32)
-@functools.lru_cache(maxsize=8)
+@functools.lru_cache(maxsize=8)  # a few records' lengths: 8 x 10 MB at 1.25e6 lags
 def _lags(spectrum, rate_hz, n, periodic):
     """The null autocorrelation r_k, k = 0..n-1 (cached per spectrum, rate, length and mode; read-only)."""
     if periodic:
