@@ -88,7 +88,8 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
     ``periodic=False``: the unbiased linear estimate sum_{n<N-k} g[n+k] g*[n] / (N-k).
     ``periodic=True``: the circular estimate over the whole record,
     sum_n g[(n+k) mod N] g*[n] / N, so a periodic record's wrap is part of
-    what is checked. By blocked FFTs (blocks of B = max(2^14, 4 n_lags) samples), O(N log B).
+    what is checked. Up to 40 lags by direct dot products over blocks of 2^14 samples,
+    beyond by blocked FFTs (blocks of B = max(2^14, 4 n_lags) samples), O(N log B).
     """
     g = _record(g)
     n = g.size
@@ -98,6 +99,14 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
     # above, term for term; FFTs of length ~B + n_lags instead of ~2N (equal to rounding).
     tail = g[:n_lags] if periodic else np.zeros(n_lags, g.dtype)
     ext = np.concatenate([g, tail])
+    if n_lags <= _ACF_DIRECT_LAGS:  # few lags: the sums themselves, one dot product per lag and cache-sized block
+        total = np.zeros(n_lags, np.complex128)
+        for s in range(0, n, _ACF_BLOCK):
+            e = min(n, s + _ACF_BLOCK)
+            x = g[s:e]
+            for k in range(n_lags):
+                total[k] += np.vdot(x, ext[s + k : e + k])
+        return total / n if periodic else total / (n - np.arange(n_lags))
     block = max(_ACF_BLOCK, 4 * n_lags)
     batch = max(1, _ACF_BATCH * _ACF_BLOCK // block)  # bounded memory
     size = _fast_len(block + n_lags)
@@ -119,6 +128,7 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
 
 _ACF_BLOCK = 1 << 14
 _ACF_BATCH = 64
+_ACF_DIRECT_LAGS = 40  # below ~50 lags the direct sums beat the FFTs (benchmarks/bench_verify.py machine)
 
 
 def welch_psd(g, rate_hz: float, nperseg: int, *, window="hann"):
@@ -127,21 +137,30 @@ def welch_psd(g, rate_hz: float, nperseg: int, *, window="hann"):
     Returns ``(frequency_hz, psd_per_hz)``; the psd integrates to the mean
     power. The same estimate as ``scipy.signal.welch(..., return_onesided=False,
     detrend=False, noverlap=nperseg // 2)`` (a test keeps them equal), computed
-    with one batched FFT over all segments.
+    with batched FFTs over cache-sized chunks of segments.
     """
     g = _record(g)
     nperseg = int(min(nperseg, g.size))
     step = nperseg - nperseg // 2
     w = signal.get_window(window, nperseg)
     segments = np.lib.stride_tricks.sliding_window_view(g, nperseg)[::step]
-    power = np.zeros(nperseg)
-    for start in range(0, segments.shape[0], 4096):  # bounded memory
-        spec = sp_fft.fft(segments[start : start + 4096] * w, axis=1)
-        power += np.sum(spec.real**2 + spec.imag**2, axis=0)
+    rows = max(1, _WELCH_CHUNK_BYTES // (16 * nperseg))  # bounded memory, cache-sized chunks
+    buf = np.empty((min(rows, segments.shape[0]), nperseg), np.complex128)
+    acc = np.zeros(2 * nperseg)  # sums of re^2 and im^2, interleaved
+    for start in range(0, segments.shape[0], rows):
+        chunk = buf[: min(rows, segments.shape[0] - start)]
+        np.multiply(segments[start : start + rows], w, out=chunk)
+        spec = sp_fft.fft(chunk, axis=1, overwrite_x=True).view(np.float64)
+        np.multiply(spec, spec, out=spec)
+        acc += spec.sum(axis=0)
+    power = acc[0::2] + acc[1::2]
     psd = power / (segments.shape[0] * rate_hz * float(w @ w))
     f = np.fft.fftfreq(nperseg, 1.0 / rate_hz)
     order = np.argsort(f)
     return f[order], psd[order]
+
+
+_WELCH_CHUNK_BYTES = 1 << 20
 
 
 def out_of_band_ratio(frequency_hz, psd, band_edge_hz: float, *, factor: float = 1.05, exclude=()):

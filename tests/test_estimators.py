@@ -35,6 +35,16 @@ def test_welch_kaiser_equals_scipy():
     np.testing.assert_allclose(p, np.fft.fftshift(p2), rtol=1e-12)
 
 
+def test_welch_chunks_equal_scipy(monkeypatch):
+    """Chunks of 3 segments (a partial last one), summed: still scipy's estimate."""
+    monkeypatch.setattr(estimators, "_WELCH_CHUNK_BYTES", 3 * 16 * 64)
+    x = cn(2000)
+    f, p = estimators.welch_psd(x, 5.0, 64)
+    _, p2 = signal.welch(x, fs=5.0, nperseg=64, noverlap=32, detrend=False, return_onesided=False)
+    assert (x.size - 64) // 32 + 1 == 61  # 20 full chunks and one of 1 segment
+    np.testing.assert_allclose(p, np.fft.fftshift(p2), rtol=1e-12)
+
+
 @pytest.mark.parametrize("periodic", [False, True])
 def test_autocorrelation_equals_direct_sums(periodic):
     x = cn(501)
@@ -50,8 +60,11 @@ def test_autocorrelation_equals_direct_sums(periodic):
 
 @pytest.mark.parametrize("periodic", [False, True])
 @pytest.mark.parametrize("n_lags", [1, 10, 501])
-def test_autocorrelation_blocks_equal_direct_sums(periodic, n_lags, monkeypatch):
-    """Small blocks and batches, so that several blocks, batches and a partial last block are summed."""
+@pytest.mark.parametrize("direct_lags", [0, 40])
+def test_autocorrelation_blocks_equal_direct_sums(periodic, n_lags, direct_lags, monkeypatch):
+    """Small blocks and batches, so that several blocks, batches and a partial last block are summed;
+    with direct_lags 0 the FFT path runs at every lag count, with 40 the dot-product path at 1 and 10."""
+    monkeypatch.setattr(estimators, "_ACF_DIRECT_LAGS", direct_lags)
     monkeypatch.setattr(estimators, "_ACF_BLOCK", 64)
     monkeypatch.setattr(estimators, "_ACF_BATCH", 3)
     x = cn(501)
