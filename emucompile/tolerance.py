@@ -254,9 +254,7 @@ def check_tap(g, rate_hz, model: TapModel, *, periodic=False, tap=None, level=1e
 
     Notes
     -----
-    Cost O(N log N); about 0.5-0.7 s for N = 1.25e6 on this machine, most of it
-    the envelope's 8x interpolation for the crossings (the null sums are cached
-    per spectrum, rate, N and mode).
+    Cost O(N log N); the null sums are cached per spectrum, rate, N and mode.
     """
     g = estimators._record(g)
     rate_hz = float(rate_hz)
@@ -560,24 +558,25 @@ def _check_crossings(ctx):
     limit = int(MAX_CROSSING_PERIODS * ctx.rate / ctx.fd)
     if g.size > limit:  # bounded memory: count on the first MAX_CROSSING_PERIODS periods
         g, periodic = g[:limit], False
-    trim = 0 if periodic else int(math.ceil(4.0 * ctx.rate / ctx.fd))
+    band = max(ctx.fd, abs(ctx.model.los_doppler_hz)) / ctx.rate
+    trim = 0 if periodic else max(int(math.ceil(4.0 * ctx.rate / ctx.fd)), estimators.interpolator_reach(up, band))
     kept = g.size - 2 * trim
     n_exp = level_crossing_rate(rho, **kw) * kept / ctx.rate
     use = n_exp >= MIN_EXPECTED_CROSSINGS
     if not use.any():
         why = f"not enough data: fewer than {MIN_EXPECTED_CROSSINGS:g} expected crossings at every level"
         return [_na(n, ctx.tap, why, ctx.level) for n in names]
-    env = estimators.envelope_upsampled(g, up)
+    power = estimators.power_upsampled(g, up, band, periodic=periodic)  # |g|^2: compared with level^2
     if periodic:
-        env = np.concatenate([env, env[:1]])  # the crossing across the wrap counts
+        power = np.concatenate([power, power[:1]])  # the crossing across the wrap counts
     else:
-        env = env[trim * up: env.size - trim * up]
+        power = power[trim * up: power.size - trim * up]
     rate_up = ctx.rate * up
     duration = kept / ctx.rate
     levels, rho, n_exp = levels[use], rho[use], n_exp[use]
     counts, below = np.zeros(levels.size), np.zeros(levels.size)
     for i, lv in enumerate(levels):  # one comparison pass per level for both counts
-        under = env < lv
+        under = power < np.float32(lv * lv)
         counts[i] = np.count_nonzero(under[:-1] & ~under[1:])  # upward crossings (estimators.level_crossings)
         below[i] = np.count_nonzero(under[: kept * up]) / (kept * up)
     rate_hat = counts / duration

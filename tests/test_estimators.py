@@ -115,14 +115,37 @@ def test_level_crossings_counts_upward_only():
     assert estimators.level_crossings(env, 1.0) == 3
 
 
-def test_envelope_upsampled_is_band_limited_interpolation():
-    n, rate = 64, 1.0
-    t = np.arange(n)
-    tones = [(3, 0.7), (-5, 0.4 + 0.2j), (11, 0.3j)]
-    g = sum(c * np.exp(2j * np.pi * m * t / n) for m, c in tones)
-    fine = np.arange(4 * n) / 4.0
-    exact = np.abs(sum(c * np.exp(2j * np.pi * m * fine / n) for m, c in tones))
-    np.testing.assert_allclose(estimators.envelope_upsampled(g, 4), exact, atol=1e-5)
+def _tones(tones, t):
+    return sum(c * np.exp(2j * np.pi * f * t) for f, c in tones)
+
+
+@pytest.mark.parametrize("band_fraction", [11 / 64, 0.46])  # the local interpolator; the FFT one (transition < 0.1)
+def test_power_upsampled_is_band_limited_interpolation_of_a_periodic_record(band_fraction):
+    n = 64
+    tones = [(3 / n, 0.7), (-5 / n, 0.4 + 0.2j), (11 / n, 0.3j)]
+    g = _tones(tones, np.arange(n))
+    exact = np.abs(_tones(tones, np.arange(4 * n) / 4.0)) ** 2
+    local = estimators.interpolator_reach(4, band_fraction) > 0
+    assert local == (band_fraction < 0.45)
+    got = estimators.power_upsampled(g, 4, band_fraction, periodic=True)
+    assert got.dtype == np.float32 and got.size == 4 * n
+    np.testing.assert_allclose(got, exact, atol=1e-5)
+
+
+def test_power_upsampled_aperiodic_interior_is_exact():
+    """Tones off the record's bins (not periodic in it): exact except within the interpolator's reach of the ends."""
+    n, factor = 400, 8
+    tones = [(0.0137, 0.7), (-0.071, 0.4 + 0.2j), (0.11, 0.3j)]
+    g = _tones(tones, np.arange(n))
+    reach = estimators.interpolator_reach(factor, 0.125)
+    assert 0 < reach < 20
+    got = estimators.power_upsampled(g, factor, 0.125)
+    exact = np.abs(_tones(tones, np.arange(factor * n) / factor)) ** 2
+    inner = slice(reach * factor, (n - reach) * factor)
+    np.testing.assert_allclose(got[inner], exact[inner], atol=1e-5)
+    assert np.max(np.abs(got[:factor] - exact[:factor])) > 1e-3  # the ends see zeros: callers drop them
+    np.testing.assert_allclose(got[::factor], np.abs(g) ** 2, rtol=1e-6)  # phase 0 is the record itself
+    np.testing.assert_allclose(estimators.power_upsampled(g, 1, 0.125), np.abs(g) ** 2, rtol=1e-6)
 
 
 def test_correlation_coefficient_and_circular_moments():
