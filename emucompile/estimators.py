@@ -54,17 +54,21 @@ def envelope_ks_distance(g, distribution) -> float:
     """Kolmogorov-Smirnov distance sup |F_n(r) - F(r)| of |g| against a frozen ``scipy.stats`` law.
 
     F is evaluated on a 8193-point grid over the sample's range and
-    interpolated linearly (error < 1e-7 for these smooth laws, far below any
-    KS distance a record can resolve; a test checks it against
-    ``scipy.stats.kstest``).
+    interpolated linearly in |g|^2 (the sort and the interpolation need no
+    square root; error < 1e-7 for these smooth laws, far below any KS distance
+    a record can resolve; a test checks it against ``scipy.stats.kstest``).
     """
     g = _record(g)
-    r = np.sort(np.abs(g))
-    n = r.size
-    grid = np.linspace(0.0, r[-1], 8193)
-    cdf = np.interp(r, grid, distribution.cdf(grid))
-    i = np.arange(1, n + 1)
-    return float(max(np.max(i / n - cdf), np.max(cdf - (i - 1) / n)))
+    p = np.abs(g)
+    np.multiply(p, p, out=p)  # |g|^2, in the order of |g|
+    p.sort()
+    n = p.size
+    grid = np.linspace(0.0, math.sqrt(p[-1]), 8193)
+    d = np.interp(p, grid * grid, distribution.cdf(grid))
+    ramp = np.arange(n, dtype=np.float64)
+    ramp *= 1.0 / n
+    d -= ramp  # F(r_(i)) - (i - 1) / n, i = 1..n; i / n - F(r_(i)) = 1 / n - that
+    return float(max(np.max(d), 1.0 / n - np.min(d)))
 
 
 def remove_direct(g, rate_hz: float, los_doppler_hz: float):
@@ -100,13 +104,8 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
     # above, term for term; FFTs of length ~B + n_lags instead of ~2N (equal to rounding).
     tail = g[:n_lags] if periodic else np.zeros(n_lags, g.dtype)
     ext = np.concatenate([g, tail])
-    if n_lags <= _ACF_DIRECT_LAGS:  # few lags: the sums themselves, one dot product per lag and cache-sized block
-        total = np.zeros(n_lags, np.complex128)
-        for s in range(0, n, _ACF_BLOCK):
-            e = min(n, s + _ACF_BLOCK)
-            x = g[s:e]
-            for k in range(n_lags):
-                total[k] += np.vdot(x, ext[s + k : e + k])
+    if n_lags <= _ACF_DIRECT_LAGS:  # few lags: the sums themselves
+        total = lagged_sums(g, ext, n_lags, block=_ACF_BLOCK)
         return total / n if periodic else total / (n - np.arange(n_lags))
     block = max(_ACF_BLOCK, 4 * n_lags)
     batch = max(1, _ACF_BATCH * _ACF_BLOCK // block)  # bounded memory
@@ -128,6 +127,33 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
 
 
 _ACF_BLOCK = 1 << 14
+
+
+def lagged_sums(a, b, n_lags: int, *, block: int | None = None) -> np.ndarray:
+    """sum_j conj(a[j]) b[j + k] over j < a.size, for k = 0 .. n_lags - 1.
+
+    ``b`` holds at least ``a.size + n_lags - 1`` values. One dot product per
+    lag and block of ``block`` samples (default: 256 KiB of ``a``), so each
+    block of both sequences is read from cache by every lag: O(N n_lags), about
+    3x faster than whole-record dot products at 1e6 samples and 50 lags.
+    """
+    a = np.asarray(a)
+    b = np.asarray(b)
+    n = a.size
+    if b.size < n + n_lags - 1:
+        raise ValueError(f"b holds {b.size} values; lags to {n_lags - 1} over {n} need {n + n_lags - 1}")
+    if block is None:
+        block = max(1, _LAG_BLOCK_BYTES // a.itemsize)
+    total = np.zeros(n_lags, np.result_type(a, b))
+    for s in range(0, n, block):
+        e = min(n, s + block)
+        x = a[s:e]
+        for k in range(n_lags):
+            total[k] += np.vdot(x, b[s + k : e + k])
+    return total
+
+
+_LAG_BLOCK_BYTES = 1 << 18
 _ACF_BATCH = 64
 _ACF_DIRECT_LAGS = 40  # below ~50 lags the direct sums beat the FFTs (benchmarks/bench_verify.py machine)
 
@@ -298,10 +324,17 @@ def circular_moments(g, orders=(1, 2)) -> np.ndarray:
     g = _record(g)
     a = np.abs(g)
     a[a == 0] = np.inf  # a zero sample has no phase: it contributes 0
-    u = g / a
+    np.divide(1.0, a, out=a)
+    u = g * a  # exp(j theta)
+    n = g.size
     out = []
     for m in orders:
-        out.append(np.mean(u if m == 1 else u * u if m == 2 else u**m))
+        if m == 1:
+            out.append(u.sum() / n)
+        elif m == 2:
+            out.append(np.dot(u, u) / n)  # sum u^2, unconjugated
+        else:
+            out.append(np.mean(u**m))
     return np.array(out)
 
 
@@ -340,6 +373,7 @@ __all__ = [
     "envelope_ks_distance",
     "remove_direct",
     "autocorrelation",
+    "lagged_sums",
     "welch_psd",
     "out_of_band_ratio",
     "interpolator_reach",

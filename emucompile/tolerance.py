@@ -353,6 +353,32 @@ def correlation_matrix(records, rate_hz, models) -> np.ndarray:
 _GRAM_BLOCK = 1 << 15
 
 
+def null_sum_tasks(model: TapModel, rate_hz: float, n: int, periodic: bool = False) -> list:
+    """The null sums :func:`check_tap` will read for this model, rate, length and mode.
+
+    Returns zero-argument callables that compute and cache them, independent
+    of each other (the null autocorrelation they all read is computed here,
+    first). Run them, in threads or before forking worker processes, so that
+    the checks of many taps find them ready instead of each computing them.
+    Nothing for a static tap or a record the checks will not judge.
+    """
+    spectrum = model.spectrum
+    rate_hz, n, periodic = float(rate_hz), int(n), bool(periodic)
+    if spectrum is None:
+        return []
+    fd = spectrum.band_edge_hz
+    if rate_hz < 2.0 * fd or n / rate_hz * fd < MIN_DOPPLER_PERIODS:
+        return []
+    _lags(spectrum, rate_hz, n, periodic)
+    _weights(n, periodic)
+    tasks = [functools.partial(_bartlett_sums, spectrum, rate_hz, n, periodic, _autocorrelation_lag_count(n, rate_hz, fd)),
+             functools.partial(_power_covariance_sum, spectrum, rate_hz, n, periodic, model.diffuse_power,
+                               model.direct_power, model.los_doppler_hz)]
+    if model.k_linear == 0:
+        tasks.append(functools.partial(_phase_variances, spectrum, rate_hz, n, periodic))
+    return tasks
+
+
 def clear_caches() -> None:
     """Forget the cached null sums (per spectrum, rate, length and mode), as in a new process."""
     for cached in (_lags, _pair_sum, _weights, _bartlett_sums, _phase_variances, _power_covariance_sum):
@@ -471,8 +497,12 @@ def _check_envelope(ctx):
                       law="kolmogorov", z=d / scale, scale=scale)
 
 
+def _autocorrelation_lag_count(n, rate_hz, fd):
+    return int(min(n // 2, math.ceil(AUTOCORRELATION_SPAN_PERIODS * rate_hz / fd) + 1))
+
+
 def _check_autocorrelation(ctx):
-    n_lags = int(min(ctx.n // 2, math.ceil(AUTOCORRELATION_SPAN_PERIODS * ctx.rate / ctx.fd) + 1))
+    n_lags = _autocorrelation_lag_count(ctx.n, ctx.rate, ctx.fd)
     rh = estimators.autocorrelation(ctx.diffuse, n_lags, periodic=ctx.periodic)
     rho = rh / rh[0].real
     k = np.arange(1, n_lags)
@@ -681,8 +711,7 @@ def _bartlett_sums(spectrum, rate_hz, n, periodic, n_lags):
     n_corr = 2 * n_lags + 2
     if periodic:
         if n_corr * 8 < n:  # a few lags: direct sums over the wrapped sequence (O(n n_lags), no FFT)
-            ext = np.concatenate([r, r[:n_corr]])
-            corr = np.array([float(r @ ext[k: k + n]) for k in range(n_corr)])
+            corr = estimators.lagged_sums(r, np.concatenate([r, r[:n_corr]]), n_corr)
         else:
             spec = sp_fft.rfft(r)
             corr = sp_fft.irfft(np.abs(spec) ** 2, n)
@@ -690,8 +719,8 @@ def _bartlett_sums(spectrum, rate_hz, n, periodic, n_lags):
         two = np.concatenate([r[:0:-1], r])  # lags -(n-1)..n-1
         wtwo = np.concatenate([(1.0 - np.arange(n - 1, 0, -1) / n), 1.0 - np.arange(n) / n])
         weighted = two * wtwo
-        if n_corr * 8 < n:  # corr[k] = sum_j weighted[j] two[j + k], directly
-            corr = np.array([float(weighted[: two.size - k] @ two[k:]) for k in range(n_corr)])
+        if n_corr * 8 < n:  # corr[k] = sum_j weighted[j] two[j + k], directly (two ends in zeros)
+            corr = estimators.lagged_sums(weighted, np.concatenate([two, np.zeros(n_corr)]), n_corr)
         else:
             size = estimators._fast_len(2 * two.size)
             a = sp_fft.rfft(weighted, size)
@@ -704,13 +733,43 @@ def _bartlett_sums(spectrum, rate_hz, n, periodic, n_lags):
 
 @functools.lru_cache(maxsize=16)
 def _phase_variances(spectrum, rate_hz, n, periodic):
+    """Variances of the first two circular moments of a circular Gaussian record's phase.
+
+    With x = r_k^2 at each lag: E[e^{j(th_0 - th_k)}] = (pi/4) r 2F1(1/2, 1/2; 2; x) and
+    E[e^{2j(th_0 - th_k)}] = (x/2) 2F1(1, 1; 3; x); summed with the lag weights, / n.
+    Where x < 2.5e-3 (|r| < 0.05, most lags of a long record) the hypergeometric
+    series itself, 8 terms (remainder < 1e-20), instead of ``scipy.special.hyp2f1``.
+    """
     r = np.clip(_lags(spectrum, rate_hz, n, periodic), -1.0, 1.0)
     wt = _weights(n, periodic)
     r2 = r * r
-    e1 = (math.pi / 4.0) * r * special.hyp2f1(0.5, 0.5, 2.0, r2)
-    e2 = 0.5 * r2 * special.hyp2f1(1.0, 1.0, 3.0, np.minimum(r2, 1.0 - 1e-15))
+    f1, f2 = np.empty_like(r2), np.empty_like(r2)
+    small = r2 < _PHASE_SERIES_X
+    x = r2[small]
+    f1[small] = _series(x, 0.5, 0.5, 2.0)
+    f2[small] = _series(x, 1.0, 1.0, 3.0)
+    big = ~small
+    f1[big] = special.hyp2f1(0.5, 0.5, 2.0, r2[big])
+    f2[big] = special.hyp2f1(1.0, 1.0, 3.0, np.minimum(r2[big], 1.0 - 1e-15))
+    e1 = (math.pi / 4.0) * r * f1
+    e2 = 0.5 * r2 * f2
     e2[r2 >= 1.0 - 1e-15] = 1.0
     return float(wt @ e1) / n, float(wt @ e2) / n
+
+
+_PHASE_SERIES_X = 2.5e-3
+
+
+def _series(x, a, b, c, terms=8):
+    """sum_{k < terms} (a)_k (b)_k / ((c)_k k!) x^k, the series of 2F1(a, b; c; x), by Horner's rule."""
+    coefficients = [1.0]
+    for k in range(terms - 1):
+        coefficients.append(coefficients[-1] * (a + k) * (b + k) / ((c + k) * (k + 1)))
+    out = np.full_like(x, coefficients[-1])
+    for coefficient in coefficients[-2::-1]:
+        out *= x
+        out += coefficient
+    return out
 
 
 @functools.lru_cache(maxsize=32)
@@ -891,6 +950,7 @@ __all__ = [
     "TapModel",
     "CheckResult",
     "check_tap",
+    "null_sum_tasks",
     "check_cross_correlation",
     "holm",
     "calibration",

@@ -101,6 +101,7 @@ to FILE and ``verification.json`` beside it as ``STEM.verification.json``.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import json
 import math
 import os
@@ -502,19 +503,23 @@ class _Session:
                     # a static tap is one tone: undo the decimator's passband ripple at its frequency exactly
                     decimated[tap] /= self.decimator.response(model.los_doppler_hz)
             prefix = "" if position == 0 else f"delivered {label}: "
-            checks += self._tap_checks(decimated, prefix)
+            # the cross-tap correlations of the first source are computed beside the taps' checks
+            cross = functools.partial(self._cross_tap_checks, decimated) if position == 0 else None
+            tap_checks, cross = self._tap_checks(decimated, prefix, alongside=cross)
+            checks += tap_checks
             checks += self._beyond_band_checks(decimated, prefix)
             if position == 0:
                 records = {i: decimated[i, 0] for i in range(decimated.shape[0])}
                 if self.n_links > 1:
                     link_records = {i: decimated[i].T for i in range(decimated.shape[0])}
-                checks += self._cross_tap_checks(decimated)
+                checks += cross
                 if self.n_links > 1:
                     checks += self._mimo_checks(decimated)
             self.timings_s["checks"] = self.timings_s.get("checks", 0.0) + time.perf_counter() - began
         return checks, records, link_records
 
-    def _tap_checks(self, decimated, prefix):
+    def _tap_checks(self, decimated, prefix, alongside=None):
+        """The per-tap checks of every link, and the result of ``alongside()`` (run beside them)."""
         tol = _tolerance()
         found, jobs = [], []
         for tap, model in self.models.items():
@@ -525,11 +530,15 @@ class _Session:
                           for name in tol.CHECK_NAMES if name != "cross_correlation"]
                 continue
             jobs += [(tap, link, model) for link in range(self.n_links)]
-        outcomes = _map_jobs(_tap_job, (decimated, self.record_rate_hz, self.periodic, self.false_alarm), jobs,
-                             self._workers(decimated))
+        prepare = {}  # the null sums the jobs share, once each (keyed by function and arguments)
+        for tap, link, model in jobs:
+            for task in tol.null_sum_tasks(model, self.record_rate_hz, decimated.shape[-1], self.periodic):
+                prepare.setdefault((task.func, task.args), task)
+        outcomes, extra = _map_jobs(_tap_job, (decimated, self.record_rate_hz, self.periodic, self.false_alarm), jobs,
+                                    self._workers(decimated), prepare=list(prepare.values()), alongside=alongside)
         for (tap, link, _), results in zip(jobs, outcomes):
             found += [_renamed(r, prefix, self._link_label(link)) for r in results]
-        return found
+        return found, extra
 
     def _workers(self, decimated):
         return 1 if self.workers is None else max(1, int(self.workers))
@@ -877,33 +886,42 @@ def _run_shared(index):
     return function(shared, *jobs[index])
 
 
-def _map_jobs(function, shared, jobs, workers):
-    """``[function(shared, *job) for job in jobs]``, in forked worker processes when ``workers`` > 1.
+def _map_jobs(function, shared, jobs, workers, prepare=(), alongside=None):
+    """``([function(shared, *job) for job in jobs], alongside())``, in forked worker processes when ``workers`` > 1.
 
-    The records reach the workers by fork (copy-on-write), not by pickling;
-    only the results travel back. Same results in the same order either way.
+    ``prepare``: zero-argument callables run first (in threads), which fill the
+    caches the jobs share (the tolerance module's null sums), so that no two
+    jobs compute the same one. ``alongside``: one more zero-argument callable,
+    run beside the jobs (its result second; None without it). The records reach
+    worker processes by fork (copy-on-write), with the caches filled, not by
+    pickling; only the results travel back. Same results in the same order
+    either way.
     """
     global _SHARED
-    if workers <= 1 or len(jobs) < 3:
-        threads = min(CHECK_THREADS, os.cpu_count() or 1)
-        if threads <= 1 or len(jobs) < 3:
-            return [function(shared, *job) for job in jobs]
-
-        # the first job alone fills the tolerance module's caches; the rest run in threads
-        # (the FFTs, sorts and array passes release the GIL); results in job order either way
-        first = function(shared, *jobs[0])
+    threads = min(CHECK_THREADS, os.cpu_count() or 1)
+    if threads > 1 and len(prepare) > 1:
         with ThreadPoolExecutor(max_workers=threads) as pool:
-            return [first] + list(pool.map(lambda job: function(shared, *job), jobs[1:]))
+            list(pool.map(lambda task: task(), prepare))
+    else:
+        for task in prepare:
+            task()
+    if workers <= 1 or len(jobs) < 3:
+        if threads <= 1 or len(jobs) < 3:
+            return [function(shared, *job) for job in jobs], None if alongside is None else alongside()
+        # the FFTs, sorts and array passes release the GIL; results in job order either way
+        with ThreadPoolExecutor(max_workers=threads) as pool:
+            beside = None if alongside is None else pool.submit(alongside)  # queued first: no core waits at the end
+            results = list(pool.map(lambda job: function(shared, *job), jobs))
+            return results, None if beside is None else beside.result()
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
-    # the first job runs here: the tolerance module's null sums it caches (per spectrum,
-    # rate and length) are then inherited by the forked workers instead of computed in each
-    first = function(shared, *jobs[0])
     _SHARED = (function, shared, jobs)
     try:
         with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("fork")) as pool:
-            return [first] + list(pool.map(_run_shared, range(1, len(jobs))))
+            pending = pool.map(_run_shared, range(len(jobs)))  # the workers are forked here, before any thread starts
+            extra = None if alongside is None else alongside()  # this process would only wait
+            return list(pending), extra
     finally:
         _SHARED = None
 

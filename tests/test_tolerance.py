@@ -13,6 +13,7 @@ import math
 
 import numpy as np
 import pytest
+from scipy import special
 
 from emucompile import estimators, reference, tolerance
 from emucompile.profile import Tap
@@ -208,12 +209,16 @@ def test_calibration_is_committed():
 
 @pytest.mark.parametrize("periodic", [False, True])
 @pytest.mark.parametrize("n_lags", [3, 40])
-def test_bartlett_sums_equal_their_definition(periodic, n_lags):
+@pytest.mark.parametrize("block_bytes", [None, 8 * 37])
+def test_bartlett_sums_equal_their_definition(periodic, n_lags, block_bytes, monkeypatch):
     """S0 = sum_j w_j r_j^2, c1(k) = sum_j w_j r_j r_{j+k}, c2(k) = c1(2k) over all lags -(n-1)..n-1.
 
-    n_lags 3 takes the direct sums, 40 the FFT (2 n_lags + 2 >= n / 8); both against the sums
-    written out (circular lags for a periodic record).
+    n_lags 3 takes the direct sums (in one block, or in blocks of 37 with a partial last one),
+    40 the FFT (2 n_lags + 2 >= n / 8); both against the sums written out (circular lags for a
+    periodic record).
     """
+    if block_bytes is not None:
+        monkeypatch.setattr(estimators, "_LAG_BLOCK_BYTES", block_bytes)
     n = 400
     spectrum = DopplerSpectrum("classical", FD)
     tolerance._bartlett_sums.cache_clear()
@@ -231,3 +236,42 @@ def test_bartlett_sums_equal_their_definition(periodic, n_lags):
     scale = np.max(np.abs(want))
     np.testing.assert_allclose(c1, want[:n_lags], atol=1e-12 * scale)
     np.testing.assert_allclose(c2, want[: 2 * n_lags: 2], atol=1e-12 * scale)
+
+
+@pytest.mark.parametrize("periodic", [False, True])
+def test_phase_variances_series_equals_hyp2f1(periodic):
+    """The 2F1 series used at small r equals scipy.special.hyp2f1 everywhere (both regimes are present)."""
+    n = 20000
+    spectrum = DopplerSpectrum("classical", FD)
+    tolerance._phase_variances.cache_clear()
+    v1, v2 = tolerance._phase_variances(spectrum, RATE, n, periodic)
+    r = np.clip(tolerance._lags(spectrum, RATE, n, periodic), -1.0, 1.0)
+    r2 = r * r
+    assert (r2 < tolerance._PHASE_SERIES_X).mean() > 0.5 and (r2 >= tolerance._PHASE_SERIES_X).any()
+    w = tolerance._weights(n, periodic)
+    e1 = (np.pi / 4) * r * special.hyp2f1(0.5, 0.5, 2.0, r2)
+    e2 = 0.5 * r2 * special.hyp2f1(1.0, 1.0, 3.0, np.minimum(r2, 1 - 1e-15))
+    e2[r2 >= 1 - 1e-15] = 1.0
+    assert abs(v1 - w @ e1 / n) <= 1e-13 * abs(v1)
+    assert abs(v2 - w @ e2 / n) <= 1e-13 * abs(v2)
+
+
+@pytest.mark.parametrize("periodic", [False, True])
+@pytest.mark.parametrize("k, los", [(0.0, 0.0), (3.0, 0.3 * FD)])
+def test_null_sum_tasks_fill_every_cache_check_tap_reads(periodic, k, los):
+    """After the tasks ran, check_tap computes no null sum of its own (every cache lookup hits)."""
+    model = tolerance.TapModel(CLASSICAL, 1.0, k, los)
+    n = 4000
+    g = reference.tap_record(CLASSICAL, RATE, n, np.random.default_rng(3), k_linear=k, los_doppler_hz=los,
+                             periodic=periodic)
+    tolerance.clear_caches()
+    tasks = tolerance.null_sum_tasks(model, RATE, n, periodic)
+    assert len(tasks) == (3 if k == 0 else 2)
+    for task in tasks:
+        task()
+    cached = (tolerance._lags, tolerance._weights, tolerance._bartlett_sums, tolerance._phase_variances,
+              tolerance._power_covariance_sum)
+    misses = [c.cache_info().misses for c in cached]
+    tolerance.check_tap(g, RATE, model, periodic=periodic)
+    assert [c.cache_info().misses for c in cached] == misses
+    assert tolerance.null_sum_tasks(tolerance.TapModel(None, 1.0, math.inf), RATE, n, periodic) == []
