@@ -215,7 +215,7 @@ def power_upsampled(g, factor: int, band_fraction: float, *, periodic: bool = Fa
     Where that leaves a transition of at least 0.1 rate up to the first image
     (band_fraction <= 0.45), a local interpolator: a Kaiser-windowed sinc
     designed by Kaiser's formula for 140 dB (``scipy.signal.kaiserord``), whose
-    phases are one matrix product over sliding windows of the record; it reaches
+    phases are one matrix product per block of shifted copies of the record; it reaches
     :func:`interpolator_reach` record samples each side, so an aperiodic
     record's first and last that many samples see zeros beyond its ends (callers
     drop them), and a periodic one is wrapped. Otherwise the band-limited FFT
@@ -236,16 +236,22 @@ def power_upsampled(g, factor: int, band_fraction: float, *, periodic: bool = Fa
     else:
         padded = np.concatenate([np.zeros(reach, g.dtype), g, np.zeros(reach, g.dtype)])
     width = 2 * reach + 1
-    real = np.lib.stride_tricks.sliding_window_view(padded.real.astype(np.float32), width)
-    imag = np.lib.stride_tricks.sliding_window_view(padded.imag.astype(np.float32), width)
+    parts = (padded.real.astype(np.float32), padded.imag.astype(np.float32))
+    phases = np.ascontiguousarray(weights.T)  # (factor, width)
+    shifted = np.empty((2, width, _INTERPOLATOR_BLOCK), np.float32)
     out = np.empty((n, factor), np.float32)
-    for s in range(0, n, _INTERPOLATOR_BLOCK):  # cache-sized blocks of windows
+    for s in range(0, n, _INTERPOLATOR_BLOCK):  # cache-sized blocks
         e = min(n, s + _INTERPOLATOR_BLOCK)
-        re = real[s:e] @ weights
-        im = imag[s:e] @ weights
+        m = e - s
+        for i in range(width):  # row i: the record shifted by i - reach (contiguous copies)
+            shifted[0, i, :m] = parts[0][s + i : e + i]
+            shifted[1, i, :m] = parts[1][s + i : e + i]
+        re = phases @ shifted[0, :, :m]  # (factor, m): every phase of every output in the block
+        im = phases @ shifted[1, :, :m]
         np.multiply(re, re, out=re)
         np.multiply(im, im, out=im)
-        np.add(re, im, out=out[s:e])
+        re += im
+        out[s:e] = re.T
     return out.reshape(-1)
 
 
@@ -257,7 +263,7 @@ def interpolator_reach(factor: int, band_fraction: float) -> int:
 
 _INTERPOLATOR_ATTENUATION_DB = 140.0  # the FFT interpolation's complex64 rounding is ~1e-6 relative: below that
 _INTERPOLATOR_MIN_TRANSITION = 0.1  # of the rate; narrower than this, the FFT interpolation
-_INTERPOLATOR_BLOCK = 1 << 13
+_INTERPOLATOR_BLOCK = 1 << 12
 
 
 @functools.lru_cache(maxsize=16)

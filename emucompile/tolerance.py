@@ -381,7 +381,7 @@ def null_sum_tasks(model: TapModel, rate_hz: float, n: int, periodic: bool = Fal
 
 def clear_caches() -> None:
     """Forget the cached null sums (per spectrum, rate, length and mode), as in a new process."""
-    for cached in (_lags, _pair_sum, _weights, _bartlett_sums, _phase_variances, _power_covariance_sum):
+    for cached in (_lags, _pair_sum, _weights, _bartlett_sums, _phase_variances, _power_covariance_sum, _critical):
         cached.cache_clear()
 
 
@@ -828,25 +828,26 @@ def _pvalue(law, z, m):
     elif law == "exp":
         single = math.exp(-z * z)
     elif law == "kolmogorov":
-        single = float(stats.kstwobign.sf(z))
+        single = float(special.kolmogorov(z))  # scipy.stats.kstwobign.sf
     elif law == "gamma2":
-        single = float(stats.gamma.sf(z * z, 2))
+        single = float(special.gammaincc(2.0, z * z))  # scipy.stats.gamma(2).sf
     else:
         raise ValueError(law)
     return float(min(1.0, m * single))
 
 
+@functools.lru_cache(maxsize=1024)
 def _critical(law, level, m=1):
-    """The z at which :func:`_pvalue` equals ``level``."""
+    """The z at which :func:`_pvalue` equals ``level`` (the special functions behind scipy.stats' isf)."""
     a = level / m
     if law == "normal":
-        return float(stats.norm.isf(a / 2.0))
+        return float(-special.ndtri(a / 2.0))  # scipy.stats.norm.isf
     if law == "exp":
         return math.sqrt(-math.log(a))
     if law == "kolmogorov":
-        return float(stats.kstwobign.isf(a))
+        return float(special.kolmogi(a))  # scipy.stats.kstwobign.isf
     if law == "gamma2":
-        return math.sqrt(float(stats.gamma.isf(a, 2)))
+        return math.sqrt(float(special.gammainccinv(2.0, a)))  # scipy.stats.gamma(2).isf
     raise ValueError(law)
 
 

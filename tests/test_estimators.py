@@ -120,7 +120,8 @@ def _tones(tones, t):
 
 
 @pytest.mark.parametrize("band_fraction", [11 / 64, 0.46])  # the local interpolator; the FFT one (transition < 0.1)
-def test_power_upsampled_is_band_limited_interpolation_of_a_periodic_record(band_fraction):
+def test_power_upsampled_is_band_limited_interpolation_of_a_periodic_record(band_fraction, monkeypatch):
+    monkeypatch.setattr(estimators, "_INTERPOLATOR_BLOCK", 24)  # blocks of 24 samples, a partial last one
     n = 64
     tones = [(3 / n, 0.7), (-5 / n, 0.4 + 0.2j), (11 / n, 0.3j)]
     g = _tones(tones, np.arange(n))
@@ -132,8 +133,11 @@ def test_power_upsampled_is_band_limited_interpolation_of_a_periodic_record(band
     np.testing.assert_allclose(got, exact, atol=1e-5)
 
 
-def test_power_upsampled_aperiodic_interior_is_exact():
+@pytest.mark.parametrize("block", [None, 64])  # one block; several and a partial last one
+def test_power_upsampled_aperiodic_interior_is_exact(block, monkeypatch):
     """Tones off the record's bins (not periodic in it): exact except within the interpolator's reach of the ends."""
+    if block is not None:
+        monkeypatch.setattr(estimators, "_INTERPOLATOR_BLOCK", block)
     n, factor = 400, 8
     tones = [(0.0137, 0.7), (-0.071, 0.4 + 0.2j), (0.11, 0.3j)]
     g = _tones(tones, np.arange(n))

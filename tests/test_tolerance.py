@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 import pytest
-from scipy import special
+from scipy import special, stats
 
 from emucompile import estimators, reference, tolerance
 from emucompile.profile import Tap
@@ -275,3 +275,15 @@ def test_null_sum_tasks_fill_every_cache_check_tap_reads(periodic, k, los):
     tolerance.check_tap(g, RATE, model, periodic=periodic)
     assert [c.cache_info().misses for c in cached] == misses
     assert tolerance.null_sum_tasks(tolerance.TapModel(None, 1.0, math.inf), RATE, n, periodic) == []
+
+
+@pytest.mark.parametrize("law", ["normal", "exp", "kolmogorov", "gamma2"])
+def test_pvalue_and_critical_agree_with_scipy_stats(law):
+    """The special functions used equal scipy.stats' laws, and _critical inverts _pvalue."""
+    z = np.array([0.3, 1.0, 2.5, 4.0])
+    ref = {"normal": 2 * stats.norm.sf(z), "exp": np.exp(-z * z), "kolmogorov": stats.kstwobign.sf(z),
+           "gamma2": stats.gamma.sf(z * z, 2)}[law]
+    np.testing.assert_allclose([tolerance._pvalue(law, float(x), 1) for x in z], ref, rtol=1e-12)
+    for level, m in [(1e-3, 1), (1e-2, 7), (0.2, 3)]:
+        zc = tolerance._critical(law, level, m)
+        assert abs(tolerance._pvalue(law, zc, m) - level) < 1e-9 * level
