@@ -943,9 +943,13 @@ class _OutputWriter:
         self._disk_dtype = {"complex64": "<c8", "complex128": "<c16", "cf32_le": "<c8", "cf64_le": "<c16", "ci16_le": "<i2"}[recording.datatype]
 
     def __enter__(self):
-        self._data = fmt.HashedFile(self._temps[0], sha512=self.recording.format == "sigmf")
-        if self.recording.format == "npy":
-            self._data.write(fmt.npy_header(self._disk_dtype, self._shape))
+        try:  # an interrupt here (the file made, the header not yet written) reaches no __exit__
+            self._data = fmt.HashedFile(self._temps[0], sha512=self.recording.format == "sigmf")
+            if self.recording.format == "npy":
+                self._data.write(fmt.npy_header(self._disk_dtype, self._shape))
+        except BaseException:
+            self.abort()
+            raise
         return self
 
     def __exit__(self, exc_type, exc, tb):

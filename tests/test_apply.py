@@ -625,6 +625,21 @@ def test_a_bundle_without_fir_map_needs_a_rate_for_raw_input(tmp_path):
     assert listing(tmp_path) == ["b", "x.npy"]
 
 
+def test_an_interrupt_as_the_output_file_is_made_leaves_nothing(tmp_path, monkeypatch):
+    """Ctrl-C between creating the temporary file and writing its header (what a SIGINT sent
+    the moment the file appears can hit): the file is still removed."""
+    _siso_bundle(tmp_path / "b")
+    np.save(tmp_path / "x.npy", complex_noise(np.random.default_rng(24), 1000))
+
+    def interrupted(self, data):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(fmt.HashedFile, "write", interrupted)
+    with pytest.raises(bd.WriteInterrupted, match="interrupted; nothing was written"):
+        ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy")
+    assert listing(tmp_path) == ["b", "x.npy"]
+
+
 def test_an_interrupt_or_a_full_disk_while_writing_leaves_nothing(tmp_path, monkeypatch):
     _siso_bundle(tmp_path / "b")
     np.save(tmp_path / "x.npy", complex_noise(np.random.default_rng(22), 300000))
