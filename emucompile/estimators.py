@@ -93,7 +93,7 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
     ``periodic=False``: the unbiased linear estimate sum_{n<N-k} g[n+k] g*[n] / (N-k).
     ``periodic=True``: the circular estimate over the whole record,
     sum_n g[(n+k) mod N] g*[n] / N, so a periodic record's wrap is part of
-    what is checked. Up to 40 lags by direct dot products over blocks of 2^14 samples,
+    what is checked. Up to 40 lags by direct dot products over 256 KiB blocks (:func:`lagged_sums`),
     beyond by blocked FFTs (blocks of B = max(2^14, 4 n_lags) samples), O(N log B).
     """
     g = _record(g)
@@ -105,7 +105,7 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
     tail = g[:n_lags] if periodic else np.zeros(n_lags, g.dtype)
     ext = np.concatenate([g, tail])
     if n_lags <= _ACF_DIRECT_LAGS:  # few lags: the sums themselves
-        total = lagged_sums(g, ext, n_lags, block=_ACF_BLOCK)
+        total = lagged_sums(g, ext, n_lags)
         return total / n if periodic else total / (n - np.arange(n_lags))
     block = max(_ACF_BLOCK, 4 * n_lags)
     batch = max(1, _ACF_BATCH * _ACF_BLOCK // block)  # bounded memory
@@ -127,23 +127,24 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
 
 
 _ACF_BLOCK = 1 << 14
+_ACF_BATCH = 64
+_ACF_DIRECT_LAGS = 40  # below ~50 lags the direct sums beat the FFTs (benchmarks/bench_verify.py machine)
 
 
-def lagged_sums(a, b, n_lags: int, *, block: int | None = None) -> np.ndarray:
+def lagged_sums(a, b, n_lags: int) -> np.ndarray:
     """sum_j conj(a[j]) b[j + k] over j < a.size, for k = 0 .. n_lags - 1.
 
     ``b`` holds at least ``a.size + n_lags - 1`` values. One dot product per
-    lag and block of ``block`` samples (default: 256 KiB of ``a``), so each
-    block of both sequences is read from cache by every lag: O(N n_lags), about
-    3x faster than whole-record dot products at 1e6 samples and 50 lags.
+    lag and block of 256 KiB of ``a``, so each block of both sequences is read
+    from cache by every lag: O(N n_lags), about 3x faster than whole-record dot
+    products at 1e6 samples and 50 lags.
     """
     a = np.asarray(a)
     b = np.asarray(b)
     n = a.size
     if b.size < n + n_lags - 1:
         raise ValueError(f"b holds {b.size} values; lags to {n_lags - 1} over {n} need {n + n_lags - 1}")
-    if block is None:
-        block = max(1, _LAG_BLOCK_BYTES // a.itemsize)
+    block = max(1, _LAG_BLOCK_BYTES // a.itemsize)
     total = np.zeros(n_lags, np.result_type(a, b))
     for s in range(0, n, block):
         e = min(n, s + block)
@@ -154,8 +155,6 @@ def lagged_sums(a, b, n_lags: int, *, block: int | None = None) -> np.ndarray:
 
 
 _LAG_BLOCK_BYTES = 1 << 18
-_ACF_BATCH = 64
-_ACF_DIRECT_LAGS = 40  # below ~50 lags the direct sums beat the FFTs (benchmarks/bench_verify.py machine)
 
 
 def welch_psd(g, rate_hz: float, nperseg: int, *, window="hann"):
@@ -229,7 +228,7 @@ def power_upsampled(g, factor: int, band_fraction: float, *, periodic: bool = Fa
     design = _interpolator(factor, float(band_fraction))
     if design is None:
         return _fft_interpolated(g, factor)
-    reach, weights = design
+    reach, phases = design
     n = g.size
     if periodic:
         padded = g[np.arange(-reach, n + reach) % n]
@@ -237,7 +236,6 @@ def power_upsampled(g, factor: int, band_fraction: float, *, periodic: bool = Fa
         padded = np.concatenate([np.zeros(reach, g.dtype), g, np.zeros(reach, g.dtype)])
     width = 2 * reach + 1
     parts = (padded.real.astype(np.float32), padded.imag.astype(np.float32))
-    phases = np.ascontiguousarray(weights.T)  # (factor, width)
     shifted = np.empty((2, width, _INTERPOLATOR_BLOCK), np.float32)
     out = np.empty((n, factor), np.float32)
     for s in range(0, n, _INTERPOLATOR_BLOCK):  # cache-sized blocks
@@ -275,11 +273,10 @@ def _interpolator(factor, band_fraction):
     reach = -(-(numtaps - 1) // (2 * factor))
     t = np.arange(-reach * factor, reach * factor + 1) / factor  # in record samples
     h = np.sinc(t) * np.kaiser(t.size, beta)  # cut-off at half the record rate; h(integer) = 0 but h(0) = 1
-    # weights[i, p] multiplies g[n - reach + i] for the output at n + p / factor: h(reach - i + p / factor)
-    i = np.arange(2 * reach + 1)[:, None]
-    index = (reach - i) * factor + np.arange(factor)[None, :] + reach * factor
-    weights = np.where(index < h.size, h[np.minimum(index, h.size - 1)], 0.0)
-    return reach, weights.astype(np.float32)
+    # phases[p, i] multiplies g[n - reach + i] for the output at n + p / factor: h(reach - i + p / factor)
+    index = (reach - np.arange(2 * reach + 1)[None, :]) * factor + np.arange(factor)[:, None] + reach * factor
+    phases = np.where(index < h.size, h[np.minimum(index, h.size - 1)], 0.0)
+    return reach, np.ascontiguousarray(phases, dtype=np.float32)
 
 
 def _fft_interpolated(g, factor):

@@ -66,6 +66,7 @@ def test_autocorrelation_blocks_equal_direct_sums(periodic, n_lags, direct_lags,
     with direct_lags 0 the FFT path runs at every lag count, with 40 the dot-product path at 1 and 10."""
     monkeypatch.setattr(estimators, "_ACF_DIRECT_LAGS", direct_lags)
     monkeypatch.setattr(estimators, "_ACF_BLOCK", 64)
+    monkeypatch.setattr(estimators, "_LAG_BLOCK_BYTES", 64 * 16)  # 64 complex samples
     monkeypatch.setattr(estimators, "_ACF_BATCH", 3)
     x = cn(501)
     n = x.size
