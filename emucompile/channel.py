@@ -260,4 +260,4 @@ def _amplitudes(tap):
     return math.sqrt(power * k / (k + 1.0)), math.sqrt(power / (k + 1.0))
 
 
-__all__ = ["ChannelPlan", "SHADOWING_FILE", "SHADOWING_ROLE"]
+__all__ = ["ChannelPlan", "SHADOWING_FILE", "SHADOWING_ROLE", "generate_channel_gains", "stream_channel_gains"]

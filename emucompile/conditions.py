@@ -68,9 +68,12 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal
 
+from emucompile._lazy import LazyModule
 from emucompile.errors import InputError
+
+# Imported on first use: reading and checking a profile does not filter (start-up).
+signal = LazyModule("scipy.signal")
 
 _KMH = 1.0 / 3.6
 

@@ -436,7 +436,7 @@ def test_generate_channel_gains_equals_the_bundle_of_the_same_arguments(demo, tm
     result = compiler.compile_profile(profile, tmp_path / "b", duration_s=0.25, seed=11)
     manifest = result.manifest
     rate = manifest["update_rate_hz"]
-    n = int(round(manifest["duration_s"] * rate))
+    n = round(manifest["duration_s"] * rate)
     gains = emucompile.generate_channel_gains(profile, rate, n, 11, method=manifest["method"],
                                               periodic=manifest["periodic"])
     assert np.array_equal(gains, np.asarray(open_bundle(result.path).tap_gains))
