@@ -23,13 +23,17 @@ class LazyModule:
     0.5
     """
 
-    __slots__ = ("_name",)
+    __slots__ = ("_module", "_name")
 
     def __init__(self, name: str):
         self._name = name
+        self._module = None
 
     def __getattr__(self, attribute):
-        return getattr(importlib.import_module(self._name), attribute)
+        module = self._module
+        if module is None:
+            module = self._module = importlib.import_module(self._name)
+        return getattr(module, attribute)
 
     def __repr__(self) -> str:
         return f"<LazyModule {self._name!r}>"
