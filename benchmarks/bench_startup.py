@@ -1,6 +1,6 @@
 """Start-up time of light commands, against ``python -c pass`` measured in the same run.
 
-    python benchmarks/bench_startup.py [--rounds 7] [--no-bytecode]
+    python benchmarks/bench_startup.py [--rounds 7] [--no-bytecode] [--compare DIR]
 
 Each command runs in a fresh interpreter (``subprocess``), rounds interleaved
 so that a change of load hits every command alike; the table gives the min and
@@ -13,7 +13,9 @@ By default the interpreters keep their compiled bytecode in a temporary
 ``PYTHONPYCACHEPREFIX`` (warmed by one untimed round), as an installed package
 does; ``--no-bytecode`` sets ``PYTHONDONTWRITEBYTECODE=1`` and clears the
 prefix, so every module is compiled from source each time (what a checkout run
-with that variable set pays).
+with that variable set pays). ``--compare DIR`` times the same commands in
+another checkout (e.g. ``git archive REV | tar -x -C DIR``) in the same rounds,
+for a before/after under the same load.
 """
 
 from __future__ import annotations
@@ -45,35 +47,41 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rounds", type=int, default=7, help="timed rounds (at least 5 for the README)")
     parser.add_argument("--no-bytecode", action="store_true", help="compile every module from source each run")
+    parser.add_argument("--compare", metavar="DIR", help="another checkout to time in the same rounds")
     args = parser.parse_args()
+    roots = {"": ROOT} if not args.compare else {"": ROOT, "compared: ": Path(args.compare).resolve()}
 
     with tempfile.TemporaryDirectory(prefix="emucompile-pycache-") as cache:
-        env = _environment(cache, args.no_bytecode)
         load_before = os.getloadavg()
-        for _, argv, _ in CASES:  # untimed: fills the bytecode cache, warms the page cache
-            _run(argv, env)
-        times = {label: [] for label, _, _ in CASES}
+        runs = [(prefix + label, argv, target, root, _environment(cache, args.no_bytecode, root))
+                for prefix, root in roots.items() for label, argv, target in CASES
+                if not (prefix and target is None)]
+        for _, argv, _, root, env in runs:  # untimed: fills the bytecode cache, warms the page cache
+            _run(argv, env, root)
+        times = {label: [] for label, *_ in runs}
         for _ in range(args.rounds):
-            for label, argv, _ in CASES:
-                times[label].append(_run(argv, env))
+            for label, argv, _, root, env in runs:
+                times[label].append(_run(argv, env, root))
         load_after = os.getloadavg()
 
     baseline = statistics.median(times[CASES[0][0]])
     print(f"start-up, {args.rounds} rounds, {'no bytecode' if args.no_bytecode else 'bytecode cached'}, "
           f"python {sys.version.split()[0]}, {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}")
     print(f"load average before: {_load(load_before)}; after: {_load(load_after)} ({os.cpu_count()} cores)")
-    print(f"{'command':<36} {'min s':>7} {'median s':>9} {'x pass':>7}  target")
-    for label, _, target in CASES:
+    if args.compare:
+        print(f"compared: {roots['compared: ']}")
+    print(f"{'command':<46} {'min s':>7} {'median s':>9} {'x pass':>7}  target")
+    for label, _, target, _, _ in runs:
         values = times[label]
         median = statistics.median(values)
         verdict = "" if target is None else f"<= {target:g} s: " + (
             "met" if median <= target else ("met at min only" if min(values) <= target else "missed"))
-        print(f"{label:<36} {min(values):7.3f} {median:9.3f} {median / baseline:7.1f}  {verdict}")
+        print(f"{label:<46} {min(values):7.3f} {median:9.3f} {median / baseline:7.1f}  {verdict}")
 
 
-def _environment(cache: str, no_bytecode: bool) -> dict:
+def _environment(cache: str, no_bytecode: bool, root: Path) -> dict:
     env = dict(os.environ)
-    env["PYTHONPATH"] = str(ROOT) + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+    env["PYTHONPATH"] = str(root) + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
     if no_bytecode:
         env["PYTHONDONTWRITEBYTECODE"] = "1"
         env.pop("PYTHONPYCACHEPREFIX", None)
@@ -83,9 +91,9 @@ def _environment(cache: str, no_bytecode: bool) -> dict:
     return env
 
 
-def _run(argv, env) -> float:
+def _run(argv, env, root) -> float:
     start = time.perf_counter()
-    result = subprocess.run([sys.executable, *argv], cwd=ROOT, env=env,
+    result = subprocess.run([sys.executable, *argv], cwd=root, env=env, check=False,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     elapsed = time.perf_counter() - start
     if result.returncode != 0:
