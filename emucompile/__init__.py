@@ -64,6 +64,8 @@ _API = {
     "open_components": "emucompile.components",
     "Components": "emucompile.components",
     "ChannelPlan": "emucompile.channel",
+    "generate_channel_gains": "emucompile.channel",
+    "stream_channel_gains": "emucompile.channel",
     "make_figures": "emucompile.plots",
     "render_report": "emucompile.report",
     "write_report": "emucompile.report",

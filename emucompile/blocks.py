@@ -35,9 +35,8 @@ import json
 import math
 from dataclasses import asdict, dataclass
 
-import numpy as np
-
 from emucompile import mimo
+from emucompile._lazy import LazyModule
 from emucompile.conditions import (
     HIGH_SPEED_TRAIN_SCENARIOS,
     MOVING_PROPAGATION_SCENARIOS,
@@ -46,6 +45,9 @@ from emucompile.conditions import (
     MovingPropagation,
 )
 from emucompile.errors import InputError
+
+# numpy imported on first use (start-up): checking a block without matrices does not need it.
+np = LazyModule("numpy")
 
 CORRELATION_FORMS = {
     "standard level": ("level", "specification"),

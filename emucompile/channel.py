@@ -35,6 +35,7 @@ import math
 
 import numpy as np
 
+from emucompile import fading
 from emucompile.errors import InputError
 from emucompile.fading._streams import SHADOWING
 
@@ -205,6 +206,51 @@ class ChannelPlan:
         return links.reshape(m, self.n_tx, self.n_rx, self.n_taps).transpose(0, 2, 1, 3)
 
 
+def generate_channel_gains(profile, update_rate_hz, n_samples, seed, **engine_options) -> np.ndarray:
+    """A profile's whole channel at once, MIMO block and conditions included.
+
+    Parameters
+    ----------
+    profile : emucompile.profile.Profile
+    update_rate_hz, n_samples, seed
+        As for :func:`emucompile.fading.plan`.
+    **engine_options
+        ``method``, ``periodic``, ``n_sinusoids``, ``sos_evaluation``,
+        ``threads`` of :func:`emucompile.fading.plan`.
+
+    Returns
+    -------
+    numpy.ndarray
+        complex64, shape (n_samples, n_rx, n_tx, n_taps): the bundle's
+        ``tap_gains`` for the same arguments (SISO: n_rx = n_tx = 1).
+
+    Examples
+    --------
+    >>> import emucompile
+    >>> profile = emucompile.load_profile("profiles_demo/campus-eva-2x2.yaml")  # doctest: +SKIP
+    >>> emucompile.generate_channel_gains(profile, 2000.0, 4000, seed=1).shape  # doctest: +SKIP
+    (4000, 2, 2, 9)
+    """
+    channel = _plan_channel(profile, update_rate_hz, n_samples, seed, engine_options)
+    out = np.empty((channel.n_samples, channel.n_rx, channel.n_tx, channel.n_taps), np.complex64)
+    for start, gains in channel.chunks(fading.DEFAULT_CHUNK):
+        out[start:start + len(gains)] = gains
+    return out
+
+
+def stream_channel_gains(profile, update_rate_hz, n_samples, seed, *, chunk_size=None, **engine_options):
+    """Iterate ``(first_index, gains)`` over :func:`generate_channel_gains`'s record in chunks.
+
+    Memory stays bounded; the chunks concatenated equal the whole record bit for bit.
+    """
+    channel = _plan_channel(profile, update_rate_hz, n_samples, seed, engine_options)
+    return channel.chunks(chunk_size or fading.DEFAULT_CHUNK)
+
+
+def _plan_channel(profile, update_rate_hz, n_samples, seed, engine_options):
+    return ChannelPlan(profile, fading.plan(profile, update_rate_hz, n_samples, seed, **engine_options))
+
+
 def _amplitudes(tap):
     """(a_d, a_s) of a tap (see the module notes)."""
     power = float(tap.power_linear)
@@ -214,4 +260,4 @@ def _amplitudes(tap):
     return math.sqrt(power * k / (k + 1.0)), math.sqrt(power / (k + 1.0))
 
 
-__all__ = ["ChannelPlan", "SHADOWING_FILE", "SHADOWING_ROLE"]
+__all__ = ["ChannelPlan", "SHADOWING_FILE", "SHADOWING_ROLE", "generate_channel_gains", "stream_channel_gains"]

@@ -331,7 +331,11 @@ def presets():
 @presets.command("list", epilog="\b\nExamples:\n  emucompile presets list\n  emucompile presets list --json")
 @click.option("--json", "as_json", is_flag=True, help="Print the list as strict JSON (SI units).")
 def presets_list(as_json):
-    """List the presets: name, taps, RMS delay spread, source.
+    """List the presets: name, taps, RMS delay spread, check against the standard, source.
+
+    "confirmed": every delay and power compared with the standard's own
+    table; "recalled, not confirmed": not (the reason is in --json,
+    check_statement).
 
     The TR 38.901 models (tdl-a ... tdl-e) have normalised delays: their RMS
     delay spread is shown normalised (about 1) and scales to the wanted one
@@ -345,13 +349,13 @@ def presets_list(as_json):
     if as_json:
         click.echo(json.dumps([r.to_dict() for r in records], indent=2, allow_nan=False))
         return
-    click.echo(f"{'name':<7} {'taps':>4}  {'rms delay spread':<38} source")
+    click.echo(f"{'name':<7} {'taps':>4}  {'rms delay spread':<38} {'against the standard':<23} source")
     for r in records:
         if r.normalised:
             spread = f"{r.normalised_rms_delay_spread:.4f} normalised (x delay_spread_ns)"
         else:
             spread = f"{r.rms_delay_spread_s * 1e9:.4g} ns"
-        click.echo(f"{r.name:<7} {r.n_taps:>4}  {spread:<38} {r.source}")
+        click.echo(f"{r.name:<7} {r.n_taps:>4}  {spread:<38} {r.check_state:<23} {r.source}")
 
 
 @presets.command("show", epilog="\b\nExamples:\n  emucompile presets show tdl-c --delay-spread-ns 300 > lab.yaml\n"

@@ -30,6 +30,7 @@ says otherwise (command line first, then the profile, then these):
 from __future__ import annotations
 
 import hashlib
+import inspect
 import math
 import secrets
 import time
@@ -273,19 +274,79 @@ def plan_compile(
     )
 
 
-def compile_profile(profile, outdir, *, progress=None, **options) -> CompileResult:
+def compile_profile(
+    profile,
+    outdir,
+    *,
+    duration_s: float | None = None,
+    update_rate_hz: float | None = None,
+    seed: int | None = None,
+    sample_rate_hz: float | None = None,
+    delay_mapping: str | None = None,
+    target=None,
+    formats=(),
+    periodic: bool | None = None,
+    method: str | None = None,
+    force: bool = False,
+    max_size_bytes: int | None = DEFAULT_MAX_SIZE_BYTES,
+    progress=None,
+    plan: CompilePlan | None = None,
+) -> CompileResult:
     """Compile ``profile`` into the bundle directory ``outdir``; all of it or nothing.
+
+    The keywords are those of ``emucompile compile`` (a test keeps the two
+    sets equal); a choice left at None comes from the profile's ``compile:``
+    block, then from the defaults (module notes).
 
     Parameters
     ----------
-    profile, outdir, **options
-        As for :func:`plan_compile`.
+    profile : Profile, str or os.PathLike
+        A loaded profile, or the path of a profile file (its bytes are hashed
+        into ``profile_sha256``).
+    outdir : str or os.PathLike
+        The bundle directory to create (``-o``).
+    duration_s : float, optional
+        Length of the record in seconds (``--duration``).
+    update_rate_hz : float, optional
+        Rate of the tap-gain samples (``--update-rate``).
+    seed : int, optional
+        Seed of the random streams; drawn from the system and recorded when
+        neither given nor in the profile (``--seed``).
+    sample_rate_hz : float, optional
+        Emulator signal sample rate: adds the FIR map (``--sample-rate``).
+    delay_mapping : {"sinc", "nearest"}, optional
+        How tap delays map onto the FIR grid (``--delay-mapping``).
+    target : emucompile.target.Target, str or os.PathLike, optional
+        Emulator constraints, parsed or a target file's path (``--target``);
+        overrides the profile's ``target:`` block.
+    formats : str or sequence of str
+        Extra formats (cf32, ci16, csv, sigmf, fir), a comma-separated string
+        or a sequence; npy is always written (``--format``).
+    periodic : bool, optional
+        Make the record loop seamlessly, period = record length (``--periodic``).
+    method : {"doppler-filter", "sum-of-sinusoids"}, optional
+        Tap-gain generator (``--method``).
+    force : bool
+        Replace ``outdir`` if it is a bundle (``--force``).
+    max_size_bytes : int or None
+        Refuse to write more; None: no limit (``--max-size``).
     progress : callable(samples_done, samples_total), optional
-        Called as the record is written (the command line draws a bar with it).
+        Called as the record is written (the command line draws its bar with
+        it; ``--quiet`` passes none).
+    plan : CompilePlan, optional
+        A plan from :func:`plan_compile` to run as it is; then no other choice
+        may be given.
 
     Returns
     -------
     CompileResult
+
+    Raises
+    ------
+    emucompile.errors.InputError
+        On any impossible request (before anything is written).
+    TypeError
+        When ``plan`` is given together with a choice.
 
     Examples
     --------
@@ -294,7 +355,17 @@ def compile_profile(profile, outdir, *, progress=None, **options) -> CompileResu
     ...                                     "out/robot", duration_s=5, seed=7)  # doctest: +SKIP
     >>> bundle = emucompile.open_bundle(result.path)                            # doctest: +SKIP
     """
-    plan = options.pop("plan", None) or plan_compile(profile, outdir, **options)
+    choices = dict(duration_s=duration_s, update_rate_hz=update_rate_hz, seed=seed,
+                   sample_rate_hz=sample_rate_hz, delay_mapping=delay_mapping, target=target,
+                   formats=formats, periodic=periodic, method=method, force=force,
+                   max_size_bytes=max_size_bytes)
+    if plan is None:
+        plan = plan_compile(profile, outdir, **choices)
+    else:
+        defaults = inspect.signature(compile_profile).parameters
+        given = [name for name, value in choices.items() if value != defaults[name].default]
+        if given:
+            raise TypeError(f"compile_profile: give plan or choices, not both ({', '.join(given)})")
     return run_plan(plan, progress=progress)
 
 

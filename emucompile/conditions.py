@@ -67,10 +67,12 @@ import dataclasses
 import math
 from dataclasses import dataclass
 
-import numpy as np
-from scipy import signal
-
+from emucompile._lazy import LazyModule
 from emucompile.errors import InputError
+
+# Imported on first use: reading and checking a profile does not filter (start-up).
+np = LazyModule("numpy")
+signal = LazyModule("scipy.signal")
 
 _KMH = 1.0 / 3.6
 

@@ -44,7 +44,13 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy import integrate, signal, special
+
+from emucompile._lazy import LazyModule
+
+# Imported on first use: reading a profile with a target: block does not design filters.
+integrate = LazyModule("scipy.integrate")
+signal = LazyModule("scipy.signal")
+special = LazyModule("scipy.special")
 
 DELAY_MAPPINGS = ("sinc", "nearest")
 DEFAULT_HALF_LENGTH = 16

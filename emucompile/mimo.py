@@ -60,9 +60,11 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-import numpy as np
-
+from emucompile._lazy import LazyModule
 from emucompile.errors import InputError
+
+# numpy imported on first use (start-up): only the correlation checks need it.
+np = LazyModule("numpy")
 
 CORRELATION_LEVELS = ("low", "medium", "high")
 SPECIFICATIONS = ("ts36101", "ts36104", "ts36141")

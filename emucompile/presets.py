@@ -44,6 +44,14 @@ Choices this module makes, and why
   ``presets show`` prints a valid profile and says where its Doppler came
   from; the caller overrides it with ``max_doppler_hz`` or
   ``speed_kmh``/``speed_mps`` + ``carrier_hz``.
+* **Checked against the standard's text.** Each preset's data records one of
+  two states (:data:`CHECK_STATES`) in ``standard_check``: ``confirmed``
+  (every delay and power compared with the standard's own table; the data
+  names document, table and version and a figure the standard prints beside
+  the table, recomputed from the rows by the tests) or ``recalled, not
+  confirmed`` with the reason (what was searched, what was found).
+  ``presets list`` and the README show the state. Simulators' code is never
+  a source.
 * **Provenance.** The document carries a ``preset`` block (name, data
   version, source, how the values were obtained, the delay spread and the
   Doppler used), which the resolved profile and the bundle manifest keep.
@@ -88,6 +96,9 @@ PRESET_NAMES = (
     "veh-b",
 )
 DIRECT_PART_FORMS = ("rician", "static-pair")
+# Whether a table was compared, delay by delay and power by power, with the standard's own text.
+CHECK_STATES = ("confirmed", "recalled, not confirmed")
+_CONFIRMED_KEYS = ("document", "table", "version", "compared", "published_figure")
 
 # The per-tap keys of contract 2 that an override may set.
 TAP_OVERRIDE_KEYS = (
@@ -149,6 +160,11 @@ class Preset:
         The RMS delay spread the standard prints, where it prints one.
     reference_rms_delay_spread_s : float or None
         A recomputed reference value where the standard prints none (M.1225).
+    standard_check : dict
+        ``state`` (one of :data:`CHECK_STATES`), ``searched`` (date); for
+        ``confirmed``: ``document``, ``table``, ``version``, ``compared``,
+        ``published_figure`` (``quantity``, ``value``, ``unit``, ``source``);
+        otherwise ``reason``.
     """
 
     name: str
@@ -163,6 +179,20 @@ class Preset:
     default_doppler: dict
     printed_rms_delay_spread_s: float | None
     reference_rms_delay_spread_s: float | None
+    standard_check: dict
+
+    @property
+    def check_state(self) -> str:
+        """``"confirmed"`` or ``"recalled, not confirmed"`` (:data:`CHECK_STATES`)."""
+        return self.standard_check["state"]
+
+    @property
+    def check_statement(self) -> str:
+        """``confirmed against DOCUMENT, TABLE, VERSION`` or ``recalled, not confirmed: REASON``."""
+        check = self.standard_check
+        if check["state"] == "confirmed":
+            return f"confirmed against {check['document']}, {check['table']}, {check['version']}"
+        return f"recalled, not confirmed: {check['reason']}"
 
     @property
     def n_taps(self) -> int:
@@ -212,6 +242,8 @@ class PresetRecord:
     source: str
     values: str
     data_version: int
+    check_state: str
+    check_statement: str
 
     def to_dict(self) -> dict:
         return dict(self.__dict__)
@@ -250,6 +282,8 @@ def list_presets() -> list[PresetRecord]:
                 source=preset.short_source,
                 values=preset.source["values"],
                 data_version=preset.data_version,
+                check_state=preset.check_state,
+                check_statement=preset.check_statement,
             )
         )
     return records
@@ -705,6 +739,7 @@ def _load_preset(name: str) -> Preset:
         for r in data["rows"]
     )
     _check_rows(name, rows, data.get("k1_db"))
+    _check_standard_check(name, data.get("standard_check"))
     printed = data.get("printed_rms_delay_spread")
     reference = data.get("recomputed_rms_delay_spread")
     return Preset(
@@ -720,6 +755,7 @@ def _load_preset(name: str) -> Preset:
         default_doppler=dict(data["default_doppler"]),
         printed_rms_delay_spread_s=printed["value_ns"] * 1e-9 if printed else None,
         reference_rms_delay_spread_s=reference["value_ns"] * 1e-9 if reference else None,
+        standard_check=dict(data["standard_check"]),
     )
 
 
@@ -739,8 +775,19 @@ def _check_rows(name, rows, k1_db):
         raise RuntimeError(f"preset data {name}: a direct part needs k1_db and the reverse")
 
 
+def _check_standard_check(name, check):
+    """A preset's ``standard_check`` must say one state and what backs it (packaging bug otherwise)."""
+    if not isinstance(check, dict) or check.get("state") not in CHECK_STATES or not check.get("searched"):
+        raise RuntimeError(f"preset data {name}: standard_check needs state {CHECK_STATES} and searched")
+    needed = _CONFIRMED_KEYS if check["state"] == "confirmed" else ("reason",)
+    missing = [key for key in needed if not check.get(key)]
+    if missing:
+        raise RuntimeError(f"preset data {name}: standard_check {check['state']!r} lacks {', '.join(missing)}")
+
+
 __all__ = [
     "PRESET_NAMES",
+    "CHECK_STATES",
     "DIRECT_PART_FORMS",
     "TAP_OVERRIDE_KEYS",
     "EXTENDS_KEYS",

@@ -71,8 +71,8 @@ from importlib import resources
 
 import jsonschema
 import numpy as np
-from scipy import integrate, special, stats
 
+from emucompile._lazy import LazyModule
 from emucompile.errors import InputError, Problem, ProfileError
 from emucompile.grid import (
     DEFAULT_HALF_LENGTH,
@@ -81,6 +81,11 @@ from emucompile.grid import (
     fir_map,
     rms_delay_spread,
 )
+
+# Imported on first use: checking a profile's target: block does not integrate (start-up).
+integrate = LazyModule("scipy.integrate")
+special = LazyModule("scipy.special")
+stats = LazyModule("scipy.stats")
 
 BETWEEN_UPDATES = ("hold", "linear")
 DEFAULT_HEADROOM_DB = 12.0

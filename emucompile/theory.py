@@ -23,8 +23,12 @@ import functools
 import math
 from dataclasses import dataclass
 
-import numpy as np
-from scipy import special, stats
+from emucompile._lazy import LazyModule
+
+# Imported on first use: a profile is read and checked without them (start-up).
+np = LazyModule("numpy")
+special = LazyModule("scipy.special")
+stats = LazyModule("scipy.stats")
 
 SPECTRUM_KINDS = ("classical", "flat", "gaussian")
 

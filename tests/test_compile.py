@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import inspect
 import json
 import resource
 import signal
@@ -382,3 +383,66 @@ def test_summary_names_links_and_conditions(tmp_path):
     result = _run("compile", demos / "viaduct-high-speed-train.yaml", "-o", tmp_path / "hst", "--duration", "1")
     assert result.exit_code == 0, result.output
     assert "conditions  high speed train, shadowing" in result.output
+
+
+# -- the API's keywords are the command's options ---------------------------------------
+
+# Where the command spells an option its own way: --target FILE -> target (a file's path
+# or a parsed Target), --max-size -> max_size_bytes, --quiet -> no progress callable.
+CLI_TO_API = {"target_file": "target", "max_size": "max_size_bytes", "quiet": "progress"}
+API_ONLY = {"plan"}  # a prepared CompilePlan: nothing to type on a command line
+
+
+def test_compile_profile_and_the_compile_command_accept_the_same_choices():
+    command_names = {parameter.name for parameter in cli.commands["compile"].params}
+    api = inspect.signature(compiler.compile_profile).parameters
+    assert not any(p.kind is p.VAR_KEYWORD for p in api.values())  # every name spelled out
+    assert {CLI_TO_API.get(name, name) for name in command_names} == set(api) - API_ONLY
+    # ...and the command hands them to plan_compile, which takes the same choices.
+    planned = set(inspect.signature(compiler.plan_compile).parameters)
+    assert planned == set(api) - API_ONLY - {"progress"}
+    assert "Parameters\n    ----------" in compiler.compile_profile.__doc__
+    for name in set(api) - {"profile", "outdir"}:
+        assert f"\n    {name} :" in compiler.compile_profile.__doc__, name
+
+
+def test_compile_profile_refuses_a_plan_with_choices(profile_file, tmp_path):
+    plan = compiler.plan_compile(profile_file, tmp_path / "b", duration_s=1, update_rate_hz=1000, seed=3)
+    with pytest.raises(TypeError, match="seed"):
+        compiler.compile_profile(profile_file, tmp_path / "b", plan=plan, seed=4)
+    result = compiler.compile_profile(profile_file, tmp_path / "b", plan=plan)
+    assert result.manifest["seed"] == 3
+
+
+# -- tap gains without a bundle: the MIMO block and conditions are honoured or refused ----
+
+
+@pytest.mark.parametrize("demo", ["campus-eva-2x2.yaml", "viaduct-high-speed-train.yaml"])
+def test_generate_tap_gains_refuses_what_it_would_ignore_and_names_the_function_that_does(demo):
+    import emucompile
+
+    profile = emucompile.load_profile(ROOT / "profiles_demo" / demo)
+    for function in (emucompile.generate_tap_gains, emucompile.stream_tap_gains):
+        with pytest.raises(InputError, match="generate_channel_gains|stream_channel_gains") as raised:
+            function(profile, 4000.0, 1000, 1)
+        assert ("mimo block (2x2)" in str(raised.value)) == (demo == "campus-eva-2x2.yaml")
+
+
+@pytest.mark.parametrize("demo", ["campus-eva-2x2.yaml", "viaduct-high-speed-train.yaml", "warehouse-robot.yaml"])
+def test_generate_channel_gains_equals_the_bundle_of_the_same_arguments(demo, tmp_path):
+    import emucompile
+
+    profile = emucompile.load_profile(ROOT / "profiles_demo" / demo)
+    result = compiler.compile_profile(profile, tmp_path / "b", duration_s=0.25, seed=11)
+    manifest = result.manifest
+    rate = manifest["update_rate_hz"]
+    n = round(manifest["duration_s"] * rate)
+    gains = emucompile.generate_channel_gains(profile, rate, n, 11, method=manifest["method"],
+                                              periodic=manifest["periodic"])
+    assert np.array_equal(gains, np.asarray(open_bundle(result.path).tap_gains))
+    streamed = np.concatenate([g for _, g in emucompile.stream_channel_gains(
+        profile, rate, n, 11, chunk_size=777, method=manifest["method"], periodic=manifest["periodic"])])
+    assert np.array_equal(streamed, gains)
+    if profile.mimo is None and profile.conditions is None:  # SISO: the engine's own taps
+        assert np.array_equal(gains[:, 0, 0, :], emucompile.generate_tap_gains(
+            profile, rate, n, 11, method=manifest["method"], periodic=manifest["periodic"]))

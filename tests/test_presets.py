@@ -8,6 +8,7 @@ recalled rather than copied from a stored document, the comment says
 import json
 import math
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -15,8 +16,10 @@ from ruamel.yaml import YAML
 
 from emucompile.errors import InputError, ProfileError
 from emucompile.presets import (
+    CHECK_STATES,
     PRESET_NAMES,
     TAP_OVERRIDE_KEYS,
+    _check_standard_check,
     list_presets,
     load_preset,
     preset_document,
@@ -394,3 +397,61 @@ def test_resolve_extends_reports_every_problem_at_once():
     with pytest.raises(ProfileError) as raised:
         resolve_extends(user)
     assert len(raised.value.problems) >= 3
+
+
+# -- the check against the standard's own text -----------------------------------
+
+
+@pytest.mark.parametrize("name", PRESET_NAMES)
+def test_every_preset_says_whether_it_was_checked_against_the_standard(name):
+    preset = load_preset(name)
+    check = preset.standard_check
+    assert check["state"] in CHECK_STATES == ("confirmed", "recalled, not confirmed")
+    assert re.fullmatch(r"\d{4}-\d{2}-\d{2}", check["searched"])
+    if check["state"] == "confirmed":
+        assert preset.check_statement == (
+            f"confirmed against {check['document']}, {check['table']}, {check['version']}"
+        )
+        assert "every delay and power" in check["compared"]
+    else:
+        # The reason says what was searched; simulators' code is never a source.
+        assert preset.check_statement.startswith("recalled, not confirmed: ")
+        assert "Searched" in check["reason"] and len(check["reason"]) > 80
+
+
+@pytest.mark.parametrize("name", PRESET_NAMES)
+def test_a_confirmed_table_reproduces_the_figure_its_standard_prints(name):
+    # Transcription check of a confirmed table: the figure printed beside it in the
+    # standard (an RMS delay spread, normalised or in ns), recomputed here from the rows.
+    preset = load_preset(name)
+    if preset.check_state != "confirmed":
+        pytest.skip(f"{name}: {preset.check_state} (nothing confirmed to guard)")
+    figure = preset.standard_check["published_figure"]
+    assert figure["quantity"] == "rms_delay_spread" and figure["source"]
+    # Half a unit of the last printed digit: 1 ns figures to 0.5 ns, 0.994 to 0.0005.
+    digits = str(figure["value"]).split(".")
+    half_unit = 0.5 * 10.0 ** -(len(digits[1]) if len(digits) == 2 else 0)
+    assert table_rms(name) == pytest.approx(float(figure["value"]), abs=half_unit)
+
+
+@pytest.mark.parametrize(
+    "check, complaint",
+    [
+        ({"state": "checked", "searched": "2026-12-03", "reason": "x"}, "needs state"),
+        ({"state": "recalled, not confirmed", "reason": "x"}, "needs state"),
+        ({"state": "recalled, not confirmed", "searched": "2026-12-03"}, "lacks reason"),
+        ({"state": "confirmed", "searched": "2026-12-03", "document": "3GPP TS 36.104",
+          "table": "Table B.2-1", "compared": "every delay and power"}, "lacks version, published_figure"),
+    ],
+)
+def test_a_preset_without_a_clear_check_state_is_refused(check, complaint):
+    with pytest.raises(RuntimeError, match=complaint):
+        _check_standard_check("epa", check)
+
+
+def test_readme_shows_each_presets_check_state():
+    text = (Path(__file__).resolve().parent.parent / "README.md").read_text(encoding="utf-8")
+    section = text.split("#### The presets against the standards' text", 1)[1].split("\n## ", 1)[0]
+    rows = [line.split("|")[1:3] for line in section.splitlines() if line.startswith("| ") and "---" not in line]
+    stated = {name.strip(): state.strip() for names, state in rows[1:] for name in names.split(",")}
+    assert stated == {name: load_preset(name).check_state for name in PRESET_NAMES}

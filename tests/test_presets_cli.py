@@ -101,3 +101,14 @@ def test_dump_yaml_quotes_what_would_read_as_something_else():
     text = dump_yaml(document)
     assert parse_text(text).value == document
     assert 'a: "null"' in text and 'b: "1e3"' in text and "h: no" in text  # YAML 1.2: "no" is text
+
+
+def test_list_shows_whether_each_preset_was_checked_against_the_standard():
+    lines = run("presets", "list").stdout.splitlines()
+    assert "against the standard" in lines[0]
+    for line, record in zip(lines[1:], list_presets()):
+        assert f" {record.check_state} " in line
+    records = json.loads(run("presets", "list", "--json").stdout)
+    for record in records:
+        assert record["check_state"] in ("confirmed", "recalled, not confirmed")
+        assert record["check_statement"].startswith(record["check_state"])

@@ -120,7 +120,19 @@ def plan(profile, update_rate_hz, n_samples, seed, **options) -> FadingPlan:
 
 
 def generate(profile, update_rate_hz, n_samples, seed, **kw) -> np.ndarray:
-    """The whole record at once: complex64, shape (n_samples, n_taps). See :func:`plan`."""
+    """The whole record at once: complex64, shape (n_samples, n_taps). See :func:`plan`.
+
+    The taps of one SISO link without time-varying conditions. A profile with
+    a ``mimo`` block, or conditions that change the gains (high-speed train,
+    a moving delay whose carrier follows, shadowing), is refused: its gains
+    come from :func:`emucompile.channel.generate_channel_gains`.
+
+    Raises
+    ------
+    emucompile.errors.InputError
+        For such a profile, naming the block and the function that honours it.
+    """
+    _refuse_channel_blocks(profile, "generate_tap_gains", "generate_channel_gains")
     p = plan(profile, update_rate_hz, n_samples, seed, **kw)
     out = np.empty((p.n_samples, p.n_taps), np.complex64)
     for start, gains in p.chunks(DEFAULT_CHUNK):
@@ -132,8 +144,11 @@ def stream(profile, update_rate_hz, n_samples, seed, *, chunk_size=DEFAULT_CHUNK
     """Iterate ``(first_index, gains)`` over the record in chunks; memory stays bounded.
 
     The concatenated chunks equal :func:`generate`'s output bit for bit,
-    whatever ``chunk_size``.
+    whatever ``chunk_size``. A MIMO profile, or one with conditions that
+    change the gains, is refused as by :func:`generate` (use
+    :func:`emucompile.channel.stream_channel_gains`).
     """
+    _refuse_channel_blocks(profile, "stream_tap_gains", "stream_channel_gains")
     return plan(profile, update_rate_hz, n_samples, seed, **kw).chunks(chunk_size)
 
 
@@ -171,6 +186,38 @@ def reproducibility() -> dict:
         "threads_affect_output": False,
         "chunking_affects_output": False,
     }
+
+
+def _refuse_channel_blocks(profile, name, instead):
+    """Refuse a profile whose gains need more than the engine: a silent SISO answer would be wrong."""
+    blocks = _channel_blocks(profile)
+    if blocks:
+        from emucompile.errors import InputError
+
+        raise InputError(
+            f"{name} gives the taps of one SISO link without conditions, and profile "
+            f"{profile.name!r} has {' and '.join(blocks)}; emucompile.{instead} honours "
+            "them (gains in the bundle's axes: sample, rx, tx, tap)",
+            hint=f"call emucompile.{instead}(profile, update_rate_hz, n_samples, seed), "
+            "or compile_profile for a bundle",
+        )
+
+
+def _channel_blocks(profile) -> list[str]:
+    """The blocks of ``profile`` that change its gains beyond the engine's SISO taps."""
+    blocks = []
+    if getattr(profile, "mimo", None) is not None:
+        blocks.append(f"a mimo block ({profile.n_rx}x{profile.n_tx})")
+    conditions = getattr(profile, "conditions", None)
+    if conditions is not None:
+        if conditions.high_speed_train is not None and conditions.high_speed_train_taps:
+            blocks.append("conditions.high_speed_train")
+        moving = conditions.moving_propagation
+        if moving is not None and moving.carrier_follows:
+            blocks.append("conditions.moving_propagation (its carrier follows the delay)")
+        if conditions.shadowing is not None:
+            blocks.append("conditions.shadowing")
+    return blocks
 
 
 # Names under which the package root exposes these (``emucompile.generate_tap_gains``).

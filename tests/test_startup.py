@@ -1,0 +1,92 @@
+"""Start-up: light commands do not import the heavy modules (structural, not timed).
+
+Timing lives in benchmarks/bench_startup.py; here each command runs in a fresh
+interpreter and the test reads ``sys.modules`` afterwards. scipy.stats alone
+costs about a second to import on a small machine, matplotlib more.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMOS = sorted(str(p.relative_to(ROOT)) for p in (ROOT / "profiles_demo").glob("*.*"))
+
+# Never needed to read, check or describe a profile on the command line.
+HEAVY = ("matplotlib", "scipy.stats", "scipy.signal", "scipy.optimize", "scipy.integrate",
+         "emucompile.fading", "emucompile.compiler", "emucompile.verify", "emucompile.plots",
+         "emucompile.report", "emucompile.bundle")
+
+_PROBE = """
+import json, sys
+args = json.loads(sys.argv[1])
+if args:
+    from emucompile.cli import main
+    sys.argv = ["emucompile", *args]
+    try:
+        main()
+    except SystemExit as stop:
+        code = stop.code
+else:
+    import emucompile.cli
+    code = 0
+print(json.dumps({"code": code, "modules": sorted(sys.modules)}), file=sys.__stderr__)
+"""
+
+
+def _loaded_after(*args):
+    result = subprocess.run([sys.executable, "-c", _PROBE, json.dumps(list(args))], cwd=ROOT,
+                            capture_output=True, text=True, env=_env(), timeout=120, check=False)
+    report = json.loads(result.stderr.strip().splitlines()[-1])
+    return report["code"], set(report["modules"])
+
+
+def _env():
+    import os
+
+    env = dict(os.environ)
+    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+    return env
+
+
+def test_importing_the_command_line_imports_nothing_numeric():
+    code, modules = _loaded_after()
+    assert code == 0
+    assert not {m for m in modules if m.split(".")[0] in ("numpy", "scipy", "matplotlib", "jsonschema")}
+
+
+def test_version_imports_nothing_numeric():
+    code, modules = _loaded_after("--version")
+    assert code == 0
+    assert not {m for m in modules if m.split(".")[0] in ("numpy", "scipy", "matplotlib", "jsonschema")}
+
+
+@pytest.mark.parametrize("demo", DEMOS)
+def test_validate_imports_no_statistics_plots_or_engine(demo):
+    code, modules = _loaded_after("validate", demo)
+    assert code == 0
+    assert not [m for m in HEAVY if m in modules]
+
+
+@pytest.mark.parametrize("demo", [d for d in DEMOS if "\nmimo:" not in (ROOT / d).read_text(encoding="utf-8")])
+def test_validate_without_a_mimo_block_does_not_import_numpy(demo):
+    # Only the correlation matrices of a mimo block need numpy to be checked.
+    code, modules = _loaded_after("validate", demo)
+    assert code == 0 and "numpy" not in modules
+
+
+def test_validate_of_a_profile_with_a_target_block_imports_no_statistics(tmp_path):
+    # The target: block is checked (schema and semantics) without scipy's filters or statistics.
+    text = (ROOT / "profiles_demo" / "warehouse-robot.yaml").read_text(encoding="utf-8")
+    text += "target:\n  sample_rate_hz: 30.72e6\n  max_fir_coefficients: 256\n  coefficient_bits: 16\n"
+    path = tmp_path / "with-target.yaml"
+    path.write_text(text, encoding="utf-8")
+    code, modules = _loaded_after("validate", str(path))
+    assert code == 0
+    assert "emucompile.target" in modules  # the block was really checked
+    assert not [m for m in HEAVY if m in modules]
