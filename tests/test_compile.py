@@ -19,6 +19,7 @@ from emucompile.bundle import verify_integrity
 from emucompile.cli import cli
 from emucompile.errors import CheckFailed, InputError
 from emucompile.profile import load_profile, load_profile_text
+from profile_helpers import FIT_EXAMPLE
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMOS = sorted((ROOT / "profiles_demo").glob("*.*"))
@@ -386,15 +387,6 @@ def test_summary_names_links_and_conditions(tmp_path):
 
 # -- the fit in plain view: a missed target, its acceptance, the integer coefficients ----------------
 
-FIT_EXAMPLE = """\
-format_version: 1
-name: fit-example
-description: Invented example (not a measurement) of a target that cannot hold the profile's delay spread.
-extends: {preset: tdl-c, delay_spread_ns: 100}
-speed_kmh: 30
-carrier_hz: 3.5e9
-target: {sample_rate_hz: 30.72e6, max_paths: 8, coefficient_bits: 12}
-"""
 
 
 @pytest.fixture
