@@ -110,6 +110,10 @@ def make_figures(verification) -> list[tuple[str, bytes]]:
         tasks.append(("Channel magnitude |H(f, t)| across the band",
                       lambda: _transfer_figure(profile, records, rate, np.asarray(fir),
                                                getattr(verification, "sample_rate_hz", None), models)))
+    fit = getattr(verification, "fit", None)
+    if fit and fir is not None and getattr(verification, "fir_delays_s", None) is not None:
+        tasks.append(("Emulator fit: the profile's taps and the fitted paths",
+                      lambda: _fit_figure(profile, fit, np.asarray(fir), np.asarray(verification.fir_delays_s))))
     mimo = getattr(verification, "mimo", None)
     if mimo and mimo.get("taps"):
         tasks.append((f"MIMO correlation: expected and achieved, {len(mimo['links'])} links",
@@ -450,6 +454,39 @@ def _transfer_figure(profile, records, rate_hz, fir, sample_rate_hz, models):
     note = f"; {missing} tap(s) without a record left out" if missing else ""
     ax.set_title(f"|H(f, t)| at {sample_rate_hz / 1e6:.6g} MHz sampling, {n_fir} FIR coefficients{note}",
                  fontsize=11)
+    return figure
+
+
+def _fit_figure(profile, fit, fir, coefficient_delays_s):
+    """The profile's taps (dropped ones marked) beside the fitted grid's paths (coefficient powers)."""
+    delays = np.array([t.delay_s for t in profile.taps], dtype=float)
+    powers = np.array([t.power_linear for t in profile.taps], dtype=float)
+    path_powers = powers @ (fir * fir)
+    used = path_powers > 0
+    scale, unit = (1e9, "ns") if max(delays.max(initial=0.0), coefficient_delays_s.max(initial=0.0)) < 2e-6 \
+        else (1e6, "\u00b5s")
+    figure = Figure(figsize=(8.0, 3.8), dpi=DPI, layout="constrained")
+    ax = figure.add_subplot(1, 1, 1)
+    profile_db = 10.0 * np.log10(powers)
+    path_db = 10.0 * np.log10(path_powers[used])
+    bottom = math.floor((min(profile_db.min(), path_db.min(initial=0.0)) - 8.0) / 5.0) * 5.0
+    dropped = np.zeros(len(delays), bool)
+    dropped[list(fit.get("taps_dropped") or ())] = True
+    ax.vlines(delays[~dropped] * scale, bottom, profile_db[~dropped], color="0.55", linewidth=1.0)
+    ax.plot(delays[~dropped] * scale, profile_db[~dropped], "o", color="0.55", markersize=4, label="profile tap")
+    if dropped.any():
+        ax.plot(delays[dropped] * scale, profile_db[dropped], "x", color="#d62728", markersize=8,
+                markeredgewidth=2, label="profile tap dropped by the fit")
+    ax.plot(coefficient_delays_s[used] * scale, path_db, "s", markerfacecolor="none", color=MEASURED_COLOR,
+            markersize=9, markeredgewidth=1.6, label="fitted path (coefficient power)")
+    spread = fit["rms_delay_spread_s"]
+    ax.set_title(f"RMS delay spread {spread['profile'] * scale:.4g} \u2192 {spread['fitted'] * scale:.4g} {unit}",
+                 fontsize=11)
+    ax.set_xlabel(f"delay ({unit})")
+    ax.set_ylabel("mean power (dB)")
+    ax.set_ylim(bottom, max(profile_db.max(), path_db.max(initial=-np.inf)) + 3.0)
+    ax.grid(True, color="0.88", linewidth=0.7)
+    ax.legend(fontsize=8, loc="upper right")
     return figure
 
 

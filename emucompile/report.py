@@ -114,10 +114,11 @@ def render_report(verification, figures=(), *, title: str | None = None,
     ]
     if getattr(verification, "foreign", False):
         parts.append(f'<div class="note"><strong>Foreign data.</strong> {_e(FOREIGN_NOTE)}</div>')
-    section_figures, figures = _take_figures(figures, ("MIMO correlation", "Time-varying conditions"))
+    section_figures, figures = _take_figures(figures, ("MIMO correlation", "Time-varying conditions",
+                                                       "Emulator fit"))
     parts += [
         _profile_section(verification),
-        _fit_section(fit),
+        _fit_section(fit, section_figures.get("Emulator fit")),
         _figure_section("MIMO set-up", "mimo", section_figures.get("MIMO correlation"), _mimo_text(verification)),
         _figure_section("Time-varying conditions", "conditions", section_figures.get("Time-varying conditions"),
                         _conditions_text(verification)),
@@ -308,7 +309,7 @@ def _failed_section(checks, fit) -> str:
     return "\n".join(out)
 
 
-def _fit_section(fit) -> str:
+def _fit_section(fit, figure=None) -> str:
     if not fit:
         return ""
     spread, mean = fit["rms_delay_spread_s"], fit["mean_delay_s"]
@@ -349,6 +350,8 @@ def _fit_section(fit) -> str:
            "fitted channel, and say so.</p>", '<table class="kv">']
     out += [f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in rows]
     out.append("</table>")
+    if figure is not None:
+        out.append(_figure_html(*figure))
     return "\n".join(out)
 
 

@@ -246,3 +246,43 @@ def test_the_package_root_exposes_the_report_api():
     assert emucompile.render_report is report.render_report
     assert emucompile.write_report is report.write_report
     assert emucompile.make_figures is plots.make_figures
+
+
+# -- figure text never overlaps ----------------------------------------------------------------------
+
+
+def _overlapping_texts(figure):
+    """Pairs of visible titles and figure-level texts whose drawn boxes intersect."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    renderer = FigureCanvasAgg(figure).get_renderer()
+    figure.draw(renderer)
+    texts = [t for t in figure.texts if t.get_text()]
+    for ax in figure.axes:
+        texts += [t for t in (ax.title, ax._left_title, ax._right_title) if t.get_text()]
+    boxes = [(t.get_text(), t.get_window_extent(renderer)) for t in texts]
+    return [(a, b) for i, (a, box_a) in enumerate(boxes) for b, box_b in boxes[i + 1:] if box_a.overlaps(box_b)]
+
+
+@pytest.mark.parametrize("profile_path", ["profiles_demo/port-crane-los.yaml",
+                                          "profiles_demo/viaduct-high-speed-train.yaml"])
+def test_figure_titles_never_overlap(profile_path, monkeypatch):
+    # the viaduct demo has one fading tap: a one-panel figure, where title and key once overlapped
+    from types import SimpleNamespace
+
+    figures = []
+    monkeypatch.setattr(plots, "_png", lambda figure: figures.append(figure) or b"png")
+    verification = standin_verification(profile_path, periods=100.0)
+    links = ["rx0-tx0", "rx1-tx0", "rx0-tx1", "rx1-tx1"]
+    matrix = np.eye(4) * 0.1 + 0.9
+    taps = {0: {"expected": matrix, "achieved": matrix + 0.01}, 1: {"expected": matrix, "achieved": matrix}}
+    verification = SimpleNamespace(**vars(verification), mimo={"links": links, "taps": taps}, conditions={
+        "high_speed_train": {"time_s": np.linspace(0, 10, 50), "doppler_hz": np.cos(np.linspace(0, 3, 50)), "taps": [0]},
+        "moving_delay": {"time_s": np.linspace(0, 10, 50), "delay_offset_s": np.linspace(0, 1e-6, 50)},
+        "shadowing": {"time_s": np.linspace(0, 10, 50), "gain_db": np.zeros(50)}})
+    plots.make_figures(verification)
+    assert len(figures) >= 5
+    titles = [t.get_text() for f in figures for t in f.texts]
+    assert any(t.startswith("Envelope CDF") for t in titles)
+    for figure in figures:
+        assert _overlapping_texts(figure) == []
