@@ -210,16 +210,30 @@ def _profile_section(verification) -> str:
     out += [f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in rows]
     out.append("</table>")
     taps = stats.get("taps") or []
+    fit_notes = _fit_per_tap(getattr(verification, "fit", None))
     if taps:
         out.append('<h3>Taps</h3><table class="grid"><tr><th>#</th><th>delay</th><th>power (dB)</th>'
-                   "<th>fading</th><th>K (dB)</th></tr>")
+                   "<th>fading</th><th>K (dB)</th>" + ("" if fit_notes is None else "<th>emulator fit</th>") + "</tr>")
         for i, tap in enumerate(taps):
             k_db = tap.get("k_db")
+            note = "" if fit_notes is None else f"<td>{_e(fit_notes.get(i, 'kept'))}</td>"
             out.append(f"<tr><td>{i}</td><td>{_e(_si(tap.get('delay_s'), 's'))}</td>"
                        f"<td>{_e(_number(tap.get('power_db')))}</td><td>{_e(tap.get('fading', ''))}</td>"
-                       f"<td>{_e(_number(k_db)) if k_db is not None else '&ndash;'}</td></tr>")
+                       f"<td>{_e(_number(k_db)) if k_db is not None else '&ndash;'}</td>{note}</tr>")
         out.append("</table>")
     return "\n".join(out)
+
+
+def _fit_per_tap(fit) -> dict | None:
+    """Tap index -> what the fit did to it ("dropped", "merged with ... at ..."); None without a fit."""
+    if not fit:
+        return None
+    notes = {tap: "dropped" for tap in fit.get("taps_dropped") or ()}
+    for merged in fit.get("taps_merged") or ():
+        for tap in merged["taps"]:
+            others = [str(t) for t in merged["taps"] if t != tap]
+            notes[tap] = f"merged with {', '.join(others)} at {_si(merged['delay_s'], 's')}"
+    return notes
 
 
 def _checks_section(verification, checks) -> str:
@@ -318,7 +332,10 @@ def _fit_section(fit, figure=None) -> str:
         ("delay mapping", f"{fit['delay_mapping']}, delay step {fit['delay_step_samples']} sample(s) at "
                           f"{_si(fit['sample_rate_hz'], 'Hz')}; {fit['n_paths']} path(s)"),
         ("RMS delay spread", f"profile {_si(spread['profile'], 's')} \u2192 fitted {_si(spread['fitted'], 's')}"
-                             + ("" if spread["change_pct"] is None else f" ({spread['change_pct']:+.1f} %)")),
+                             + ("" if spread["change_pct"] is None else f" ({spread['change_pct']:+.1f} %)")
+                             + ("" if spread.get("coefficient_powers") in (None, spread["fitted"]) else
+                                f"; coefficient powers {_si(spread['coefficient_powers'], 's')} (the sinc "
+                                "windows' interpolation tails included)")),
         ("mean delay", f"profile {_si(mean['profile'], 's')} \u2192 fitted {_si(mean['fitted'], 's')}"),
         ("taps merged", "; ".join(f"taps {', '.join(map(str, m['taps']))} at {_si(m['delay_s'], 's')}"
                                   + (f" ({m['remark']})" if m.get("remark") else "")

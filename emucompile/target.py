@@ -312,7 +312,9 @@ class FitCosts:
 class FitAcceptance:
     """Whether a fit kept the RMS delay spread within the stated tolerance, and whether it was accepted.
 
-    ``bound_s`` is ``tolerance_pct`` % of the profile's RMS delay spread (half
+    ``fit_rms_delay_spread_s`` is the fitted channel's
+    (:func:`fitted_channel_rms_delay_spread`). ``bound_s`` is
+    ``tolerance_pct`` % of the profile's RMS delay spread (half
     a grid step, ``delay_step_samples / (2 sample_rate_hz)``, for a profile
     whose spread is 0). ``within_tolerance``: |fit - profile| <= bound_s.
     ``accepted``: the user accepted the fit anyway (``compile --accept-fit``).
@@ -353,8 +355,10 @@ class FitAcceptance:
 
     def to_dict(self) -> dict:
         return {
-            "rule": ("|fit - profile RMS delay spread| <= tolerance_pct % of the profile's (half a grid step when "
-                     "the profile's spread is 0); beyond it compile refuses unless accepted (--accept-fit)"),
+            "rule": ("|fitted channel - profile RMS delay spread| <= tolerance_pct % of the profile's (half a grid "
+                     "step when the profile's spread is 0); the fitted channel's spread is the grid's for nearest, "
+                     "the profile's for sinc (every delay kept in band); beyond it compile refuses unless accepted "
+                     "(--accept-fit)"),
             "tolerance_pct": self.tolerance_pct,
             "bound_s": _json_value(self.bound_s),
             "profile_rms_delay_spread_s": _json_value(self.profile_rms_delay_spread_s),
@@ -364,6 +368,21 @@ class FitAcceptance:
             "within_tolerance": self.within_tolerance,
             "accepted": self.accepted,
         }
+
+
+def fitted_channel_rms_delay_spread(costs: "FitCosts") -> float:
+    """The fitted channel's RMS delay spread: what the fit tolerance judges.
+
+    ``nearest``: the kept taps at their grid delays, merged taps' powers added
+    (the spread of the coefficient powers, ``fit_rms_delay_spread_s``).
+    ``sinc``: the profile's own, as that map keeps every tap at its delay within
+    the passband (and never drops one); the coefficient powers' spread there
+    includes each window's interpolation tails (e.g. one tap 10 ns late at
+    30.72 MHz: 25.9 ns), a property of the map, not of the channel.
+    """
+    if costs.delay_mapping == "sinc" and not costs.dropped_taps:
+        return float(costs.profile_rms_delay_spread_s)
+    return float(costs.fit_rms_delay_spread_s)
 
 
 class TargetMissed(CheckFailed):
@@ -402,7 +421,7 @@ def judge_fit(costs: "FitCosts", tolerance_pct: float = DEFAULT_FIT_TOLERANCE_PC
     if not (math.isfinite(tolerance) and tolerance >= 0):
         raise InputError(f"the fit tolerance must be a finite percentage >= 0, got {tolerance_pct!r}")
     profile = float(costs.profile_rms_delay_spread_s)
-    fit = float(costs.fit_rms_delay_spread_s)
+    fit = fitted_channel_rms_delay_spread(costs)
     if profile > 0:
         bound = tolerance / 100.0 * profile
     else:
@@ -440,7 +459,10 @@ def fit_record(manifest: dict) -> dict | None:
     codes_entry = next((f for f in manifest.get("files") or () if f.get("role") == "fir_coefficients_int"), None)
     codes = (codes_entry or {}).get("coefficient_codes") or {}
     quantisation = costs.get("quantisation") or {}
-    profile_spread, fit_spread = costs.get("profile_rms_delay_spread_s"), costs.get("fit_rms_delay_spread_s")
+    profile_spread, grid_spread = costs.get("profile_rms_delay_spread_s"), costs.get("fit_rms_delay_spread_s")
+    fit_spread = grid_spread
+    if costs.get("delay_mapping") == "sinc" and not costs.get("dropped_taps"):
+        fit_spread = profile_spread  # fitted_channel_rms_delay_spread: sinc keeps every delay in band
     change_pct = (100.0 * (fit_spread - profile_spread) / profile_spread
                   if profile_spread and fit_spread is not None else None)
     return {
@@ -455,7 +477,8 @@ def fit_record(manifest: dict) -> dict | None:
         "taps_dropped": list(costs.get("dropped_taps") or ()),
         "power_dropped_db": costs.get("power_dropped_db"),
         "power_dropped_fraction": costs.get("power_dropped_fraction"),
-        "rms_delay_spread_s": {"profile": profile_spread, "fitted": fit_spread, "change_pct": change_pct},
+        "rms_delay_spread_s": {"profile": profile_spread, "fitted": fit_spread, "change_pct": change_pct,
+                               "coefficient_powers": grid_spread},
         "mean_delay_s": {"profile": costs.get("profile_mean_delay_s"), "fitted": costs.get("fit_mean_delay_s")},
         "max_abs_delay_error_s": costs.get("max_abs_delay_error_s"),
         "update_images": {
@@ -494,8 +517,10 @@ def fit_lines(record: dict) -> list[str]:
         f"{(record['sample_rate_hz'] or 0) / 1e6:g} MHz: {record['n_paths']} path(s)",
         f"taps merged: {merged or 'none'}",
         f"taps dropped: {', '.join(map(str, dropped)) or 'none'}",
-        f"RMS delay spread {ns(spread['profile'])} -> {ns(spread['fitted'])}{change}; "
-        f"mean delay {ns(mean['profile'])} -> {ns(mean['fitted'])}",
+        f"RMS delay spread {ns(spread['profile'])} -> {ns(spread['fitted'])}{change}"
+        + ("" if spread.get("coefficient_powers") in (None, spread["fitted"]) else
+           f" (coefficient powers: {ns(spread['coefficient_powers'])}, interpolation tails included)")
+        + f"; mean delay {ns(mean['profile'])} -> {ns(mean['fitted'])}",
         f"power dropped {db(record['power_dropped_db'])}; largest delay error {ns(record['max_abs_delay_error_s'])}",
         f"update images {db(images['image_to_wanted_db'])} ({images['between_updates']} at "
         f"{images['update_rate_hz']:g} Hz), droop {db(images['droop_db'])}",

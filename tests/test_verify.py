@@ -460,6 +460,7 @@ def test_an_accepted_fit_is_shown_and_the_delivered_integer_coefficients_are_jud
     assert result.passed
     page = report.render_report(result, plots.make_figures(result)[:1])
     assert '<h2 id="fit">Emulator fit</h2>' in page and "accepted at compile with --accept-fit" in page
+    assert page.count("<td>dropped</td>") == 6 and "<td>merged with 2, 3, 4 at 32.55 ns</td>" in page
 
 
 def fit_columns(bundle):
