@@ -147,6 +147,11 @@ class BundleLayout:
         A time-varying FIR map (moving delay): ``fir.npy`` is then
         sum_k tap_gains[n, ..., k] fir_maps(n)[k]; ``fir_map`` stays the map
         at zero offset on the same grid.
+    fir_codes : dict, optional
+        The emulator's integer FIR coefficients (a target with
+        ``coefficient_bits``): ``{"columns", "bits", "step", "headroom_db",
+        "sample_rate_hz", "bulk_delay_samples"}`` for
+        :class:`emucompile.formats.FirCodesWriter`; needs ``fir_map``.
     """
 
     n_samples: int
@@ -162,6 +167,7 @@ class BundleLayout:
     csv_max_rows: int | None = fmt.DEFAULT_CSV_MAX_ROWS
     extra_arrays: tuple = field(default=(), compare=False, repr=False)
     fir_maps: object = field(default=None, compare=False, repr=False)
+    fir_codes: dict | None = field(default=None, compare=False, repr=False)
 
     def __post_init__(self):
         set_ = object.__setattr__
@@ -190,6 +196,8 @@ class BundleLayout:
                 if len(value) != self.n_taps:
                     raise ValueError(f"{name} needs {self.n_taps} values, got {len(value)}")
                 set_(self, name, value)
+        if self.fir_codes is not None and self.fir_map is None:
+            raise ValueError("the FIR coefficient codes need the FIR map")
         if "fir" in self.formats and self.fir_map is None:
             raise InputError("the fir format needs the FIR map", hint="give a sample rate (--sample-rate)")
         if "ci16" in self.formats and (self.tap_power_linear is None or self.tap_k_linear is None):
@@ -259,6 +267,9 @@ class BundleLayout:
             elif name == "fir":
                 writers.append(fmt.FirWriter(self.fir_map, self.n_samples, self.n_rx, self.n_tx,
                                              maps=self.fir_maps))
+        if self.fir_codes is not None:
+            writers.append(fmt.FirCodesWriter(self.fir_map, n_samples=self.n_samples, n_rx=self.n_rx,
+                                              n_tx=self.n_tx, **self.fir_codes))
         return writers
 
 
@@ -972,7 +983,29 @@ def _consistency_problems(manifest: dict, source: str) -> list[Problem]:
             problem("/formats", f"format {name} and the files of role {role} disagree")
     if "ci16" in manifest["formats"] and any("quantisation" not in e for _, e in by_role.get("tap_gains_ci16", [])):
         problem("/files", "the ci16 file lacks its quantisation record")
+    problems += _fir_codes_problems(manifest, by_role.get(fmt.FIR_CODES_ROLE, []), source)
     return problems
+
+
+def _fir_codes_problems(manifest: dict, found: list, source: str) -> list[Problem]:
+    """The integer FIR coefficients: at most one file, only with a FIR map and a coefficient bit width."""
+    if not found:
+        return []
+    bits = (((manifest.get("target") or {}).get("constraints")) or {}).get("coefficient_bits")
+    if len(found) > 1 or manifest["fir"] is None or bits is None:
+        return [Problem(source, "/files", "integer FIR coefficients need one file, a FIR map and a target's "
+                                          "coefficient_bits")]
+    index, entry = found[0]
+    codes = entry.get("coefficient_codes") or {}
+    n, rx, tx = (manifest[k] for k in ("n_samples", "n_rx", "n_tx"))
+    shape = [n, rx, tx, len(codes.get("columns") or []), 2]
+    dtype = "int16" if bits <= 16 else "int32"
+    if entry["shape"] != shape or entry["dtype"] != dtype or codes.get("bits") != bits:
+        return [Problem(source, f"/files/{index}", f"{entry['name']}: {entry['dtype']} {entry['shape']} on "
+                                                   f"{codes.get('bits')} bits, expected {dtype} {shape} on {bits} bits")]
+    if any(not 0 <= c < manifest["fir"]["n_fir"] for c in codes["columns"]):
+        return [Problem(source, f"/files/{index}", f"{entry['name']}: a path column lies outside the FIR")]
+    return []
 
 
 def _is_safe_entry(entry) -> bool:

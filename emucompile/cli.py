@@ -198,6 +198,9 @@ def stats(profile, as_json):
 @click.option("--method", type=click.Choice(["doppler-filter", "sum-of-sinusoids"]), help="Tap-gain generator.")
 @click.option("--force", is_flag=True, help="Replace OUTDIR if it is an existing bundle.")
 @click.option("--max-size", type=ByteSize(), metavar="SIZE", help="Refuse to write more than this (default 8GiB).")
+@click.option("--fit-tolerance-pct", type=float, metavar="PCT",
+              help="How far a target fit may move the RMS delay spread, in % of the profile's (default 10).")
+@click.option("--accept-fit", is_flag=True, help="Accept a target fit beyond that tolerance (recorded in the manifest).")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
 def compile_command(profile, outdir, quiet, max_size, target_file, **options):
     """Compile a profile into a bundle of tap gains (and FIR map) in OUTDIR.
@@ -206,6 +209,9 @@ def compile_command(profile, outdir, quiet, max_size, target_file, **options):
     the defaults: update rate 64 x the largest Doppler, 10 s, a seed drawn
     from the system (printed, so the run can be repeated with --seed).
     The size is estimated first; nothing is left behind if the run fails.
+    With a target, a fit that moves the RMS delay spread by more than
+    --fit-tolerance-pct is a missed target: exit 1, nothing written, unless
+    --accept-fit.
     """
     from emucompile import compiler
     from emucompile.bundle import DEFAULT_MAX_SIZE_BYTES
@@ -534,9 +540,9 @@ def _compile_summary(result) -> str:
             f"mapping, bulk delay {fir['bulk_delay_samples']} samples, energy kept {fir['energy_kept']:.4f}, "
             f"RMS delay spread {fir['rms_delay_spread_s'] * 1e9:.1f} ns"
         )
-    costs = (manifest.get("target") or {}).get("costs")
-    if costs:
-        lines.append("target fit  " + _costs_text(costs))
+    fit = _fit_summary_lines(manifest)
+    if fit:
+        lines.append("emulator fit  " + "\n              ".join(fit))
     total = sum(entry["size_bytes"] for entry in manifest["files"])
     lines.append(f"files       {len(manifest['files'])} ({_size_text(total)}):")
     lines += [f"              {entry['name']}  {_size_text(entry['size_bytes'])}" for entry in manifest["files"][:12]]
@@ -546,28 +552,12 @@ def _compile_summary(result) -> str:
     return "\n".join(lines)
 
 
-def _costs_text(costs: dict) -> str:
-    """What fitting to the target cost, on a few lines."""
-    def db(value):
-        return "none" if value is None else f"{value:.1f} dB"
+def _fit_summary_lines(manifest: dict) -> list[str]:
+    """The "emulator fit" section of compile's summary (empty without a target)."""
+    from emucompile.target import fit_lines, fit_record
 
-    merged = costs.get("merged") or []
-    dropped = costs.get("dropped_taps") or []
-    lines = [
-        f"{costs['delay_mapping']} mapping, delay step {costs['delay_step_samples']} sample(s): "
-        f"{costs['n_paths']} path(s), {len(merged)} merged group(s), {len(dropped)} tap(s) dropped",
-        f"RMS delay spread {costs['profile_rms_delay_spread_s'] * 1e9:.1f} -> "
-        f"{costs['fit_rms_delay_spread_s'] * 1e9:.1f} ns; power dropped {costs['power_dropped_db']:.3f} dB; "
-        f"largest delay error {costs['max_abs_delay_error_s'] * 1e9:.1f} ns",
-        f"update images {db(costs.get('image_to_wanted_db'))} ({costs['between_updates']} at "
-        f"{costs['update_rate_hz']:g} Hz), droop {costs['droop_db']:.3f} dB",
-    ]
-    quantisation = costs.get("quantisation")
-    if quantisation:
-        lines.append(f"coefficient SQNR {quantisation['sqnr_db']:.1f} dB ({quantisation['bits']} bits, "
-                     f"headroom {quantisation['headroom_db']:g} dB)")
-    lines += [f"note: {note}" for note in costs.get("notes") or []]
-    return "\n            ".join(lines)
+    record = fit_record(manifest)
+    return [] if record is None else fit_lines(record)
 
 
 def main(argv=None):

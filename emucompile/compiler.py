@@ -89,6 +89,7 @@ class CompilePlan:
     max_size_bytes: int | None
     sources: dict = field(default_factory=dict)
     warnings: tuple = ()
+    fit_acceptance: object | None = None  # emucompile.target.FitAcceptance of a target fit
     engine: fading.FadingPlan = field(default=None, repr=False, compare=False)
     channel: ChannelPlan = field(default=None, repr=False, compare=False)
 
@@ -126,6 +127,8 @@ def plan_compile(
     method: str | None = None,
     force: bool = False,
     max_size_bytes: int | None = DEFAULT_MAX_SIZE_BYTES,
+    fit_tolerance_pct: float | None = None,
+    accept_fit: bool = False,
 ) -> CompilePlan:
     """Settle and check every choice of a compile run (see the module notes for defaults).
 
@@ -148,11 +151,19 @@ def plan_compile(
         Replace OUTDIR if it is a bundle.
     max_size_bytes : int or None
         Refuse to write more (None: no limit).
+    fit_tolerance_pct : float, optional
+        How far a target fit may move the RMS delay spread, in % of the
+        profile's (default :data:`emucompile.target.DEFAULT_FIT_TOLERANCE_PCT`).
+    accept_fit : bool
+        Accept a fit beyond that tolerance (recorded in the manifest).
 
     Raises
     ------
     emucompile.errors.InputError
         On any impossible request, with the limit and what would work.
+    emucompile.target.TargetMissed
+        (exit 1) The fit moves the RMS delay spread beyond the tolerance and
+        ``accept_fit`` is False; nothing is written.
     """
     profile, profile_sha256 = _profile_and_hash(profile)
     defaults = profile.compile
@@ -197,6 +208,7 @@ def plan_compile(
     rate_fs = _pick(sources, "sample_rate_hz", sample_rate_hz, defaults.sample_rate_hz)
 
     fit = None
+    acceptance = None
     grid_map = None
     conditions = profile.conditions
     moving = getattr(conditions, "moving_propagation", None)
@@ -222,6 +234,7 @@ def plan_compile(
         fit = fit_to_target(target_obj, profile, update_rate_hz=rate, sample_rate_hz=rate_fs,
                             delay_mapping=mapping)
         grid_map = fit.fir_map
+        acceptance = _judge_fit(fit, fit_tolerance_pct, accept_fit)
     elif rate_fs is not None:
         rate_fs = _positive("sample rate", rate_fs, "Hz")
         grid_map = fir_map([t.delay_s for t in profile.taps], [t.power_linear for t in profile.taps],
@@ -244,6 +257,7 @@ def plan_compile(
         fir_map=None if grid_map is None else grid_map.matrix,
         fir_maps=grid_map.maps if moving is not None else None,
         extra_arrays=extra,
+        fir_codes=None if fit is None else _fir_codes(fit),
         csv_max_rows=None if force else BundleLayout.__dataclass_fields__["csv_max_rows"].default,
     )
     if max_size_bytes is not None and layout.estimated_size_bytes > max_size_bytes:
@@ -264,6 +278,7 @@ def plan_compile(
         formats=formats_value,
         fir=grid_map,
         target_fit=fit,
+        fit_acceptance=acceptance,
         layout=layout,
         force=force,
         max_size_bytes=max_size_bytes,
@@ -289,6 +304,8 @@ def compile_profile(
     method: str | None = None,
     force: bool = False,
     max_size_bytes: int | None = DEFAULT_MAX_SIZE_BYTES,
+    fit_tolerance_pct: float | None = None,
+    accept_fit: bool = False,
     progress=None,
     plan: CompilePlan | None = None,
 ) -> CompileResult:
@@ -330,6 +347,12 @@ def compile_profile(
         Replace ``outdir`` if it is a bundle (``--force``).
     max_size_bytes : int or None
         Refuse to write more; None: no limit (``--max-size``).
+    fit_tolerance_pct : float, optional
+        How far the target fit may move the RMS delay spread, in % of the
+        profile's, before the target counts as missed (``--fit-tolerance-pct``).
+    accept_fit : bool
+        Write the bundle even when the fit moves it further, recording the
+        acceptance in the manifest (``--accept-fit``).
     progress : callable(samples_done, samples_total), optional
         Called as the record is written (the command line draws its bar with
         it; ``--quiet`` passes none).
@@ -358,7 +381,8 @@ def compile_profile(
     choices = dict(duration_s=duration_s, update_rate_hz=update_rate_hz, seed=seed,
                    sample_rate_hz=sample_rate_hz, delay_mapping=delay_mapping, target=target,
                    formats=formats, periodic=periodic, method=method, force=force,
-                   max_size_bytes=max_size_bytes)
+                   max_size_bytes=max_size_bytes, fit_tolerance_pct=fit_tolerance_pct,
+                   accept_fit=accept_fit)
     if plan is None:
         plan = plan_compile(profile, outdir, **choices)
     else:
@@ -406,6 +430,8 @@ def manifest_fields(plan: CompilePlan) -> dict:
     }
     if plan.target_fit is not None:
         fields["target"] = _target_entry(plan.target_fit)
+        if plan.fit_acceptance is not None:
+            fields["target"]["fit_acceptance"] = plan.fit_acceptance.to_dict()
     return fields
 
 
@@ -514,6 +540,7 @@ def _replan(manifest: dict, path) -> CompilePlan:
 
         target = parse_target(manifest["target"]["constraints"], file=f"{path}/manifest.json",
                               base_pointer="/target/constraints")
+    acceptance = (manifest.get("target") or {}).get("fit_acceptance") or {}
     return plan_compile(
         profile,
         Path(path),
@@ -526,6 +553,8 @@ def _replan(manifest: dict, path) -> CompilePlan:
         periodic=manifest["periodic"],
         method=manifest["method"],
         max_size_bytes=None,
+        fit_tolerance_pct=acceptance.get("tolerance_pct"),
+        accept_fit=True,  # the bundle exists: its fit was judged when it was made (manifest target.fit_acceptance)
     )
 
 
@@ -622,6 +651,28 @@ def _fir_entry(grid_map: FirMap) -> dict:
     entry = dict(grid_map.manifest_entry())
     entry["parameters"] = grid_map.parameters()
     return entry
+
+
+def _judge_fit(fit, tolerance_pct, accept_fit):
+    """The fit's delay-spread judgement; raise TargetMissed (exit 1) when missed and not accepted."""
+    from emucompile import target as target_module
+
+    tolerance = target_module.DEFAULT_FIT_TOLERANCE_PCT if tolerance_pct is None else tolerance_pct
+    acceptance = target_module.judge_fit(fit.costs, tolerance, accepted=accept_fit)
+    if acceptance.missed:
+        raise target_module.missed_target_error(fit.costs, acceptance)
+    return acceptance
+
+
+def _fir_codes(fit) -> dict | None:
+    """What the integer FIR coefficients' writer needs, when the target states a bit width."""
+    quantisation = fit.costs.quantisation
+    if quantisation is None:
+        return None
+    grid = fit.fir_map
+    return {"columns": [int(c) for c in grid.nonzero_columns], "bits": quantisation.bits,
+            "step": quantisation.step, "headroom_db": quantisation.headroom_db,
+            "sample_rate_hz": grid.sample_rate_hz, "bulk_delay_samples": grid.bulk_delay_samples}
 
 
 def _target_entry(fit) -> dict:

@@ -31,6 +31,12 @@ Formats (the layout of each is also written into its manifest entry):
 ``fir``
     ``fir.npy``: the materialised FIR, tap_gains @ fir_map, complex64 of shape
     (n_samples, n_rx, n_tx, n_fir).
+FIR coefficient codes (written whenever a target states ``coefficient_bits``)
+    ``fir_coefficients.ci16`` (bits <= 16) or ``.ci32``: the integers the
+    emulator loads, headerless little-endian two's complement, I then Q, over
+    (sample, rx, tx, path, iq); path p is FIR column ``columns[p]`` of the
+    entry; coefficient = (I + jQ) * ``step`` (see :class:`FirCodesWriter`
+    and ``docs/fir-coefficients.md``).
 
 References
 ----------
@@ -643,6 +649,95 @@ class SigmfWriter:
             handle.discard()
 
 
+FIR_CODES_ROLE = "fir_coefficients_int"
+FIR_CODES_AXES = ("sample", "rx", "tx", "path", "iq")
+
+
+class FirCodesWriter(ArrayWriter):
+    """``fir_coefficients.ci16`` / ``.ci32``: the FIR coefficients as the emulator's integers.
+
+    Coefficient c of path p at sample n is FIR column ``columns[p]`` of
+    tap_gains(n) @ fir_map, accumulated in complex128 in tap order (as
+    :class:`FirWriter`); each part becomes
+    code = clip(round_half_even(part / step), -2^(b-1), 2^(b-1) - 1),
+    two's complement on b = ``bits`` bits, stored in int16 (b <= 16) or int32,
+    little-endian, I then Q. ``step`` = full_scale / 2^(b-1), full_scale the
+    target fit's (10^(headroom/20) x the RMS of the strongest coefficient,
+    :func:`emucompile.target.coefficient_quantisation`). Only the columns
+    some tap reaches are stored (the paths; the other columns are 0). Clipped
+    parts are counted per path, and the SQNR measured per path (signal power
+    over error power, clipping included). Elementwise arithmetic: the bytes
+    do not depend on the chunking.
+    """
+
+    _block_elements = 1 << 20
+
+    def __init__(self, fir_map, columns, bits, step, n_samples, n_rx, n_tx, *, headroom_db=None,
+                 sample_rate_hz=None, bulk_delay_samples=0):
+        self.fir_map = np.asarray(fir_map, dtype=float)
+        self.columns = [int(c) for c in columns]
+        self.bits = int(bits)
+        if not 2 <= self.bits <= 32:
+            raise ValueError(f"bits must be in 2..32, got {bits!r}")
+        self.step = float(step)
+        if not (self.step > 0 and math.isfinite(self.step)):
+            raise ValueError(f"step must be finite and > 0, got {step!r}")
+        self.headroom_db = headroom_db
+        self.sample_rate_hz = sample_rate_hz
+        self.bulk_delay_samples = int(bulk_delay_samples)
+        self.low, self.high = -(2 ** (self.bits - 1)), 2 ** (self.bits - 1) - 1
+        dtype, suffix = (np.int16, "ci16") if self.bits <= 16 else (np.int32, "ci32")
+        super().__init__(f"fir_coefficients.{suffix}", FIR_CODES_ROLE, dtype,
+                         (n_samples, n_rx, n_tx, len(self.columns), 2), FIR_CODES_AXES, header=False)
+        n_paths = len(self.columns)
+        self._signal = np.zeros(n_paths)
+        self._error = np.zeros(n_paths)
+        self._clipped = np.zeros(n_paths, dtype=np.int64)
+
+    def encode(self, chunk):
+        weights = self.fir_map[:, self.columns]  # (n_taps, n_paths)
+        accumulator = np.zeros((*chunk.shape[:3], len(self.columns)), dtype=np.complex128)
+        for k in range(chunk.shape[3]):
+            accumulator += chunk[..., k, None].astype(np.complex128) * weights[k]
+        parts = accumulator.view(np.float64).reshape(*accumulator.shape, 2)
+        scaled = parts / self.step
+        codes = np.rint(scaled)
+        over = (codes < self.low) | (codes > self.high)
+        np.clip(codes, self.low, self.high, out=codes)
+        samples_links_iq = (0, 1, 2, 4)
+        self._clipped += over.sum(axis=samples_links_iq)
+        self._signal += np.square(parts).sum(axis=samples_links_iq)
+        self._error += np.square((scaled - codes) * self.step).sum(axis=samples_links_iq)
+        return codes.astype(self.dtype)
+
+    def close(self, **context) -> list[dict]:
+        entries = super().close()
+        entry = entries[0]
+        entry["element"] = (f"int{self.dtype.itemsize * 8} I then Q, two's complement on {self.bits} bits; "
+                            "coefficient = (I + jQ) * step")
+        entry["coefficient_codes"] = {
+            "bits": self.bits,
+            "step": self.step,
+            "full_scale": self.step * 2.0 ** (self.bits - 1),
+            "headroom_db": self.headroom_db,
+            "code_range": [self.low, self.high],
+            "rounding": f"round half to even, then clip to [{self.low}, {self.high}]",
+            "columns": list(self.columns),
+            "sample_rate_hz": self.sample_rate_hz,
+            "bulk_delay_samples": self.bulk_delay_samples,
+            "delays_s": [(c - self.bulk_delay_samples) / self.sample_rate_hz if self.sample_rate_hz else None
+                         for c in self.columns],
+            "clipped_values": int(self._clipped.sum()),
+            "clipped_values_per_path": [int(c) for c in self._clipped],
+            "sqnr_db_per_path": [_db_ratio(s, e) for s, e in zip(self._signal, self._error)],
+            "sqnr_db": _db_ratio(float(self._signal.sum()), float(self._error.sum())),
+            "note": ("path p is FIR column columns[p] of tap_gains @ fir_map (delay (column - bulk_delay_samples) "
+                     "/ sample_rate_hz); columns no tap reaches are 0 and not stored; sqnr measured over every "
+                     "sample and link, clipping included (null when undefined)"),
+        }
+        return entries
+
+
 # -- helpers ---------------------------------------------------------------------------
 
 
@@ -679,4 +774,5 @@ __all__ = [
     "SIGMF_VERSION", "Ci16Scaling", "ci16_scaling", "read_npy", "read_cf32", "read_ci16",
     "read_csv", "read_sigmf", "sha256_file", "HashedFile", "npy_header", "write_npy_file",
     "StreamWriter", "ArrayWriter", "FirWriter", "Ci16Writer", "CsvWriter", "SigmfWriter",
+    "FirCodesWriter", "FIR_CODES_ROLE",
 ]

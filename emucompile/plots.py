@@ -110,6 +110,17 @@ def make_figures(verification) -> list[tuple[str, bytes]]:
         tasks.append(("Channel magnitude |H(f, t)| across the band",
                       lambda: _transfer_figure(profile, records, rate, np.asarray(fir),
                                                getattr(verification, "sample_rate_hz", None), models)))
+    fit = getattr(verification, "fit", None)
+    if fit and fir is not None and getattr(verification, "fir_delays_s", None) is not None:
+        tasks.append(("Emulator fit: the profile's taps and the fitted paths",
+                      lambda: _fit_figure(profile, fit, np.asarray(fir), np.asarray(verification.fir_delays_s))))
+    mimo = getattr(verification, "mimo", None)
+    if mimo and mimo.get("taps"):
+        tasks.append((f"MIMO correlation: expected and achieved, {len(mimo['links'])} links",
+                      lambda: _mimo_figure(mimo)))
+    conditions = getattr(verification, "conditions", None)
+    if conditions:
+        tasks.append(("Time-varying conditions over the record", lambda: _conditions_figure(conditions)))
     pngs = [_render(make) for _, make in tasks]
     return [(title, png) for (title, _), png in zip(tasks, pngs) if png is not None]
 
@@ -308,16 +319,20 @@ def _grid_figure(group, draw, title):
     columns = min(_COLUMNS, len(panels))
     rows = math.ceil(len(panels) / columns)
     width_in = _PANEL_SIZE_IN[0] * columns + 0.6
-    height_in = _PANEL_SIZE_IN[1] * rows + 0.75
+    header_in = 0.75 if columns > 1 else 1.0  # one column: the key goes on a line of its own
+    height_in = _PANEL_SIZE_IN[1] * rows + header_in
     figure = Figure(figsize=(width_in, height_in), dpi=DPI)
     figure.text(0.5 / width_in, 1.0 - 0.3 / height_in, title, fontsize=13, fontweight="bold", va="center")
     key = ("measured: wide pale line; theory: dashed, in the tap's colour" if draw is not _draw_envelope
            else "each tap's trace on its own 0 dB line")
-    figure.text(1.0 - 0.2 / width_in, 1.0 - 0.3 / height_in, key, fontsize=9, ha="right", va="center",
-                color="0.3")
+    if columns > 1:
+        figure.text(1.0 - 0.2 / width_in, 1.0 - 0.3 / height_in, key, fontsize=9, ha="right", va="center",
+                    color="0.3")
+    else:  # one panel is too narrow for the title and the key on one line: the key goes below the title
+        figure.text(0.5 / width_in, 1.0 - 0.55 / height_in, key, fontsize=8, ha="left", va="center", color="0.3")
     # Fixed margins in inches (tight_layout measures every label: slow and not needed).
     figure.subplots_adjust(left=0.8 / width_in, right=1.0 - 0.2 / width_in,
-                           bottom=_LEGEND_IN / height_in, top=1.0 - 0.75 / height_in,
+                           bottom=_LEGEND_IN / height_in, top=1.0 - header_in / height_in,
                            wspace=0.35 / (_PANEL_SIZE_IN[0] - 1.0),
                            hspace=(_LEGEND_IN + 0.3) / (_PANEL_SIZE_IN[1] - _LEGEND_IN - 0.3))
     for i, taps in enumerate(panels):
@@ -378,9 +393,13 @@ def _delay_profile_figure(profile, records):
     if measured:
         x, y = zip(*measured)
         ax.plot(x, y, "x", color="#d62728", markersize=9, markeredgewidth=2, label="measured mean power")
-    for i, (d, p) in enumerate(zip(delays * scale, powers_db)):
-        ax.annotate(str(i), (d, p), textcoords="offset points", xytext=(0, 7), ha="center", fontsize=8)
     span = max(np.ptp(delays * scale), 1.0)
+    level, previous = 0, None
+    for i, (d, p) in enumerate(zip(delays * scale, powers_db)):
+        # labels of taps closer than 3 % of the axis are stacked, so they never overlap
+        level = level + 1 if previous is not None and d - previous < 0.03 * span else 0
+        previous = d
+        ax.annotate(str(i), (d, p), textcoords="offset points", xytext=(0, 7 + 10 * level), ha="center", fontsize=8)
     ax.set_xlim(delays.min() * scale - 0.05 * span, delays.max() * scale + 0.05 * span)
     ax.set_ylim(bottom, max(powers_db.max(), max((m[1] for m in measured), default=-np.inf)) + 4.0)
     ax.set_xlabel(f"excess delay ({unit})")
@@ -435,6 +454,96 @@ def _transfer_figure(profile, records, rate_hz, fir, sample_rate_hz, models):
     note = f"; {missing} tap(s) without a record left out" if missing else ""
     ax.set_title(f"|H(f, t)| at {sample_rate_hz / 1e6:.6g} MHz sampling, {n_fir} FIR coefficients{note}",
                  fontsize=11)
+    return figure
+
+
+def _fit_figure(profile, fit, fir, coefficient_delays_s):
+    """The profile's taps (dropped ones marked) beside the fitted grid's paths (coefficient powers)."""
+    delays = np.array([t.delay_s for t in profile.taps], dtype=float)
+    powers = np.array([t.power_linear for t in profile.taps], dtype=float)
+    path_powers = powers @ (fir * fir)
+    used = path_powers > 0
+    scale, unit = (1e9, "ns") if max(delays.max(initial=0.0), coefficient_delays_s.max(initial=0.0)) < 2e-6 \
+        else (1e6, "\u00b5s")
+    figure = Figure(figsize=(8.0, 3.8), dpi=DPI, layout="constrained")
+    ax = figure.add_subplot(1, 1, 1)
+    profile_db = 10.0 * np.log10(powers)
+    path_db = 10.0 * np.log10(path_powers[used])
+    bottom = math.floor((min(profile_db.min(), path_db.min(initial=0.0)) - 8.0) / 5.0) * 5.0
+    dropped = np.zeros(len(delays), bool)
+    dropped[list(fit.get("taps_dropped") or ())] = True
+    ax.vlines(delays[~dropped] * scale, bottom, profile_db[~dropped], color="0.55", linewidth=1.0)
+    ax.plot(delays[~dropped] * scale, profile_db[~dropped], "o", color="0.55", markersize=4, label="profile tap")
+    if dropped.any():
+        ax.plot(delays[dropped] * scale, profile_db[dropped], "x", color="#d62728", markersize=8,
+                markeredgewidth=2, label="profile tap dropped by the fit")
+    ax.plot(coefficient_delays_s[used] * scale, path_db, "s", markerfacecolor="none", color=MEASURED_COLOR,
+            markersize=9, markeredgewidth=1.6, label="fitted path (coefficient power)")
+    spread = fit["rms_delay_spread_s"]
+    ax.set_title(f"RMS delay spread {spread['profile'] * scale:.4g} \u2192 {spread['fitted'] * scale:.4g} {unit}",
+                 fontsize=11)
+    ax.set_xlabel(f"delay ({unit})")
+    ax.set_ylabel("mean power (dB)")
+    ax.set_ylim(bottom, max(profile_db.max(), path_db.max(initial=-np.inf)) + 3.0)
+    ax.grid(True, color="0.88", linewidth=0.7)
+    ax.legend(fontsize=8, loc="upper right")
+    return figure
+
+
+def _mimo_figure(mimo):
+    """|expected| and |achieved| correlation of one tap's links as heat maps, and the largest deviation."""
+    taps = mimo["taps"]
+    tap = next(iter(taps))
+    expected = np.abs(np.asarray(taps[tap]["expected"]))
+    achieved = np.abs(np.asarray(taps[tap]["achieved"]))
+    deviation = np.max([np.abs(np.asarray(t["achieved"]) - np.asarray(t["expected"])) for t in taps.values()], axis=0)
+    labels = list(mimo["links"])
+    n = len(labels)
+    side = max(3.0, 0.42 * n + 1.6)
+    figure = Figure(figsize=(3 * side + 1.2, side + 1.1), dpi=DPI, layout="constrained")
+    panels = ((expected, "expected |\u03c1| (profile)", 0.0, 1.0),
+              (achieved, f"achieved |\u03c1|, tap {tap}", 0.0, 1.0),
+              (deviation, f"max |achieved \u2212 expected|, {len(taps)} taps", 0.0, max(0.05, float(deviation.max()))))
+    for k, (values, title, low, high) in enumerate(panels):
+        ax = figure.add_subplot(1, 3, k + 1)
+        image = ax.imshow(values, cmap="viridis", vmin=low, vmax=high, interpolation="nearest")
+        ax.set_xticks(range(n), labels, rotation=90, fontsize=7)
+        ax.set_yticks(range(n), labels, fontsize=7)
+        ax.set_title(title, fontsize=9, pad=6)
+        if n <= 8:
+            for i in range(n):
+                for j in range(n):
+                    shade = "black" if values[i, j] > low + 0.6 * (high - low) else "white"
+                    ax.text(j, i, f"{values[i, j]:.2f}", ha="center", va="center", fontsize=7, color=shade)
+        figure.colorbar(image, ax=ax, fraction=0.046, pad=0.03).ax.tick_params(labelsize=7)
+    return figure
+
+
+def _conditions_figure(conditions):
+    """The trajectories of the time-varying conditions, one panel each, stacked."""
+    panels = []
+    if "high_speed_train" in conditions:
+        entry = conditions["high_speed_train"]
+        panels.append((entry["time_s"], entry["doppler_hz"], "Doppler (Hz)", "high-speed train: direct-part Doppler"))
+    if "moving_delay" in conditions:
+        entry = conditions["moving_delay"]
+        panels.append((entry["time_s"], np.asarray(entry["delay_offset_s"]) * 1e6, "delay offset (\u00b5s)",
+                       "moving delay: offset of every tap"))
+    if "shadowing" in conditions:
+        entry = conditions["shadowing"]
+        panels.append((entry["time_s"], entry["gain_db"], "gain (dB)", "log-normal shadowing: gain as written"))
+    if not panels:
+        return None
+    figure = Figure(figsize=(9.0, 2.4 * len(panels) + 0.4), dpi=DPI, layout="constrained")
+    for k, (t, y, label, title) in enumerate(panels):
+        ax = figure.add_subplot(len(panels), 1, k + 1)
+        scale, unit = _time_unit(max(float(np.max(t)), 1e-9))
+        ax.plot(np.asarray(t) * scale, y, color=MEASURED_COLOR, linewidth=1.2)
+        ax.set_ylabel(label, fontsize=9)
+        ax.set_xlabel(f"time ({unit})", fontsize=9)
+        ax.set_title(title, fontsize=10, loc="left", pad=4)
+        ax.grid(True, color="0.88", linewidth=0.7)
+        ax.tick_params(labelsize=8)
     return figure
 
 

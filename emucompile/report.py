@@ -8,12 +8,17 @@ so it opens the same way offline, years later, on any browser. Every piece of
 text that comes from the data (profile name and description, check names,
 reasons, hashes) is HTML-escaped.
 
-Sections, in order: the verdict; the foreign-data note (when the gains were
-not made by emucompile); the profile and its statistics; the checks table
-(verdict, value, expected, tolerance, smallest detectable deviation, unit,
-p-value and the level it was tested at); the family-wise false-alarm rate
-and what it means; the figures; the bundle's identity (hashes, seed,
-versions); the cautions; a signature block.
+Sections, in order: the verdict with the linked list of failed checks; the
+foreign-data note (when the gains were not made by emucompile); the profile
+and its statistics; the emulator fit (bundles fitted to a target: taps merged
+and dropped, delay spread and mean delay before and after, power dropped,
+update images, coefficient SQNR and clip counts); the MIMO set-up (expected
+and achieved correlation); the time-varying conditions; the checks as a
+compact taps x checks matrix (one mark per cell, the numbers in the cell's
+title, shown on hover) and a short table of the checks of no single tap, each
+saying what it compared with what; the family-wise false-alarm rate and what
+it means; the figures; the bundle's identity (hashes, seed, versions); the
+cautions; a signature block. A print style sheet lays it out on A4.
 """
 
 from __future__ import annotations
@@ -94,6 +99,8 @@ def render_report(verification, figures=(), *, title: str | None = None,
     title = title or f"Verification report: {name}"
     created = created_utc or _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
     checks = list(getattr(verification, "checks", None) or [])
+    figures = list(figures or ())
+    fit = getattr(verification, "fit", None)
     parts = [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
@@ -103,11 +110,18 @@ def render_report(verification, figures=(), *, title: str | None = None,
         f"<h1>{_e(title)}</h1>",
         f'<p class="meta">Written {_e(created)} by emucompile {_e(__version__)}.</p>',
         _verdict_section(verification, checks),
+        _failed_section(checks, fit),
     ]
     if getattr(verification, "foreign", False):
         parts.append(f'<div class="note"><strong>Foreign data.</strong> {_e(FOREIGN_NOTE)}</div>')
+    section_figures, figures = _take_figures(figures, ("MIMO correlation", "Time-varying conditions",
+                                                       "Emulator fit"))
     parts += [
         _profile_section(verification),
+        _fit_section(fit, section_figures.get("Emulator fit")),
+        _figure_section("MIMO set-up", "mimo", section_figures.get("MIMO correlation"), _mimo_text(verification)),
+        _figure_section("Time-varying conditions", "conditions", section_figures.get("Time-varying conditions"),
+                        _conditions_text(verification)),
         _checks_section(verification, checks),
         _figures_section(figures),
         _identity_section(getattr(verification, "identity", None) or {}),
@@ -196,63 +210,329 @@ def _profile_section(verification) -> str:
     out += [f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in rows]
     out.append("</table>")
     taps = stats.get("taps") or []
+    fit_notes = _fit_per_tap(getattr(verification, "fit", None))
     if taps:
         out.append('<h3>Taps</h3><table class="grid"><tr><th>#</th><th>delay</th><th>power (dB)</th>'
-                   "<th>fading</th><th>K (dB)</th></tr>")
+                   "<th>fading</th><th>K (dB)</th>" + ("" if fit_notes is None else "<th>emulator fit</th>") + "</tr>")
         for i, tap in enumerate(taps):
             k_db = tap.get("k_db")
+            note = "" if fit_notes is None else f"<td>{_e(fit_notes.get(i, 'kept'))}</td>"
             out.append(f"<tr><td>{i}</td><td>{_e(_si(tap.get('delay_s'), 's'))}</td>"
                        f"<td>{_e(_number(tap.get('power_db')))}</td><td>{_e(tap.get('fading', ''))}</td>"
-                       f"<td>{_e(_number(k_db)) if k_db is not None else '&ndash;'}</td></tr>")
+                       f"<td>{_e(_number(k_db)) if k_db is not None else '&ndash;'}</td>{note}</tr>")
         out.append("</table>")
     return "\n".join(out)
 
 
+def _fit_per_tap(fit) -> dict | None:
+    """Tap index -> what the fit did to it ("dropped", "merged with ... at ..."); None without a fit."""
+    if not fit:
+        return None
+    notes = {tap: "dropped" for tap in fit.get("taps_dropped") or ()}
+    for merged in fit.get("taps_merged") or ():
+        for tap in merged["taps"]:
+            others = [str(t) for t in merged["taps"] if t != tap]
+            notes[tap] = f"merged with {', '.join(others)} at {_si(merged['delay_s'], 's')}"
+    return notes
+
+
 def _checks_section(verification, checks) -> str:
-    head = ("<tr><th>#</th><th>check</th><th>tap</th><th>verdict</th><th>value</th><th>expected</th>"
-            "<th>tolerance</th><th>smallest detectable</th><th>unit</th><th>p-value</th>"
-            "<th>tested at</th><th>note</th></tr>")
-    out = ["<h2>Checks</h2>", f'<p class="explain">{_e(_holm_explanation(verification))}</p>',
-           '<table class="grid checks">', head]
-    for i, check in enumerate(checks, start=1):
-        passed = _get(check, "passed")
-        reason = _get(check, "reason") or ""
-        if passed is True:
-            mark, css = "\u2714 pass", "pass"
-        elif passed is False:
-            mark, css = "\u2718 FAIL", "fail"
-        elif "not enough data" in reason.lower():
-            mark, css = "\u2013 not enough data", "na"
-        else:
-            mark, css = "\u2013 not applicable", "na"
-        cells = [
-            str(i), _get(check, "name") or "", _tap_text(_get(check, "tap")), mark,
-            _number(_get(check, "value")), _number(_get(check, "expected")),
-            _number(_get(check, "tolerance"), plus_minus=True), _number(_get(check, "min_detectable")),
-            _get(check, "unit") or "", _number(_get(check, "p_value")), _number(_get(check, "level")),
-            reason,
-        ]
-        row = "".join(
-            f'<td class="{css}">{_e(c)}</td>' if j == 3 else f"<td>{_e(c)}</td>" for j, c in enumerate(cells)
-        )
-        out.append(f'<tr class="row-{css}">{row}</tr>')
-    out.append("</table>")
+    """The per-tap checks as a taps x checks matrix, then the checks of no single tap."""
+    from emucompile.verify import check_matrix
+
+    fit = getattr(verification, "fit", None)
+    matrix = check_matrix(checks)
+    out = ['<h2 id="checks">Checks</h2>', f'<p class="explain">{_e(_holm_explanation(verification))}</p>',
+           '<p class="explain">One mark per tap and check: \u2714 every link passed, \u2718 at least one failed, '
+           "\u2013 not applicable or not enough data. Hover over a mark (or read verification.json, "
+           "<code>check_matrix</code> and <code>checks</code>) for the numbers: value, expected, tolerance, "
+           "what was compared with what.</p>"]
+    placed = set()
+    if matrix["rows"]:
+        columns = matrix["columns"]
+        out.append('<table class="grid matrix"><thead><tr><th>source</th><th>tap</th>'
+                   + "".join(f'<th class="rot"><span>{_e(_short(c))}</span></th>' for c in columns)
+                   + "</tr></thead><tbody>")
+        for row in matrix["rows"]:
+            cells = []
+            for column in columns:
+                cell = row["cells"].get(column)
+                if cell is None:
+                    cells.append('<td class="empty"></td>')
+                    continue
+                indices = cell["checks"]
+                placed.update(indices)
+                mark, css = _mark(cell["passed"], [checks[i] for i in indices])
+                anchors = "".join(f'<span id="check-{i + 1}"></span>' for i in indices)
+                title = "\n".join(_check_line(checks[i], fit) for i in indices)
+                cells.append(f'<td class="{css}" title="{_e(title)}">{anchors}{mark}</td>')
+            source = row["source"] or "gains as stored"
+            out.append(f'<tr class="row-{_row_css(row)}"><td>{_e(source)}</td><td>{_e(_tap_text(row["tap"]))}</td>'
+                       + "".join(cells) + "</tr>")
+        out.append("</tbody></table>")
+    others = [i for i in range(len(checks)) if i not in placed]
+    if others:
+        out.append('<h3>Checks of no single tap</h3>')
+        groups = {}
+        for i in others:
+            groups.setdefault(_base_name(_get(checks[i], "name") or ""), []).append(i)
+        out.append('<table class="grid others"><tr><th>check</th><th>verdict</th><th>what was compared</th>'
+                   "<th>result</th></tr>")
+        for base, indices in groups.items():
+            if len(indices) == 1:
+                check = checks[indices[0]]
+                mark, css = _mark(_get(check, "passed"), [check])
+                out.append(f'<tr id="check-{indices[0] + 1}"><td>{_e(base)}</td><td class="{css}">{mark}</td>'
+                           f"<td>{_e(_comparison(check, fit)['comparison'])}</td>"
+                           f"<td>{_e(_result_text(check))}</td></tr>")
+                continue
+            passed = [_get(checks[i], "passed") for i in indices]
+            verdict = False if False in passed else True if True in passed else None
+            mark, css = _mark(verdict, [checks[i] for i in indices])
+            worst = _worst(checks, indices)
+            anchors = "".join(f'<span id="check-{i + 1}"></span>' for i in indices)
+            summary = (f"{len(indices)} checks: {passed.count(True)} passed, {passed.count(False)} failed, "
+                       f"{passed.count(None)} not applicable"
+                       + (f"; closest to its bound: {_check_line(checks[worst], fit)}" if worst is not None else ""))
+            out.append(f"<tr><td>{anchors}{_e(base)}</td><td class=\"{css}\">{mark}</td>"
+                       f"<td>{_e(_comparison(checks[indices[0]], fit)['comparison'])}</td><td>{_e(summary)}</td></tr>")
+        out.append("</table>")
     if not checks:
         out.append("<p>No checks were run.</p>")
     return "\n".join(out)
 
 
+def _failed_section(checks, fit) -> str:
+    """The failed checks, each linked to its place in the checks section; the fit if it was accepted."""
+    out = []
+    acceptance = (fit or {}).get("acceptance") or {}
+    if acceptance and not acceptance.get("within_tolerance"):
+        spread = fit["rms_delay_spread_s"]
+        out.append('<div class="note"><strong>Emulator fit beyond its tolerance.</strong> '
+                   + _e(f"The fit moves the RMS delay spread from {_si(spread['profile'], 's')} to "
+                        f"{_si(spread['fitted'], 's')} ({_number(spread['change_pct'])} %), beyond the "
+                        f"{_number(acceptance.get('tolerance_pct'))} % tolerance")
+                   + (_e("; accepted at compile with --accept-fit (recorded in the manifest).")
+                      if acceptance.get("accepted") else ".")
+                   + ' <a href="#fit">See the emulator fit.</a></div>')
+    failed = [(i, c) for i, c in enumerate(checks) if _get(c, "passed") is False]
+    if failed:
+        items = "".join(f'<li><a href="#check-{i + 1}">{_e(_check_label(c))}</a>: {_e(_result_text(c))}</li>'
+                        for i, c in failed)
+        out.append(f'<div class="failed"><h2 id="failed">Failed checks ({len(failed)})</h2><ol>{items}</ol></div>')
+    return "\n".join(out)
+
+
+def _fit_section(fit, figure=None) -> str:
+    if not fit:
+        return ""
+    spread, mean = fit["rms_delay_spread_s"], fit["mean_delay_s"]
+    images = fit["update_images"]
+    rows = [
+        ("delay mapping", f"{fit['delay_mapping']}, delay step {fit['delay_step_samples']} sample(s) at "
+                          f"{_si(fit['sample_rate_hz'], 'Hz')}; {fit['n_paths']} path(s)"),
+        ("RMS delay spread", f"profile {_si(spread['profile'], 's')} \u2192 fitted {_si(spread['fitted'], 's')}"
+                             + ("" if spread["change_pct"] is None else f" ({spread['change_pct']:+.1f} %)")
+                             + ("" if spread.get("coefficient_powers") in (None, spread["fitted"]) else
+                                f"; coefficient powers {_si(spread['coefficient_powers'], 's')} (the sinc "
+                                "windows' interpolation tails included)")),
+        ("mean delay", f"profile {_si(mean['profile'], 's')} \u2192 fitted {_si(mean['fitted'], 's')}"),
+        ("taps merged", "; ".join(f"taps {', '.join(map(str, m['taps']))} at {_si(m['delay_s'], 's')}"
+                                  + (f" ({m['remark']})" if m.get("remark") else "")
+                                  for m in fit["taps_merged"]) or "none"),
+        ("taps dropped", ", ".join(map(str, fit["taps_dropped"])) or "none"),
+        ("power dropped", f"{_number(fit['power_dropped_db'])} dB"),
+        ("largest delay error", _si(fit["max_abs_delay_error_s"], "s")),
+        ("update images", f"{_number(images['image_to_wanted_db'])} dB of the wanted power "
+                          f"({images['between_updates']} at {_si(images['update_rate_hz'], 'Hz')}); droop "
+                          f"{_number(images['droop_db'])} dB"),
+    ]
+    coefficients = fit.get("coefficients")
+    if coefficients:
+        rows.append(("coefficients", f"{coefficients['bits']} bits per part, headroom {_number(coefficients['headroom_db'])} dB; "
+                                     f"SQNR {_number(coefficients['sqnr_db_model'])} dB (model), "
+                                     f"{_number(coefficients['sqnr_db_measured'])} dB measured; "
+                                     f"{_number(coefficients['clipped_values'])} value(s) clipped"
+                                     + (f" (file {coefficients['file']})" if coefficients.get("file") else "")))
+    acceptance = fit.get("acceptance")
+    if acceptance:
+        verdict = ("within" if acceptance["within_tolerance"] else
+                   "beyond it, accepted with --accept-fit" if acceptance["accepted"] else "beyond it")
+        rows.append(("fit tolerance", f"{_number(acceptance['tolerance_pct'])} % of the profile's RMS delay "
+                                      f"spread: {verdict}"))
+    rows += [("note", note) for note in fit.get("notes") or ()]
+    out = ['<h2 id="fit">Emulator fit</h2>',
+           '<p class="explain">What fitting the profile to the emulator target changed. Checks on the tap gains '
+           "compare with the profile; checks on the FIR (its grid, the delivered coefficients) compare with the "
+           "fitted channel, and say so.</p>", '<table class="kv">']
+    out += [f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in rows]
+    out.append("</table>")
+    if figure is not None:
+        out.append(_figure_html(*figure))
+    return "\n".join(out)
+
+
+def _figure_section(heading, anchor, figure, text) -> str:
+    if figure is None and not text:
+        return ""
+    out = [f'<h2 id="{anchor}">{_e(heading)}</h2>']
+    if text:
+        out.append(f'<p class="explain">{_e(text)}</p>')
+    if figure is not None:
+        out.append(_figure_html(*figure))
+    return "\n".join(out)
+
+
+def _mimo_text(verification) -> str:
+    mimo = getattr(verification, "mimo", None)
+    if not mimo:
+        return ""
+    setup = getattr(getattr(verification, "profile", None), "mimo", None)
+    described = ""
+    if setup is not None:
+        try:
+            from emucompile.blocks import correlation_text
+
+            described = f"{setup.n_rx} rx x {setup.n_tx} tx, correlation {correlation_text(setup.correlation)}. "
+        except (ImportError, AttributeError):
+            described = ""
+    return (described + f"{len(mimo['links'])} links ({', '.join(mimo['links'])}). Left: the correlation the "
+            "profile asks for; middle: the correlation achieved by one tap's links; right: the largest "
+            "|achieved - expected| over every fading tap. " + mimo.get("convention", ""))
+
+
+def _conditions_text(verification) -> str:
+    conditions = getattr(verification, "conditions", None)
+    if not conditions:
+        return ""
+    parts = []
+    if "high_speed_train" in conditions:
+        taps = conditions["high_speed_train"].get("taps") or []
+        parts.append("high-speed train: the direct part's Doppler over the record"
+                     + (f" (taps {', '.join(map(str, taps))})" if taps else ""))
+    if "moving_delay" in conditions:
+        parts.append("moving delay: the common delay offset of every tap")
+    if "shadowing" in conditions:
+        shadowing = conditions["shadowing"]
+        parts.append(f"log-normal shadowing: the gain as written ({shadowing.get('source')}), sigma "
+                     f"{_number(shadowing.get('sigma_db'))} dB, hold {shadowing.get('hold')}")
+    text = "; ".join(parts)
+    return text[:1].upper() + text[1:] + "."
+
+
+def _take_figures(figures, prefixes):
+    """The figures whose title starts with one of ``prefixes`` (one each), and the rest."""
+    taken, rest = {}, []
+    for title, png in figures:
+        prefix = next((p for p in prefixes if title.startswith(p) and p not in taken), None)
+        if prefix is None:
+            rest.append((title, png))
+        else:
+            taken[prefix] = (title, png)
+    return taken, rest
+
+
+def _figure_html(title, png) -> str:
+    data = base64.b64encode(png).decode("ascii")
+    return (f'<figure><img src="data:image/png;base64,{data}" alt="{_e(title)}">'
+            f"<figcaption>{_e(title)}</figcaption></figure>")
+
+
+def _comparison(check, fit) -> dict:
+    from emucompile.verify import comparison
+
+    return comparison(check, fit)
+
+
+def _check_line(check, fit=None) -> str:
+    """One check in words: label, verdict, the numbers, what was compared with what."""
+    passed = _get(check, "passed")
+    verdict = "pass" if passed is True else "FAIL" if passed is False else "not applicable"
+    words = _comparison(check, fit)
+    return (f"{_check_label(check)}: {verdict}; {_result_text(check)} "
+            f"[compared with the {words['compared_with']}: {words['comparison']}]")
+
+
+def _result_text(check) -> str:
+    """Value against expected and tolerance in words; a deviation (expected 0) as a deviation."""
+    value, expected = _get(check, "value"), _get(check, "expected")
+    tolerance, unit = _get(check, "tolerance"), _get(check, "unit") or ""
+    reason = _get(check, "reason") or ""
+    unit_text = f" {unit}" if unit else ""
+    if value is None:
+        return reason or "no value"
+    if _is_deviation(check):
+        text = f"deviation {_number(value)}{unit_text}, allowed up to {_number(tolerance)}{unit_text}"
+    elif expected is None:
+        text = f"value {_number(value)}{unit_text}" + (f", allowed up to {_number(tolerance)}{unit_text}"
+                                                       if tolerance is not None else "")
+    else:
+        text = (f"measured {_number(value)}{unit_text} against {_number(expected)}{unit_text}"
+                + (f" \u00b1 {_number(tolerance)}" if tolerance is not None else " (not judged)"))
+    p_value, level = _get(check, "p_value"), _get(check, "level")
+    if p_value is not None:
+        text += f"; p = {_number(p_value)} tested at {_number(level)}"
+    return text + (f" ({reason})" if reason else "")
+
+
+def _is_deviation(check) -> bool:
+    expected = _get(check, "expected")
+    return isinstance(expected, (int, float)) and not isinstance(expected, bool) and expected == 0
+
+
+def _mark(passed, checks):
+    if passed is True:
+        return "\u2714", "pass"
+    if passed is False:
+        return "\u2718", "fail"
+    reasons = " ".join((_get(c, "reason") or "") for c in checks).lower()
+    return ("\u2013", "na") if "not enough data" not in reasons else ("\u2026", "na")
+
+
+def _row_css(row) -> str:
+    verdicts = [cell["passed"] for cell in row["cells"].values()]
+    return "fail" if False in verdicts else "pass" if True in verdicts else "na"
+
+
+def _worst(checks, indices):
+    """The check of ``indices`` closest to its bound (|value - expected| / tolerance), or None."""
+    best, worst = -1.0, None
+    for i in indices:
+        value, expected, tolerance = (_get(checks[i], k) for k in ("value", "expected", "tolerance"))
+        if not all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in (value, expected, tolerance)):
+            continue
+        if tolerance > 0 and abs(value - expected) / tolerance > best:
+            best, worst = abs(value - expected) / tolerance, i
+    return worst
+
+
+def _base_name(name: str) -> str:
+    return (name.rpartition(": ")[2] if name.startswith("delivered ") else name).split(" [")[0]
+
+
+_SHORT = {"mean_power": "mean power", "k_factor": "K-factor", "envelope_ks": "envelope (KS)",
+          "autocorrelation": "autocorrelation", "doppler_psd": "Doppler PSD", "out_of_band_power": "power beyond f_D",
+          "level_crossing_rate": "level crossings", "fade_duration": "fade duration",
+          "phase_uniformity": "phase uniformity", "power_beyond_record_band": "power beyond record band"}
+
+
+def _short(name: str) -> str:
+    return _SHORT.get(name, name.replace("_", " "))
+
+
+def _check_label(check) -> str:
+    tap = _get(check, "tap")
+    return (_get(check, "name") or "") + ("" if tap is None else f" (tap {_tap_text(tap)})")
+
+
 def _figures_section(figures) -> str:
     figures = list(figures or ())
     if not figures:
-        return "<h2>Figures</h2><p>No figures (plots were not asked for).</p>"
-    out = ["<h2>Figures</h2>",
+        return '<h2 id="figures">Figures</h2><p>No figures (plots were not asked for).</p>'
+    out = ['<h2 id="figures">Figures</h2>',
            '<p class="explain">Measured statistics in colour, theory in black dashes; levels in dB '
            "relative to the RMS envelope the profile promises for the tap.</p>"]
-    for title, png in figures:
-        data = base64.b64encode(png).decode("ascii")
-        out.append(f'<figure><img src="data:image/png;base64,{data}" alt="{_e(title)}">'
-                   f"<figcaption>{_e(title)}</figcaption></figure>")
+    out += [_figure_html(title, png) for title, png in figures]
     return "\n".join(out)
 
 
@@ -406,7 +686,7 @@ def _plain(value) -> str:
 
 
 _CSS = """
-body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",sans-serif;max-width:1320px;
+body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",sans-serif;max-width:1180px;
 margin:1.5em auto;padding:0 1em;color:#1a1a1a;line-height:1.45;background:#fff}
 h1{font-size:1.6em;margin-bottom:.2em}h2{border-bottom:2px solid #ccd;padding-bottom:.15em;margin-top:1.6em}
 .meta{color:#555;margin-top:0}
@@ -414,27 +694,44 @@ h1{font-size:1.6em;margin-bottom:.2em}h2{border-bottom:2px solid #ccd;padding-bo
 .verdict.pass{background:#e3f4e6;color:#125c24;border:2px solid #2e9e4a}
 .verdict.fail{background:#fbe4e4;color:#8b1111;border:2px solid #d03030}
 .verdict.na{background:#eee;color:#444;border:2px solid #999}
+.failed{border:2px solid #d03030;border-radius:6px;padding:.2em 1em;margin:.8em 0;background:#fff8f8}
+.failed h2{border:none;margin:.4em 0;font-size:1.15em;color:#8b1111}
+.failed li{margin:.2em 0;overflow-wrap:anywhere}
 .note{background:#fff6dc;border-left:5px solid #e0a800;padding:.6em .9em;margin:1em 0}
 table{border-collapse:collapse;margin:.6em 0;font-size:.92em}
 th,td{border:1px solid #c9cbd3;padding:.28em .55em;text-align:left;vertical-align:top}
 th{background:#eef0f5}
-table.kv th{width:22em;font-weight:600}
+table.kv{max-width:100%}table.kv th{width:16em;font-weight:600}table.kv td{overflow-wrap:anywhere}
 table.mono td{font-family:ui-monospace,"DejaVu Sans Mono",monospace;word-break:break-all}
-table.checks{width:100%}
-table.checks td:nth-child(n+5):nth-child(-n+11){font-variant-numeric:tabular-nums;text-align:right}
-table.checks td:nth-child(3){white-space:nowrap}
-table.checks td:last-child{min-width:16em}
-td.pass{color:#125c24;font-weight:bold;white-space:nowrap}
-td.fail{color:#fff;background:#c62828;font-weight:bold;white-space:nowrap}
-td.na{color:#666;white-space:nowrap}
-tr.row-fail td{background:#fdecec}tr.row-fail td.fail{background:#c62828}
+table.matrix{font-size:.85em}
+table.matrix td{text-align:center;padding:.15em .35em;min-width:1.6em}
+table.matrix td:first-child,table.matrix td:nth-child(2){text-align:left;white-space:nowrap}
+table.matrix th.rot{vertical-align:bottom;padding:.3em .2em;height:9.5em}
+table.matrix th.rot span{writing-mode:vertical-rl;transform:rotate(180deg);white-space:nowrap;display:inline-block}
+table.matrix td.empty{background:#f6f6f8}
+table.others{width:100%;table-layout:fixed}
+table.others th:first-child{width:13em}table.others th:nth-child(2){width:4.5em}
+table.others td{overflow-wrap:anywhere}
+td.pass{color:#125c24;font-weight:bold}
+td.fail{color:#fff;background:#c62828;font-weight:bold}
+td.na{color:#666}
+tr.row-fail td:first-child{background:#fdecec}
 .explain{color:#333;max-width:70em}
-figure{margin:1.2em 0;page-break-inside:avoid}
+figure{margin:1.2em 0;break-inside:avoid;page-break-inside:avoid}
 figure img{max-width:100%;height:auto;border:1px solid #ddd}
 figcaption{color:#444;font-size:.92em;margin-top:.2em}
 .cautions li{margin:.3em 0}
-.signature{border:1px solid #999;padding:.6em 1em;max-width:44em;margin-top:.6em}
+.signature{border:1px solid #999;padding:.6em 1em;max-width:44em;margin-top:.6em;break-inside:avoid}
 .signature p{margin:1.1em 0}
-.line{display:inline-block;width:26em;border-bottom:1px solid #333;height:1em;vertical-align:bottom}
-@media print{body{max-width:none}h2{page-break-after:avoid}}
+.line{display:inline-block;width:26em;max-width:70%;border-bottom:1px solid #333;height:1em;vertical-align:bottom}
+@page{size:A4;margin:14mm 12mm}
+@media print{
+body{max-width:none;margin:0;padding:0;font-size:10pt}
+h2{break-after:avoid;page-break-after:avoid}h3{break-after:avoid}
+.verdict,.failed,.note{break-inside:avoid}
+tr{break-inside:avoid}thead{display:table-header-group}
+figure img{max-height:245mm;width:auto;max-width:100%}
+a{color:inherit;text-decoration:none}
+table.mono td{font-size:8pt}
+}
 """.strip()

@@ -73,7 +73,7 @@ import jsonschema
 import numpy as np
 
 from emucompile._lazy import LazyModule
-from emucompile.errors import InputError, Problem, ProfileError
+from emucompile.errors import CheckFailed, InputError, Problem, ProfileError
 from emucompile.grid import (
     DEFAULT_HALF_LENGTH,
     DEFAULT_PASSBAND_FRACTION,
@@ -89,6 +89,11 @@ stats = LazyModule("scipy.stats")
 
 BETWEEN_UPDATES = ("hold", "linear")
 DEFAULT_HEADROOM_DB = 12.0
+DEFAULT_FIT_TOLERANCE_PCT = 10.0
+"""How far (in % of the profile's) a fit may move the RMS delay spread before compile calls the
+target missed (our choice, stated; ``compile --fit-tolerance-pct``). Ordinary fits move it 0-4 %
+(sinc and nearest maps of TDL-A/C at 100 ns and EVA at 30.72 and 61.44 MHz); dropping paths
+moves it far more (TDL-C at 100 ns into 8 paths at 30.72 MHz: -37 %)."""
 MIN_SINC_HALF_LENGTH = 4
 SCHEMA_NAME = "target-v1.schema.json"
 
@@ -238,6 +243,9 @@ class FitCosts:
         None when the target gives no ``coefficient_bits``.
     notes : tuple of str
         Choices the fit made on its own (mapping chosen, window shortened).
+    profile_mean_delay_s, fit_mean_delay_s
+        Power-weighted mean delay of the profile's taps and of the fitted
+        grid (coefficient powers at their delays), from the profile's zero.
     """
 
     delay_mapping: str
@@ -263,6 +271,8 @@ class FitCosts:
     tap_images: tuple
     quantisation: CoefficientQuantisation | None
     notes: tuple = field(default_factory=tuple)
+    profile_mean_delay_s: float = math.nan
+    fit_mean_delay_s: float = math.nan
 
     @property
     def power_dropped_db(self) -> float:
@@ -303,6 +313,129 @@ class FitCosts:
         return out
 
 
+@dataclass(frozen=True)
+class FitAcceptance:
+    """Whether a fit kept the RMS delay spread within the stated tolerance, and whether it was accepted.
+
+    ``fit_rms_delay_spread_s`` is the fitted channel's
+    (:func:`fitted_channel_rms_delay_spread`). ``bound_s`` is
+    ``tolerance_pct`` % of the profile's RMS delay spread (half
+    a grid step, ``delay_step_samples / (2 sample_rate_hz)``, for a profile
+    whose spread is 0). ``within_tolerance``: |fit - profile| <= bound_s.
+    ``accepted``: the user accepted the fit anyway (``compile --accept-fit``).
+    """
+
+    tolerance_pct: float
+    profile_rms_delay_spread_s: float
+    fit_rms_delay_spread_s: float
+    bound_s: float
+    within_tolerance: bool
+    accepted: bool
+
+    @property
+    def change_s(self) -> float:
+        return self.fit_rms_delay_spread_s - self.profile_rms_delay_spread_s
+
+    @property
+    def change_pct(self) -> float | None:
+        if not self.profile_rms_delay_spread_s > 0:
+            return None
+        return 100.0 * self.change_s / self.profile_rms_delay_spread_s
+
+    @property
+    def missed(self) -> bool:
+        """Beyond the tolerance and not accepted: compile refuses (exit 1)."""
+        return not self.within_tolerance and not self.accepted
+
+    def sentence(self) -> str:
+        """One line: the move, the tolerance, the outcome."""
+        pct = self.change_pct
+        moved = (f"the fit moves the RMS delay spread from {self.profile_rms_delay_spread_s * 1e9:.1f} ns to "
+                 f"{self.fit_rms_delay_spread_s * 1e9:.1f} ns"
+                 + ("" if pct is None else f" ({pct:+.1f} %)"))
+        bound = f"the fit tolerance of {self.tolerance_pct:g} % ({self.bound_s * 1e9:.3g} ns)"
+        if self.within_tolerance:
+            return f"{moved}, within {bound}"
+        return f"{moved}, beyond {bound}" + ("; accepted with --accept-fit" if self.accepted else "")
+
+    def to_dict(self) -> dict:
+        return {
+            "rule": ("|fitted channel - profile RMS delay spread| <= tolerance_pct % of the profile's (half a grid "
+                     "step when the profile's spread is 0); the fitted channel's spread is the grid's for nearest, "
+                     "the profile's for sinc (every delay kept in band); beyond it compile refuses unless accepted "
+                     "(--accept-fit)"),
+            "tolerance_pct": self.tolerance_pct,
+            "bound_s": _json_value(self.bound_s),
+            "profile_rms_delay_spread_s": _json_value(self.profile_rms_delay_spread_s),
+            "fit_rms_delay_spread_s": _json_value(self.fit_rms_delay_spread_s),
+            "change_s": _json_value(self.change_s),
+            "change_pct": _json_value(self.change_pct),
+            "within_tolerance": self.within_tolerance,
+            "accepted": self.accepted,
+        }
+
+
+def fitted_channel_rms_delay_spread(costs: "FitCosts") -> float:
+    """The fitted channel's RMS delay spread: what the fit tolerance judges.
+
+    ``nearest``: the kept taps at their grid delays, merged taps' powers added
+    (the spread of the coefficient powers, ``fit_rms_delay_spread_s``).
+    ``sinc``: the profile's own, as that map keeps every tap at its delay within
+    the passband (and never drops one); the coefficient powers' spread there
+    includes each window's interpolation tails (e.g. one tap 10 ns late at
+    30.72 MHz: 25.9 ns), a property of the map, not of the channel.
+    """
+    if costs.delay_mapping == "sinc" and not costs.dropped_taps:
+        return float(costs.profile_rms_delay_spread_s)
+    return float(costs.fit_rms_delay_spread_s)
+
+
+class TargetMissed(CheckFailed):
+    """The fit moved the RMS delay spread beyond the stated tolerance and was not accepted (exit 1)."""
+
+
+def missed_target_error(costs: "FitCosts", acceptance: FitAcceptance) -> TargetMissed:
+    """The error compile raises for a missed target: the move, what the fit did, what to do."""
+    dropped = list(costs.dropped_taps)
+    did = [f"{costs.n_paths} path(s)"]
+    if dropped:
+        did.append(f"{len(dropped)} tap(s) dropped ({', '.join(map(str, dropped))}), "
+                   f"power dropped {costs.power_dropped_db:.3g} dB")
+    if costs.merged:
+        did.append(f"{len(costs.merged)} group(s) of taps merged")
+    return TargetMissed(
+        f"target missed: {acceptance.sentence()}; {'; '.join(did)}; nothing written",
+        hint="accept the fit with --accept-fit (recorded in the manifest), widen --fit-tolerance-pct, "
+             "or use a target with more paths or a finer delay grid",
+    )
+
+
+def judge_fit(costs: "FitCosts", tolerance_pct: float = DEFAULT_FIT_TOLERANCE_PCT, *,
+              accepted: bool = False) -> FitAcceptance:
+    """Judge a fit's RMS delay-spread change against ``tolerance_pct`` (see :class:`FitAcceptance`).
+
+    Raises
+    ------
+    emucompile.errors.InputError
+        For a tolerance that is not a finite number >= 0.
+    """
+    try:
+        tolerance = float(tolerance_pct)
+    except (TypeError, ValueError):
+        tolerance = math.nan
+    if not (math.isfinite(tolerance) and tolerance >= 0):
+        raise InputError(f"the fit tolerance must be a finite percentage >= 0, got {tolerance_pct!r}")
+    profile = float(costs.profile_rms_delay_spread_s)
+    fit = fitted_channel_rms_delay_spread(costs)
+    if profile > 0:
+        bound = tolerance / 100.0 * profile
+    else:
+        bound = 0.5 * costs.delay_step_samples / costs.sample_rate_hz
+    within = math.isfinite(fit) and abs(fit - profile) <= bound * (1 + 1e-12)
+    return FitAcceptance(tolerance_pct=tolerance, profile_rms_delay_spread_s=profile, fit_rms_delay_spread_s=fit,
+                         bound_s=bound, within_tolerance=bool(within), accepted=bool(accepted))
+
+
 @dataclass(frozen=True, eq=False)
 class TargetFit:
     """The fitted FIR map (contract 3's ``fir_map``) and what the fit costs."""
@@ -310,6 +443,110 @@ class TargetFit:
     fir_map: FirMap
     costs: FitCosts
     target: Target
+
+
+# -- the fit in plain view --------------------------------------------------------
+
+
+def fit_record(manifest: dict) -> dict | None:
+    """The "emulator fit" section of a bundle (compile's summary, verification.json, the report).
+
+    Built from the manifest alone: ``target.costs`` (the fitted figures),
+    ``target.fit_acceptance`` (the delay-spread judgement; absent in bundles
+    made before it existed) and the integer FIR coefficients' entry (clip
+    counts and measured SQNR). None when the bundle was not fitted to a target.
+    Strict JSON; SI units.
+    """
+    entry = (manifest or {}).get("target") or {}
+    costs = entry.get("costs")
+    if not costs:
+        return None
+    codes_entry = next((f for f in manifest.get("files") or () if f.get("role") == "fir_coefficients_int"), None)
+    codes = (codes_entry or {}).get("coefficient_codes") or {}
+    quantisation = costs.get("quantisation") or {}
+    profile_spread, grid_spread = costs.get("profile_rms_delay_spread_s"), costs.get("fit_rms_delay_spread_s")
+    fit_spread = grid_spread
+    if costs.get("delay_mapping") == "sinc" and not costs.get("dropped_taps"):
+        fit_spread = profile_spread  # fitted_channel_rms_delay_spread: sinc keeps every delay in band
+    change_pct = (100.0 * (fit_spread - profile_spread) / profile_spread
+                  if profile_spread and fit_spread is not None else None)
+    return {
+        "constraints": entry.get("constraints") or {},
+        "delay_mapping": costs.get("delay_mapping"),
+        "sample_rate_hz": costs.get("sample_rate_hz"),
+        "delay_step_samples": costs.get("delay_step_samples"),
+        "n_paths": costs.get("n_paths"),
+        "n_coefficients": costs.get("n_coefficients"),
+        "taps_merged": [{k: m.get(k) for k in ("taps", "delay_s", "fading", "remark")}
+                        for m in costs.get("merged") or ()],
+        "taps_dropped": list(costs.get("dropped_taps") or ()),
+        "power_dropped_db": costs.get("power_dropped_db"),
+        "power_dropped_fraction": costs.get("power_dropped_fraction"),
+        "rms_delay_spread_s": {"profile": profile_spread, "fitted": fit_spread, "change_pct": change_pct,
+                               "coefficient_powers": grid_spread},
+        "mean_delay_s": {"profile": costs.get("profile_mean_delay_s"), "fitted": costs.get("fit_mean_delay_s")},
+        "max_abs_delay_error_s": costs.get("max_abs_delay_error_s"),
+        "update_images": {
+            "between_updates": costs.get("between_updates"), "update_rate_hz": costs.get("update_rate_hz"),
+            "image_to_wanted_db": costs.get("image_to_wanted_db"), "droop_db": costs.get("droop_db"),
+        },
+        "coefficients": None if not quantisation else {
+            "bits": quantisation.get("bits"), "headroom_db": quantisation.get("headroom_db"),
+            "sqnr_db_model": quantisation.get("sqnr_db"),
+            "clip_probability_model": quantisation.get("clip_probability"),
+            "file": (codes_entry or {}).get("name"),
+            "sqnr_db_measured": codes.get("sqnr_db"),
+            "clipped_values": codes.get("clipped_values"),
+            "clipped_values_per_path": codes.get("clipped_values_per_path"),
+        },
+        "acceptance": entry.get("fit_acceptance"),
+        "notes": list(costs.get("notes") or ()),
+    }
+
+
+def fit_lines(record: dict) -> list[str]:
+    """The fit section as short lines of text (compile's summary and verify's)."""
+    def ns(value):
+        return "undefined" if value is None else f"{value * 1e9:.1f} ns"
+
+    def db(value, unit="dB"):
+        return "none" if value is None else f"{value:.3g} {unit}"
+
+    spread, mean = record["rms_delay_spread_s"], record["mean_delay_s"]
+    change = "" if spread["change_pct"] is None else f" ({spread['change_pct']:+.1f} %)"
+    merged = "; ".join(f"taps {', '.join(map(str, m['taps']))} at {ns(m['delay_s'])}" for m in record["taps_merged"])
+    dropped = record["taps_dropped"]
+    images = record["update_images"]
+    lines = [
+        f"{record['delay_mapping']} mapping, delay step {record['delay_step_samples']} sample(s) at "
+        f"{(record['sample_rate_hz'] or 0) / 1e6:g} MHz: {record['n_paths']} path(s)",
+        f"taps merged: {merged or 'none'}",
+        f"taps dropped: {', '.join(map(str, dropped)) or 'none'}",
+        f"RMS delay spread {ns(spread['profile'])} -> {ns(spread['fitted'])}{change}"
+        + ("" if spread.get("coefficient_powers") in (None, spread["fitted"]) else
+           f" (coefficient powers: {ns(spread['coefficient_powers'])}, interpolation tails included)")
+        + f"; mean delay {ns(mean['profile'])} -> {ns(mean['fitted'])}",
+        f"power dropped {db(record['power_dropped_db'])}; largest delay error {ns(record['max_abs_delay_error_s'])}",
+        f"update images {db(images['image_to_wanted_db'])} ({images['between_updates']} at "
+        f"{images['update_rate_hz']:g} Hz), droop {db(images['droop_db'])}",
+    ]
+    coefficients = record["coefficients"]
+    if coefficients:
+        clipped = coefficients["clipped_values"]
+        lines.append(
+            f"coefficients {coefficients['bits']} bits, headroom {coefficients['headroom_db']:g} dB: SQNR "
+            f"{db(coefficients['sqnr_db_model'])} (model)"
+            + ("" if coefficients["sqnr_db_measured"] is None else f", {db(coefficients['sqnr_db_measured'])} measured")
+            + ("" if clipped is None else f", {clipped} value(s) clipped")
+            + ("" if not coefficients["file"] else f" ({coefficients['file']})"))
+    acceptance = record.get("acceptance")
+    if acceptance:
+        outcome = ("within the fit tolerance" if acceptance["within_tolerance"] else
+                   "BEYOND the fit tolerance, accepted with --accept-fit" if acceptance["accepted"] else
+                   "BEYOND the fit tolerance")
+        lines.append(f"fit tolerance {acceptance['tolerance_pct']:g} % of the profile's RMS delay spread: {outcome}")
+    lines += [f"note: {note}" for note in record["notes"]]
+    return lines
 
 
 # -- reading -----------------------------------------------------------------------
@@ -782,6 +1019,8 @@ def _costs(target, taps, fitted, merged, dropped, update_rate_hz, notes):
         droop_db=_db(wanted / kept_energy.sum()) if kept_energy.sum() > 0 else math.nan,
         tap_images=images,
         quantisation=quantisation,
+        profile_mean_delay_s=_mean_delay([t.delay_s for t in taps], powers),
+        fit_mean_delay_s=_mean_delay(fitted.coefficient_delays_s, fitted.coefficient_powers),
         notes=notes,
     )
 
@@ -894,6 +1133,12 @@ def _db(ratio):
     if ratio > 0:
         return 10.0 * math.log10(ratio)
     return -math.inf if ratio == 0 else math.nan
+
+
+def _mean_delay(delays_s, powers) -> float:
+    powers = np.asarray(powers, dtype=float)
+    total = powers.sum()
+    return float(np.dot(np.asarray(delays_s, dtype=float), powers) / total) if total > 0 else math.nan
 
 
 def _json_value(value):

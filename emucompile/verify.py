@@ -166,6 +166,9 @@ class Verification:
     cautions: list
     elapsed_s: float = 0.0
     timings_s: dict = dataclasses.field(default_factory=dict)
+    fit: dict | None = None  # the "emulator fit" section (bundles fitted to a target)
+    mimo: dict | None = None  # {"links": labels, "taps": {tap: {"expected", "achieved"}}} correlation matrices
+    conditions: dict | None = None  # trajectories of the time-varying conditions, for the report
 
     @property
     def passed(self) -> bool:
@@ -182,7 +185,7 @@ class Verification:
         return _strict({
             "passed": self.passed,
             "false_alarm": self.false_alarm,
-            "checks": [c.to_dict() for c in self.checks],
+            "checks": [dict(c.to_dict(), **comparison(c, self.fit)) for c in self.checks],
             "counts": {
                 "passed": sum(c.passed is True for c in self.checks),
                 "failed": sum(c.passed is False for c in self.checks),
@@ -197,6 +200,10 @@ class Verification:
             "cautions": list(self.cautions),
             "elapsed_s": self.elapsed_s,
             "timings_s": self.timings_s,
+            "emulator_fit": self.fit,
+            "mimo_correlation_matrices": self.mimo,
+            "conditions": self.conditions,
+            "check_matrix": check_matrix(self.checks),
         })
 
     def summary(self) -> str:
@@ -212,6 +219,10 @@ class Verification:
             lines.append(f"  FAIL {_check_label(check)}: value {_number(check.value)}, expected "
                          f"{_number(check.expected)} +- {_number(check.tolerance)}"
                          + (f" ({check.reason})" if check.reason else ""))
+        if self.fit is not None:
+            from emucompile.target import fit_lines
+
+            lines.append("emulator fit  " + "\n              ".join(fit_lines(self.fit)))
         if counts["passed"] == 0 and counts["failed"] == 0:
             lines.append("caution: no check could be made on this record (see the reasons); nothing is verified")
         lines += [f"caution: {c}" for c in self.cautions]
@@ -325,9 +336,16 @@ def _verify_intact(root, began, *, false_alarm, delivered, progress, workers):
         identity_delivered = [name for name, _ in sources[1:]] + ["fir"]
     else:
         identity_delivered = [name for name, _ in sources[1:]]
+    codes_entry = opened.entry("fir_coefficients_int") if delivered else None
+    if codes_entry is not None:
+        checks += _delivered_codes_checks(session, root, codes_entry, opened, shadowing)
+        identity_delivered.append("fir_coefficients")
     fir_matrix = opened.fir_map
     fir = manifest.get("fir")
     fir_checks = [] if fir is None else _fir_checks(manifest, np.asarray(fir_matrix, dtype=float), root)
+    fit = _fit_section(manifest)
+    if fit is not None:
+        fir_checks.append(fit.pop("check"))
     if shadowing is not None:
         cautions.append("shadowing is divided out before the small-scale checks; the shadowing trajectory "
                         "itself (its sigma and correlation) is not checked yet")
@@ -342,7 +360,8 @@ def _verify_intact(root, began, *, false_alarm, delivered, progress, workers):
         sample_rate_hz=None if fir is None else float(fir["sample_rate_hz"]),
         fir_delays_s=None if fir is None else (np.arange(fir["n_fir"]) - fir["bulk_delay_samples"]) / fir["sample_rate_hz"],
         foreign=False, cautions=cautions, elapsed_s=time.perf_counter() - began,
-        timings_s=dict(session.timings_s),
+        timings_s=dict(session.timings_s), fit=fit, mimo=_mimo_section(session, link_records),
+        conditions=_conditions_section(profile, opened, root, session.n_samples / session.update_rate_hz),
     )
 
 
@@ -543,23 +562,35 @@ class _Session:
     def _workers(self, decimated):
         return 1 if self.workers is None else max(1, int(self.workers))
 
-    def delivered_fir(self, source, matrix):
+    def delivered_fir(self, source, matrix, *, label="fir", columns=None):
         """Per-tap checks on the materialised FIR (``fir.npy``), column by column.
 
         A column that one tap alone reaches carries that tap's gain times its
         weight w: the tap's model with power w^2 P. A column that sums several
         taps has no single-tap model; it is marked not applicable (its taps are
-        checked one by one on the gains).
+        checked one by one on the gains). ``columns`` names the FIR column of
+        each of ``matrix``'s columns (default: the same index); ``label`` goes
+        into the check names ("delivered LABEL[COLUMN]: ...").
         """
         tol = _tolerance()
         n_fir = matrix.shape[1]
+        columns = list(range(n_fir)) if columns is None else list(columns)
         decimated = self.decimator.run(source, self.n_links, n_fir, None)  # (columns, links, m)
         found = []
         for column in range(n_fir):
             contributors = np.flatnonzero(matrix[:, column])
             if contributors.size == 0:
                 continue
-            prefix = f"delivered fir[{column}]: "
+            prefix = f"delivered {label}[{columns[column]}]: "
+            merged = _merged_model([self.models[int(i)] for i in contributors], matrix[contributors, column])
+            if merged is not None:
+                # independent Rayleigh taps of one Doppler spectrum add to a Rayleigh tap of the summed power
+                records = decimated[column]
+                for link in range(self.n_links):
+                    results = tol.check_tap(records[link], self.record_rate_hz, merged, periodic=self.periodic,
+                                            tap=tuple(int(i) for i in contributors), level=self.false_alarm)
+                    found += [_renamed(r, prefix, self._link_label(link)) for r in results]
+                continue
             if contributors.size > 1:
                 found.append(tol.CheckResult(
                     prefix + "column", tuple(int(i) for i in contributors), None, None, None, None, None,
@@ -850,6 +881,19 @@ class _Ci16Source(_MappedSource):
         return links_from_gains(block)
 
 
+class _FirCodesSource(_Ci16Source):
+    """Integer FIR coefficients scaled back: (I + jQ) * step, in float64 (int32 codes exceed float32)."""
+
+    def read(self, start, stop):
+        from emucompile.mimo import links_from_gains
+
+        codes = np.asarray(self.array[start:stop], dtype=np.float64)
+        block = (codes[..., 0] + 1j * codes[..., 1]) / self.scale
+        if self.divide_by is not None:
+            block = block / self.divide_by(start, stop)[:, None, None, None]
+        return links_from_gains(block.astype(np.complex64))
+
+
 class _ComponentsDirect:
     def __init__(self, components):
         self.components = components
@@ -1054,7 +1098,8 @@ def _fir_checks(manifest, matrix, root):
     kept, sum_i P_i sum_n m_in^2 / sum_i P_i, against 1 with the map's own
     worst-case loss (1 - G/pi^2 of a half-sample sinc row; 0 for nearest)
     and the target fit's dropped power as tolerance. ``fir_rms_delay_spread``:
-    the grid's RMS delay spread (coefficient powers) against the profile's;
+    the grid's RMS delay spread (coefficient powers) against the fitted
+    channel's (target) or the profile's (no target), the text naming both;
     for ``nearest`` every delay moves by at most half a grid step, so the
     spread moves by at most that (|sigma(x + e) - sigma(x)| <= max |e|, the
     triangle inequality for the weighted standard deviation); for ``sinc``
@@ -1093,15 +1138,214 @@ def _fir_checks(manifest, matrix, root):
     profile_spread = rms_delay_spread(delays, powers)
     costs = (manifest.get("target") or {}).get("costs") or {}
     expected = costs.get("fit_rms_delay_spread_s", profile_spread)
+    against = ("the fitted channel's" if "fit_rms_delay_spread_s" in costs else "the profile's")
+    if "fit_rms_delay_spread_s" in costs:
+        against += f" ({expected * 1e9:.4g} ns; the profile's: {profile_spread * 1e9:.4g} ns)"
     if fir["delay_mapping"] == "nearest":
         step = (fir.get("parameters") or {}).get("delay_step_samples") or 1
         checks.append(_deterministic(tol, "fir_rms_delay_spread", grid_spread, expected, 0.5 * step / rate * (1 + 1e-9),
-                                     "s", "grid RMS delay spread vs the profile's (nearest: half a grid step)"))
+                                     "s", f"grid RMS delay spread vs {against} (nearest: half a grid step)"))
     else:
         checks.append(_deterministic(tol, "fir_rms_delay_spread", grid_spread, expected, None, "s",
-                                     "sinc mapping: each fractional tap spreads over its window; no bound to judge "
-                                     "against (reported only)", passed=None))
+                                     f"grid RMS delay spread vs {against}; sinc mapping: each fractional tap spreads "
+                                     "over its window; no bound to judge against (reported only)", passed=None))
     return checks
+
+
+def _merged_model(models, weights):
+    """The model of a FIR column that sums several taps, when it has one: every tap Rayleigh (K = 0) with
+    the same Doppler spectrum; the sum of independent zero-mean complex Gaussian processes with one
+    spectrum is one of the summed power, sum w_i^2 P_i (common practice). None otherwise."""
+    if len(models) < 2 or any(m is None or m.spectrum is None or m.k_linear for m in models):
+        return None
+    if any(m.spectrum != models[0].spectrum for m in models[1:]):
+        return None
+    power = float(sum(w * w * m.mean_power for m, w in zip(models, weights)))
+    return dataclasses.replace(models[0], mean_power=power)
+
+
+def _delivered_codes_checks(session, root, entry, opened, shadowing):
+    """Per-tap checks on the integer FIR coefficients scaled back (``coefficient = code * step``)."""
+    codes = entry["coefficient_codes"]
+    dtype = "<i2" if entry["dtype"] == "int16" else "<i4"
+    array = np.memmap(root / entry["name"], dtype=dtype, mode="r", offset=entry["data_offset"],
+                      shape=tuple(entry["shape"]))
+    divide = None if shadowing is None else shadowing.shadowing_amplitude
+    columns = [int(c) for c in codes["columns"]]
+    matrix = np.asarray(opened.fir_map, dtype=float)[:, columns]
+    return session.delivered_fir(_FirCodesSource(array, 1.0 / float(codes["step"]), divide), matrix,
+                                 label="fir codes", columns=columns)
+
+
+def _fit_section(manifest):
+    """The "emulator fit" record and its check: the fitted channel's RMS delay spread against the profile's.
+
+    The bound is the fit tolerance recorded at compile (the default for a
+    bundle made before it was recorded). A fit beyond it that the user
+    accepted (``compile --accept-fit``) is not judged again (passed None, the
+    acceptance said); one that was not accepted fails.
+    """
+    from emucompile.target import DEFAULT_FIT_TOLERANCE_PCT, fit_record
+
+    record = fit_record(manifest)
+    if record is None:
+        return None
+    tol = _tolerance()
+    spread = record["rms_delay_spread_s"]
+    acceptance = record["acceptance"] or {}
+    percent = acceptance.get("tolerance_pct", DEFAULT_FIT_TOLERANCE_PCT)
+    bound = acceptance.get("bound_s")
+    if bound is None:
+        bound = percent / 100.0 * spread["profile"]
+    text = (f"the fitted channel's RMS delay spread against the profile's, within {percent:g} % of the "
+            "profile's (the fit tolerance)")
+    check = _deterministic(tol, "fit_rms_delay_spread", spread["fitted"], spread["profile"], bound, "s", text)
+    if check.passed is False and acceptance.get("accepted"):
+        check = dataclasses.replace(
+            check, passed=None,
+            reason=(f"beyond the fit tolerance of {percent:g} % ({_number(spread['change_pct'])} %): accepted at "
+                    "compile with --accept-fit (manifest target.fit_acceptance); not judged again"))
+    record["check"] = check
+    return record
+
+
+def _mimo_section(session, link_records):
+    """Expected and achieved correlation of the links' diffuse parts, per fading tap (MIMO bundles)."""
+    if session.components is None or not link_records or session.n_links < 2:
+        return None
+    taps = {}
+    for tap, model in session.models.items():
+        if model is None or not _is_fading(model) or tap not in link_records:
+            continue
+        diffuse = np.asarray(session._diffuse_links(np.asarray(link_records[tap]).T, tap), dtype=np.complex128)
+        gram = diffuse @ diffuse.conj().T / diffuse.shape[1]
+        scale = np.sqrt(np.maximum(np.real(np.diag(gram)), 1e-300))
+        taps[tap] = {"expected": np.asarray(session.components.expected_correlation(tap)),
+                     "achieved": gram / np.outer(scale, scale)}
+    if not taps:
+        return None
+    return {"links": [session._link_label(link) for link in range(session.n_links)], "taps": taps,
+            "convention": "rho[a, b] = E[h_a conj(h_b)] / sqrt(P_a P_b) of the diffuse parts (shadowing divided out)"}
+
+
+CONDITION_POINTS = 2001  # points of each trajectory in the report and verification.json
+
+
+def _conditions_section(profile, opened, root, duration_s):
+    """The time-varying conditions over the record: HST Doppler, moving delay, shadowing (as written)."""
+    conditions = getattr(profile, "conditions", None)
+    out = {}
+    times = np.linspace(0.0, duration_s, CONDITION_POINTS)
+    train = getattr(conditions, "high_speed_train", None)
+    if train is not None:
+        out["high_speed_train"] = {"time_s": times, "doppler_hz": train.doppler_hz(times),
+                                   "taps": list(getattr(conditions, "high_speed_train_taps", ()) or ())}
+    moving = getattr(conditions, "moving_propagation", None)
+    if moving is not None:
+        out["moving_delay"] = {"time_s": times, "delay_offset_s": moving.delay_offset_s(times)}
+    entry = opened.entry("shadowing_db")
+    if entry is not None:
+        values = np.load(root / entry["name"], mmap_mode="r")
+        stride = max(1, -(-values.shape[0] // CONDITION_POINTS))
+        rate = float(opened.manifest["update_rate_hz"])
+        spec = getattr(conditions, "shadowing", None)
+        out["shadowing"] = {"time_s": np.arange(0, values.shape[0], stride) / rate,
+                            "gain_db": np.array(values[::stride], dtype=float),
+                            "sigma_db": getattr(spec, "sigma_db", None), "hold": getattr(spec, "hold", None),
+                            "source": f"{entry['name']} (every {stride}th sample)"}
+    return out or None
+
+
+def check_matrix(checks) -> dict:
+    """Per-tap checks as a taps x checks matrix (the report's compact table and ``check_matrix`` in the JSON).
+
+    Rows: one per source ("" for the stored gains, "delivered ci16", "delivered fir codes[5]", ...) and
+    tap; columns: check names; a cell lists its checks (one per link) by index into ``checks``, with
+    ``passed`` False when any failed, True when every applicable one passed, None when none applied.
+    Checks of no single tap (cross-correlation, MIMO, FIR, fit) are not in the matrix.
+    """
+    rows, columns = {}, []
+    for index, check in enumerate(checks):
+        name = _get_name(check)
+        tap = check.get("tap") if isinstance(check, dict) else getattr(check, "tap", None)
+        source, _, base = name.rpartition(": ") if name.startswith("delivered ") else ("", "", name)
+        base = base.split(" [")[0]
+        if tap is None or base in ("cross_correlation", "mimo_correlation"):
+            continue
+        key = (source, tuple(tap) if isinstance(tap, (list, tuple)) else (tap,))
+        if base not in columns:
+            columns.append(base)
+        cell = rows.setdefault(key, {}).setdefault(base, {"checks": [], "passed": None})
+        cell["checks"].append(index)
+        passed = check.get("passed") if isinstance(check, dict) else getattr(check, "passed", None)
+        if passed is False:
+            cell["passed"] = False
+        elif passed is True and cell["passed"] is None:
+            cell["passed"] = True
+    return {"columns": columns,
+            "rows": [{"source": source, "tap": list(tap) if len(tap) > 1 else tap[0], "cells": cells}
+                     for (source, tap), cells in rows.items()]}
+
+
+def comparison(check, fit=None) -> dict:
+    """What a check compared, in words: ``compared_with`` (the profile, the fitted channel, the rebuilt map)
+    and ``comparison`` (what was measured against what)."""
+    name = _get_name(check)
+    label, _, base = name.rpartition(": ") if name.startswith("delivered ") else ("", "", name)
+    base = base.split(" [")[0]
+    words = _COMPARISONS.get(base, "the measured statistic against the profile's theory")
+    compared_with = "profile"
+    spread = (fit or {}).get("rms_delay_spread_s") or {}
+    if base == "fir_rms_delay_spread":
+        if fit is not None:
+            compared_with = "fitted channel"
+            words = (f"RMS delay spread of the FIR grid's coefficient powers against the fitted channel's "
+                     f"{_ns(spread.get('fitted'))} (the profile's: {_ns(spread.get('profile'))})")
+        else:
+            words = "RMS delay spread of the FIR grid's coefficient powers against the profile's"
+    elif base == "fir_map_rebuilt":
+        compared_with = "rebuilt map"
+    if label.startswith("delivered fir"):
+        compared_with = "fitted channel"
+        words = (f"{words} — here of {label[len('delivered '):]} (what the emulator receives), against the "
+                 "profile's tap(s) through the fitted map (power: weight squared times tap power, summed over "
+                 "merged taps)")
+    elif label.startswith("delivered"):
+        words = f"{words} — here of the {label[len('delivered '):]} data (what the emulator receives)"
+    return {"compared_with": compared_with, "comparison": words}
+
+
+_COMPARISONS = {
+    "mean_power": "measured mean power of the tap against the profile's tap power",
+    "k_factor": "measured Rician K-factor against the profile's",
+    "envelope_ks": "largest gap between the measured envelope distribution and the profile's envelope law "
+                   "(Kolmogorov-Smirnov distance; 0 = identical)",
+    "autocorrelation": "largest gap between the measured normalised autocorrelation and the profile's closed "
+                       "form over the checked lags (0 = identical)",
+    "doppler_psd": "largest deviation in dB of the measured Doppler spectrum from the profile's spectrum "
+                   "inside the band (0 = identical)",
+    "out_of_band_power": "measured power beyond 1.05 f_D against the profile's (none) and the stated limit",
+    "level_crossing_rate": "measured level-crossing rate against Rice's formula for the profile's tap",
+    "fade_duration": "measured average fade duration against the theory for the profile's tap",
+    "phase_uniformity": "|mean of exp(j phase)| of the measured phase: its distance from a uniform phase (0)",
+    "power_beyond_record_band": "power the band-limited copy lacks, against the full-rate power of the same "
+                                "samples (0 = nothing beyond the band)",
+    "cross_correlation": "measured correlation between two taps against 0 (the profile's taps are independent)",
+    "mimo_correlation": "measured correlation between two links against the profile's spatial correlation",
+    "fir_map_rebuilt": "largest |fir_map.npy - the map rebuilt from the manifest's profile and target| (0 = same)",
+    "fir_power": "power-weighted energy the FIR grid keeps against the profile's total power (1), less the "
+                 "sinc window's loss and the power the fit dropped",
+    "fit_rms_delay_spread": "the fitted channel's RMS delay spread against the profile's (the fit tolerance)",
+    "column": "the coefficient sums several taps of different kinds",
+}
+
+
+def _get_name(check):
+    return (check.get("name") if isinstance(check, dict) else getattr(check, "name", "")) or ""
+
+
+def _ns(value):
+    return "undefined" if value is None else f"{value * 1e9:.4g} ns"
 
 
 def _deterministic(tol, name, value, expected, tolerance, unit, detail, *, passed="judge"):

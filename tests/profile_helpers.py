@@ -70,3 +70,15 @@ def assert_clean_failure(result, *, code=2):
     assert result.exit_code == code, result.output
     assert "Traceback" not in result.output
     assert "internal error" not in result.output
+
+
+# TDL-C (TR 38.901 Table 7.7.2-3) at 100 ns into 8 paths at 30.72 MHz: the fit drops 6 taps, 100 -> 62.6 ns
+FIT_EXAMPLE = """\
+format_version: 1
+name: fit-example
+description: Invented example (not a measurement) of a target that cannot hold the profile's delay spread.
+extends: {preset: tdl-c, delay_spread_ns: 100}
+speed_kmh: 30
+carrier_hz: 3.5e9
+target: {sample_rate_hz: 30.72e6, max_paths: 8, coefficient_bits: 12}
+"""

@@ -18,8 +18,9 @@ from click.testing import CliRunner
 from emucompile import compiler, open_bundle
 from emucompile.bundle import verify_integrity
 from emucompile.cli import cli
-from emucompile.errors import InputError
-from emucompile.profile import load_profile_text
+from emucompile.errors import CheckFailed, InputError
+from emucompile.profile import load_profile, load_profile_text
+from profile_helpers import FIT_EXAMPLE
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMOS = sorted((ROOT / "profiles_demo").glob("*.*"))
@@ -340,8 +341,8 @@ def test_target_with_4_sample_resolution_and_8_taps_reports_its_fit_costs(profil
     result = _run("compile", profile_file, "-o", out, "--target", target, "--duration", 2,
                   "--seed", 1, "--update-rate", 2000)
     assert result.exit_code == 0, result.output
-    for text in ("target fit", "delay step 4", "RMS delay spread", "power dropped", "update images",
-                 "coefficient SQNR"):
+    for text in ("emulator fit", "delay step 4", "RMS delay spread", "mean delay", "power dropped",
+                 "update images", "SQNR", "clipped", "taps merged", "taps dropped", "fit tolerance 10 %"):
         assert text in result.output
     manifest = open_bundle(out).manifest
     costs = manifest["target"]["costs"]
@@ -446,3 +447,71 @@ def test_generate_channel_gains_equals_the_bundle_of_the_same_arguments(demo, tm
     if profile.mimo is None and profile.conditions is None:  # SISO: the engine's own taps
         assert np.array_equal(gains[:, 0, 0, :], emucompile.generate_tap_gains(
             profile, rate, n, 11, method=manifest["method"], periodic=manifest["periodic"]))
+
+
+# -- the fit in plain view: a missed target, its acceptance, the integer coefficients ----------------
+
+
+
+@pytest.fixture
+def fit_example(tmp_path):
+    path = tmp_path / "fit-example.yaml"
+    path.write_text(FIT_EXAMPLE)
+    return path
+
+
+def test_a_fit_that_moves_the_delay_spread_beyond_the_tolerance_is_a_missed_target(fit_example, tmp_path):
+    # TDL-C (TR 38.901 Table 7.7.2-3) scaled to 100 ns into 8 paths on the 30.72 MHz grid: 6 taps dropped
+    out = tmp_path / "missed"
+    result = _run("compile", fit_example, "-o", out, "--duration", 1, "--seed", 3)
+    assert result.exit_code == 1, result.output
+    assert "target missed" in result.output
+    assert "from 100.0 ns to 62.6 ns (-37.4 %)" in result.output and "fit tolerance of 10 %" in result.output
+    assert "6 tap(s) dropped" in result.output and "--accept-fit" in result.output
+    assert not out.exists() and _leftovers(tmp_path, "missed") == []
+    # a tolerance wide enough lets it through without acceptance; the manifest says so
+    wide = _run("compile", fit_example, "-o", out, "--duration", 1, "--seed", 3, "--fit-tolerance-pct", 40)
+    assert wide.exit_code == 0, wide.output
+    acceptance = open_bundle(out).manifest["target"]["fit_acceptance"]
+    assert acceptance["within_tolerance"] and not acceptance["accepted"] and acceptance["tolerance_pct"] == 40
+
+
+def test_accept_fit_writes_the_bundle_and_records_the_acceptance(fit_example, tmp_path):
+    out = tmp_path / "accepted"
+    result = _run("compile", fit_example, "-o", out, "--duration", 1, "--seed", 3, "--accept-fit")
+    assert result.exit_code == 0, result.output
+    assert "100.0 ns -> 62.6 ns (-37.4 %)" in result.output and "accepted with --accept-fit" in result.output
+    manifest = open_bundle(out).manifest
+    acceptance = manifest["target"]["fit_acceptance"]
+    assert acceptance["accepted"] and not acceptance["within_tolerance"]
+    assert acceptance["change_pct"] == pytest.approx(-37.44, abs=0.01)
+    assert manifest["target"]["costs"]["fit_rms_delay_spread_s"] == pytest.approx(62.556e-9, rel=1e-4)
+    assert compiler.reproduce_bundle(out).status == compiler.IDENTICAL
+    with pytest.raises(CheckFailed, match="target missed"):
+        compiler.plan_compile(load_profile(fit_example), tmp_path / "api", duration_s=1, seed=3)
+
+
+def test_integer_fir_coefficients_are_the_fitted_fir_quantised_as_documented(fit_example, tmp_path):
+    out = tmp_path / "codes"
+    assert _run("compile", fit_example, "-o", out, "--duration", 1, "--seed", 3, "--accept-fit",
+                "--format", "fir").exit_code == 0
+    bundle = open_bundle(out)
+    entry = bundle.entry("fir_coefficients_int")
+    codes_record = entry["coefficient_codes"]
+    assert entry["name"] == "fir_coefficients.ci16" and entry["dtype"] == "int16" and entry["byte_order"] == "little"
+    columns = codes_record["columns"]
+    assert columns == np.flatnonzero(np.any(bundle.fir_map != 0, axis=0)).tolist() and len(columns) == 8
+    # read the raw file as the documentation says: little-endian int16, (sample, rx, tx, path, I/Q)
+    raw = np.fromfile(out / entry["name"], dtype="<i2").reshape(entry["shape"])
+    assert raw.shape == (bundle.manifest["n_samples"], 1, 1, 8, 2)
+    step = codes_record["step"]
+    costs = bundle.manifest["target"]["costs"]["quantisation"]
+    assert step == pytest.approx(costs["full_scale"] / 2 ** 11)  # two's complement, 12 bits
+    fir = np.asarray(bundle.fir[:, :, :, columns])  # fir.npy: complex64 of the same coefficients
+    decoded = (raw[..., 0] + 1j * raw[..., 1]) * step
+    # round to nearest: within half a step per part (plus fir.npy's complex64 rounding), no clipping here
+    assert codes_record["clipped_values"] == 0 and raw.min() >= -2048 and raw.max() <= 2047
+    assert np.max(np.abs(decoded.real - fir.real)) <= 0.5 * step * (1 + 1e-3)
+    assert np.max(np.abs(decoded.imag - fir.imag)) <= 0.5 * step * (1 + 1e-3)
+    # measured SQNR close to the model (uniform noise, Bennett 1948): within 1 dB
+    assert codes_record["sqnr_db"] == pytest.approx(costs["sqnr_db"], abs=1.0)

@@ -37,9 +37,15 @@ COUNT_SCRIPT = (
 
 
 def _chromium():
-    found = shutil.which("chromium") or ("/usr/bin/chromium" if os.path.exists("/usr/bin/chromium") else None)
+    fallback = "/usr/bin/chromium" if os.path.exists("/usr/bin/chromium") else None
+    return _required_tool("chromium", "chromium", fallback)
+
+
+def _required_tool(name, package, fallback=None):
+    """The tool's path; skip without it, unless EMUCOMPILE_REQUIRE_BROWSER=1 (CI): then fail."""
+    found = shutil.which(name) or fallback
     if found is None:
-        message = "Chromium is not installed (apt-get install chromium)"
+        message = f"{name} is not installed (apt-get install {package})"
         if os.environ.get("EMUCOMPILE_REQUIRE_BROWSER") == "1":
             pytest.fail(message + ", and EMUCOMPILE_REQUIRE_BROWSER=1 requires it")
         pytest.skip(message)
@@ -87,3 +93,51 @@ def test_screenshot_is_not_blank(written, tmp_path):
     assert len(colours) > 50  # text, tables, the verdict banner and figures, not a flat page
     # The failed check's cell (background #c62828) was drawn: the inline style sheet applied.
     assert np.any(np.all(rgb == (0xC6, 0x28, 0x28), axis=-1))
+
+
+def _pdftoppm():
+    return _required_tool("pdftoppm", "poppler-utils")
+
+
+@pytest.fixture(scope="module")
+def demo_reports(tmp_path_factory):
+    """Reports of the 2x2 campus-shuttle demo (MIMO) and of the viaduct demo (high-speed train, shadowing)."""
+    from emucompile import compiler, plots
+    from emucompile import verify as verifier
+
+    directory = tmp_path_factory.mktemp("demos")
+    written = {}
+    for name, duration in (("campus-eva-2x2", 10.0), ("viaduct-high-speed-train", 4.0)):
+        bundle = compiler.compile_profile(f"profiles_demo/{name}.yaml", directory / name, duration_s=duration).path
+        verification = verifier.verify_bundle(bundle)
+        written[name] = report.write_report(verification, plots.make_figures(verification),
+                                            directory / f"{name}.html")
+    return written
+
+
+@pytest.mark.parametrize("name, section", [("campus-eva-2x2", "MIMO set-up"),
+                                           ("viaduct-high-speed-train", "Time-varying conditions")])
+def test_printed_to_pdf_the_report_gives_a4_pages_neither_blank_nor_cut(demo_reports, name, section, tmp_path):
+    browser = _chromium()
+    renderer = _pdftoppm()
+    path = demo_reports[name]
+    assert f">{section}</h2>" in path.read_text(encoding="utf-8")
+    pdf = tmp_path / "report.pdf"
+    _run(browser, tmp_path / "profile", "--no-pdf-header-footer", f"--print-to-pdf={pdf}", path.as_uri())
+    assert pdf.read_bytes()[:5] == b"%PDF-"
+    # pdftoppm renders every page: at 30 dpi an A4 page (210 x 297 mm) is 248 x 351 pixels
+    result = subprocess.run([renderer, "-r", "30", "-png", str(pdf), str(tmp_path / "page")],
+                            capture_output=True, timeout=BROWSER_TIMEOUT_S, text=True)
+    assert result.returncode == 0, result.stderr
+    pages = sorted(tmp_path.glob("page-*.png"))
+    assert len(pages) >= 3
+    for page in pages:
+        pixels = mpimage.imread(page)[..., :3]
+        assert abs(pixels.shape[1] - 248) <= 1 and abs(pixels.shape[0] - 351) <= 1, f"{page.name}: not A4"
+        ink = pixels.mean(axis=-1) < 0.9
+        assert ink.mean() > 0.003, f"{page.name} is blank"
+        # the style sheet's page margins are 12 mm at the sides, 14 mm at top and bottom: nothing is drawn
+        # in the outer 8 mm (9 pixels), so nothing runs off the page (a cut table or figure would)
+        edge = 9
+        assert not ink[:, :edge].any() and not ink[:, -edge:].any(), f"{page.name}: content at a side edge"
+        assert not ink[:edge].any() and not ink[-edge:].any(), f"{page.name}: content at the top or bottom edge"

@@ -457,3 +457,26 @@ def test_refuses_contradictory_requests():
         tg.fit_to_target(tg.Target(max_paths=4), taps, update_rate_hz=2000.0)
     assert tg.fit_to_target(tg.Target(max_paths=8), taps, update_rate_hz=2000.0,
                             sample_rate_hz=FS).costs.sample_rate_hz == FS
+
+
+# -- the fit tolerance on the RMS delay spread ----------------------------------------------------
+
+
+def test_the_fit_tolerance_judges_the_fitted_channel_not_the_sinc_windows_tails():
+    one = [Tap(10e-9, 1.0, max_doppler_hz=50.0, index=0)]
+    sinc = tg.fit_to_target(tg.Target(sample_rate_hz=30.72e6), one, update_rate_hz=3200.0)
+    assert sinc.costs.delay_mapping == "sinc" and sinc.costs.fit_rms_delay_spread_s > 20e-9  # the window's tails
+    judged = tg.judge_fit(sinc.costs)
+    assert judged.fit_rms_delay_spread_s == 0.0 and judged.within_tolerance
+    assert judged.bound_s == pytest.approx(0.5 / 30.72e6)  # a spread of 0: half a grid step
+    # two taps 10 ns apart land on one grid point at 30.72 MHz (32.6 ns): the spread vanishes, a missed target
+    two = [Tap(0.0, 1.0, max_doppler_hz=50.0, index=0), Tap(10e-9, 0.5, max_doppler_hz=50.0, index=1)]
+    nearest = tg.fit_to_target(tg.Target(sample_rate_hz=30.72e6), two, update_rate_hz=3200.0, delay_mapping="nearest")
+    judged = tg.judge_fit(nearest.costs, 10.0)
+    assert judged.change_pct == pytest.approx(-100.0) and judged.missed
+    assert not tg.judge_fit(nearest.costs, 10.0, accepted=True).missed
+    assert tg.judge_fit(nearest.costs, 100.0).within_tolerance
+    error = tg.missed_target_error(nearest.costs, judged)
+    assert error.exit_code == 1 and "from 4.7 ns to 0.0 ns (-100.0 %)" in str(error) and "--accept-fit" in str(error)
+    with pytest.raises(InputError, match="fit tolerance"):
+        tg.judge_fit(nearest.costs, -1.0)

@@ -23,6 +23,7 @@ from click.testing import CliRunner
 
 from emucompile import compiler
 from emucompile import verify as verifier
+from profile_helpers import FIT_EXAMPLE
 from emucompile.cli import cli
 from emucompile.formats import sha256_file
 
@@ -425,3 +426,63 @@ def test_an_unwritable_report_directory_warns_and_keeps_the_verdict(crane, monke
     result = _run("verify", crane, "--no-plots")
     assert result.exit_code == 0 and "report not written" in result.stderr
     assert _run("verify", crane, "--no-plots", "--report", "/x/r.html").exit_code == 2
+
+
+# -- the emulator fit in plain view ----------------------------------------------------------------
+
+
+
+def test_an_accepted_fit_is_shown_and_the_delivered_integer_coefficients_are_judged(tmp_path):
+    from emucompile import compiler, plots, report
+    from emucompile import verify as verifier
+    from emucompile.profile import load_profile_text
+
+    profile = load_profile_text(FIT_EXAMPLE, filename="fit-example.yaml")
+    bundle = compiler.compile_profile(profile, tmp_path / "fit", duration_s=2.0, seed=11, accept_fit=True).path
+    result = verifier.verify_bundle(bundle, delivered=True)
+    record = result.to_dict()
+    fit = record["emulator_fit"]
+    assert fit["taps_dropped"] == [16, 17, 20, 21, 22, 23] and len(fit["taps_merged"]) == 5
+    assert fit["rms_delay_spread_s"]["fitted"] == pytest.approx(62.556e-9, rel=1e-4)
+    assert fit["coefficients"]["clipped_values"] == 0 and fit["coefficients"]["file"] == "fir_coefficients.ci16"
+    by_name = {c["name"]: c for c in record["checks"]}
+    judged = by_name["fit_rms_delay_spread"]
+    assert judged["passed"] is None and "accepted at compile with --accept-fit" in judged["reason"]
+    spread = by_name["fir_rms_delay_spread"]
+    assert spread["compared_with"] == "fitted channel" and "62.56 ns" in spread["comparison"]
+    assert "100 ns" in spread["comparison"]  # both shown where they differ
+    codes = [c for c in record["checks"] if c["name"].startswith("delivered fir codes[")]
+    assert {c["compared_with"] for c in codes} == {"fitted channel"}
+    # every stored path is judged; merged Rayleigh taps of one spectrum as one tap of the summed power
+    assert {c["name"].split("]")[0] for c in codes if c["passed"] is not None} == {
+        f"delivered fir codes[{column}" for column in fit_columns(bundle)}
+    assert "fir_coefficients" in record["identity"]["delivered"]
+    assert result.passed
+    page = report.render_report(result, plots.make_figures(result)[:1])
+    assert '<h2 id="fit">Emulator fit</h2>' in page and "accepted at compile with --accept-fit" in page
+    assert page.count("<td>dropped</td>") == 6 and "<td>merged with 2, 3, 4 at 32.55 ns</td>" in page
+
+
+def fit_columns(bundle):
+    from emucompile import open_bundle
+
+    return open_bundle(bundle).entry("fir_coefficients_int")["coefficient_codes"]["columns"]
+
+
+def test_a_fit_beyond_the_tolerance_that_was_not_accepted_fails_verify(tmp_path):
+    # a bundle whose manifest records no acceptance (made before it was recorded): judged at the default
+    import json
+
+    from emucompile import compiler
+    from emucompile import verify as verifier
+    from emucompile.profile import load_profile_text
+
+    profile = load_profile_text(FIT_EXAMPLE, filename="fit-example.yaml")
+    bundle = compiler.compile_profile(profile, tmp_path / "fit", duration_s=1.0, seed=12, accept_fit=True).path
+    manifest_path = bundle / "manifest.json"
+    manifest = json.loads(manifest_path.read_text())
+    del manifest["target"]["fit_acceptance"]
+    manifest_path.write_text(json.dumps(manifest))
+    result = verifier.verify_bundle(bundle)
+    failed = [c for c in result.failed if c.name == "fit_rms_delay_spread"]
+    assert len(failed) == 1 and failed[0].tolerance == pytest.approx(10e-9, rel=1e-3)

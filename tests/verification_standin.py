@@ -17,6 +17,7 @@ from types import SimpleNamespace
 import numpy as np
 
 from emucompile import fading, grid, stats
+from emucompile.channel import generate_channel_gains
 from emucompile.profile import load_profile
 
 
@@ -55,7 +56,8 @@ def standin_verification(profile_path="profiles_demo/port-crane-los.yaml", *, pe
     doppler = max(t.largest_doppler_hz for t in profile.taps)
     rate = rate_per_doppler * doppler
     n = int(periods * rate_per_doppler)
-    gains = fading.generate(profile, rate, n, seed)
+    # the first link of the whole channel (conditions included): generate_tap_gains refuses those
+    gains = generate_channel_gains(profile, rate, n, seed)[:, 0, 0, :]
     records = {i: gains[:, i] for i in range(profile.n_taps)}
     models = {
         i: StandInModel(t.doppler_spectrum, t.power_linear, t.k_linear or 0.0, t.los_doppler_hz or 0.0)
