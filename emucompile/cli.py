@@ -399,7 +399,7 @@ def presets_show(name, delay_spread_ns, output_format):
 @click.option("--seed", type=click.IntRange(min=0), help="Seed of the noise (drawn and recorded when absent).")
 @click.option("--loop", is_flag=True, help="Loop the bundle when the input is longer.")
 @click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ",
-              help="Sample rate of an npy/cf32 input (default: the bundle's FIR map's).")
+              help="Sample rate of an npy/cf32 input (required there; SigMF states its own).")
 @click.option("--start", "start_s", type=float, default=0.0, show_default=True, metavar="SECONDS",
               help="Bundle time of the first output sample.")
 @click.option("--between-updates", type=click.Choice(["linear", "hold"]),
