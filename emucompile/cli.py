@@ -225,24 +225,38 @@ def compile_command(profile, outdir, quiet, max_size, target_file, **options):
         click.echo(_compile_summary(result))
 
 
-@cli.command(epilog="\b\nExample: emucompile reproduce out/robot")
+@cli.command(epilog="\b\nExamples:\n  emucompile reproduce out/robot\n  emucompile reproduce out/robot --json")
 @click.argument("outdir", metavar="OUTDIR")
-def reproduce(outdir):
-    """Regenerate a bundle from its manifest and compare: identical, within tolerance, or different.
+@click.option("--json", "as_json", is_flag=True, help="Print the verdict and every file's hashes as strict JSON.")
+def reproduce(outdir, as_json):
+    """Regenerate every data file of a bundle from its manifest and compare: identical, within tolerance, or different.
 
-    Exit 0 when identical, or equal within the stated tolerance on another
-    platform or library version (said so); 1 when different.
+    Each file the manifest lists is written again (in a temporary directory,
+    removed afterwards) and its bytes compared with the manifest's SHA-256 and
+    with the file on disk; every file that differs is named, with why. Exit 0
+    when identical, or equal within the stated tolerance on another platform
+    or library version (said so); 1 when different.
     """
+    _reproduce_command(outdir, as_json)
+
+
+def _reproduce_command(outdir, as_json):
+    import json
+
     from emucompile import compiler
     from emucompile.errors import CheckFailed
 
-    with _progress(None, "regenerating", False) as update:
+    with _progress(None, "regenerating", as_json) as update:
         result = compiler.reproduce_bundle(outdir, progress=update)
-    click.echo(f"{outdir}: {result.message}")
-    for name, same in result.files:
-        click.echo(f"  {name}: {'same bytes' if same else 'bytes differ'}")
+    if as_json:
+        click.echo(json.dumps(dict(result.to_dict(), bundle=str(outdir)), indent=2, allow_nan=False))
+    else:
+        click.echo(f"{outdir}: {result.message}")
+        for entry in result.files:
+            click.echo(f"  {entry.name}: {entry.status}")
     if not result.ok:
-        raise CheckFailed(f"{outdir}: the regenerated numbers differ from the bundle's")
+        raise CheckFailed(f"{outdir}: {len(result.differing)} of {len(result.files)} file(s) not reproduced: "
+                          + ", ".join(result.differing))
 
 
 # -- verify ----------------------------------------------------------------------

@@ -382,3 +382,42 @@ def test_summary_names_links_and_conditions(tmp_path):
     result = _run("compile", demos / "viaduct-high-speed-train.yaml", "-o", tmp_path / "hst", "--duration", "1")
     assert result.exit_code == 0, result.output
     assert "conditions  high speed train, shadowing" in result.output
+
+
+def test_reproduce_regenerates_every_format_and_names_the_edited_file(profile_file, tmp_path):
+    out = tmp_path / "b"
+    compiler.compile_profile(profile_file, out, duration_s=1, update_rate_hz=1000, seed=5, sample_rate_hz=10e6,
+                             formats="cf32,ci16,csv,sigmf,fir")
+    listed = [e["name"] for e in open_bundle(out).manifest["files"]]
+    clean = compiler.reproduce_bundle(out)
+    assert clean.status == compiler.IDENTICAL and [f.name for f in clean.files] == listed
+    assert {f.status for f in clean.files} == {compiler.SAME_BYTES} and len(listed) >= 8
+    assert f"{len(listed)} of the {len(listed)} data file(s)" in clean.message
+    # A value changed in the csv after compiling: only that file is named, as edited; no other claim.
+    text = (out / "tap_gains.csv").read_text()
+    (out / "tap_gains.csv").write_text(text[:-2] + "9\n")
+    result = _run("reproduce", out)
+    assert result.exit_code == 1, result.output
+    lines = result.stdout.splitlines()
+    assert "edited after compiling: tap_gains.csv" in lines[0] and "()" not in lines[0]
+    assert "  tap_gains.csv: edited after compiling" in lines
+    assert all(line.endswith(": same bytes") for line in lines[1:] if "tap_gains.csv" not in line)
+    # ... and the JSON says the same, with the three hashes of each file
+    document = json.loads(_run("reproduce", out, "--json").stdout)
+    assert document["status"] == "different" and document["differing"] == ["tap_gains.csv"]
+    edited = next(f for f in document["files"] if f["name"] == "tap_gains.csv")
+    assert edited["regenerated_sha256"] == edited["recorded_sha256"] != edited["on_disk_sha256"]
+    assert not any(p.name.startswith(".emucompile-reproduce-") for p in tmp_path.iterdir())
+
+
+def test_reproduce_names_the_edited_gains_file_as_edited_not_as_same_bytes(profile_file, tmp_path):
+    out = tmp_path / "b"
+    compiler.compile_profile(profile_file, out, duration_s=1, update_rate_hz=1000, seed=5, formats="cf32")
+    gains = np.load(out / "tap_gains.npy", mmap_mode="r+")
+    gains[10, 0, 0, 0] *= 3
+    gains.flush()
+    del gains
+    result = compiler.reproduce_bundle(out)
+    statuses = {f.name: f.status for f in result.files}
+    assert statuses == {"tap_gains.npy": compiler.EDITED, "tap_gains.cf32": compiler.SAME_BYTES}
+    assert result.status == compiler.DIFFERENT and result.max_relative_error > 0.5
