@@ -114,35 +114,40 @@ def cli(ctx, debug):
 # -- validate / stats ---------------------------------------------------------
 
 
-@cli.command(epilog="\b\nExample: emucompile validate profiles_demo/*.yaml --json")
-@click.argument("profiles", nargs=-1, required=True, metavar="PROFILE...")
-@click.option("--json", "as_json", is_flag=True, help="Print the problems of all files as one strict-JSON list on stdout.")
-def validate(profiles, as_json):
-    """Check profile files; report every problem as FILE:LINE:COL: /pointer: message.
+@cli.command(epilog="\b\nExample: emucompile validate profiles_demo/*.yaml --json\n"
+             "Example: emucompile validate lab.yaml --target bench-emulator.yaml")
+@click.argument("profiles", nargs=-1, required=True, metavar="FILE...")
+@click.option("--target", "target_file", metavar="FILE", help="An emulator target file to judge each profile with.")
+@click.option("--json", "as_json", is_flag=True, help="Print one verdict per file, with its problems, as strict JSON.")
+def validate(profiles, target_file, as_json):
+    """Check profile and target files; report every problem as FILE:LINE:COL: /pointer: message.
 
-    Every error and warning of every file is printed, one line each, on
-    stderr; a summary line per file goes to stdout. Exit 0 when every file is
-    valid (warnings allowed), 2 when any has an error.
+    A target file is recognised by its content. A profile is checked by the
+    schema, the semantic checks and every rule compile applies to its
+    compile: block (the same code), warnings included; with --target FILE
+    each profile is judged with that target, as compile --target would.
+    Every problem goes to stderr, one line each; a verdict per file to
+    stdout. Exit 0 when every file is valid (warnings allowed), 2 when any
+    has an error.
     """
+    _validate_command(profiles, target_file, as_json)
+
+
+def _validate_command(profiles, target_file, as_json):
     import json
 
-    from emucompile.profile import check_profile
+    from emucompile.validation import validate_files
 
-    everything, invalid = [], 0
-    for name in profiles:
-        profile, problems = check_profile(name)
-        everything += problems
-        errors = sum(p.severity == "error" for p in problems)
-        invalid += profile is None
-        if not as_json:
-            for problem in problems:
-                click.echo(problem.format(), err=True)
-            warnings = len(problems) - errors
-            verdict = "valid" if profile is not None else f"invalid, {errors} error(s)"
-            click.echo(f"{name}: {verdict}" + (f", {warnings} warning(s)" if warnings else ""))
+    verdicts = validate_files(profiles, target_file=target_file)
     if as_json:
-        click.echo(json.dumps([p.to_dict() for p in everything], indent=2, allow_nan=False))
-    if invalid:
+        click.echo(json.dumps({"valid": all(v.valid for v in verdicts), "files": [v.to_dict() for v in verdicts]},
+                              indent=2, allow_nan=False))
+    else:
+        for verdict in verdicts:
+            for problem in verdict.problems:
+                click.echo(problem.format(), err=True)
+            click.echo(verdict.summary())
+    if not all(v.valid for v in verdicts):
         raise click.exceptions.Exit(EXIT_BAD_INPUT)
 
 
@@ -199,17 +204,29 @@ def stats(profile, as_json):
 @click.option("--force", is_flag=True, help="Replace OUTDIR if it is an existing bundle.")
 @click.option("--max-size", type=ByteSize(), metavar="SIZE", help="Refuse to write more than this (default 8GiB).")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
+@click.option("--accept-missed-targets", is_flag=True, help="Compile although an expect: target is missed (recorded).")
+@click.option("--json", "as_json", is_flag=True, help="Print the summary as strict JSON (no progress bar).")
 def compile_command(profile, outdir, quiet, max_size, target_file, **options):
     """Compile a profile into a bundle of tap gains (and FIR map) in OUTDIR.
 
     Choices not given here come from the profile's compile: block, then from
     the defaults: update rate 64 x the largest Doppler, 10 s, a seed drawn
     from the system (printed, so the run can be repeated with --seed).
-    The size is estimated first; nothing is left behind if the run fails.
+    The profile's expect: targets are checked first: a missed one stops here
+    with exit 1 unless --accept-missed-targets. The size is estimated
+    first; nothing is left behind if the run fails.
     """
+    _compile_command(profile, outdir, quiet, max_size, target_file, options)
+
+
+def _compile_command(profile, outdir, quiet, max_size, target_file, options):
+    import json
+
     from emucompile import compiler
     from emucompile.bundle import DEFAULT_MAX_SIZE_BYTES
 
+    as_json = options.pop("as_json")
+    quiet = quiet or as_json
     plan = compiler.plan_compile(
         profile, outdir, target=target_file,
         max_size_bytes=DEFAULT_MAX_SIZE_BYTES if max_size is None else max_size, **options,
@@ -221,8 +238,26 @@ def compile_command(profile, outdir, quiet, max_size, target_file, **options):
                    f"at {plan.update_rate_hz:g} Hz, about {_size_text(plan.estimated_size_bytes)}", err=True)
     with _progress(plan.n_samples, "compiling", quiet) as update:
         result = compiler.run_plan(plan, progress=update)
-    if not quiet:
+    if as_json:
+        click.echo(json.dumps(_compile_record(result), indent=2, allow_nan=False))
+    elif not quiet:
         click.echo(_compile_summary(result))
+
+
+def _compile_record(result) -> dict:
+    """``compile --json``: the summary's facts (docs/json-output.md)."""
+    plan, manifest = result.plan, result.manifest
+    return {
+        "bundle": str(result.path), "profile": plan.profile.name, "profile_sha256": plan.profile_sha256,
+        "resolved_profile_sha256": manifest["resolved_profile_sha256"], "n_taps": plan.profile.n_taps,
+        "n_rx": manifest["n_rx"], "n_tx": manifest["n_tx"], "n_samples": plan.n_samples,
+        "update_rate_hz": plan.update_rate_hz, "duration_s": plan.duration_s, "periodic": plan.periodic,
+        "method": plan.method, "generator_version": manifest["generator_version"], "seed": plan.seed,
+        "sources": dict(plan.sources), "warnings": list(plan.warnings), "expect": manifest.get("expect"),
+        "fir": manifest.get("fir"), "target_costs": (manifest.get("target") or {}).get("costs"),
+        "files": [{"name": e["name"], "size_bytes": e["size_bytes"], "sha256": e["sha256"]} for e in manifest["files"]],
+        "elapsed_s": result.elapsed_s,
+    }
 
 
 @cli.command(epilog="\b\nExamples:\n  emucompile reproduce out/robot\n  emucompile reproduce out/robot --json")
@@ -537,6 +572,11 @@ def _compile_summary(result) -> str:
     if conditions:
         lines.append("conditions  " + ", ".join(name.replace("_", " ") for name in conditions)
                      + " (trajectories in manifest.json)")
+    expect = manifest.get("expect")
+    if expect:
+        lines.append(f"expect      {expect['checked'] - len(expect['missed'])} of {expect['checked']} target(s) met"
+                     + (f"; missed, accepted with --accept-missed-targets: {', '.join(expect['missed'])}"
+                        if expect["missed"] else ""))
     fir = manifest.get("fir")
     if fir:
         lines.append(

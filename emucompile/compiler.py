@@ -88,6 +88,10 @@ class CompilePlan:
     max_size_bytes: int | None
     sources: dict = field(default_factory=dict)
     warnings: tuple = ()
+    findings: tuple = ()
+    expect: dict | None = None
+    """The ``expect:`` targets checked before planning (:func:`expect_record`); None without targets."""
+    """Every rule's finding (:class:`emucompile.rules.Finding`; warnings only, since errors refuse)."""
     engine: fading.FadingPlan = field(default=None, repr=False, compare=False)
     channel: ChannelPlan = field(default=None, repr=False, compare=False)
 
@@ -125,6 +129,7 @@ def plan_compile(
     method: str | None = None,
     force: bool = False,
     max_size_bytes: int | None = DEFAULT_MAX_SIZE_BYTES,
+    accept_missed_targets: bool = False,
 ) -> CompilePlan:
     """Settle and check every choice of a compile run (see the module notes for defaults).
 
@@ -147,68 +152,47 @@ def plan_compile(
         Replace OUTDIR if it is a bundle.
     max_size_bytes : int or None
         Refuse to write more (None: no limit).
+    accept_missed_targets : bool
+        Compile even when an ``expect:`` target of the profile is missed (the
+        misses are recorded in the manifest's ``expect`` and the warnings).
 
     Raises
     ------
+    emucompile.errors.CheckFailed
+        An ``expect:`` target is missed (checked first) and not accepted; exit 1.
     emucompile.errors.InputError
         On any impossible request, with the limit and what would work.
     """
+    from emucompile.rules import CompileRefused, settle_choices
+
     profile, profile_sha256 = _profile_and_hash(profile)
-    defaults = profile.compile
+    expect = expect_record(profile, accept_missed_targets)
     sources: dict = {}
-    warnings: list[str] = []
-
     target_obj = _target(target, profile, sources)
-    largest_doppler = profile.largest_doppler_hz
-
-    rate = _pick(sources, "update_rate_hz", update_rate_hz, defaults.update_rate_hz)
-    if rate is None:
-        if largest_doppler > 0:
-            rate = DEFAULT_UPDATE_FACTOR * largest_doppler
-        else:
-            rate = DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ
-        cap = getattr(target_obj, "max_update_rate_hz", None)
-        if cap is not None and rate > cap:
-            rate = float(cap)
-            sources["update_rate_hz"] = "target"
-    rate = _positive("update rate", rate, "Hz")
-    _check_update_rate(rate, largest_doppler, warnings)
-
-    duration = _pick(sources, "duration_s", duration_s, defaults.duration_s)
-    duration = DEFAULT_DURATION_S if duration is None else _positive("duration", duration, "s")
-    n_samples = int(round(duration * rate))
-    if n_samples < 1:
-        raise InputError(
-            f"a duration of {duration:g} s at {rate:g} Hz gives no sample",
-            hint=f"use at least {1.0 / rate:g} s",
-        )
-
-    seed_value = _pick(sources, "seed", seed, defaults.seed)
+    choices, findings = settle_choices(
+        profile, duration_s=duration_s, update_rate_hz=update_rate_hz, seed=seed, sample_rate_hz=sample_rate_hz,
+        delay_mapping=delay_mapping, periodic=periodic, method=method, target=target_obj, sources=sources)
+    if choices is None:
+        raise CompileRefused(findings)
+    warnings = [f.text() for f in findings if f.severity == "warning"]
+    if expect and expect["missed"]:
+        warnings.append(f"compiled although {len(expect['missed'])} expect: target(s) are missed "
+                        f"(--accept-missed-targets): {', '.join(expect['missed'])}")
+    rate, n_samples = choices.update_rate_hz, choices.n_samples
+    seed_value = choices.seed
     if seed_value is None:
         seed_value = secrets.randbits(63)
         sources["seed"] = "drawn"
     seed_value = int(seed_value)
-
-    method_value = _pick(sources, "method", method, defaults.method) or fading.DEFAULT_METHOD
-    periodic_value = bool(_pick(sources, "periodic", periodic, defaults.periodic) or False)
+    method_value, periodic_value = choices.method, choices.periodic
     formats_value = parse_formats(formats or ())
-    mapping = _pick(sources, "delay_mapping", delay_mapping, defaults.delay_mapping)
-    rate_fs = _pick(sources, "sample_rate_hz", sample_rate_hz, defaults.sample_rate_hz)
+    mapping, rate_fs = choices.delay_mapping, choices.sample_rate_hz
 
     fit = None
     grid_map = None
     conditions = profile.conditions
     moving = getattr(conditions, "moving_propagation", None)
-    if moving is not None and target_obj is not None:
-        raise InputError("a moving delay cannot be fitted to a target yet", hint="drop the target, or the moving delay")
-    if moving is not None:
-        if rate_fs is None:
-            raise InputError("a moving delay needs a sample rate: the FIR follows the delay",
-                             hint="give --sample-rate (or compile: sample_rate_hz)")
-        if mapping not in (None, "sinc"):
-            raise InputError("a moving delay needs the sinc delay mapping (a nearest-sample map would jump)",
-                             hint="use --delay-mapping sinc")
-        rate_fs = _positive("sample rate", rate_fs, "Hz")
+    if moving is not None:  # the rules have checked the sample rate, the mapping and the target
         mapping = "sinc"
         grid_map = moving_fir_map([t.delay_s for t in profile.taps], [t.power_linear for t in profile.taps],
                                   rate_fs, moving, rate)
@@ -222,7 +206,6 @@ def plan_compile(
                             delay_mapping=mapping)
         grid_map = fit.fir_map
     elif rate_fs is not None:
-        rate_fs = _positive("sample rate", rate_fs, "Hz")
         grid_map = fir_map([t.delay_s for t in profile.taps], [t.power_linear for t in profile.taps],
                            rate_fs, mapping=mapping or "sinc")
 
@@ -268,6 +251,8 @@ def plan_compile(
         max_size_bytes=max_size_bytes,
         sources=sources,
         warnings=tuple(warnings),
+        findings=tuple(findings),
+        expect=expect,
         engine=engine,
         channel=channel,
     )
@@ -335,7 +320,39 @@ def manifest_fields(plan: CompilePlan) -> dict:
     }
     if plan.target_fit is not None:
         fields["target"] = _target_entry(plan.target_fit)
+    if plan.expect is not None:
+        fields["expect"] = plan.expect
     return fields
+
+
+def expect_record(profile: Profile, accept_missed: bool = False) -> dict | None:
+    """The profile's ``expect:`` targets checked as ``stats`` checks them (None without targets).
+
+    Raises :class:`~emucompile.errors.CheckFailed` (exit 1) when one is missed
+    and ``accept_missed`` is false: a bundle is not made from a profile that
+    fails its own targets unless that is asked for, and then it is recorded.
+    """
+    if not profile.expect:
+        return None
+    from emucompile.errors import CheckFailed
+    from emucompile.stats import check_targets
+
+    results = check_targets(profile)
+    missed = [t.quantity for t in results if not t.met]
+    if missed and not accept_missed:
+        detail = "; ".join(_missed_text(t) for t in results if not t.met)
+        raise CheckFailed(f"{len(missed)} of {len(results)} expect: target(s) missed, nothing compiled: {detail}",
+                          hint="fix the profile or its targets (emucompile stats shows them), "
+                               "or compile anyway with --accept-missed-targets")
+    return {"checked": len(results), "missed": missed, "accepted_missed": bool(missed),
+            "targets": [t.to_dict() for t in results]}
+
+
+def _missed_text(t) -> str:
+    value = "undefined" if t.value is None else f"{t.value:.6g}"
+    low = "-inf" if t.low is None else f"{t.low:.6g}"
+    high = "inf" if t.high is None else f"{t.high:.6g}"
+    return f"{t.quantity} = {value}, wanted [{low}, {high}]"
 
 
 # -- reproduce -----------------------------------------------------------------------
@@ -550,6 +567,7 @@ def _replan(manifest: dict, path) -> CompilePlan:
         periodic=manifest["periodic"],
         method=manifest["method"],
         formats=tuple(manifest.get("formats") or ()),
+        accept_missed_targets=True,  # judged when it was compiled (manifest "expect")
         force=True,  # lifts the csv row limit a bundle with csv was written under
         max_size_bytes=None,
     )
@@ -578,46 +596,6 @@ def _target(target, profile, sources):
 
         return target_module.load_target(target)
     return target
-
-
-def _pick(sources, name, option, from_profile):
-    if option is not None:
-        sources[name] = "option"
-        return option
-    if from_profile is not None:
-        sources[name] = "profile"
-        return from_profile
-    sources[name] = "default"
-    return None
-
-
-def _positive(what, value, unit):
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise InputError(f"{what} must be a number, got {value!r}") from None
-    if not (number > 0 and math.isfinite(number)):
-        raise InputError(f"{what} must be finite and > 0 {unit}, got {value!r}")
-    return number
-
-
-def _check_update_rate(rate, largest_doppler, warnings):
-    if largest_doppler <= 0:
-        return
-    minimum = MIN_UPDATE_FACTOR * largest_doppler
-    if rate < minimum:
-        raise InputError(
-            f"update rate {rate:g} Hz is below the minimum {minimum:g} Hz for the largest Doppler "
-            f"{largest_doppler:g} Hz ({MIN_UPDATE_FACTOR:g} x, Nyquist with a guard band)",
-            hint=f"use --update-rate {math.ceil(minimum)} or more",
-        )
-    if rate < WARN_UPDATE_FACTOR * largest_doppler:
-        warnings.append(
-            f"update rate {rate:g} Hz is only {rate / largest_doppler:.1f} x the largest Doppler "
-            f"({largest_doppler:g} Hz): an emulator that holds or linearly interpolates coefficients "
-            f"between updates will add images; {WARN_UPDATE_FACTOR} x ({WARN_UPDATE_FACTOR * largest_doppler:g} Hz) "
-            "or more avoids that"
-        )
 
 
 def _manifest_taps(profile, info):
@@ -679,6 +657,7 @@ __all__ = [
     "manifest_fields",
     "reproduce_bundle",
     "FileComparison",
+    "expect_record",
     "DEFAULT_UPDATE_FACTOR",
     "WARN_UPDATE_FACTOR",
     "DEFAULT_DURATION_S",
