@@ -342,7 +342,7 @@ def expect_record(profile: Profile, accept_missed: bool = False) -> dict | None:
     if missed and not accept_missed:
         detail = "; ".join(_missed_text(t) for t in results if not t.met)
         raise CheckFailed(f"{len(missed)} of {len(results)} expect: target(s) missed, nothing compiled: {detail}",
-                          hint="fix the profile or its targets (emucompile stats shows them), "
+                          hint="fix the profile or its targets, which emucompile stats shows, "
                                "or compile anyway with --accept-missed-targets")
     return {"checked": len(results), "missed": missed, "accepted_missed": bool(missed),
             "targets": [t.to_dict() for t in results]}

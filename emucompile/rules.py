@@ -54,8 +54,8 @@ class Finding:
         """Where in a profile the finding belongs: the ``compile:`` key it came from, else the block."""
         if self.key in CHOICES and self.source == "profile":
             return f"/compile/{self.key}"
-        if self.key == "target" and self.source == "profile":
-            return "/target"
+        if self.key in ("target", "expect") and self.source == "profile":
+            return f"/{self.key}"
         return "/compile" if self.source == "profile" else ""
 
 
@@ -195,16 +195,24 @@ def compile_findings(profile, *, target=None, max_size_bytes=None) -> list[Findi
         from emucompile.bundle import DEFAULT_MAX_SIZE_BYTES
 
         max_size_bytes = DEFAULT_MAX_SIZE_BYTES
+    from emucompile.errors import CheckFailed
+
+    # A missed expect: target stops compile with exit 1; for a file's validity it is a warning.
+    found = []
+    try:
+        compiler.expect_record(profile)
+    except CheckFailed as missed:
+        found.append(Finding("expect", f"compile will stop here: {missed.message}", missed.hint, "warning", "profile"))
     # Only checked, never generated: the profile's seed, else 0 (no entropy drawn for nothing).
     seed = None if profile.compile.seed is not None else 0
     try:
         plan = compiler.plan_compile(profile, "validate-only", target=target, seed=seed,
-                                     max_size_bytes=max_size_bytes)
+                                     max_size_bytes=max_size_bytes, accept_missed_targets=True)
     except CompileRefused as refused:
-        return refused.findings
+        return found + refused.findings
     except InputError as error:  # the FIR map, the target fit, the engine, the size
-        return [Finding(None, error.message, error.hint)]
-    return list(plan.findings)
+        return [*found, Finding(None, error.message, error.hint)]
+    return found + list(plan.findings)
 
 
 def _sample_rate_rules(find, profile, rate, rate_fs, mapping):
