@@ -71,6 +71,7 @@ _API = {
     "diff_profiles": "emucompile.diff",
     "validate_files": "emucompile.validation",
     "compile_findings": "emucompile.rules",
+    "write_profile_card": "emucompile.card",
 }
 
 

@@ -154,7 +154,9 @@ def _validate_command(profiles, target_file, as_json):
 @cli.command(epilog="\b\nExample: emucompile stats profiles_demo/warehouse-robot.yaml --json")
 @click.argument("profile", metavar="PROFILE")
 @click.option("--json", "as_json", is_flag=True, help="Print one strict-JSON object (SI units).")
-def stats(profile, as_json):
+@click.option("--html", "html_file", metavar="FILE",
+              help="Also write a profile card: one self-contained HTML page (figures, statistics, taps, text).")
+def stats(profile, as_json, html_file):
     """Delay and Doppler statistics of a profile, and its expect: targets.
 
     Values that are undefined or infinite print as undefined (null in JSON,
@@ -180,10 +182,23 @@ def stats(profile, as_json):
         click.echo(json.dumps(document, indent=2, allow_nan=False))
     else:
         click.echo(format_statistics(statistics, targets))
+    if html_file:
+        _write_card(loaded, html_file, as_json)
     missed = [t.quantity for t in targets if not t.met]
     if missed:
         raise CheckFailed(f"{profile}: {len(missed)} of {len(targets)} expect: target(s) missed: "
                           + ", ".join(missed))
+
+
+def _write_card(profile, html_file, as_json):
+    from emucompile.card import write_profile_card
+    from emucompile.errors import InputError
+
+    try:
+        written = write_profile_card(profile, html_file)
+    except OSError as error:
+        raise InputError(f"{html_file}: cannot write the profile card: {error.strerror or error}") from None
+    click.echo(f"wrote the profile card {written}", err=as_json)
 
 
 # -- compile / reproduce -------------------------------------------------------
