@@ -32,8 +32,6 @@ import hashlib
 import html
 import io
 import json
-import os
-import secrets
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -126,19 +124,9 @@ def write_profile_card(profile, path) -> Path:
         text = source.read_text(encoding="utf-8")
     elif profile.source and Path(profile.source).is_file():
         text = Path(profile.source).read_text(encoding="utf-8")
-    page = render_profile_card(profile, text=text)
-    path = Path(path)
-    temporary = path.with_name(f".{path.name}.emucompile-tmp-{os.getpid()}-{secrets.token_hex(4)}")
-    try:
-        with open(temporary, "w", encoding="utf-8", newline="\n") as stream:
-            stream.write(page)
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.replace(temporary, path)
-    except BaseException:
-        temporary.unlink(missing_ok=True)
-        raise
-    return path
+    from emucompile.report import write_text_atomic
+
+    return write_text_atomic(path, render_profile_card(profile, text=text))
 
 
 # -- figures ------------------------------------------------------------------------------------------
