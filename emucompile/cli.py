@@ -517,10 +517,13 @@ def presets_show(name, delay_spread_ns, output_format):
               help="Gains between update instants (default: the bundle target's, else linear).")
 @click.option("--force", is_flag=True, help="Replace existing output files.")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
-def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet):
+@click.option("--json", "as_json", is_flag=True, help="Print the summary and the written metadata as strict JSON.")
+def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet,
+          as_json):
     """Pass an IQ recording through a bundle's time-varying channel."""
     from emucompile.apply import apply_bundle
 
+    quiet = quiet or as_json
     with _ProgressBar("applying", quiet) as bar:
         result = apply_bundle(
             outdir, input_file, output_file, snr_db=snr_db, seed=seed, loop=loop, sample_rate_hz=sample_rate_hz,
@@ -531,6 +534,8 @@ def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, s
                    "of the ci16 output (lower the input level)", err=True)
     if seed is not None and snr_db is None:
         click.echo("emucompile: note: --seed has no effect without --snr-db", err=True)
+    if as_json:
+        _apply_json(result)
     if quiet:
         return
     record = result.record
@@ -545,6 +550,17 @@ def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, s
     )
     if noise is not None:
         click.echo(f"  noise at SNR {noise['snr_db']:g} dB on the nominal output power, seed {noise['seed']}")
+
+
+def _apply_json(result):
+    """``apply --json``: the summary's facts and the metadata written beside the output (docs/json-output.md)."""
+    import json
+
+    click.echo(json.dumps({
+        "files": [str(p) for p in result.files], "n_samples": result.n_samples, "n_rx": result.n_rx,
+        "sample_rate_hz": result.sample_rate_hz, "clipped_values": result.clipped_values,
+        "metadata": result.record,
+    }, indent=2, allow_nan=False))
 
 
 class _ProgressBar:
