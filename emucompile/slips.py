@@ -54,7 +54,7 @@ def slip_warnings(root: dict, taps: list, standard_keys: dict | None = None) -> 
             k = tap["k_db"]
             found.append((f"/taps/{tap['index']}/k_db",
                           f"K = {k:g} dB is above {MAX_PLAUSIBLE_K_DB:g} dB: the direct part would be "
-                          f"{10 ** (k / 10):.3g} x the diffuse one, practically a static tap",
+                          f"{_power_ratio(k)} x the diffuse one, practically a static tap",
                           f"a linear K written as dB? K = {k:g} linear is k_db: {10 * math.log10(k):.3g}"
                           if k > 0 else "check the value"))
     found += _carrier_slips(root)
@@ -139,6 +139,11 @@ def _speed_kmh(root):
     if _finite(root.get("speed_mps")):
         return root["speed_mps"] * 3.6
     return None
+
+
+def _power_ratio(db: float) -> str:
+    """10^(dB/10) as text, without overflowing a float for absurd values."""
+    return f"{10 ** (db / 10):.3g}" if db < 3000 else f"1e{db / 10:.0f}"
 
 
 def _finite(value) -> bool:

@@ -78,3 +78,10 @@ def test_the_standard_models_raise_no_slip_and_stay_well_below_the_delay_factor(
         assert distinct[-1] / spacing < 0.5 * DELAY_SPACING_FACTOR, record.name
         taps = [{"index": i, "delay_s": t.delay_s, "k_db": t.k_db} for i, t in enumerate(profile.taps)]
         assert slip_warnings(document, taps) == [], record.name
+
+
+def test_an_absurd_value_is_an_error_of_the_schema_and_no_crash():
+    text = INDOOR.replace("{delay_ns: 0, power_db: 0}", "{delay_ns: 0, power_db: 0, fading: rician, k_db: 3083, "
+                          "los_angle_deg: 90}")
+    profile, problems = check_profile_text(text, filename="p.yaml")
+    assert profile is None and any("k_db must be <= 100" in p.message for p in problems)
