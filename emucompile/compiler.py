@@ -341,7 +341,8 @@ def expect_record(profile: Profile, accept_missed: bool = False) -> dict | None:
     missed = [t.quantity for t in results if not t.met]
     if missed and not accept_missed:
         detail = "; ".join(_missed_text(t) for t in results if not t.met)
-        raise CheckFailed(f"{len(missed)} of {len(results)} expect: target(s) missed, nothing compiled: {detail}",
+        raise CheckFailed(f"{profile.source or profile.name}: {len(missed)} of {len(results)} expect: target(s) "
+                          f"missed, nothing compiled: {detail}",
                           hint="fix the profile or its targets, which emucompile stats shows, "
                                "or compile anyway with --accept-missed-targets")
     return {"checked": len(results), "missed": missed, "accepted_missed": bool(missed),

@@ -75,9 +75,9 @@ def _delay_slips(known, raw_taps, standard_keys):
             continue
         written = raw.get(key)
         if key == "delay_us":
-            likely = f"delay_ns: {written:g} ({written:g} ns)"
+            likely = f"delay_ns: {written:g}, not delay_us"
         else:
-            likely = f"delay_ns: {written / 1000:g} ({written / 1000:g} ns)"
+            likely = f"delay_ns: {written / 1000:g}"
         found.append((f"/taps/{index}/{key}",
                       f"tap delay {_time_text(tap['delay_s'])} is {tap['delay_s'] / spacing_s:.0f} x the median "
                       f"spacing of the profile's delays ({_time_text(spacing_s)})",
@@ -111,7 +111,7 @@ def _speed_slips(root):
         value = root.get(key)
         if _finite(value) and value * to_kmh > MAX_PLAUSIBLE_SPEED_KMH:
             if key == "speed_mps":
-                likely = f"speed_kmh: {value:g} ({value / 3.6:.4g} m/s)"
+                likely = f"speed_kmh: {value:g}, i.e. {value / 3.6:.4g} m/s"
             else:
                 likely = f"speed_kmh: {value / 3.6:.4g} (km/h converted twice?) or speed_mps: {value / 3.6:.4g}"
             return [(f"/{key}", f"speed {value * to_kmh:g} km/h is above the fastest trains "
@@ -126,7 +126,7 @@ def _carrier_slips(root):
     if value < MIN_PLAUSIBLE_CARRIER_HZ:
         scale, unit = (1e9, "GHz") if value < 100 else (1e6, "MHz")
         return [("/carrier_hz", f"carrier {value:g} Hz is below 1 MHz",
-                 f"a value in {unit} written as Hz? likely carrier_hz: {value * scale:g} ({value:g} {unit})")]
+                 f"a value in {unit} written as Hz? likely carrier_hz: {value * scale:g}, i.e. {value:g} {unit}")]
     if value > MAX_PLAUSIBLE_CARRIER_HZ:
         return [("/carrier_hz", f"carrier {value:g} Hz is above 300 GHz",
                  f"three zeros too many? likely carrier_hz: {value / 1000:g}")]

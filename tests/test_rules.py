@@ -151,3 +151,23 @@ def test_compile_checks_expect_first_and_records_an_accepted_miss(tmp_path):
                "--seed", 1, "--json")
     summary = json.loads(met.stdout)
     assert met.exit_code == 0 and summary["expect"]["missed"] == [] and summary["expect"]["accepted_missed"] is False
+
+
+@pytest.mark.parametrize("compile_block, pointer, words", [
+    ("{duration_s: 1.0e+6, update_rate_hz: 10000}", "", "above the limit of 8.0 GiB"),
+    ("{sample_rate_hz: 122.88e6}", "/compile/sample_rate_hz", "spans about 1228864 FIR coefficients"),
+    ("{sample_rate_hz: 1000, update_rate_hz: 5000}", "/compile/update_rate_hz", "above the sample rate 1000 Hz"),
+    ("{periodic: true}", "/compile/periodic", "periodic mode is not supported yet"),
+])
+def test_validate_reports_the_size_the_fir_length_and_the_combinations_compile_refuses(tmp_path, compile_block,
+                                                                                       pointer, words):
+    text = SLOW.replace("compile:\n  update_rate_hz: 100\n  seed: 3\n", f"compile: {compile_block}\n")
+    text = text.replace("{delay_ns: 100, power_db: -3}", "{delay_us: 10000, power_db: -3}" if "122" in compile_block
+                        else "{delay_ns: 100, power_db: -3}")
+    if "periodic" in compile_block:
+        text += "conditions:\n  shadowing: {sigma_db: 4, decorrelation_distance_m: 20, speed_kmh: 30}\n"
+    path = _write(tmp_path, "p.yaml", text)
+    errors = [p for p in validate_file(path).problems if p.severity == "error"]
+    assert len(errors) == 1 and errors[0].pointer == pointer and words in errors[0].message, errors
+    with pytest.raises(InputError, match=words.split(" ")[0]):
+        compiler.plan_compile(path, tmp_path / "b")
