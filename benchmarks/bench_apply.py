@@ -110,7 +110,8 @@ def main():
         counter = iter(range(10**6))
 
         def file_to_file():
-            ap.apply_bundle(work / "bundle", work / "input.npy", work / f"out{next(counter)}.npy", snr_db=20.0, seed=1)
+            ap.apply_bundle(work / "bundle", work / "input.npy", work / f"out{next(counter)}.npy", snr_db=20.0, seed=1,
+                            sample_rate_hz=SAMPLE_RATE_HZ)
 
         rows.append(("file to file (npy, SNR 20 dB)", best_of(file_to_file, options.repeats)))
 

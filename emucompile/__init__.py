@@ -69,6 +69,11 @@ _API = {
     "make_figures": "emucompile.plots",
     "render_report": "emucompile.report",
     "write_report": "emucompile.report",
+    # comparing and exchanging profiles
+    "diff_profiles": "emucompile.diff",
+    "validate_files": "emucompile.validation",
+    "compile_findings": "emucompile.rules",
+    "write_profile_card": "emucompile.card",
 }
 
 

@@ -616,7 +616,8 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
         Loop the bundle when the input is longer than it.
     sample_rate_hz : float, optional
         Sample rate of an npy/raw input (SigMF says its own; a value that
-        contradicts it is refused). Default: the bundle's FIR map's rate.
+        contradicts it is refused). Required for npy and cf32 input: it is
+        checked against the bundle's FIR map's rate, never assumed.
     start_s : float
         Bundle time of the first output sample.
     between_updates : {"linear", "hold"}, optional
@@ -838,12 +839,13 @@ def _resolve_sample_rate(recording: Recording, given, manifest: dict, bundle_pat
         rate = recording.sample_rate_hz
     elif given is not None:
         rate = float(given)
-    elif fir is not None:
-        rate = float(fir["sample_rate_hz"])
     else:
+        # A headerless recording (npy, cf32) does not say its rate: assuming the bundle's
+        # would replay a waveform of another rate through the wrong channel without a word.
+        stated = f" (the bundle's FIR map was made for {fir['sample_rate_hz']:g} Hz)" if fir is not None else ""
         raise InputError(
-            f"{recording.path}: the sample rate is unknown: the recording does not say it and the bundle has no FIR map",
-            hint="give --sample-rate HZ",
+            f"{recording.path}: the recording does not state its sample rate{stated}",
+            hint="give --sample-rate HZ; only SigMF metadata with core:sample_rate may leave it out",
         )
     if fir is not None and not _same_rate(rate, fir["sample_rate_hz"]):
         raise InputError(

@@ -114,42 +114,49 @@ def cli(ctx, debug):
 # -- validate / stats ---------------------------------------------------------
 
 
-@cli.command(epilog="\b\nExample: emucompile validate profiles_demo/*.yaml --json")
-@click.argument("profiles", nargs=-1, required=True, metavar="PROFILE...")
-@click.option("--json", "as_json", is_flag=True, help="Print the problems of all files as one strict-JSON list on stdout.")
-def validate(profiles, as_json):
-    """Check profile files; report every problem as FILE:LINE:COL: /pointer: message.
+@cli.command(epilog="\b\nExample: emucompile validate profiles_demo/*.yaml --json\n"
+             "Example: emucompile validate lab.yaml --target bench-emulator.yaml")
+@click.argument("profiles", nargs=-1, required=True, metavar="FILE...")
+@click.option("--target", "target_file", metavar="FILE", help="An emulator target file to judge each profile with.")
+@click.option("--json", "as_json", is_flag=True, help="Print one verdict per file, with its problems, as strict JSON.")
+def validate(profiles, target_file, as_json):
+    """Check profile and target files; report every problem as FILE:LINE:COL: /pointer: message.
 
-    Every error and warning of every file is printed, one line each, on
-    stderr; a summary line per file goes to stdout. Exit 0 when every file is
-    valid (warnings allowed), 2 when any has an error.
+    A target file is recognised by its content. A profile is checked by the
+    schema, the semantic checks and every rule compile applies to its
+    compile: block (the same code), warnings included; with --target FILE
+    each profile is judged with that target, as compile --target would.
+    Every problem goes to stderr, one line each; a verdict per file to
+    stdout. Exit 0 when every file is valid (warnings allowed), 2 when any
+    has an error.
     """
+    _validate_command(profiles, target_file, as_json)
+
+
+def _validate_command(profiles, target_file, as_json):
     import json
 
-    from emucompile.profile import check_profile
+    from emucompile.validation import validate_files
 
-    everything, invalid = [], 0
-    for name in profiles:
-        profile, problems = check_profile(name)
-        everything += problems
-        errors = sum(p.severity == "error" for p in problems)
-        invalid += profile is None
-        if not as_json:
-            for problem in problems:
-                click.echo(problem.format(), err=True)
-            warnings = len(problems) - errors
-            verdict = "valid" if profile is not None else f"invalid, {errors} error(s)"
-            click.echo(f"{name}: {verdict}" + (f", {warnings} warning(s)" if warnings else ""))
+    verdicts = validate_files(profiles, target_file=target_file)
     if as_json:
-        click.echo(json.dumps([p.to_dict() for p in everything], indent=2, allow_nan=False))
-    if invalid:
+        click.echo(json.dumps({"valid": all(v.valid for v in verdicts), "files": [v.to_dict() for v in verdicts]},
+                              indent=2, allow_nan=False))
+    else:
+        for verdict in verdicts:
+            for problem in verdict.problems:
+                click.echo(problem.format(), err=True)
+            click.echo(verdict.summary())
+    if not all(v.valid for v in verdicts):
         raise click.exceptions.Exit(EXIT_BAD_INPUT)
 
 
 @cli.command(epilog="\b\nExample: emucompile stats profiles_demo/warehouse-robot.yaml --json")
 @click.argument("profile", metavar="PROFILE")
 @click.option("--json", "as_json", is_flag=True, help="Print one strict-JSON object (SI units).")
-def stats(profile, as_json):
+@click.option("--html", "html_file", metavar="FILE",
+              help="Also write a profile card: one self-contained HTML page (figures, statistics, taps, text).")
+def stats(profile, as_json, html_file):
     """Delay and Doppler statistics of a profile, and its expect: targets.
 
     Values that are undefined or infinite print as undefined (null in JSON,
@@ -175,10 +182,23 @@ def stats(profile, as_json):
         click.echo(json.dumps(document, indent=2, allow_nan=False))
     else:
         click.echo(format_statistics(statistics, targets))
+    if html_file:
+        _write_card(loaded, html_file, as_json)
     missed = [t.quantity for t in targets if not t.met]
     if missed:
         raise CheckFailed(f"{profile}: {len(missed)} of {len(targets)} expect: target(s) missed: "
                           + ", ".join(missed))
+
+
+def _write_card(profile, html_file, as_json):
+    from emucompile.card import write_profile_card
+    from emucompile.errors import InputError
+
+    try:
+        written = write_profile_card(profile, html_file)
+    except OSError as error:
+        raise InputError(f"{html_file}: cannot write the profile card: {error.strerror or error}") from None
+    click.echo(f"wrote the profile card {written}", err=as_json)
 
 
 # -- compile / reproduce -------------------------------------------------------
@@ -202,20 +222,31 @@ def stats(profile, as_json):
               help="How far a target fit may move the RMS delay spread, in % of the profile's (default 10).")
 @click.option("--accept-fit", is_flag=True, help="Accept a target fit beyond that tolerance (recorded in the manifest).")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
+@click.option("--accept-missed-targets", is_flag=True, help="Compile although an expect: target is missed (recorded).")
+@click.option("--json", "as_json", is_flag=True, help="Print the summary as strict JSON (no progress bar).")
 def compile_command(profile, outdir, quiet, max_size, target_file, **options):
     """Compile a profile into a bundle of tap gains (and FIR map) in OUTDIR.
 
     Choices not given here come from the profile's compile: block, then from
     the defaults: update rate 64 x the largest Doppler, 10 s, a seed drawn
     from the system (printed, so the run can be repeated with --seed).
-    The size is estimated first; nothing is left behind if the run fails.
-    With a target, a fit that moves the RMS delay spread by more than
-    --fit-tolerance-pct is a missed target: exit 1, nothing written, unless
-    --accept-fit.
+    The profile's expect: targets are checked first: a missed one stops here
+    with exit 1 unless --accept-missed-targets. The size is estimated
+    first; nothing is left behind if the run fails. With a target, a fit
+    that moves the RMS delay spread by more than --fit-tolerance-pct is a
+    missed target: exit 1, nothing written, unless --accept-fit.
     """
+    _compile_command(profile, outdir, quiet, max_size, target_file, options)
+
+
+def _compile_command(profile, outdir, quiet, max_size, target_file, options):
+    import json
+
     from emucompile import compiler
     from emucompile.bundle import DEFAULT_MAX_SIZE_BYTES
 
+    as_json = options.pop("as_json")
+    quiet = quiet or as_json
     plan = compiler.plan_compile(
         profile, outdir, target=target_file,
         max_size_bytes=DEFAULT_MAX_SIZE_BYTES if max_size is None else max_size, **options,
@@ -227,28 +258,108 @@ def compile_command(profile, outdir, quiet, max_size, target_file, **options):
                    f"at {plan.update_rate_hz:g} Hz, about {_size_text(plan.estimated_size_bytes)}", err=True)
     with _progress(plan.n_samples, "compiling", quiet) as update:
         result = compiler.run_plan(plan, progress=update)
-    if not quiet:
+    if as_json:
+        click.echo(json.dumps(_compile_record(result), indent=2, allow_nan=False))
+    elif not quiet:
         click.echo(_compile_summary(result))
 
 
-@cli.command(epilog="\b\nExample: emucompile reproduce out/robot")
-@click.argument("outdir", metavar="OUTDIR")
-def reproduce(outdir):
-    """Regenerate a bundle from its manifest and compare: identical, within tolerance, or different.
+def _compile_record(result) -> dict:
+    """``compile --json``: the summary's facts (docs/json-output.md)."""
+    plan, manifest = result.plan, result.manifest
+    return {
+        "bundle": str(result.path), "profile": plan.profile.name, "profile_sha256": plan.profile_sha256,
+        "resolved_profile_sha256": manifest["resolved_profile_sha256"], "n_taps": plan.profile.n_taps,
+        "n_rx": manifest["n_rx"], "n_tx": manifest["n_tx"], "n_samples": plan.n_samples,
+        "update_rate_hz": plan.update_rate_hz, "duration_s": plan.duration_s, "periodic": plan.periodic,
+        "method": plan.method, "generator_version": manifest["generator_version"], "seed": plan.seed,
+        "sources": dict(plan.sources), "warnings": list(plan.warnings), "expect": manifest.get("expect"),
+        "fir": manifest.get("fir"), "target_costs": (manifest.get("target") or {}).get("costs"),
+        "fit_acceptance": (manifest.get("target") or {}).get("fit_acceptance"),
+        "files": [{"name": e["name"], "size_bytes": e["size_bytes"], "sha256": e["sha256"]} for e in manifest["files"]],
+        "elapsed_s": result.elapsed_s,
+    }
 
-    Exit 0 when identical, or equal within the stated tolerance on another
-    platform or library version (said so); 1 when different.
+
+@cli.command(epilog="\b\nExamples:\n  emucompile reproduce out/robot\n  emucompile reproduce out/robot --json")
+@click.argument("outdir", metavar="OUTDIR")
+@click.option("--json", "as_json", is_flag=True, help="Print the verdict and every file's hashes as strict JSON.")
+def reproduce(outdir, as_json):
+    """Regenerate every data file of a bundle from its manifest and compare: identical, within tolerance, or different.
+
+    Each file the manifest lists is written again (in a temporary directory,
+    removed afterwards) and its bytes compared with the manifest's SHA-256 and
+    with the file on disk; every file that differs is named, with why. Exit 0
+    when identical, or equal within the stated tolerance on another platform
+    or library version (said so); 1 when different.
     """
+    _reproduce_command(outdir, as_json)
+
+
+def _reproduce_command(outdir, as_json):
+    import json
+
     from emucompile import compiler
     from emucompile.errors import CheckFailed
 
-    with _progress(None, "regenerating", False) as update:
+    with _progress(None, "regenerating", as_json) as update:
         result = compiler.reproduce_bundle(outdir, progress=update)
-    click.echo(f"{outdir}: {result.message}")
-    for name, same in result.files:
-        click.echo(f"  {name}: {'same bytes' if same else 'bytes differ'}")
+    if as_json:
+        click.echo(json.dumps(dict(result.to_dict(), bundle=str(outdir)), indent=2, allow_nan=False))
+    else:
+        click.echo(f"{outdir}: {result.message}")
+        for entry in result.files:
+            click.echo(f"  {entry.name}: {entry.status}")
     if not result.ok:
-        raise CheckFailed(f"{outdir}: the regenerated numbers differ from the bundle's")
+        raise CheckFailed(f"{outdir}: {len(result.differing)} of {len(result.files)} file(s) not reproduced: "
+                          + ", ".join(result.differing))
+
+
+# -- diff ------------------------------------------------------------------------------
+
+
+@cli.command(epilog="\b\nExamples:\n  emucompile diff lab-v1.yaml lab-v2.yaml\n"
+             "  emucompile diff out/robot-a out/robot-b --json\n"
+             "  emucompile diff lab.yaml tdl-c-300.yaml --tolerance power_db=0.1 --tolerance delay_ns=1")
+@click.argument("a", metavar="A")
+@click.argument("b", metavar="B")
+@click.option("--tolerance", "tolerances", multiple=True, metavar="NAME=VALUE",
+              help="Override a tolerance: delay_ns (0.01), power_db (0.01), k_db (0.01), doppler_hz (0.001), "
+                   "phase_deg (0.01), correlation (1e-9), relative (1e-9). Repeatable.")
+@click.option("--json", "as_json", is_flag=True, help="Print the comparison as strict JSON.")
+def diff(a, b, tolerances, as_json):
+    """What changed between two profiles, or two bundles (their profiles and generation settings).
+
+    Both are compared resolved (presets expanded, powers scaled, units in
+    SI): header, taps matched by delay (added, removed, changed: old -> new),
+    fading, K, spectra, MIMO, conditions, compile settings; then the
+    statistics side by side. For two bundles, also whether they would hold
+    the same data bytes. Exit 0 when they describe the same channel (within
+    the tolerances), 1 when the channel differs, 2 on bad input.
+    """
+    _diff_command(a, b, tolerances, as_json)
+
+
+def _diff_command(a, b, tolerances, as_json):
+    import json
+
+    from emucompile.diff import diff_profiles
+    from emucompile.errors import CheckFailed, InputError
+
+    overrides = {}
+    for item in tolerances:
+        name, _, value = item.partition("=")
+        try:
+            overrides[name.strip()] = float(value)
+        except ValueError:
+            raise InputError(f"--tolerance {item!r}: give NAME=VALUE, e.g. power_db=0.1") from None
+    result = diff_profiles(a, b, tolerances=overrides)
+    if as_json:
+        click.echo(json.dumps(result.as_dict(), indent=2, allow_nan=False))
+    else:
+        click.echo(result.summary())
+    if not result.same_channel:
+        raise CheckFailed(f"{a} and {b} describe different channels: {len(result.channel_changes)} change(s)")
 
 
 # -- verify ----------------------------------------------------------------------
@@ -409,17 +520,20 @@ def presets_show(name, delay_spread_ns, output_format):
 @click.option("--seed", type=click.IntRange(min=0), help="Seed of the noise (drawn and recorded when absent).")
 @click.option("--loop", is_flag=True, help="Loop the bundle when the input is longer.")
 @click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ",
-              help="Sample rate of an npy/cf32 input (default: the bundle's FIR map's).")
+              help="Sample rate of an npy/cf32 input (required there; SigMF states its own).")
 @click.option("--start", "start_s", type=float, default=0.0, show_default=True, metavar="SECONDS",
               help="Bundle time of the first output sample.")
 @click.option("--between-updates", type=click.Choice(["linear", "hold"]),
               help="Gains between update instants (default: the bundle target's, else linear).")
 @click.option("--force", is_flag=True, help="Replace existing output files.")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
-def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet):
+@click.option("--json", "as_json", is_flag=True, help="Print the summary and the written metadata as strict JSON.")
+def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet,
+          as_json):
     """Pass an IQ recording through a bundle's time-varying channel."""
     from emucompile.apply import apply_bundle
 
+    quiet = quiet or as_json
     with _ProgressBar("applying", quiet) as bar:
         result = apply_bundle(
             outdir, input_file, output_file, snr_db=snr_db, seed=seed, loop=loop, sample_rate_hz=sample_rate_hz,
@@ -430,6 +544,8 @@ def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, s
                    "of the ci16 output (lower the input level)", err=True)
     if seed is not None and snr_db is None:
         click.echo("emucompile: note: --seed has no effect without --snr-db", err=True)
+    if as_json:
+        _apply_json(result)
     if quiet:
         return
     record = result.record
@@ -444,6 +560,17 @@ def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, s
     )
     if noise is not None:
         click.echo(f"  noise at SNR {noise['snr_db']:g} dB on the nominal output power, seed {noise['seed']}")
+
+
+def _apply_json(result):
+    """``apply --json``: the summary's facts and the metadata written beside the output (docs/json-output.md)."""
+    import json
+
+    click.echo(json.dumps({
+        "files": [str(p) for p in result.files], "n_samples": result.n_samples, "n_rx": result.n_rx,
+        "sample_rate_hz": result.sample_rate_hz, "clipped_values": result.clipped_values,
+        "metadata": result.record,
+    }, indent=2, allow_nan=False))
 
 
 class _ProgressBar:
@@ -533,6 +660,11 @@ def _compile_summary(result) -> str:
     if conditions:
         lines.append("conditions  " + ", ".join(name.replace("_", " ") for name in conditions)
                      + " (trajectories in manifest.json)")
+    expect = manifest.get("expect")
+    if expect:
+        lines.append(f"expect      {expect['checked'] - len(expect['missed'])} of {expect['checked']} target(s) met"
+                     + (f"; missed, accepted with --accept-missed-targets: {', '.join(expect['missed'])}"
+                        if expect["missed"] else ""))
     fir = manifest.get("fir")
     if fir:
         lines.append(

@@ -90,6 +90,10 @@ class CompilePlan:
     sources: dict = field(default_factory=dict)
     warnings: tuple = ()
     fit_acceptance: object | None = None  # emucompile.target.FitAcceptance of a target fit
+    findings: tuple = ()
+    """Every rule's finding (:class:`emucompile.rules.Finding`; warnings only, since errors refuse)."""
+    expect: dict | None = None
+    """The ``expect:`` targets checked before planning (:func:`expect_record`); None without targets."""
     engine: fading.FadingPlan = field(default=None, repr=False, compare=False)
     channel: ChannelPlan = field(default=None, repr=False, compare=False)
 
@@ -129,6 +133,7 @@ def plan_compile(
     max_size_bytes: int | None = DEFAULT_MAX_SIZE_BYTES,
     fit_tolerance_pct: float | None = None,
     accept_fit: bool = False,
+    accept_missed_targets: bool = False,
 ) -> CompilePlan:
     """Settle and check every choice of a compile run (see the module notes for defaults).
 
@@ -156,72 +161,51 @@ def plan_compile(
         profile's (default :data:`emucompile.target.DEFAULT_FIT_TOLERANCE_PCT`).
     accept_fit : bool
         Accept a fit beyond that tolerance (recorded in the manifest).
+    accept_missed_targets : bool
+        Compile even when an ``expect:`` target of the profile is missed (the
+        misses are recorded in the manifest's ``expect`` and the warnings).
 
     Raises
     ------
+    emucompile.errors.CheckFailed
+        An ``expect:`` target is missed (checked first) and not accepted; exit 1.
     emucompile.errors.InputError
         On any impossible request, with the limit and what would work.
     emucompile.target.TargetMissed
         (exit 1) The fit moves the RMS delay spread beyond the tolerance and
         ``accept_fit`` is False; nothing is written.
     """
+    from emucompile.rules import CompileRefused, settle_choices
+
     profile, profile_sha256 = _profile_and_hash(profile)
-    defaults = profile.compile
+    expect = expect_record(profile, accept_missed_targets)
     sources: dict = {}
-    warnings: list[str] = []
-
     target_obj = _target(target, profile, sources)
-    largest_doppler = profile.largest_doppler_hz
-
-    rate = _pick(sources, "update_rate_hz", update_rate_hz, defaults.update_rate_hz)
-    if rate is None:
-        if largest_doppler > 0:
-            rate = DEFAULT_UPDATE_FACTOR * largest_doppler
-        else:
-            rate = DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ
-        cap = getattr(target_obj, "max_update_rate_hz", None)
-        if cap is not None and rate > cap:
-            rate = float(cap)
-            sources["update_rate_hz"] = "target"
-    rate = _positive("update rate", rate, "Hz")
-    _check_update_rate(rate, largest_doppler, warnings)
-
-    duration = _pick(sources, "duration_s", duration_s, defaults.duration_s)
-    duration = DEFAULT_DURATION_S if duration is None else _positive("duration", duration, "s")
-    n_samples = int(round(duration * rate))
-    if n_samples < 1:
-        raise InputError(
-            f"a duration of {duration:g} s at {rate:g} Hz gives no sample",
-            hint=f"use at least {1.0 / rate:g} s",
-        )
-
-    seed_value = _pick(sources, "seed", seed, defaults.seed)
+    choices, findings = settle_choices(
+        profile, duration_s=duration_s, update_rate_hz=update_rate_hz, seed=seed, sample_rate_hz=sample_rate_hz,
+        delay_mapping=delay_mapping, periodic=periodic, method=method, target=target_obj, sources=sources)
+    if choices is None:
+        raise CompileRefused(findings)
+    warnings = [f.text() for f in findings if f.severity == "warning"]
+    if expect and expect["missed"]:
+        warnings.append(f"compiled although {len(expect['missed'])} expect: target(s) are missed "
+                        f"(--accept-missed-targets): {', '.join(expect['missed'])}")
+    rate, n_samples = choices.update_rate_hz, choices.n_samples
+    seed_value = choices.seed
     if seed_value is None:
         seed_value = secrets.randbits(63)
         sources["seed"] = "drawn"
     seed_value = int(seed_value)
-
-    method_value = _pick(sources, "method", method, defaults.method) or fading.DEFAULT_METHOD
-    periodic_value = bool(_pick(sources, "periodic", periodic, defaults.periodic) or False)
+    method_value, periodic_value = choices.method, choices.periodic
     formats_value = parse_formats(formats or ())
-    mapping = _pick(sources, "delay_mapping", delay_mapping, defaults.delay_mapping)
-    rate_fs = _pick(sources, "sample_rate_hz", sample_rate_hz, defaults.sample_rate_hz)
+    mapping, rate_fs = choices.delay_mapping, choices.sample_rate_hz
 
     fit = None
     acceptance = None
     grid_map = None
     conditions = profile.conditions
     moving = getattr(conditions, "moving_propagation", None)
-    if moving is not None and target_obj is not None:
-        raise InputError("a moving delay cannot be fitted to a target yet", hint="drop the target, or the moving delay")
-    if moving is not None:
-        if rate_fs is None:
-            raise InputError("a moving delay needs a sample rate: the FIR follows the delay",
-                             hint="give --sample-rate (or compile: sample_rate_hz)")
-        if mapping not in (None, "sinc"):
-            raise InputError("a moving delay needs the sinc delay mapping (a nearest-sample map would jump)",
-                             hint="use --delay-mapping sinc")
-        rate_fs = _positive("sample rate", rate_fs, "Hz")
+    if moving is not None:  # the rules have checked the sample rate, the mapping and the target
         mapping = "sinc"
         grid_map = moving_fir_map([t.delay_s for t in profile.taps], [t.power_linear for t in profile.taps],
                                   rate_fs, moving, rate)
@@ -236,7 +220,6 @@ def plan_compile(
         grid_map = fit.fir_map
         acceptance = _judge_fit(fit, fit_tolerance_pct, accept_fit)
     elif rate_fs is not None:
-        rate_fs = _positive("sample rate", rate_fs, "Hz")
         grid_map = fir_map([t.delay_s for t in profile.taps], [t.power_linear for t in profile.taps],
                            rate_fs, mapping=mapping or "sinc")
 
@@ -284,6 +267,8 @@ def plan_compile(
         max_size_bytes=max_size_bytes,
         sources=sources,
         warnings=tuple(warnings),
+        findings=tuple(findings),
+        expect=expect,
         engine=engine,
         channel=channel,
     )
@@ -306,6 +291,7 @@ def compile_profile(
     max_size_bytes: int | None = DEFAULT_MAX_SIZE_BYTES,
     fit_tolerance_pct: float | None = None,
     accept_fit: bool = False,
+    accept_missed_targets: bool = False,
     progress=None,
     plan: CompilePlan | None = None,
 ) -> CompileResult:
@@ -353,6 +339,9 @@ def compile_profile(
     accept_fit : bool
         Write the bundle even when the fit moves it further, recording the
         acceptance in the manifest (``--accept-fit``).
+    accept_missed_targets : bool
+        Compile even when an ``expect:`` target is missed, recording the misses
+        in the manifest (``--accept-missed-targets``).
     progress : callable(samples_done, samples_total), optional
         Called as the record is written (the command line draws its bar with
         it; ``--quiet`` passes none).
@@ -382,7 +371,7 @@ def compile_profile(
                    sample_rate_hz=sample_rate_hz, delay_mapping=delay_mapping, target=target,
                    formats=formats, periodic=periodic, method=method, force=force,
                    max_size_bytes=max_size_bytes, fit_tolerance_pct=fit_tolerance_pct,
-                   accept_fit=accept_fit)
+                   accept_fit=accept_fit, accept_missed_targets=accept_missed_targets)
     if plan is None:
         plan = plan_compile(profile, outdir, **choices)
     else:
@@ -432,7 +421,40 @@ def manifest_fields(plan: CompilePlan) -> dict:
         fields["target"] = _target_entry(plan.target_fit)
         if plan.fit_acceptance is not None:
             fields["target"]["fit_acceptance"] = plan.fit_acceptance.to_dict()
+    if plan.expect is not None:
+        fields["expect"] = plan.expect
     return fields
+
+
+def expect_record(profile: Profile, accept_missed: bool = False) -> dict | None:
+    """The profile's ``expect:`` targets checked as ``stats`` checks them (None without targets).
+
+    Raises :class:`~emucompile.errors.CheckFailed` (exit 1) when one is missed
+    and ``accept_missed`` is false: a bundle is not made from a profile that
+    fails its own targets unless that is asked for, and then it is recorded.
+    """
+    if not profile.expect:
+        return None
+    from emucompile.errors import CheckFailed
+    from emucompile.stats import check_targets
+
+    results = check_targets(profile)
+    missed = [t.quantity for t in results if not t.met]
+    if missed and not accept_missed:
+        detail = "; ".join(_missed_text(t) for t in results if not t.met)
+        raise CheckFailed(f"{profile.source or profile.name}: {len(missed)} of {len(results)} expect: target(s) "
+                          f"missed, nothing compiled: {detail}",
+                          hint="fix the profile or its targets, which emucompile stats shows, "
+                               "or compile anyway with --accept-missed-targets")
+    return {"checked": len(results), "missed": missed, "accepted_missed": bool(missed),
+            "targets": [t.to_dict() for t in results]}
+
+
+def _missed_text(t) -> str:
+    value = "undefined" if t.value is None else f"{t.value:.6g}"
+    low = "-inf" if t.low is None else f"{t.low:.6g}"
+    high = "inf" if t.high is None else f"{t.high:.6g}"
+    return f"{t.quantity} = {value}, wanted [{low}, {high}]"
 
 
 # -- reproduce -----------------------------------------------------------------------
@@ -442,16 +464,47 @@ WITHIN_TOLERANCE = "within tolerance"
 DIFFERENT = "different"
 
 
+SAME_BYTES = "same bytes"
+BYTES_DIFFER = "bytes differ"
+EDITED = "edited after compiling"
+MISSING = "missing"
+NOT_REGENERATED = "not regenerated"
+
+
+@dataclass(frozen=True)
+class FileComparison:
+    """One data file of the manifest: the recorded, the regenerated and the on-disk SHA-256.
+
+    ``status`` is ``"same bytes"`` (all three equal), ``"bytes differ"`` (the
+    regenerated bytes differ from what the manifest records), ``"edited after
+    compiling"`` (regenerated = recorded, but the file on disk is neither),
+    ``"missing"`` (listed, not on disk) or ``"not regenerated"`` (a file this
+    version does not write from the manifest's choices).
+    """
+
+    name: str
+    status: str
+    recorded_sha256: str
+    regenerated_sha256: str | None
+    on_disk_sha256: str | None
+
+    def to_dict(self) -> dict:
+        return {"name": self.name, "status": self.status, "recorded_sha256": self.recorded_sha256,
+                "regenerated_sha256": self.regenerated_sha256, "on_disk_sha256": self.on_disk_sha256}
+
+
 @dataclass(frozen=True)
 class ReproduceResult:
     """The verdict of :func:`reproduce_bundle` and the evidence behind it.
 
-    ``status`` is ``"identical"`` (every regenerated data byte equal),
-    ``"within tolerance"`` (numbers equal within the engine's stated
-    cross-platform tolerance, on another platform or library version) or
-    ``"different"``. ``max_relative_error`` is the largest |difference|
-    relative to each tap's RMS gain; ``platform_differences`` lists what
-    differs between the bundle's recorded platform and this one.
+    ``status`` is ``"identical"`` (every data file regenerated with the bytes
+    the manifest records and the disk holds), ``"within tolerance"`` (numbers
+    equal within the engine's stated cross-platform tolerance, on another
+    platform or library version) or ``"different"``. ``files`` holds one
+    :class:`FileComparison` per data file the manifest lists, in its order.
+    ``max_relative_error`` is the largest |regenerated - stored| gain relative
+    to each tap's RMS gain; ``platform_differences`` lists what differs between
+    the bundle's recorded platform and this one.
     """
 
     status: str
@@ -465,20 +518,37 @@ class ReproduceResult:
     def ok(self) -> bool:
         return self.status != DIFFERENT
 
+    @property
+    def differing(self) -> tuple:
+        """Names of the files whose status is not "same bytes"."""
+        return tuple(f.name for f in self.files if f.status != SAME_BYTES)
+
+    def to_dict(self) -> dict:
+        """The JSON form (``reproduce --json``; docs/json-output.md)."""
+        return {"status": self.status, "ok": self.ok, "message": self.message,
+                "files": [f.to_dict() for f in self.files], "differing": list(self.differing),
+                "max_relative_error": self.max_relative_error if math.isfinite(self.max_relative_error) else None,
+                "tolerance": self.tolerance,
+                "platform_differences": list(self.platform_differences)}
+
 
 def reproduce_bundle(path, *, progress=None) -> ReproduceResult:
-    """Regenerate a bundle's tap gains and FIR map from its manifest and compare.
+    """Regenerate every data file of a bundle from its manifest and compare, file by file.
 
     The embedded resolved profile, the seed, the method, the update rate, the
-    record length, the FIR choices and the target are read from the manifest
-    and planned again exactly as ``compile`` plans them; the gains are
-    regenerated chunk by chunk (bounded memory), their npy bytes hashed and
-    compared with the recorded SHA-256 of ``tap_gains.npy`` (likewise
-    ``fir_map.npy``), and compared numerically with the stored gains, so a
-    mismatch says how large it is. The other data formats are written from
-    the same gains by deterministic writers; ``emucompile verify`` checks
-    their hashes.
+    record length, the FIR choices, the formats and the target are read from
+    the manifest and planned again exactly as ``compile`` plans them; the
+    whole bundle is written again into a temporary directory beside it (or in
+    the system's temporary directory when that is not writable), chunk by
+    chunk, and removed afterwards. Each data file the manifest lists is
+    compared three ways: regenerated, recorded in the manifest and on disk
+    (so a file edited after compiling is named as such). The stored gains are
+    also compared numerically with the regenerated ones, so a mismatch says
+    how large it is.
     """
+    import shutil
+    import tempfile
+
     bundle = open_bundle(path, verify=False)
     manifest = bundle.manifest
     if manifest.get("generator_version") != fading.GENERATOR_VERSION:
@@ -490,44 +560,91 @@ def reproduce_bundle(path, *, progress=None) -> ReproduceResult:
     plan = _replan(manifest, path)
     engine = plan.engine
     stored = bundle.tap_gains
-    digest = hashlib.sha256(_npy_header(np.complex64, stored.shape))
     worst = 0.0
     rms = np.sqrt(np.maximum([t.power_linear for t in plan.profile.taps], 1e-300))
-    for start, block in plan.channel.chunks(CHUNK_SAMPLES):
-        gains = block
-        digest.update(np.ascontiguousarray(block).tobytes())
-        difference = np.abs(block - stored[start:start + len(block)]).max(axis=(0, 1, 2))
-        worst = max(worst, float((difference / rms).max()))
-        if progress is not None:
-            progress(start + len(gains), engine.n_samples)
-    files = [("tap_gains.npy", digest.hexdigest() == bundle.entry("tap_gains")["sha256"])]
-    if plan.fir is not None:
-        matrix = np.ascontiguousarray(plan.fir.matrix)
-        fir_digest = hashlib.sha256(_npy_header(matrix.dtype, matrix.shape) + matrix.tobytes())
-        entry = bundle.entry("fir_map")
-        files.append(("fir_map.npy", entry is not None and fir_digest.hexdigest() == entry["sha256"]))
-    if plan.channel.shadowing is not None:
-        values = np.ascontiguousarray(plan.channel.shadowing_db(0, engine.n_samples), dtype="<f8")
-        shadow_digest = hashlib.sha256(_npy_header(values.dtype, values.shape) + values.tobytes())
-        entry = bundle.entry(SHADOWING_ROLE)
-        files.append((SHADOWING_FILE, entry is not None and shadow_digest.hexdigest() == entry["sha256"]))
+    scratch = _scratch_directory(Path(path), tempfile)
+    try:
+        with BundleWriter(scratch / "bundle", plan.layout, max_size_bytes=None) as writer:
+            for start, block in plan.channel.chunks(CHUNK_SAMPLES):
+                writer.write_chunk(start, block)
+                stop = min(start + len(block), stored.shape[0])
+                if stop > start and stored.shape[1:] == block.shape[1:]:
+                    difference = np.abs(block[:stop - start] - stored[start:stop]).max(axis=(0, 1, 2))
+                    worst = max(worst, float((difference / rms).max()))
+                if progress is not None:
+                    progress(start + len(block), engine.n_samples)
+            regenerated = {e["name"]: e["sha256"] for e in
+                           open_bundle(writer.finish(manifest_fields(plan))).manifest["files"]}
+    finally:
+        shutil.rmtree(scratch, ignore_errors=True)
+    if stored.shape != plan.layout.gains_shape:
+        worst = math.inf
+    files = tuple(_compare_file(Path(path), entry, regenerated.get(entry["name"])) for entry in manifest["files"])
     platform_differences = _platform_differences(manifest.get("platform") or {})
     tolerance = fading.CROSS_PLATFORM_TOLERANCE
-    fir_same = all(ok for name, ok in files if name != "tap_gains.npy")
-    if all(ok for _, ok in files) and worst == 0.0:
-        status, message = IDENTICAL, "identical: every regenerated data byte equals the bundle's"
-    elif worst <= tolerance and fir_same and platform_differences:
-        status = WITHIN_TOLERANCE
-        message = (f"within tolerance: largest difference {worst:.2e} x RMS gain <= {tolerance:g}, "
-                   f"on a different platform or library version ({'; '.join(platform_differences)})")
-    else:
-        status = DIFFERENT
-        where = ", ".join(name for name, ok in files if not ok)
-        why = "" if platform_differences else " on the same platform and library versions"
-        message = f"different ({where}): largest difference {worst:.2e} x RMS gain{why}"
-    return ReproduceResult(status=status, files=tuple(files), max_relative_error=worst,
+    status, message = _reproduce_verdict(files, worst, tolerance, platform_differences)
+    return ReproduceResult(status=status, files=files, max_relative_error=worst,
                            tolerance=tolerance, platform_differences=tuple(platform_differences),
                            message=message)
+
+
+def _scratch_directory(bundle_path: Path, tempfile) -> Path:
+    """A new private directory beside the bundle (same disk), else in the system's temporary directory."""
+    for parent in (bundle_path.resolve().parent, None):
+        try:
+            return Path(tempfile.mkdtemp(prefix=".emucompile-reproduce-", dir=parent))
+        except OSError:
+            continue
+    raise InputError(f"{bundle_path}: no writable directory to regenerate the bundle in")
+
+
+def _compare_file(directory: Path, entry: dict, regenerated: str | None) -> FileComparison:
+    recorded = entry["sha256"]
+    on_disk = _file_sha256(directory / entry["name"])
+    if on_disk is None:
+        status = MISSING
+    elif regenerated is None:
+        status = NOT_REGENERATED
+    elif regenerated != recorded:
+        status = BYTES_DIFFER
+    elif on_disk != recorded:
+        status = EDITED
+    else:
+        status = SAME_BYTES
+    return FileComparison(entry["name"], status, recorded, regenerated, on_disk)
+
+
+def _file_sha256(path: Path) -> str | None:
+    digest = hashlib.sha256()
+    try:
+        with open(path, "rb") as stream:
+            for block in iter(lambda: stream.read(1 << 20), b""):
+                digest.update(block)
+    except OSError:
+        return None
+    return digest.hexdigest()
+
+
+def _reproduce_verdict(files, worst, tolerance, platform_differences):
+    """(status, message): one sentence naming what was compared and every file that differs."""
+    n = len(files)
+    made = sum(f.regenerated_sha256 is not None for f in files)
+    compared = f"{made} of the {n} data file(s) the manifest lists regenerated and compared with it and the disk"
+    by_status: dict = {}
+    for f in files:
+        by_status.setdefault(f.status, []).append(f.name)
+    if set(by_status) == {SAME_BYTES}:
+        return IDENTICAL, f"identical: {compared}; every one has the same bytes"
+    detail = "; ".join(f"{status}: {', '.join(names)}" for status, names in by_status.items()
+                       if status != SAME_BYTES)
+    only_numbers = set(by_status) <= {SAME_BYTES, BYTES_DIFFER}
+    if only_numbers and worst <= tolerance and platform_differences:
+        return WITHIN_TOLERANCE, (
+            f"within tolerance: {compared}; {detail}; largest gain difference {worst:.2e} x RMS gain "
+            f"<= {tolerance:g}, on a different platform or library version ({'; '.join(platform_differences)})")
+    why = "" if platform_differences else " on the same platform and library versions"
+    return DIFFERENT, (f"different: {compared}; {detail}; largest gain difference {worst:.2e} x RMS gain "
+                       f"between the regenerated gains and tap_gains.npy{why}")
 
 
 def _replan(manifest: dict, path) -> CompilePlan:
@@ -552,6 +669,9 @@ def _replan(manifest: dict, path) -> CompilePlan:
         target=target,
         periodic=manifest["periodic"],
         method=manifest["method"],
+        formats=tuple(manifest.get("formats") or ()),
+        accept_missed_targets=True,  # judged when it was compiled (manifest "expect")
+        force=True,  # lifts the csv row limit a bundle with csv was written under
         max_size_bytes=None,
         fit_tolerance_pct=acceptance.get("tolerance_pct"),
         accept_fit=True,  # the bundle exists: its fit was judged when it was made (manifest target.fit_acceptance)
@@ -581,46 +701,6 @@ def _target(target, profile, sources):
 
         return target_module.load_target(target)
     return target
-
-
-def _pick(sources, name, option, from_profile):
-    if option is not None:
-        sources[name] = "option"
-        return option
-    if from_profile is not None:
-        sources[name] = "profile"
-        return from_profile
-    sources[name] = "default"
-    return None
-
-
-def _positive(what, value, unit):
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise InputError(f"{what} must be a number, got {value!r}") from None
-    if not (number > 0 and math.isfinite(number)):
-        raise InputError(f"{what} must be finite and > 0 {unit}, got {value!r}")
-    return number
-
-
-def _check_update_rate(rate, largest_doppler, warnings):
-    if largest_doppler <= 0:
-        return
-    minimum = MIN_UPDATE_FACTOR * largest_doppler
-    if rate < minimum:
-        raise InputError(
-            f"update rate {rate:g} Hz is below the minimum {minimum:g} Hz for the largest Doppler "
-            f"{largest_doppler:g} Hz ({MIN_UPDATE_FACTOR:g} x, Nyquist with a guard band)",
-            hint=f"use --update-rate {math.ceil(minimum)} or more",
-        )
-    if rate < WARN_UPDATE_FACTOR * largest_doppler:
-        warnings.append(
-            f"update rate {rate:g} Hz is only {rate / largest_doppler:.1f} x the largest Doppler "
-            f"({largest_doppler:g} Hz): an emulator that holds or linearly interpolates coefficients "
-            f"between updates will add images; {WARN_UPDATE_FACTOR} x ({WARN_UPDATE_FACTOR * largest_doppler:g} Hz) "
-            "or more avoids that"
-        )
 
 
 def _manifest_taps(profile, info):
@@ -679,12 +759,6 @@ def _target_entry(fit) -> dict:
     return {"constraints": fit.target.to_dict(), "costs": fit.costs.to_dict()}
 
 
-def _npy_header(dtype, shape) -> bytes:
-    from emucompile.formats import npy_header
-
-    return npy_header(dtype, tuple(shape))
-
-
 def _platform_differences(recorded: dict) -> list[str]:
     from emucompile.bundle import platform_info
 
@@ -709,6 +783,8 @@ __all__ = [
     "run_plan",
     "manifest_fields",
     "reproduce_bundle",
+    "FileComparison",
+    "expect_record",
     "DEFAULT_UPDATE_FACTOR",
     "WARN_UPDATE_FACTOR",
     "DEFAULT_DURATION_S",

@@ -713,6 +713,7 @@ class _Checker:
                        "give max_doppler_hz, or speed_kmh (or speed_mps) with carrier_hz, "
                        "or a max_doppler_hz on each fading tap; only static taps need none")
         self._tap_warnings(taps)
+        self._slip_warnings(taps)
         scale_db = self._power_scale(taps)
         expectations = self._expectations()
         blocks = {"conditions": conditions, "mimo": self._mimo(raw_taps), "target": self._target(),
@@ -975,6 +976,13 @@ class _Checker:
                     self.warning(f"/taps/{tap['index']}/power_db",
                                  f"the tap is {below:.3g} dB below the strongest tap",
                                  "check the power; a tap this weak barely changes the channel")
+
+    def _slip_warnings(self, taps):
+        from emucompile.slips import slip_warnings
+
+        for pointer, message, hint in slip_warnings(self.root, taps, self.standard_keys):
+            if pointer.split("/")[1] not in self.broken_blocks:
+                self.warning(pointer, message, hint)
 
     def _power_scale(self, taps) -> float:
         powers = [t["power_db"] for t in taps if t and t["power_db"] is not None]

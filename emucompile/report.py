@@ -141,8 +141,12 @@ def write_report(verification, figures, path, **options) -> Path:
     On any error the temporary file is removed and ``path`` is untouched.
     ``options`` go to :func:`render_report`.
     """
+    return write_text_atomic(path, render_report(verification, figures, **options))
+
+
+def write_text_atomic(path, text: str) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` through a fsync-ed temporary sibling and a rename; return the path."""
     path = Path(path)
-    text = render_report(verification, figures, **options)
     temporary = path.with_name(f".{path.name}.emucompile-tmp-{os.getpid()}-{secrets.token_hex(4)}")
     try:
         with open(temporary, "w", encoding="utf-8", newline="\n") as stream:

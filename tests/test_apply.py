@@ -272,9 +272,9 @@ def test_loop_over_a_periodic_bundle_is_seamless(tmp_path):
     x = np.ones(int(2.5 * period), np.complex64)
     np.save(tmp_path / "x.npy", x)
     with pytest.raises(InputError, match="past the end of the bundle"):
-        ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy")
+        ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy", sample_rate_hz=64000.0)
     assert listing(tmp_path) == ["b", "x.npy"]
-    result = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy", loop=True)
+    result = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy", loop=True, sample_rate_hz=64000.0)
     y = np.load(tmp_path / "y.npy")
     np.testing.assert_array_equal(y[period:2 * period], y[:period])  # each lap is the same
     np.testing.assert_allclose(y, direct_output(x, gains, [[1.0]], 1000.0, 64000.0, wrap=True)[:, 0], atol=1e-6)
@@ -291,13 +291,13 @@ def test_a_bundle_that_is_not_periodic_holds_its_last_sample_and_joins_by_a_line
     covered = ap.TimeVaryingFir(gains, [[1.0]], update_rate_hz=1000.0, sample_rate_hz=10000.0).covered_samples
     assert covered == 1000  # the whole duration, 100 / 1000 Hz, at 10 kHz
     np.save(tmp_path / "x.npy", np.ones(covered, np.complex64))
-    ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy")
+    ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy", sample_rate_hz=10000.0)
     y = np.load(tmp_path / "y.npy")
     np.testing.assert_allclose(y[990:], np.full(10, gains[99, 0, 0, 0]), atol=1e-7)  # held over the last interval
     np.save(tmp_path / "x2.npy", np.ones(covered + 10, np.complex64))
     with pytest.raises(InputError, match="--loop"):
-        ap.apply_bundle(tmp_path / "b", tmp_path / "x2.npy", tmp_path / "y2.npy")
-    result = ap.apply_bundle(tmp_path / "b", tmp_path / "x2.npy", tmp_path / "y2.npy", loop=True)
+        ap.apply_bundle(tmp_path / "b", tmp_path / "x2.npy", tmp_path / "y2.npy", sample_rate_hz=10000.0)
+    result = ap.apply_bundle(tmp_path / "b", tmp_path / "x2.npy", tmp_path / "y2.npy", loop=True, sample_rate_hz=10000.0)
     y2 = np.load(tmp_path / "y2.npy")
     line = gains[99, 0, 0, 0] + np.arange(11) / 10 * (gains[0, 0, 0, 0] - gains[99, 0, 0, 0])
     np.testing.assert_allclose(y2[990:1000], line[:10], atol=1e-6)
@@ -318,8 +318,8 @@ def test_measured_snr_matches_the_request_on_a_long_record(tmp_path):
     n = 1 << 20
     x = complex_noise(np.random.default_rng(10), n) * np.float32(0.7)
     np.save(tmp_path / "x.npy", x)
-    clean = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "clean.npy")
-    noisy = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "noisy.npy", snr_db=12.5, seed=11,
+    clean = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "clean.npy", sample_rate_hz=FS)
+    noisy = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "noisy.npy", snr_db=12.5, seed=11, sample_rate_hz=FS,
                             block_samples=50000)
     y_clean, y_noisy = np.load(tmp_path / "clean.npy"), np.load(tmp_path / "noisy.npy")
     noise = (y_noisy.astype(complex) - y_clean)[fir.n_fir:]
@@ -374,7 +374,7 @@ def test_a_rayleigh_bundle_gives_a_qpsk_burst_a_rayleigh_envelope(tmp_path):
     symbols = np.exp(1j * (np.pi / 4 + np.pi / 2 * rng.integers(0, 4, int(20 * fs) // 4)))
     burst = np.repeat(symbols, 4).astype(np.complex64)  # rectangular pulses: constant envelope
     np.save(tmp_path / "burst.npy", burst)
-    ap.apply_bundle(tmp_path / "rayleigh", tmp_path / "burst.npy", tmp_path / "faded.npy")
+    ap.apply_bundle(tmp_path / "rayleigh", tmp_path / "burst.npy", tmp_path / "faded.npy", sample_rate_hz=fs)
     envelope = np.abs(np.load(tmp_path / "faded.npy")) / np.abs(burst)
     distance = stats.kstest(envelope, "rayleigh", args=(0.0, math.sqrt(0.5))).statistic
     assert distance < 0.05
@@ -508,8 +508,9 @@ def test_npy_and_cf32_outputs_carry_a_json_sidecar(tmp_path):
 def test_the_bundle_target_decides_between_hold_and_linear(tmp_path):
     gains = _siso_bundle(tmp_path / "b", target={"constraints": {"between_updates": "hold", "name": "bench-emulator"}, "costs": {}})
     np.save(tmp_path / "x.npy", complex_noise(np.random.default_rng(18), 1000))
-    assert ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy").record["between_updates"] == "hold"
-    override = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "z.npy", between_updates="linear")
+    assert ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy", sample_rate_hz=FS).record["between_updates"] == "hold"
+    override = ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "z.npy", between_updates="linear",
+                             sample_rate_hz=FS)
     assert override.record["between_updates"] == "linear"
     assert gains.shape[0] == 400
 
@@ -518,10 +519,10 @@ def test_force_replaces_an_output_and_nothing_is_replaced_without_it(tmp_path):
     _siso_bundle(tmp_path / "b")
     np.save(tmp_path / "x.npy", complex_noise(np.random.default_rng(19), 1000))
     (tmp_path / "y.npy").write_bytes(b"keep me")
-    result = run_cli("apply", tmp_path / "b", tmp_path / "x.npy", "-o", tmp_path / "y.npy")
+    result = run_cli("apply", tmp_path / "b", tmp_path / "x.npy", "-o", tmp_path / "y.npy", "--sample-rate", FS)
     assert result.exit_code == 2 and "already exists" in result.stderr
     assert (tmp_path / "y.npy").read_bytes() == b"keep me"
-    assert run_cli("apply", tmp_path / "b", tmp_path / "x.npy", "-o", tmp_path / "y.npy", "--force").exit_code == 0
+    assert run_cli("apply", tmp_path / "b", tmp_path / "x.npy", "-o", tmp_path / "y.npy", "--force", "--sample-rate", FS).exit_code == 0
     assert np.load(tmp_path / "y.npy").shape == (1000,)
 
 
@@ -534,7 +535,7 @@ def test_memory_stays_bounded_whatever_the_length_and_progress_is_reported(tmp_p
         np.save(tmp_path / f"x{n}.npy", complex_noise(np.random.default_rng(24), n))
         calls = []
         tracemalloc.start()
-        ap.apply_bundle(tmp_path / "b", tmp_path / f"x{n}.npy", tmp_path / f"y{n}.npy", snr_db=30.0, seed=1,
+        ap.apply_bundle(tmp_path / "b", tmp_path / f"x{n}.npy", tmp_path / f"y{n}.npy", snr_db=30.0, seed=1, sample_rate_hz=FS,
                         progress=lambda done, total: calls.append((done, total)))
         peaks.append(tracemalloc.get_traced_memory()[1])
         tracemalloc.stop()
@@ -581,6 +582,7 @@ def _bad_cases(tmp_path):
         ("two SigMF channels on SISO", "two_channels.sigmf-meta", [], "n_tx = 1"),
         ("sample rate of SigMF", "other_rate.sigmf-meta", [], "was made for"),
         ("sample rate given", "good.npy", ["--sample-rate", "2e6"], "was made for"),
+        ("sample rate not given", "good.npy", ["--no-rate"], "does not state its sample rate"),
         ("SigMF datatype", "real.sigmf-meta", [], "rf32_le"),
         ("SigMF metadata", "not_json.sigmf-meta", [], "not readable SigMF metadata"),
         ("NaN", "nan.npy", [], "sample 123 is NaN"),
@@ -608,6 +610,10 @@ def test_every_bad_input_exits_2_with_one_line_and_writes_nothing(tmp_path):
         if "-o" in extra:
             output = tmp_path / extra[1]
             extra = extra[2:]
+        if extra == ["--no-rate"]:
+            extra = []
+        elif not input_name.endswith(".sigmf-meta") and "--sample-rate" not in extra:
+            extra = [*extra, "--sample-rate", str(FS)]  # headerless input states no rate
         result = run_cli("apply", bundle, tmp_path / input_name, "-o", output, *extra)
         assert result.exit_code == 2, (name, result.output)
         lines = result.stderr.strip().splitlines()
@@ -636,7 +642,7 @@ def test_an_interrupt_as_the_output_file_is_made_leaves_nothing(tmp_path, monkey
 
     monkeypatch.setattr(fmt.HashedFile, "write", interrupted)
     with pytest.raises(bd.WriteInterrupted, match="interrupted; nothing was written"):
-        ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy")
+        ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy", sample_rate_hz=FS)
     assert listing(tmp_path) == ["b", "x.npy"]
 
 
@@ -649,7 +655,7 @@ def test_an_interrupt_or_a_full_disk_while_writing_leaves_nothing(tmp_path, monk
             raise KeyboardInterrupt
 
     with pytest.raises(bd.WriteInterrupted, match="interrupted; nothing was written") as caught:
-        ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy", progress=interrupt)
+        ap.apply_bundle(tmp_path / "b", tmp_path / "x.npy", tmp_path / "y.npy", progress=interrupt, sample_rate_hz=FS)
     assert caught.value.exit_code == 130
     assert listing(tmp_path) == ["b", "x.npy"]
     written = {"bytes": 0}
@@ -662,7 +668,7 @@ def test_an_interrupt_or_a_full_disk_while_writing_leaves_nothing(tmp_path, monk
         original(self, data)
 
     monkeypatch.setattr(fmt.HashedFile, "write", fill_up)
-    result = run_cli("apply", tmp_path / "b", tmp_path / "x.npy", "-o", tmp_path / "y.npy")
+    result = run_cli("apply", tmp_path / "b", tmp_path / "x.npy", "-o", tmp_path / "y.npy", "--sample-rate", FS)
     assert result.exit_code == 2 and "no space left" in result.stderr
     assert listing(tmp_path) == ["b", "x.npy"]
 
@@ -673,7 +679,7 @@ def test_sigint_to_the_command_leaves_no_output(tmp_path):
     np.save(tmp_path / "x.npy", complex_noise(np.random.default_rng(23), 4_000_000))
     child = subprocess.Popen(
         [sys.executable, "-m", "emucompile", "apply", str(tmp_path / "b"), str(tmp_path / "x.npy"),
-         "-o", str(tmp_path / "y.npy"), "--snr-db", "20", "--quiet"],
+         "-o", str(tmp_path / "y.npy"), "--snr-db", "20", "--quiet", "--sample-rate", str(FS)],
         cwd=ROOT, stderr=subprocess.PIPE, text=True,
     )
     deadline = time.monotonic() + 60

@@ -391,6 +391,7 @@ def test_summary_names_links_and_conditions(tmp_path):
 # Where the command spells an option its own way: --target FILE -> target (a file's path
 # or a parsed Target), --max-size -> max_size_bytes, --quiet -> no progress callable.
 CLI_TO_API = {"target_file": "target", "max_size": "max_size_bytes", "quiet": "progress"}
+CLI_ONLY = {"as_json"}  # how the summary is printed: nothing for the library to choose
 API_ONLY = {"plan"}  # a prepared CompilePlan: nothing to type on a command line
 
 
@@ -398,7 +399,7 @@ def test_compile_profile_and_the_compile_command_accept_the_same_choices():
     command_names = {parameter.name for parameter in cli.commands["compile"].params}
     api = inspect.signature(compiler.compile_profile).parameters
     assert not any(p.kind is p.VAR_KEYWORD for p in api.values())  # every name spelled out
-    assert {CLI_TO_API.get(name, name) for name in command_names} == set(api) - API_ONLY
+    assert {CLI_TO_API.get(name, name) for name in command_names - CLI_ONLY} == set(api) - API_ONLY
     # ...and the command hands them to plan_compile, which takes the same choices.
     planned = set(inspect.signature(compiler.plan_compile).parameters)
     assert planned == set(api) - API_ONLY - {"progress"}
@@ -515,3 +516,42 @@ def test_integer_fir_coefficients_are_the_fitted_fir_quantised_as_documented(fit
     assert np.max(np.abs(decoded.imag - fir.imag)) <= 0.5 * step * (1 + 1e-3)
     # measured SQNR close to the model (uniform noise, Bennett 1948): within 1 dB
     assert codes_record["sqnr_db"] == pytest.approx(costs["sqnr_db"], abs=1.0)
+
+
+def test_reproduce_regenerates_every_format_and_names_the_edited_file(profile_file, tmp_path):
+    out = tmp_path / "b"
+    compiler.compile_profile(profile_file, out, duration_s=1, update_rate_hz=1000, seed=5, sample_rate_hz=10e6,
+                             formats="cf32,ci16,csv,sigmf,fir")
+    listed = [e["name"] for e in open_bundle(out).manifest["files"]]
+    clean = compiler.reproduce_bundle(out)
+    assert clean.status == compiler.IDENTICAL and [f.name for f in clean.files] == listed
+    assert {f.status for f in clean.files} == {compiler.SAME_BYTES} and len(listed) >= 8
+    assert f"{len(listed)} of the {len(listed)} data file(s)" in clean.message
+    # A value changed in the csv after compiling: only that file is named, as edited; no other claim.
+    text = (out / "tap_gains.csv").read_text()
+    (out / "tap_gains.csv").write_text(text[:-2] + "9\n")
+    result = _run("reproduce", out)
+    assert result.exit_code == 1, result.output
+    lines = result.stdout.splitlines()
+    assert "edited after compiling: tap_gains.csv" in lines[0] and "()" not in lines[0]
+    assert "  tap_gains.csv: edited after compiling" in lines
+    assert all(line.endswith(": same bytes") for line in lines[1:] if "tap_gains.csv" not in line)
+    # ... and the JSON says the same, with the three hashes of each file
+    document = json.loads(_run("reproduce", out, "--json").stdout)
+    assert document["status"] == "different" and document["differing"] == ["tap_gains.csv"]
+    edited = next(f for f in document["files"] if f["name"] == "tap_gains.csv")
+    assert edited["regenerated_sha256"] == edited["recorded_sha256"] != edited["on_disk_sha256"]
+    assert not any(p.name.startswith(".emucompile-reproduce-") for p in tmp_path.iterdir())
+
+
+def test_reproduce_names_the_edited_gains_file_as_edited_not_as_same_bytes(profile_file, tmp_path):
+    out = tmp_path / "b"
+    compiler.compile_profile(profile_file, out, duration_s=1, update_rate_hz=1000, seed=5, formats="cf32")
+    gains = np.load(out / "tap_gains.npy", mmap_mode="r+")
+    gains[10, 0, 0, 0] *= 3
+    gains.flush()
+    del gains
+    result = compiler.reproduce_bundle(out)
+    statuses = {f.name: f.status for f in result.files}
+    assert statuses == {"tap_gains.npy": compiler.EDITED, "tap_gains.cf32": compiler.SAME_BYTES}
+    assert result.status == compiler.DIFFERENT and result.max_relative_error > 0.5

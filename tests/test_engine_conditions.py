@@ -167,7 +167,7 @@ def test_apply_replays_a_real_two_by_two_bundle_as_the_sum_of_its_links(tmp_path
     rng = np.random.default_rng(1)
     x = (rng.standard_normal((400, 2)) + 1j * rng.standard_normal((400, 2))).astype(np.complex64)
     np.save(tmp_path / "x.npy", x)
-    ap.apply_bundle(result.path, tmp_path / "x.npy", tmp_path / "y.npy")
+    ap.apply_bundle(result.path, tmp_path / "x.npy", tmp_path / "y.npy", sample_rate_hz=4e6)
     y = np.load(tmp_path / "y.npy")
     bundle = open_bundle(result.path)
     # 400 samples at 4 MHz lie inside the first update interval (1 ms): h between g[0] and g[1].
@@ -323,7 +323,7 @@ def test_the_moving_fir_follows_the_delay_of_ts36104_b4_and_apply_uses_it(tmp_pa
     x = np.zeros(40000, np.complex64)
     x[100::500] = 1.0
     np.save(tmp_path / "x.npy", x)
-    ap.apply_bundle(result.path, tmp_path / "x.npy", tmp_path / "y.npy")
+    ap.apply_bundle(result.path, tmp_path / "x.npy", tmp_path / "y.npy", sample_rate_hz=fs)
     y = np.load(tmp_path / "y.npy")[:, 0] if np.load(tmp_path / "y.npy").ndim == 2 else np.load(tmp_path / "y.npy")
     n_fir = h.shape[1]
     drift = (MOVING["a_us"] * 1e-6 / 2) * MOVING["omega"] * n_fir

@@ -110,17 +110,21 @@ def test_validate_reports_every_file_and_every_problem(tmp_path):
     assert run("validate", good, warned).exit_code == 0
 
 
-def test_validate_json_is_a_strict_list_of_problems(tmp_path):
+def test_validate_json_is_a_strict_verdict_per_file_with_its_problems(tmp_path):
     bad = write(tmp_path, "bad.json", json.dumps({**BASE, "name": "Bad", "taps": [{"delay_ns": 0}]}))
-    result = run("validate", bad, "--json")
-    assert result.exit_code == 2
-    problems = json.loads(result.stdout, parse_constant=lambda c: pytest.fail(c))
-    assert {p["pointer"] for p in problems} == {"/name", "/taps/0"}
-    assert all(set(p) == {"file", "pointer", "message", "hint", "line", "column", "severity"} for p in problems)
-    assert result.stderr == ""
     good = write(tmp_path, "good.yaml", GOOD_YAML)
+    result = run("validate", bad, good, "--json")
+    assert result.exit_code == 2
+    document = json.loads(result.stdout, parse_constant=lambda c: pytest.fail(c))
+    assert document["valid"] is False and [f["file"] for f in document["files"]] == [str(bad), str(good)]
+    first, second = document["files"]
+    assert (first["verdict"], first["kind"], first["errors"]) == ("invalid", "profile", 2)
+    assert {p["pointer"] for p in first["problems"]} == {"/name", "/taps/0"}
+    assert all(set(p) == {"file", "pointer", "message", "hint", "line", "column", "severity"} for p in first["problems"])
+    assert (second["verdict"], second["problems"]) == ("valid", [])
+    assert result.stderr == ""
     ok = run("validate", good, "--json")
-    assert ok.exit_code == 0 and json.loads(ok.stdout) == []
+    assert ok.exit_code == 0 and json.loads(ok.stdout)["valid"] is True
 
 
 def test_warnings_alone_exit_0(tmp_path):
