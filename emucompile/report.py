@@ -317,8 +317,8 @@ def _failed_section(checks, fit) -> str:
                    + ' <a href="#fit">See the emulator fit.</a></div>')
     failed = [(i, c) for i, c in enumerate(checks) if _get(c, "passed") is False]
     if failed:
-        items = "".join(f'<li><a href="#check-{i + 1}">{_e(_check_label(c))}</a>: {_e(_result_text(c))}</li>'
-                        for i, c in failed)
+        items = "".join(f'<li><a href="#check-{i + 1}">{_e(_check_label(c))}</a>: '
+                        f"{_e(_comparison(c, fit)['comparison'])}: {_e(_result_text(c))}</li>" for i, c in failed)
         out.append(f'<div class="failed"><h2 id="failed">Failed checks ({len(failed)})</h2><ol>{items}</ol></div>')
     return "\n".join(out)
 
@@ -375,12 +375,12 @@ def _fit_section(fit, figure=None) -> str:
 def _figure_section(heading, anchor, figure, text) -> str:
     if figure is None and not text:
         return ""
-    out = [f'<h2 id="{anchor}">{_e(heading)}</h2>']
+    out = [f'<div class="keep"><h2 id="{anchor}">{_e(heading)}</h2>']
     if text:
         out.append(f'<p class="explain">{_e(text)}</p>')
     if figure is not None:
         out.append(_figure_html(*figure))
-    return "\n".join(out)
+    return "\n".join(out) + "</div>"
 
 
 def _mimo_text(verification) -> str:
@@ -603,11 +603,11 @@ def _holm_explanation(verification) -> str:
 
 
 def _tap_text(tap) -> str:
-    """A check's tap: "all", "3", or "0, 1" for a pair (cross-correlation) or a link."""
+    """A check's tap: "all", "3", or "0, 1" for a pair (cross-correlation); a pair of one tap (MIMO) is "3"."""
     if tap is None:
         return "all"
     if isinstance(tap, (list, tuple)):
-        return ", ".join(str(t) for t in tap)
+        return str(tap[0]) if len(tap) == 2 and tap[0] == tap[1] else ", ".join(str(t) for t in tap)
     return str(tap)
 
 
@@ -728,7 +728,7 @@ figcaption{color:#444;font-size:.92em;margin-top:.2em}
 @media print{
 body{max-width:none;margin:0;padding:0;font-size:10pt}
 h2{break-after:avoid;page-break-after:avoid}h3{break-after:avoid}
-.verdict,.failed,.note{break-inside:avoid}
+.verdict,.note,.keep{break-inside:avoid}
 tr{break-inside:avoid}thead{display:table-header-group}
 figure img{max-height:245mm;width:auto;max-width:100%}
 a{color:inherit;text-decoration:none}
