@@ -297,7 +297,8 @@ def _checks_section(verification, checks) -> str:
             anchors = "".join(f'<span id="check-{i + 1}"></span>' for i in indices)
             summary = (f"{len(indices)} checks: {passed.count(True)} passed, {passed.count(False)} failed, "
                        f"{passed.count(None)} not applicable"
-                       + (f"; closest to its bound: {_check_line(checks[worst], fit)}" if worst is not None else ""))
+                       + (f"; closest to its bound: {_check_line(checks[worst], words=False)}"
+                          if worst is not None else ""))
             out.append(f"<tr><td>{anchors}{_e(base)}</td><td class=\"{css}\">{mark}</td>"
                        f"<td>{_e(_comparison(checks[indices[0]], fit)['comparison'])}</td><td>{_e(summary)}</td></tr>")
         out.append("</table>")
@@ -321,8 +322,8 @@ def _failed_section(checks, fit) -> str:
                    + ' <a href="#fit">See the emulator fit.</a></div>')
     failed = [(i, c) for i, c in enumerate(checks) if _get(c, "passed") is False]
     if failed:
-        items = "".join(f'<li><a href="#check-{i + 1}">{_e(_check_label(c))}</a>: {_e(_result_text(c))}</li>'
-                        for i, c in failed)
+        items = "".join(f'<li><a href="#check-{i + 1}">{_e(_check_label(c))}</a>: '
+                        f"{_e(_comparison(c, fit)['comparison'])}: {_e(_result_text(c))}</li>" for i, c in failed)
         out.append(f'<div class="failed"><h2 id="failed">Failed checks ({len(failed)})</h2><ol>{items}</ol></div>')
     return "\n".join(out)
 
@@ -379,12 +380,12 @@ def _fit_section(fit, figure=None) -> str:
 def _figure_section(heading, anchor, figure, text) -> str:
     if figure is None and not text:
         return ""
-    out = [f'<h2 id="{anchor}">{_e(heading)}</h2>']
+    out = [f'<div class="keep"><h2 id="{anchor}">{_e(heading)}</h2>']
     if text:
         out.append(f'<p class="explain">{_e(text)}</p>')
     if figure is not None:
         out.append(_figure_html(*figure))
-    return "\n".join(out)
+    return "\n".join(out) + "</div>"
 
 
 def _mimo_text(verification) -> str:
@@ -438,8 +439,17 @@ def _take_figures(figures, prefixes):
 
 def _figure_html(title, png) -> str:
     data = base64.b64encode(png).decode("ascii")
-    return (f'<figure><img src="data:image/png;base64,{data}" alt="{_e(title)}">'
+    # a narrow figure (one panel) prints two to a page rather than one page each
+    narrow = ' class="narrow"' if _png_width(png) < 700 else ""
+    return (f'<figure{narrow}><img src="data:image/png;base64,{data}" alt="{_e(title)}">'
             f"<figcaption>{_e(title)}</figcaption></figure>")
+
+
+def _png_width(png) -> int:
+    """Width in pixels from the PNG header (IHDR: bytes 16-19, big-endian); 0 when not a PNG."""
+    if len(png) < 24 or png[:8] != b"\x89PNG\r\n\x1a\n":
+        return 0
+    return int.from_bytes(png[16:20], "big")
 
 
 def _comparison(check, fit) -> dict:
@@ -448,13 +458,15 @@ def _comparison(check, fit) -> dict:
     return comparison(check, fit)
 
 
-def _check_line(check, fit=None) -> str:
-    """One check in words: label, verdict, the numbers, what was compared with what."""
+def _check_line(check, fit=None, *, words=True) -> str:
+    """One check in words: label, verdict, the numbers and (``words``) what was compared with what."""
     passed = _get(check, "passed")
     verdict = "pass" if passed is True else "FAIL" if passed is False else "not applicable"
-    words = _comparison(check, fit)
-    return (f"{_check_label(check)}: {verdict}; {_result_text(check)} "
-            f"[compared with the {words['compared_with']}: {words['comparison']}]")
+    line = f"{_check_label(check)}: {verdict}; {_result_text(check)}"
+    if not words:
+        return line
+    compared = _comparison(check, fit)
+    return f"{line} [compared with the {compared['compared_with']}: {compared['comparison']}]"
 
 
 def _result_text(check) -> str:
@@ -607,11 +619,11 @@ def _holm_explanation(verification) -> str:
 
 
 def _tap_text(tap) -> str:
-    """A check's tap: "all", "3", or "0, 1" for a pair (cross-correlation) or a link."""
+    """A check's tap: "all", "3", or "0, 1" for a pair (cross-correlation); a pair of one tap (MIMO) is "3"."""
     if tap is None:
         return "all"
     if isinstance(tap, (list, tuple)):
-        return ", ".join(str(t) for t in tap)
+        return str(tap[0]) if len(tap) == 2 and tap[0] == tap[1] else ", ".join(str(t) for t in tap)
     return str(tap)
 
 
@@ -732,9 +744,9 @@ figcaption{color:#444;font-size:.92em;margin-top:.2em}
 @media print{
 body{max-width:none;margin:0;padding:0;font-size:10pt}
 h2{break-after:avoid;page-break-after:avoid}h3{break-after:avoid}
-.verdict,.failed,.note{break-inside:avoid}
+.verdict,.note,.keep{break-inside:avoid}
 tr{break-inside:avoid}thead{display:table-header-group}
-figure img{max-height:245mm;width:auto;max-width:100%}
+figure img{max-height:245mm;width:auto;max-width:100%}figure.narrow img{max-height:112mm}
 a{color:inherit;text-decoration:none}
 table.mono td{font-size:8pt}
 }

@@ -1260,8 +1260,9 @@ def check_matrix(checks) -> dict:
     """Per-tap checks as a taps x checks matrix (the report's compact table and ``check_matrix`` in the JSON).
 
     Rows: one per source ("" for the stored gains, "delivered ci16", "delivered fir codes[5]", ...) and
-    tap; columns: check names; a cell lists its checks (one per link) by index into ``checks``, with
-    ``passed`` False when any failed, True when every applicable one passed, None when none applied.
+    tap; columns: check names; a cell lists its checks (one per link) by index into ``checks`` and
+    their values, with ``passed`` False when any failed, True when every applicable one passed, None
+    when none applied.
     Checks of no single tap (cross-correlation, MIMO, FIR, fit) are not in the matrix.
     """
     rows, columns = {}, []
@@ -1275,8 +1276,9 @@ def check_matrix(checks) -> dict:
         key = (source, tuple(tap) if isinstance(tap, (list, tuple)) else (tap,))
         if base not in columns:
             columns.append(base)
-        cell = rows.setdefault(key, {}).setdefault(base, {"checks": [], "passed": None})
+        cell = rows.setdefault(key, {}).setdefault(base, {"checks": [], "values": [], "passed": None})
         cell["checks"].append(index)
+        cell["values"].append(check.get("value") if isinstance(check, dict) else getattr(check, "value", None))
         passed = check.get("passed") if isinstance(check, dict) else getattr(check, "passed", None)
         if passed is False:
             cell["passed"] = False

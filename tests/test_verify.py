@@ -457,6 +457,14 @@ def test_an_accepted_fit_is_shown_and_the_delivered_integer_coefficients_are_jud
     assert {c["name"].split("]")[0] for c in codes if c["passed"] is not None} == {
         f"delivered fir codes[{column}" for column in fit_columns(bundle)}
     assert "fir_coefficients" in record["identity"]["delivered"]
+    # the report's matrix in the JSON: every per-tap check in one cell, with its value
+    matrix = record["check_matrix"]
+    placed = [i for row in matrix["rows"] for cell in row["cells"].values() for i in cell["checks"]]
+    assert len(placed) == len(set(placed))
+    for row in matrix["rows"]:
+        for cell in row["cells"].values():
+            assert cell["values"] == [record["checks"][i]["value"] for i in cell["checks"]]
+    assert {row["source"] for row in matrix["rows"]} >= {"", "delivered fir codes[0]"}
     assert result.passed
     page = report.render_report(result, plots.make_figures(result)[:1])
     assert '<h2 id="fit">Emulator fit</h2>' in page and "accepted at compile with --accept-fit" in page
