@@ -40,6 +40,7 @@ CASES = (
     ("validate campus-eva-2x2.yaml", ["-m", "emucompile", "validate", "profiles_demo/campus-eva-2x2.yaml"], 0.6),
     ("validate viaduct-high-speed-train", ["-m", "emucompile", "validate",
                                            "profiles_demo/viaduct-high-speed-train.yaml"], 0.6),
+    ("presets list", ["-m", "emucompile", "presets", "list"], None),
 )
 
 
@@ -55,7 +56,7 @@ def main() -> None:
         load_before = os.getloadavg()
         runs = [(prefix + label, argv, target, root, _environment(cache, args.no_bytecode, root))
                 for prefix, root in roots.items() for label, argv, target in CASES
-                if not (prefix and target is None)]
+                if not (prefix and label == CASES[0][0])]
         for _, argv, _, root, env in runs:  # untimed: fills the bytecode cache, warms the page cache
             _run(argv, env, root)
         times = {label: [] for label, *_ in runs}

@@ -489,7 +489,7 @@ def presets_show(name, delay_spread_ns, output_format):
     """
     import json
 
-    from emucompile.presets import preset_document
+    from emucompile.presets import load_preset, preset_document
     from emucompile.reader import dump_yaml
 
     document = preset_document(name, delay_spread_ns=delay_spread_ns)
@@ -499,7 +499,8 @@ def presets_show(name, delay_spread_ns, output_format):
     command = f"emucompile presets show {name}" + (
         f" --delay-spread-ns {delay_spread_ns:g}" if delay_spread_ns is not None else "")
     click.echo(dump_yaml(document, comment=f"{command}\n{document['preset']['source']}; "
-                         f"preset data version {document['preset']['data_version']}"), nl=False)
+                         f"preset data version {document['preset']['data_version']}\n"
+                         f"against the standard's text: {load_preset(name).check_state}"), nl=False)
 
 
 # -- apply -------------------------------------------------------------------------

@@ -35,9 +35,12 @@ import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy import optimize
 
+from emucompile._lazy import LazyModule
 from emucompile.profile import Profile
+
+# Imported on first use: delay statistics alone (presets list) need no root finding.
+optimize = LazyModule("scipy.optimize")
 
 COHERENCE_TIME_RULE = 0.423
 """T_c = 0.423 / f_D, the geometric-mean rule [Rappaport2002]_ eq. 5.40.c."""

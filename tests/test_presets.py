@@ -455,3 +455,17 @@ def test_readme_shows_each_presets_check_state():
     rows = [line.split("|")[1:3] for line in section.splitlines() if line.startswith("| ") and "---" not in line]
     stated = {name.strip(): state.strip() for names, state in rows[1:] for name in names.split(",")}
     assert stated == {name: load_preset(name).check_state for name in PRESET_NAMES}
+
+
+def test_a_confirmed_check_reads_confirmed_against_document_table_and_version():
+    # The form the issue asks for; exercised on a constructed record (no table is confirmed yet).
+    import dataclasses
+
+    check = {"state": "confirmed", "searched": "2026-12-03", "document": "3GPP TS 36.104",
+             "table": "Table B.2-1", "version": "V19.2.0", "compared": "every delay and power",
+             "published_figure": {"quantity": "rms_delay_spread", "value": 43, "unit": "ns",
+                                  "source": "TS 36.101 Table B.2.1-1"}}
+    _check_standard_check("epa", check)  # accepted
+    preset = dataclasses.replace(load_preset("epa"), standard_check=check)
+    assert preset.check_state == "confirmed"
+    assert preset.check_statement == "confirmed against 3GPP TS 36.104, Table B.2-1, V19.2.0"

@@ -112,3 +112,5 @@ def test_list_shows_whether_each_preset_was_checked_against_the_standard():
     for record in records:
         assert record["check_state"] in ("confirmed", "recalled, not confirmed")
         assert record["check_statement"].startswith(record["check_state"])
+    shown = run("presets", "show", "epa").stdout
+    assert f"# against the standard's text: {load_preset('epa').check_state}\n" in shown

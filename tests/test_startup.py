@@ -90,3 +90,12 @@ def test_validate_of_a_profile_with_a_target_block_imports_no_statistics(tmp_pat
     assert code == 0
     assert "emucompile.target" in modules  # the block was really checked
     assert not [m for m in HEAVY if m in modules]
+
+
+@pytest.mark.parametrize("args", [("presets", "list"), ("presets", "list", "--json"), ("presets", "show", "tdl-d")])
+def test_the_presets_commands_import_no_scipy(args):
+    # Delay statistics of a table need numpy at most; no root finding, filters or statistics.
+    code, modules = _loaded_after(*args)
+    assert code == 0
+    assert not [m for m in modules if m.split(".")[0] in ("scipy", "matplotlib")]
+    assert not [m for m in HEAVY if m in modules]
