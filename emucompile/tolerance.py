@@ -13,6 +13,16 @@ between statistics. Each spread is then multiplied by a calibration factor
 ``emucompile/data/tolerance_calibration.json``) so that a perfect generator
 fails each check at level 1e-3 in at most 0.1 % of seeds.
 
+The printed-tolerance rule: a check passes exactly when |value - expected|
+<= tolerance (value <= tolerance where expected is None;
+:func:`within_tolerance`), ``tolerance`` being the calibrated null law
+inverted at the check's level (after :func:`holm`, the level that decides
+that check). For that, each value is on the scale on which its statistic is
+symmetric and linear (|value - expected| = z x the nominal spread): mean
+power as a ratio, the fade duration as a log ratio, the Doppler PSD and the
+phase as standard scores, the MIMO correlation as a Mahalanobis distance
+(docs/verdicts.md has the table).
+
 Why each tolerance is what it is (N samples, model power P = A^2 + P_d, direct
 amplitude A turning at w = 2 pi f_los / rate, diffuse power P_d, normalised
 diffuse autocorrelation r(k); sums over all lags |k| < N with weights 1 - |k|/N,
@@ -61,11 +71,12 @@ or over one period for periodic records):
     2F1(m/2, m/2; m+1; r^2) for a circular Gaussian pair (recalled from
     memory; it is 1 at r = 1 and its use is checked by the calibration);
     sum of |C_m|^2/var C_m is Gamma(2, 1).
-``cross_correlation``
-    Complex coefficient of the diffuse parts of two taps;
-    var = (1 - |rho|^2)^2 (1/N) sum_k (1-|k|/N) r_a(k) r_b(k) (exact at rho = 0
-    for Gaussian processes, large-sample approximation otherwise);
-    |z|^2 is Exp(1).
+``cross_correlation`` / ``mimo_correlation``
+    Complex coefficient of the diffuse parts of two taps (or links) against
+    the expected one; radial and tangential variances g (1-|rho|^2)^2 / 2 and
+    g (1-|rho|^2) / 2, g = (1/N) sum_k (1-|k|/N) r_a(k) r_b(k) (Isserlis and
+    the delta method; exact at rho = 0 for Gaussian processes); the squared
+    Mahalanobis distance / 2 is Exp(1). See :func:`check_cross_correlation`.
 
 Checks need T f_D >= 50 (``passed=None``, "not enough data", below).
 """
@@ -284,23 +295,55 @@ def check_tap(g, rate_hz, model: TapModel, *, periodic=False, tap=None, level=1e
 
 def check_cross_correlation(
     g_a, g_b, rate_hz, model_a: TapModel, model_b: TapModel, *, taps=None, expected=0.0, level=1e-3,
-    estimate=None,
+    estimate=None, name="cross_correlation", periodic=False,
 ) -> CheckResult:
     """Complex correlation coefficient of the diffuse parts of two records against ``expected``.
 
-    ``value`` is |rho_hat - expected| (unit "correlation"); the estimate
-    itself is in ``detail["estimate"]`` as [re, im]. ``estimate``, when
-    given, is that coefficient already computed (an entry of
-    :func:`correlation_matrix`, the same number to rounding); the records then
-    serve only for their length.
+    The deviation d = rho_hat - expected is judged with its 2 x 2 covariance
+    (real and imaginary parts). For zero-mean jointly circular Gaussian
+    records with separable space-time correlation (E[a_t conj(b_s)] = rho r(t - s),
+    both of autocorrelation r), Isserlis' theorem and the delta method for
+    the normalised estimate give, with g = (1/N) sum_k (1-|k|/N) r_a(k) r_b(k)
+    (``_pair_sum`` / N),
+
+        var(radial part)     = g (1 - |rho|^2)^2 / 2   (along rho)
+        var(tangential part) = g (1 - |rho|^2) / 2     (across rho), uncorrelated,
+
+    i.e. E|d|^2 = g (1 - |rho|^2)(1 - |rho|^2/2) (derived here; it agrees with
+    the large-sample variances of a coherence estimate's magnitude,
+    (1-|rho|^2)^2/(2N), and phase, (1-|rho|^2)/(2N|rho|^2), from memory). At
+    |rho| = 0.99 the radial sd is 7x the tangential's smaller, which one
+    common spread cannot judge. The statistic is the Mahalanobis distance
+    D = sqrt(d^T C^-1 d), chi with 2 degrees of freedom: P(D > x) = exp(-x^2/2)
+    (law "exp" in z = D / sqrt 2), times a calibration factor from Monte Carlo
+    of the exact reference (``tools/calibrate_mimo_correlation.py`` for
+    ``name="mimo_correlation"``, ``tools/calibrate_tolerances.py`` at rho = 0).
+
+    ``value``: |d| for ``name="cross_correlation"`` (``expected`` must be 0:
+    the covariance is then circular and D = sqrt 2 |d| / sqrt(E|d|^2), so |d|
+    is on the statistic's scale, unit "correlation"); the Mahalanobis distance
+    D for ``name="mimo_correlation"`` (unit "Mahalanobis distance"). Either way
+    the check passes exactly when value <= tolerance. The estimate is in
+    ``detail["estimate"]`` as [re, im]. ``estimate``, when given, is the
+    coefficient already computed (an entry of :func:`correlation_matrix`, the
+    same number to rounding); the records then serve only for their length.
+    A non-zero ``expected`` needs the same spectrum for both records.
+    ``periodic``: the records are one period of periodic processes (g from
+    their circular autocorrelations).
     """
-    name = "cross_correlation"
+    if name not in ("cross_correlation", "mimo_correlation"):
+        raise ValueError(f"name must be cross_correlation or mimo_correlation, got {name!r}")
+    expected = complex(expected)
+    if name == "cross_correlation" and expected != 0:
+        raise ValueError("a cross_correlation check expects 0; use name='mimo_correlation' for a target correlation")
     g_a = estimators._record(g_a)
     g_b = estimators._record(g_b)
     if g_a.size != g_b.size:
         raise ValueError(f"records differ in length: {g_a.size} and {g_b.size}")
     if model_a.spectrum is None or model_b.spectrum is None:
         return _na(name, taps, "a static tap has no diffuse part", level)
+    if expected != 0 and model_a.spectrum != model_b.spectrum:
+        raise ValueError("a non-zero expected correlation needs both records to have the same spectrum")
     rate_hz = float(rate_hz)
     n = g_a.size
     fd = max(model_a.spectrum.band_edge_hz, model_b.spectrum.band_edge_hz)
@@ -312,20 +355,46 @@ def check_cross_correlation(
         rho = estimators.correlation_coefficient(_diffuse(g_a, rate_hz, model_a), _diffuse(g_b, rate_hz, model_b))
     else:
         rho = complex(estimate)
-    expected = complex(expected)
-    sd = math.sqrt(max((1.0 - abs(expected) ** 2) ** 2, 1e-6) * _pair_sum(model_a.spectrum, model_b.spectrum, rate_hz, n)
-                   / n)
+    g = _pair_sum(model_a.spectrum, model_b.spectrum, rate_hz, n, bool(periodic)) / n
+    distance, deviation, sd_radial, sd_tangential = correlation_distance(rho, expected, g)
     c = _factor(name)
-    dev = abs(rho - expected)
-    null = {"law": "exp", "m": 1, "z": _finite(dev / sd), "scale": c * sd, "calibration_factor": c}
-    p = _pvalue("exp", dev / sd / c, 1)
+    if name == "cross_correlation":  # circular covariance: |d| = D sqrt(E|d|^2 / 2), the same scale
+        total_sd = math.hypot(sd_radial, sd_tangential)
+        value, scale, unit = abs(rho - expected), total_sd, "correlation"
+    else:
+        value, scale, unit = distance, math.sqrt(2.0), "Mahalanobis distance"
+    z = distance / math.sqrt(2.0)
+    null = {"law": "exp", "m": 1, "z": _finite(z), "scale": c * scale, "calibration_factor": c}
+    p = _pvalue("exp", z / c, 1) if math.isfinite(z) else 0.0
     tol = _tolerance(null, level)
     return CheckResult(
-        name, _label(taps), dev, 0.0, tol, p, bool(p > level), None, level, tol, "correlation",
+        name, _label(taps), value, 0.0, tol, p, within_tolerance(value, 0.0, tol), None, level, tol, unit,
         {"estimate": [rho.real, rho.imag], "expected": [expected.real, expected.imag],
-         "sd": sd, "null": null, "n_samples": n,
-         "source": "complex correlation of jointly Gaussian records; var (1-|rho|^2)^2 sum r_a r_b / N"},
+         "deviation_radial": deviation.real, "deviation_tangential": deviation.imag,
+         "sd_radial": sd_radial, "sd_tangential": sd_tangential, "sd": math.hypot(sd_radial, sd_tangential),
+         "null": null, "n_samples": n, "periodic": bool(periodic),
+         "measured": ("|rho_hat - expected|" if name == "cross_correlation" else
+                      "Mahalanobis distance of rho_hat - expected (radial and tangential parts)"),
+         "source": "complex correlation of jointly Gaussian records (Isserlis, delta method): radial var "
+                   "g (1-|rho|^2)^2/2, tangential var g (1-|rho|^2)/2, g = sum (1-|k|/N) r_a r_b / N"},
     )
+
+
+def correlation_distance(estimate, expected, g):
+    """Mahalanobis distance of a correlation estimate from ``expected`` (see :func:`check_cross_correlation`).
+
+    ``g`` = (1/N) sum_k (1-|k|/N) r_a(k) r_b(k). Returns (distance, deviation
+    turned so that its real part is radial (along ``expected``) and its
+    imaginary part tangential, radial sd, tangential sd). At |expected| = 1
+    the spreads are floored (1e-6 of g / 2 in variance) to stay positive.
+    """
+    estimate, expected = complex(estimate), complex(expected)
+    q = 1.0 - min(abs(expected) ** 2, 1.0)
+    floor = 1e-6
+    sd_radial, sd_tangential = math.sqrt(max(q * q, floor) * g / 2.0), math.sqrt(max(q, floor) * g / 2.0)
+    turn = expected / abs(expected) if expected != 0 else 1.0
+    deviation = (estimate - expected) / turn
+    return math.hypot(deviation.real / sd_radial, deviation.imag / sd_tangential), deviation, sd_radial, sd_tangential
 
 
 def correlation_matrix(records, rate_hz, models) -> np.ndarray:
@@ -388,32 +457,63 @@ def clear_caches() -> None:
 def holm(results, family_wise=0.01) -> list[CheckResult]:
     """Holm's step-down over the results with a p-value (Holm 1979, Scand. J. Statist. 6).
 
-    Sorted by p ascending, the i-th (0-based) of m is tested at family_wise/(m - i)
-    until the first acceptance; it and all later ones pass. Returns new results,
-    in the input order, with ``passed``, ``level``, ``tolerance`` and
-    ``min_detectable`` at the adjusted level; results without a p-value (or
-    with ``passed`` None) are returned unchanged.
+    Sorted by p ascending, the i-th (0-based) of m is rejected at
+    family_wise/(m - i) while every earlier one was; the first acceptance
+    stops it. Each check's tolerance is then restated at the level that
+    decides *its* verdict, every other p-value held as it is: with the others'
+    p-values sorted q_0 <= ... <= q_{m-2} and R the number of leading q_j <=
+    family_wise/(m - j), the check is rejected by Holm exactly when its own
+    p <= family_wise/(m - R) (it can rank at most R-th before the procedure
+    stops). For a check Holm accepted, R is the step where Holm stopped, so
+    its level is that step's level; for a rejected one it is at least its
+    rank's level. Inverting the calibrated null law at that level gives the
+    tolerance, so ``passed`` is exactly :func:`within_tolerance` of the
+    printed value, expected value and tolerance (the same verdict as Holm's;
+    the rule decides at a floating-point tie).
+
+    Returns new results, in the input order, with ``passed``, ``level``,
+    ``tolerance`` and ``min_detectable`` at that level, and
+    ``detail["holm"]`` (``rank``, ``rank_level``, ``level``, ``rejections``);
+    results without a p-value (or with ``passed`` None) are returned unchanged.
     """
     results = list(results)
     idx = [i for i, r in enumerate(results) if r.p_value is not None and r.passed is not None]
     m = len(idx)
     order = sorted(idx, key=lambda i: results[i].p_value)
+    p = np.array([results[i].p_value for i in order], dtype=float)
+    steps = family_wise / (m - np.arange(m)) if m else np.zeros(0)
+    rejected = p <= steps
+    stop = int(np.argmin(rejected)) if m and not rejected.all() else m  # Holm's number of rejections
+    # run[j]: how many consecutive j' >= j have p_(j'+1) <= alpha / (m - j') (the others shifted one place)
+    shifted = (p[1:] <= steps[:-1]) if m > 1 else np.zeros(0, bool)
+    run = np.zeros(m + 1, int)
+    for j in range(m - 2, -1, -1):
+        run[j] = run[j + 1] + 1 if shifted[j] else 0
     out = list(results)
-    stopped = False
-    for step, i in enumerate(order):
-        lv = family_wise / (m - step)
+    for rank, i in enumerate(order):
+        others_rejected = rank + run[rank] if rank <= stop else stop
+        lv = family_wise / (m - others_rejected)
         r = results[i]
-        if not stopped and r.p_value <= lv:
-            passed = False
-        else:
-            stopped = True
-            passed = True
         null = r.detail.get("null") if isinstance(r.detail, dict) else None
         tol = _tolerance(null, lv) if null else r.tolerance
         detail = dict(r.detail)
-        detail["holm"] = {"family_wise": family_wise, "step": step, "of": m}
-        out[i] = replace(r, passed=passed, level=lv, tolerance=tol, min_detectable=tol, detail=detail)
+        detail["holm"] = {"family_wise": family_wise, "rank": rank, "of": m, "rank_level": float(steps[rank]),
+                          "level": lv, "rejections": stop}
+        out[i] = replace(r, passed=within_tolerance(r.value, r.expected, tol), level=lv, tolerance=tol,
+                         min_detectable=tol, detail=detail)
     return out
+
+
+def within_tolerance(value, expected, tolerance) -> bool:
+    """The rule every numeric verdict follows: |value - expected| <= tolerance (value <= tolerance without expected).
+
+    A missing or non-finite value or tolerance does not pass.
+    """
+    if value is None or tolerance is None:
+        return False
+    if expected is None:
+        return bool(value <= tolerance)
+    return bool(abs(value - expected) <= tolerance)
 
 
 def calibration() -> dict:
@@ -460,18 +560,21 @@ class _Context:
         p = _pvalue(law, z / c, m)
         tol = _tolerance(null, self.level)
         detail = dict(detail, null=null, n_samples=self.n, doppler_periods=self.n / self.rate * self.fd)
-        return CheckResult(name, self.tap, value, expected, tol, p, bool(p > self.level), None, self.level, tol,
-                           unit, detail)
+        return CheckResult(name, self.tap, value, expected, tol, p, within_tolerance(value, expected, tol), None,
+                           self.level, tol, unit, detail)
 
 
 def _check_mean_power(ctx):
     m = estimators.mean_power(ctx.g)
     p_model = ctx.model.mean_power
     sd = math.sqrt(ctx.cov_u_sum / ctx.n)
-    return ctx.result("mean_power", _db(m), _db(p_model), "dB",
+    # The test is on m / P - 1 (normal); the value is on that scale so that the printed tolerance
+    # is symmetric and exact (in dB it would not be: 10 log10(1 - t) != -10 log10(1 + t)).
+    return ctx.result("mean_power", m / p_model, 1.0, "ratio to the model's mean power",
                       {"sd_relative": sd / p_model, "effective_samples": ctx.n_eff,
+                       "measured_db": _db(m), "expected_db": _db(p_model),
                        "source": "Isserlis: var mean|g|^2 = (1/N) sum (1-|k|/N) cov(|g0|^2, |gk|^2)"},
-                      law="normal", z=abs(m - p_model) / sd, scale=sd / p_model, to_unit="db_ratio")
+                      law="normal", z=abs(m - p_model) / sd, scale=sd / p_model)
 
 
 def _check_k_factor(ctx):
@@ -517,12 +620,21 @@ def _check_autocorrelation(ctx):
     zk = np.maximum(z_re, z_im)
     worst = int(np.argmax(zk))
     m = 2 * min(len(k), AUTOCORRELATION_EFFECTIVE_LAGS)
-    return ctx.result("autocorrelation", float(np.max(np.abs(rho[k] - rk))), 0.0, "correlation",
-                      {"max_lag_s": (n_lags - 1) / ctx.rate, "worst_lag_s": float(k[worst] / ctx.rate),
+    # The verdict is set by the largest z over lags and parts: the value is that lag's and part's
+    # deviation, the tolerance that part's sd times the critical z, so value <= tolerance is the verdict.
+    real_part = bool(z_re[worst] >= z_im[worst])
+    part_sd = float(sd_re[worst] if real_part else sd_im[worst])
+    deviation = float(abs(rho[k[worst]].real - rk[worst]) if real_part else abs(rho[k[worst]].imag))
+    return ctx.result("autocorrelation", deviation, 0.0, "correlation",
+                      {"measured": "|r_hat - r| of the real or imaginary part at the lag and part with the "
+                                   "largest standard score",
+                       "max_lag_s": (n_lags - 1) / ctx.rate, "worst_lag_s": float(k[worst] / ctx.rate),
+                       "worst_part": "real" if real_part else "imaginary", "worst_part_sd": part_sd,
                        "worst_estimate": [float(rho[k[worst]].real), float(rho[k[worst]].imag)],
                        "worst_expected": float(rk[worst]), "sd_max": float(sd_re.max()),
+                       "max_abs_error": float(np.max(np.abs(rho[k] - rk))),
                        "source": _autocorrelation_source(ctx.model.spectrum)},
-                      law="normal", z=float(zk[worst]), m=m, scale=float(sd_re.max()))
+                      law="normal", z=float(zk[worst]), m=m, scale=part_sd)
 
 
 def _check_psd(ctx):
@@ -543,13 +655,19 @@ def _check_psd(ctx):
     # Wilson-Hilferty: the cube root of a Gamma(nu, 1/nu) variable is nearly normal.
     z = np.abs((np.cbrt(ratio) - (1.0 - 1.0 / (9.0 * nu))) * math.sqrt(9.0 * nu))
     worst = int(np.argmax(z))
-    return ctx.result(name, _db(float(ratio[worst])), 0.0, "dB",
-                      {"resolution_hz": ctx.rate / nperseg, "segments": n_seg, "bins": int(keep.sum()),
-                       "worst_frequency_hz": float(f[keep][worst]),
+    # The test is symmetric in the cube root of the bin ratio, not in dB (a Gamma law is skewed):
+    # the value is the worst bin's Wilson-Hilferty standard score, so that the tolerance (the
+    # critical score) is symmetric and exact; the deviation in dB is in the detail.
+    return ctx.result(name, float(z[worst]), 0.0, "standard score (Wilson-Hilferty, worst bin)",
+                      {"measured": "Wilson-Hilferty standard score of the worst bin's measured / expected "
+                                   "Welch PSD: |cbrt(ratio) - (1 - 1/(9 nu))| sqrt(9 nu)",
+                       "resolution_hz": ctx.rate / nperseg, "segments": n_seg, "bins": int(keep.sum()),
+                       "nu": nu, "worst_frequency_hz": float(f[keep][worst]),
+                       "worst_deviation_db": _db(float(ratio[worst])),
                        "max_abs_deviation_db": float(np.max(np.abs(10 * np.log10(ratio)))),
                        "source": "Welch 1967 (Hann, 50 %), expected = exact spectrum through the window; "
                                  + _autocorrelation_source(ctx.model.spectrum)},
-                      law="normal", z=float(z[worst]), m=int(keep.sum()), to_unit="wilson_hilferty_db", nu=nu)
+                      law="normal", z=float(z[worst]), m=int(keep.sum()))
 
 
 def _check_out_of_band(ctx):
@@ -632,12 +750,15 @@ def _check_crossings(ctx):
         afd_hat = np.where(counts > 0, below / np.maximum(rate_hat, 1e-300), np.inf)
         zl = np.abs(np.log(afd_hat / afd)) / sd_log
     w = int(np.argmax(zl))
-    out.append(ctx.result(names[1], float(afd_hat[w]), float(afd[w]), "s",
+    # The test is on log(measured / expected): the value is that log ratio (symmetric tolerance).
+    with np.errstate(divide="ignore"):
+        log_ratio = float(np.log(afd_hat[w] / afd[w]))
+    out.append(ctx.result(names[1], log_ratio, 0.0, "ln(measured / expected fade duration)",
                           dict(common, measured_s=afd_hat.tolist(), expected_s=afd.tolist(),
+                               worst_level_measured_s=float(afd_hat[w]), worst_level_expected_s=float(afd[w]),
                                fraction_below=below.tolist(),
                                source="AFD = P(R <= r)/N(r); " + _lcr_source(ctx)),
-                          law="normal", z=float(zl[w]), m=m, scale=float(sd_log[w]), to_unit="log_ratio",
-                          reference=float(afd[w])))
+                          law="normal", z=float(zl[w]), m=m, scale=float(sd_log[w])))
     return out
 
 
@@ -648,11 +769,14 @@ def _check_phase(ctx):
     c1, c2 = estimators.circular_moments(ctx.g, (1, 2))
     v1, v2 = _phase_variances(ctx.model.spectrum, ctx.rate, ctx.n, ctx.periodic)
     stat = abs(c1) ** 2 / v1 + abs(c2) ** 2 / v2
-    return ctx.result(name, abs(c1), 0.0, "|mean exp(j theta)|",
+    # Two moments make one statistic: the value is its square root (a standard score), so
+    # that value <= tolerance is the verdict; |C1| and |C2| are in the detail.
+    return ctx.result(name, math.sqrt(stat), 0.0, "standard score sqrt(|C1|^2/var C1 + |C2|^2/var C2)",
                       {"circular_moment_1": [c1.real, c1.imag], "circular_moment_2": [c2.real, c2.imag],
+                       "abs_circular_moment_1": abs(c1), "abs_circular_moment_2": abs(c2),
                        "sd_1": math.sqrt(v1), "sd_2": math.sqrt(v2),
                        "source": "uniform phase of a circular Gaussian; circular moments (Rayleigh test)"},
-                      law="gamma2", z=math.sqrt(stat), scale=math.sqrt(v1))
+                      law="gamma2", z=math.sqrt(stat), scale=1.0)
 
 
 def _static_checks(g, model, tap, names):
@@ -661,12 +785,14 @@ def _static_checks(g, model, tap, names):
     for n in names:
         if n == "mean_power":
             m = estimators.mean_power(g)
-            rel = m / model.mean_power - 1.0
-            tol = 10 * math.log10(1 + STATIC_POWER_TOLERANCE)
-            ok = abs(rel) <= STATIC_POWER_TOLERANCE
-            out.append(CheckResult(n, tap, _db(m), _db(model.mean_power), tol, None, ok,
-                                   None if ok else f"static power off by {rel:.3g} (relative)", None, tol, "dB",
-                                   {"source": "static tap: |g|^2 is constant; float32 rounding ~1e-7"}))
+            ratio = m / model.mean_power
+            tol = STATIC_POWER_TOLERANCE
+            ok = within_tolerance(ratio, 1.0, tol)
+            out.append(CheckResult(n, tap, ratio, 1.0, tol, None, ok,
+                                   None if ok else f"static power off by {ratio - 1.0:.3g} (relative)", None, tol,
+                                   "ratio to the model's mean power",
+                                   {"measured_db": _db(m), "expected_db": _db(model.mean_power),
+                                    "source": "static tap: |g|^2 is constant; float32 rounding ~1e-7"}))
         else:
             out.append(_na(n, tap, "not applicable: static tap (no fading)", None))
     return out
@@ -688,9 +814,14 @@ def _lags(spectrum, rate_hz, n, periodic):
 
 
 @functools.lru_cache(maxsize=32)
-def _pair_sum(spectrum_a, spectrum_b, rate_hz, n):
-    """sum_k w_k r_a(k) r_b(k): the variance sum of a cross-correlation estimate (aperiodic)."""
-    return float(_weights(n, False) @ (_lags(spectrum_a, rate_hz, n, False) * _lags(spectrum_b, rate_hz, n, False)))
+def _pair_sum(spectrum_a, spectrum_b, rate_hz, n, periodic=False):
+    """sum_k w_k r_a(k) r_b(k): the variance sum of a cross-correlation estimate.
+
+    Aperiodic: weights 1 - |k|/N over |k| < N; periodic: the circular
+    autocorrelations of period-N processes over one period.
+    """
+    return float(_weights(n, periodic) @ (_lags(spectrum_a, rate_hz, n, periodic)
+                                         * _lags(spectrum_b, rate_hz, n, periodic)))
 
 
 @functools.lru_cache(maxsize=32)
@@ -855,17 +986,9 @@ def _tolerance(null, level):
     """Acceptance half-width at ``level`` in the check's unit, from the null descriptor."""
     if not null:
         return None
-    t = null["scale"] * _critical(null["law"], level, null.get("m", 1))
-    unit = null.get("to_unit", "linear")
-    if unit == "db_ratio":
-        return 10.0 * math.log10(1.0 + t)
-    if unit == "log_ratio":
-        return null["reference"] * (math.exp(t) - 1.0)
-    if unit == "wilson_hilferty_db":
-        nu = null["nu"]
-        x = (1.0 - 1.0 / (9.0 * nu) + t / math.sqrt(9.0 * nu)) ** 3
-        return 10.0 * math.log10(x)
-    return t
+    # Every check's value is on the scale on which its statistic is symmetric and linear:
+    # |value - expected| = z x nominal scale, so this bound holds for the verdict exactly.
+    return null["scale"] * _critical(null["law"], level, null.get("m", 1))
 
 
 # -- calibration -------------------------------------------------------------------
@@ -873,8 +996,16 @@ def _tolerance(null, level):
 
 @functools.lru_cache(maxsize=1)
 def _calibration():
-    text = resources.files("emucompile").joinpath("data/tolerance_calibration.json").read_text("utf-8")
-    return json.loads(text)
+    """The committed calibration, with the MIMO correlation factor of its own file merged in."""
+    data = resources.files("emucompile").joinpath("data")
+    doc = json.loads(data.joinpath("tolerance_calibration.json").read_text("utf-8"))
+    mimo = json.loads(data.joinpath(MIMO_CALIBRATION_FILE).read_text("utf-8"))
+    doc["factors"] = dict(doc["factors"], mimo_correlation=mimo["factor"])
+    doc["mimo_correlation"] = mimo
+    return doc
+
+
+MIMO_CALIBRATION_FILE = "mimo_correlation_calibration.json"
 
 
 def _factor(name) -> float:
@@ -953,7 +1084,9 @@ __all__ = [
     "check_tap",
     "null_sum_tasks",
     "check_cross_correlation",
+    "correlation_distance",
     "holm",
+    "within_tolerance",
     "calibration",
     "MIN_DOPPLER_PERIODS",
     "OUT_OF_BAND_LIMIT_DB",

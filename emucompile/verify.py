@@ -660,7 +660,7 @@ class _Session:
                                      [self.models[i] for i in fading])
         return [tol.check_cross_correlation(decimated[a, 0], decimated[b, 0], self.record_rate_hz, self.models[a],
                                             self.models[b], taps=(a, b), expected=0.0, level=self.false_alarm,
-                                            estimate=rho[i, j])
+                                            estimate=rho[i, j], periodic=self.periodic)
                 for i, a in enumerate(fading) for j, b in enumerate(fading) if j > i]
 
     def _mimo_checks(self, decimated):
@@ -681,7 +681,8 @@ class _Session:
                 for b in range(a + 1, self.n_links):
                     result = tol.check_cross_correlation(
                         diffuse[a], diffuse[b], self.record_rate_hz, diffuse_model, diffuse_model,
-                        taps=(tap, tap), expected=complex(expected[a, b]), level=self.false_alarm)
+                        taps=(tap, tap), expected=complex(expected[a, b]), level=self.false_alarm,
+                        name="mimo_correlation", periodic=self.periodic)
                     found.append(dataclasses.replace(
                         result, name=f"mimo_correlation [links {self._link_label(a)}~{self._link_label(b)}]"))
         return found

@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 from scipy import signal, special, stats
 
-from emucompile import fading
+from emucompile import fading, tolerance
 from emucompile.errors import InputError
 from emucompile.fading import _design, _sos, _streams
 from emucompile.fading._synthesis import DopplerFilterSource
@@ -336,14 +336,49 @@ def test_sum_of_sinusoids_has_unit_mean_power_by_construction():
     assert total == pytest.approx(1.0, abs=1e-12)
 
 
-def test_sum_of_sinusoids_follows_zheng_xiao_for_the_classical_spectrum():
-    # Zheng & Xiao 2002: a_n = (2 pi n - pi + theta)/(4M); X_c at f_D cos a_n, X_s at f_D sin a_n.
+def test_sum_of_sinusoids_angles_are_stratified_with_an_offset_each_for_the_classical_spectrum():
+    # Zheng & Xiao 2002's strata a_n in ((n - 1) pi/(2M), n pi/(2M)] (X_c at f_D cos a_n, X_s at
+    # f_D sin a_n), each sinusoid with its own offset (generator version 3): one angle per stratum,
+    # and two taps (or links) share no angle.
     m = 16
-    rng = _streams.generator(7, _streams.SINUSOIDS, 0, 0)
-    theta, (fc, _), (fs, _) = _sos.draw_sinusoids(DopplerSpectrum("classical", FD), m, rng)
-    alpha = (2 * np.pi * np.arange(1, m + 1) - np.pi + theta) / (4 * m)
-    np.testing.assert_allclose(np.sort(fc), np.sort(FD * np.cos(alpha)), rtol=1e-12)
-    np.testing.assert_allclose(np.sort(fs), np.sort(FD * np.sin(alpha)), rtol=1e-12)
+    angles = []
+    for tap in (0, 1):
+        rng = _streams.generator(7, _streams.SINUSOIDS, 0, tap)
+        _, (fc, _), (fs, _) = _sos.draw_sinusoids(DopplerSpectrum("classical", FD), m, rng)
+        for a in (np.arccos(np.clip(fc / FD, -1, 1)), np.arcsin(np.clip(fs / FD, -1, 1))):
+            np.testing.assert_array_equal(np.sort(np.floor(a * 2 * m / np.pi)), np.arange(m))
+        angles.append(np.sort(np.arccos(np.clip(fc / FD, -1, 1))))
+    assert np.min(np.abs(angles[0] - angles[1])) > 1e-9
+
+
+def test_sum_of_sinusoids_taps_and_links_correlate_only_as_independent_processes():
+    """12 taps, and 16 links of one tap, at T f_D = 5e4 (4 samples per f_D, the least rate that keeps
+    the band): every pair's |rho_hat| below the independent-process bound.
+
+    For independent Gaussian records |rho_hat|^2 is asymptotically exponential with mean
+    g = sum_k (1-|k|/N) r(k)^2 / N (Isserlis; tolerance.check_cross_correlation), so the largest of
+    K pairs exceeds sqrt(g ln(K / 1e-3)) with probability <= 1e-3 (Bonferroni): 0.018 here, under
+    the 0.02 asked. One angle offset per tap (generator version 2) gave 0.027-0.029 on these seeds.
+    """
+    fd, rate = 10.0, 40.0
+    n = int(5e4 / fd * rate)
+    spectrum = DopplerSpectrum("classical", fd)
+    g = tolerance._pair_sum(spectrum, spectrum, rate, n) / n
+
+    def profile(n_taps):
+        return Profile(name="r", taps=tuple(Tap(j * 1e-7, 1.0, max_doppler_hz=fd) for j in range(n_taps)))
+
+    streams = [fading.generate(profile(12), rate, n, 1, method="sum-of-sinusoids")]
+    links = fading.plan(profile(1), rate, n, 2, method="sum-of-sinusoids")
+    streams.append(np.stack([links.diffuse(0, n, link)[:, 0] for link in range(16)], axis=1))
+    for x in streams:
+        x = x.astype(np.complex128)
+        gram = x.T @ x.conj()
+        norm = np.sqrt(np.real(np.diag(gram)))
+        rho = np.abs(gram / np.outer(norm, norm))[np.triu_indices(x.shape[1], 1)]
+        bound = math.sqrt(g * math.log(rho.size / 1e-3))
+        assert bound < 0.02
+        assert rho.max() < bound, (x.shape[1], rho.max(), bound)
 
 
 @pytest.mark.parametrize("spectrum", ["classical", "flat"])

@@ -10,10 +10,18 @@ confidence interval (``scipy.stats.binomtest``) and the checks that failed.
 The rate is consistent with the stated one when the interval contains it or
 lies below it (Holm bounds the rate from above).
 
+Also printed: the largest |rho_hat| between taps (``cross_correlation``) and
+between links whose expected correlation is 0 (``mimo_correlation``), over
+every bundle, for the generator's cross-correlation study.
+
 Usage::
 
     python tools/calibrate_verify_false_alarm.py [--profile profiles_demo/port-crane-los.yaml]
         [--bundles 100] [--duration 5] [--false-alarm 0.01] [--jobs 2]
+        [--method doppler-filter|sum-of-sinusoids] [--update-rate HZ]
+
+The profiles of the MIMO and sum-of-sinusoids studies are in
+``tools/false_alarm_profiles/`` (invented).
 """
 
 from __future__ import annotations
@@ -33,15 +41,22 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the verify command sets
 
 
 def _one(args):
-    profile, seed, duration, false_alarm, work = args
+    profile, seed, duration, false_alarm, work, options = args
     from emucompile import compiler, verify
 
     out = Path(work) / f"seed-{seed}"
-    compiler.compile_profile(profile, out, duration_s=duration, seed=seed, force=True)
+    compiler.compile_profile(profile, out, duration_s=duration, seed=seed, force=True, **options)
     try:
         result = verify.verify_bundle(out, false_alarm=false_alarm)
         failed = [verify._check_label(c) for c in result.failed]
-        return seed, failed, len(result.checks)
+        largest = {"taps": 0.0, "links": 0.0}
+        for check in result.checks:
+            detail = check.detail if isinstance(check.detail, dict) else {}
+            if "estimate" not in detail or detail.get("expected") not in ([0.0, 0.0], None):
+                continue
+            kind = "taps" if check.name.startswith("cross_correlation") else "links"
+            largest[kind] = max(largest[kind], abs(complex(*detail["estimate"])))
+        return seed, failed, len(result.checks), largest
     finally:
         shutil.rmtree(out, ignore_errors=True)
 
@@ -53,17 +68,24 @@ def main(argv=None):
     parser.add_argument("--duration", type=float, default=5.0, help="seconds per bundle (default 5)")
     parser.add_argument("--false-alarm", type=float, default=0.01)
     parser.add_argument("--jobs", type=int, default=2)
+    parser.add_argument("--method", default=None, help="tap-gain generator (default: the profile's or compile's)")
+    parser.add_argument("--update-rate", type=float, default=None, help="update rate in Hz (default: compile's)")
     args = parser.parse_args(argv)
+    options = {key: value for key, value in (("method", args.method), ("update_rate_hz", args.update_rate))
+               if value is not None}
 
     from scipy import stats
 
     work = tempfile.mkdtemp(prefix="calibrate-verify-")
-    tasks = [(args.profile, seed, args.duration, args.false_alarm, work) for seed in range(1, args.bundles + 1)]
+    tasks = [(args.profile, seed, args.duration, args.false_alarm, work, options)
+             for seed in range(1, args.bundles + 1)]
     failures, names, n_checks = 0, collections.Counter(), 0
+    largest = {"taps": 0.0, "links": 0.0}
     try:
         with ProcessPoolExecutor(max_workers=args.jobs) as pool:
-            for seed, failed, checks in pool.map(_one, tasks):
+            for seed, failed, checks, found in pool.map(_one, tasks):
                 n_checks = checks
+                largest = {k: max(v, found[k]) for k, v in largest.items()}
                 if failed:
                     failures += 1
                     names.update(failed)
@@ -72,7 +94,9 @@ def main(argv=None):
         shutil.rmtree(work, ignore_errors=True)
     interval = stats.binomtest(failures, args.bundles).proportion_ci(confidence_level=0.95, method="exact")
     print(f"profile {Path(args.profile).name}, {args.duration:g} s per bundle, {n_checks} checks per bundle, "
-          f"seeds 1..{args.bundles}")
+          f"seeds 1..{args.bundles}" + "".join(f", {k} {v}" for k, v in options.items()))
+    print(f"largest |rho_hat| between taps {largest['taps']:.4f}, between links expected uncorrelated "
+          f"{largest['links']:.4f} (0 when there are none)")
     print(f"bundles failing: {failures} of {args.bundles} = {failures / args.bundles:.3f}; "
           f"95 % CI [{interval.low:.3f}, {interval.high:.3f}] (Clopper-Pearson); stated false-alarm {args.false_alarm:g}")
     verdict = "consistent" if interval.low <= args.false_alarm else "NOT consistent (too many failures)"

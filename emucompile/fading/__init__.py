@@ -69,8 +69,10 @@ from emucompile.fading._plan import (
 from emucompile.fading._streams import BIT_GENERATOR
 
 #: Changes only when the numbers a seed produces change. 2: sum-of-sinusoids uses
-#: GAUSSIAN_SINUSOIDS (1024) for a Gaussian spectrum by default (was 256).
-GENERATOR_VERSION = 2
+#: GAUSSIAN_SINUSOIDS (1024) for a Gaussian spectrum by default (was 256). 3: sum-of-sinusoids
+#: draws an independent angle offset per sinusoid for the classical spectrum too (one per tap
+#: and link made taps and links correlate); the doppler-filter generator's numbers are unchanged.
+GENERATOR_VERSION = 3
 
 #: Largest difference, relative to a tap's RMS gain, promised between runs of the
 #: same version on different machines or library versions (see :func:`reproducibility`):

@@ -16,16 +16,27 @@ grows (the sum of M sinusoids is not Gaussian).
 
 Generalisation to any symmetric spectrum (ours): f_D cos(a_n) and
 f_D sin(a_n) are the quantiles G^-1(u) of the one-sided Doppler law
-G(x) = 2 int_0^x S(f) df at the stratified points
-u_n = (n - 1/2 -+ theta/(2 pi))/M (for the classical spectrum G^-1(u) =
-f_D sin(pi u / 2), which gives the two sets of frequencies above exactly).
-The flat and Gaussian spectra use their own G^-1, but with an independent
-offset theta_n per sinusoid and quadrature (u_n = (n - 1/2 + theta_n/(2 pi))/M,
-stratified sampling): with one common theta the flat spectrum's frequencies
-would lie on an arithmetic grid, the realisation would be periodic with
-period M/f_D and its envelope would not be Rayleigh over time (measured: KS
-distance 0.02 at M = 128, ten times the classical case). The ensemble
-autocorrelation stays exact for every spectrum and M.
+G(x) = 2 int_0^x S(f) df at stratified points (for the classical spectrum
+G^-1(u) = f_D sin(pi u / 2), which gives the frequencies above).
+
+Angles (generator version 3): every sinusoid of every quadrature, tap and
+link has its own offset theta_n (u_n = (n - 1/2 + theta_n/(2 pi))/M,
+stratified sampling), the per-sinusoid random angles of Xiao, Zheng &
+Beaulieu's improved model [XZB2006]_ (recalled from memory, not checked
+against the paper) kept inside Zheng & Xiao's strata. Up to version 2 the
+classical spectrum had one theta per tap and link, as in [ZX2002]_: two taps
+whose theta happened to be close had nearly the same frequency set, and
+same-frequency terms do not average out over a record, so "uncorrelated"
+taps and links correlated at ~1/sqrt(M) (measured: up to 0.085 between 4x4
+links at T f_D = 5e4 with M = 256). With independent offsets two streams share
+no frequency but by chance, and their time-average cross-correlation falls as
+for independent Gaussian processes, ~ (int S^2 df / T)^(1/2) (tested). The
+flat and Gaussian spectra always had independent offsets (with one common
+theta the flat spectrum's frequencies lie on an arithmetic grid: periodic
+realisation, envelope KS 0.02 at M = 128). The ensemble autocorrelation
+stays exact for every spectrum and M; a single realisation's time-average
+autocorrelation now errs like the flat spectrum's, ~M^-1.5, instead of the
+single-theta classical quadrature's rounding-level error.
 
 Evaluation: exactly (float64 phase arithmetic on an integer grid of 2^-52
 cycles per sample, so the phase at any absolute index is exact) at the
@@ -75,20 +86,18 @@ def quantile(spectrum: DopplerSpectrum, u):
 
 
 def draw_sinusoids(spectrum: DopplerSpectrum, n_sinusoids: int, rng: np.random.Generator):
-    """Frequencies (Hz) and initial phases (cycles) of both quadratures [ZX2002]_.
+    """Frequencies (Hz) and initial phases (cycles) of both quadratures [ZX2002]_, [XZB2006]_.
 
-    Draw order, fixed: theta, the M phases of X_c, the M of X_s, then (other
-    spectra than classical only) the 2M per-sinusoid offsets.
+    Draw order, fixed (generator version 3): theta (drawn and reported, no
+    longer used for the angles), the M phases of X_c, the M of X_s, then the
+    2M per-sinusoid angle offsets, for every spectrum.
     """
     theta = rng.uniform(-np.pi, np.pi)
     phase_c = rng.uniform(-np.pi, np.pi, n_sinusoids) / (2.0 * np.pi)
     phase_s = rng.uniform(-np.pi, np.pi, n_sinusoids) / (2.0 * np.pi)
     n = np.arange(1, n_sinusoids + 1)
-    if spectrum.kind == "classical":
-        shift_c = shift_s = theta / (2.0 * np.pi)
-    else:
-        shift_c = rng.uniform(-0.5, 0.5, n_sinusoids)
-        shift_s = -rng.uniform(-0.5, 0.5, n_sinusoids)
+    shift_c = rng.uniform(-0.5, 0.5, n_sinusoids)
+    shift_s = -rng.uniform(-0.5, 0.5, n_sinusoids)
     freq_c = quantile(spectrum, (n - 0.5 - shift_c) / n_sinusoids)  # classical: f_D cos(a_n)
     freq_s = quantile(spectrum, (n - 0.5 + shift_s) / n_sinusoids)  # classical: f_D sin(a_n)
     return theta, (freq_c, phase_c), (freq_s, phase_s)
