@@ -1,4 +1,4 @@
-"""The ``emucompile`` command line (contract 1): parse, call the library, print, exit.
+"""The ``emucompile`` command line (reference: docs/command-line.md): parse, call the library, print, exit.
 
 No numerics live here. Every command is a thin function over the Python API;
 errors raised by the library (:class:`emucompile.errors.EmucompileError`)
