@@ -440,7 +440,7 @@ def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_fil
 # -- presets -----------------------------------------------------------------------
 
 
-@cli.group()
+@cli.group(epilog="\b\nExamples:\n  emucompile presets list\n  emucompile presets show tdl-c --delay-spread-ns 300")
 def presets():
     """Channel models of open standards (3GPP, ITU-R)."""
 
