@@ -35,7 +35,7 @@ def test_every_command_is_on_the_page_with_an_example():
         assert f"## `{ctx.command_path}`" in page, ctx.command_path
         help_text = ctx.command.get_help(ctx)
         # An example is a line of the help that runs the program (the Usage line does not count).
-        assert re.search(r"^\s*(Example: )?emucompile \S", help_text, re.M), f"{ctx.command_path} has no example"
+        assert re.search(r"^\s*(Example: )?emucompile \S", help_text, re.MULTILINE), f"{ctx.command_path} has no example"
         for param in ctx.command.params:
             for flag in param.opts if param.param_type_name == "option" else []:
                 assert flag in help_text, (ctx.command_path, flag)

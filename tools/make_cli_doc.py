@@ -51,12 +51,12 @@ def exit_code_section() -> str:
 
     rows = [
         (EXIT_OK, "success: the file is valid, the bundle was written, every check passed"),
-        (EXIT_CHECK_FAILED, "the run worked but a check or a target failed: a `verify` verdict, "
-                            "a `reproduce` mismatch, a missed `expect:` target"),
-        (EXIT_BAD_INPUT, "bad input or usage: an invalid profile or target (also `validate`'s verdict), "
-                         "an unreadable or corrupted file, an impossible request, an unknown option"),
-        (EXIT_INTERNAL, "an internal error (a bug): the message says so; rerun with `--debug` "
-                        "for the traceback and report it"),
+        (EXIT_CHECK_FAILED, ("the run worked but a check or a target failed: a `verify` verdict, "
+                             "a `reproduce` mismatch, a missed `expect:` target")),
+        (EXIT_BAD_INPUT, ("bad input or usage: an invalid profile or target (also `validate`'s verdict), "
+                          "an unreadable or corrupted file, an impossible request, an unknown option")),
+        (EXIT_INTERNAL, ("an internal error (a bug): the message says so; rerun with `--debug` "
+                         "for the traceback and report it")),
         (130, "interrupted (Ctrl-C); 143 when terminated (SIGTERM): the partial output is removed"),
     ]
     lines = ["## Exit codes", "", "| code | meaning |", "|---|---|"]
