@@ -52,7 +52,8 @@ def exit_code_section() -> str:
     rows = [
         (EXIT_OK, "success: the file is valid, the bundle was written, every check passed"),
         (EXIT_CHECK_FAILED, ("the run worked but a check or a target failed: a `verify` verdict, "
-                             "a `reproduce` mismatch, a missed `expect:` target")),
+                             "a `reproduce` mismatch, a missed `expect:` target, a missed emulator fit, "
+                             "a `diff` of two different channels")),
         (EXIT_BAD_INPUT, ("bad input or usage: an invalid profile or target (also `validate`'s verdict), "
                           "an unreadable or corrupted file, an impossible request, an unknown option")),
         (EXIT_INTERNAL, ("an internal error (a bug): the message says so; rerun with `--debug` "
