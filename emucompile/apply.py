@@ -1,6 +1,6 @@
 """Replay a bundle over an IQ recording: the time-varying FIR channel, with optional noise.
 
-The channel of one link at output sample n is the FIR of contract 3 at the
+The channel of one link at output sample n is the FIR of docs/bundle-format.md at the
 output instant, h_n = g(t_n) @ fir_map, and the output is
 
     y[n] = sum_k h_n[k] x[n - k]                                  (1)
@@ -601,7 +601,7 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
     Parameters
     ----------
     bundle_path : str or os.PathLike
-        The bundle directory (contract 3).
+        The bundle directory (docs/bundle-format.md).
     input_path : str or os.PathLike
         See :func:`read_recording`. One stream per transmit antenna.
     output_path : str or os.PathLike

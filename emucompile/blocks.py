@@ -120,7 +120,7 @@ class MimoSetup:
         return self.correlation.n_links
 
     def as_record(self) -> dict:
-        """Contract 3's ``mimo`` field: sizes, link order, correlation, direct part."""
+        """The manifest's ``mimo`` field (docs/bundle-format.md): sizes, link order, correlation, direct part."""
         return {
             "n_tx": self.n_tx,
             "n_rx": self.n_rx,

@@ -1,4 +1,4 @@
-"""The bundle directory (contract 3): planning, safe writing, the manifest, reading back.
+"""The bundle directory (docs/bundle-format.md): planning, safe writing, the manifest, reading back.
 
 A bundle is a directory holding ``manifest.json`` and the data files it lists
 (``tap_gains.npy`` always; ``fir_map.npy`` with a sample rate; the extra
@@ -420,7 +420,7 @@ class BundleWriter:
         Parameters
         ----------
         manifest_fields : dict
-            Every contract-3 field the writer cannot know: ``generator_version``,
+            Every manifest field (docs/bundle-format.md) the writer cannot know: ``generator_version``,
             ``profile_sha256``, ``resolved_profile_sha256``, ``profile``,
             ``seed``, ``method``, ``generator`` (the method's parameters),
             ``duration_s``, ``periodic``, ``taps``, ``mimo``, ``fir`` and

@@ -1,4 +1,4 @@
-"""The ``emucompile`` command line (contract 1): parse, call the library, print, exit.
+"""The ``emucompile`` command line (reference: docs/command-line.md): parse, call the library, print, exit.
 
 No numerics live here. Every command is a thin function over the Python API;
 errors raised by the library (:class:`emucompile.errors.EmucompileError`)
@@ -440,7 +440,7 @@ def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_fil
 # -- presets -----------------------------------------------------------------------
 
 
-@cli.group()
+@cli.group(epilog="\b\nExamples:\n  emucompile presets list\n  emucompile presets show tdl-c --delay-spread-ns 300")
 def presets():
     """Channel models of open standards (3GPP, ITU-R)."""
 

@@ -1,4 +1,4 @@
-"""Compile a profile into a bundle (contract 3): plan, synthesise, write; and reproduce it.
+"""Compile a profile into a bundle (docs/bundle-format.md): plan, synthesise, write; and reproduce it.
 
 The pipeline of ``emucompile compile``::
 
@@ -362,6 +362,8 @@ def compile_profile(
 
     Examples
     --------
+    Not run as a doctest: it writes a bundle directory and takes seconds.
+
     >>> import emucompile
     >>> result = emucompile.compile_profile("profiles_demo/warehouse-robot.yaml",
     ...                                     "out/robot", duration_s=5, seed=7)  # doctest: +SKIP
@@ -397,7 +399,7 @@ def run_plan(plan: CompilePlan, *, progress=None) -> CompileResult:
 
 
 def manifest_fields(plan: CompilePlan) -> dict:
-    """The contract-3 manifest fields that the compile run knows (the writer adds the rest)."""
+    """The manifest fields (docs/bundle-format.md) that the compile run knows (the writer adds the rest)."""
     engine = plan.engine
     generator = dict(engine.parameters())
     generator["reproducibility"] = fading.reproducibility()

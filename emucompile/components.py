@@ -12,6 +12,8 @@ bundle's axes (m, n_rx, n_tx, n_taps) unless stated, complex128.
 
 Examples
 --------
+Not run as a doctest: it needs a compiled bundle (``emucompile compile ... -o out/campus``).
+
 >>> c = open_components("out/campus")                     # doctest: +SKIP
 >>> links = c.link_streams(0, 0, c.n_samples)             # doctest: +SKIP
 >>> from emucompile.mimo import estimate_correlation

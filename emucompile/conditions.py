@@ -28,7 +28,7 @@ Decisions
   2 GHz, which the condition does not specify. ``carrier_follows=True``
   models a physical path-length change instead.
 * **Shadowing: mean power held.** The profile's ``power_db`` is a mean power
-  E|g|^2 (contract 2), so shadowing S in dB is N(mu, sigma^2) with
+  E|g|^2 (docs/profile-format.md), so shadowing S in dB is N(mu, sigma^2) with
   mu = -sigma^2 ln(10)/20, which makes E[10^(S/10)] = 1; the median is then
   mu dB (-7.4 dB at sigma = 8 dB). ``hold="median"`` (mu = 0) follows the
   path-loss convention instead; the manifest records which.

@@ -199,8 +199,9 @@ def diff_profiles(a, b, *, tolerances: dict | None = None) -> DiffResult:
 
     Examples
     --------
-    >>> result = diff_profiles("profiles_demo/port-crane-los.yaml", "edited.yaml")  # doctest: +SKIP
-    >>> result.same_channel, [c.text() for c in result.changes]                     # doctest: +SKIP
+    >>> result = diff_profiles("profiles_demo/port-crane-los.yaml", "profiles_demo/warehouse-robot.yaml")
+    >>> result.same_channel, result.changes[0].text()
+    (False, 'name: port-crane-los -> warehouse-robot')
     """
     tol = dict(DEFAULT_TOLERANCES)
     for name, value in (tolerances or {}).items():

@@ -1,6 +1,6 @@
 """Errors and problem reports shared by every stage.
 
-Each error carries the exit code the command line gives it (contract 1):
+Each error carries the exit code the command line gives it (docs/command-line.md):
 0 success, 1 the run worked but a check or target failed, 2 bad input or usage.
 The command line prints ``str(error)``; it never shows a traceback unless
 ``--debug`` is given.

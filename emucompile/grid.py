@@ -1,4 +1,4 @@
-"""The FIR map: from tap gains to integer-sample FIR coefficients (contract 3).
+"""The FIR map: from tap gains to integer-sample FIR coefficients (docs/bundle-format.md).
 
 At an emulator's sample rate f_s a tapped delay line with gains g_i(t) at
 delays tau_i becomes an FIR filter on the sample grid,
@@ -245,7 +245,7 @@ class FirMap:
 
     # -- records ---------------------------------------------------------------
     def manifest_entry(self) -> dict:
-        """The manifest's ``fir`` object (contract 3), strict-JSON values."""
+        """The manifest's ``fir`` object (docs/bundle-format.md), strict-JSON values."""
         return {
             "sample_rate_hz": float(self.sample_rate_hz),
             "n_fir": int(self.n_fir),

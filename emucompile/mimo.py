@@ -3,7 +3,7 @@
 Link order
 ----------
 A bundle holds, per sample and tap, the channel matrix H of shape
-``(n_rx, n_tx)`` (``tap_gains[n, :, :, k]``, contract 3). The *link vector*
+``(n_rx, n_tx)`` (``tap_gains[n, :, :, k]``, docs/bundle-format.md). The *link vector*
 of a tap is vec(H), the columns of H stacked (column-major)::
 
     h[tx * n_rx + rx] = H[rx, tx]        (link index l = tx * n_rx + rx)

@@ -1,4 +1,4 @@
-"""Channel models of open standards, as profile documents (contract 2).
+"""Channel models of open standards, as profile documents (docs/profile-format.md).
 
 Twelve tapped-delay-line models, each stored in ``emucompile/presets/NAME.yaml``
 with its source (document, table, and whether the values were transcribed from
@@ -100,7 +100,7 @@ DIRECT_PART_FORMS = ("rician", "static-pair")
 CHECK_STATES = ("confirmed", "recalled, not confirmed")
 _CONFIRMED_KEYS = ("document", "table", "version", "compared", "published_figure")
 
-# The per-tap keys of contract 2 that an override may set.
+# The per-tap keys of the profile format (docs/profile-format.md) that an override may set.
 TAP_OVERRIDE_KEYS = (
     "delay_ns",
     "power_db",
@@ -318,7 +318,7 @@ def preset_document(
     direct_part: str = "rician",
     document_name: str | None = None,
 ) -> dict:
-    """A preset as a profile document (contract 2, ``format_version: 1``).
+    """A preset as a profile document (docs/profile-format.md, ``format_version: 1``).
 
     Parameters
     ----------
@@ -338,7 +338,7 @@ def preset_document(
         Per-tap changes, keyed by the tap's index (0-based) in the returned
         document's ``taps`` list, which keeps the table's order (with
         ``direct_part="rician"``, index = table tap number - 1). Keys are
-        those of contract 2's taps (:data:`TAP_OVERRIDE_KEYS`). Changing
+        those of the profile format's taps (:data:`TAP_OVERRIDE_KEYS`). Changing
         ``fading`` drops the keys that no longer apply (``k_db`` and ``los_*``
         when a tap stops being Rician, ``spectrum`` when it becomes static);
         setting ``los_angle_deg`` drops ``los_doppler_hz`` and the reverse.
@@ -581,7 +581,7 @@ def _build_document(preset, request, overrides, direct_part, document_name, *, p
 
 
 def _taps_from_rows(preset, scale_ns, direct_part):
-    """Contract-2 taps from the table rows, in the table's order."""
+    """Profile-format taps (docs/profile-format.md) from the table rows, in the table's order."""
     taps = []
     by_tap: dict[int, list[PresetRow]] = {}
     for row in preset.rows:

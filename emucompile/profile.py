@@ -1,4 +1,4 @@
-"""Profiles: reading, checking and the frozen in-memory form (contract 2).
+"""Profiles: reading, checking and the frozen in-memory form (docs/profile-format.md).
 
 A profile file (YAML 1.2 or JSON, ``format_version: 1``) becomes a
 :class:`Profile` of :class:`Tap` objects in SI units: seconds, hertz, linear
@@ -200,7 +200,7 @@ class Profile:
     * ``mimo`` : :class:`emucompile.blocks.MimoSetup` (None for SISO, 1x1
       included): ``mimo.correlation`` (:class:`emucompile.mimo.SpatialCorrelation`
       of the diffuse parts), ``mimo.direct_response`` (per-link factor of the
-      direct parts), ``mimo.as_record()`` (contract 3's ``mimo``).
+      direct parts), ``mimo.as_record()`` (the manifest's ``mimo``, docs/bundle-format.md).
     * ``conditions`` : :class:`emucompile.blocks.Conditions`.
     * ``target`` : :class:`emucompile.target.Target` (the ``target:`` block).
     * ``preset`` : :class:`emucompile.blocks.PresetInfo` (provenance of taps
@@ -323,8 +323,9 @@ def load_profile(source, *, format: str | None = None) -> Profile:
 
     Examples
     --------
-    >>> profile = load_profile("profiles_demo/warehouse-robot.yaml")  # doctest: +SKIP
-    >>> profile.taps[0].delay_s, profile.taps[0].power_linear        # doctest: +SKIP
+    >>> profile = load_profile("profiles_demo/warehouse-robot.yaml")
+    >>> profile.taps[0].delay_s, round(profile.taps[0].power_linear, 4)
+    (0.0, 0.4248)
     """
     return _raise_on_error(check_profile(source, format=format))
 

@@ -438,7 +438,7 @@ def judge_fit(costs: "FitCosts", tolerance_pct: float = DEFAULT_FIT_TOLERANCE_PC
 
 @dataclass(frozen=True, eq=False)
 class TargetFit:
-    """The fitted FIR map (contract 3's ``fir_map``) and what the fit costs."""
+    """The fitted FIR map (the bundle's ``fir_map``, docs/bundle-format.md) and what the fit costs."""
 
     fir_map: FirMap
     costs: FitCosts
@@ -643,6 +643,8 @@ def load_target(source, *, format: str | None = None) -> Target:
 
     Examples
     --------
+    Not run as a doctest: it reads a target file of your own.
+
     >>> target = load_target("bench-fir-8.yaml")  # doctest: +SKIP
     """
     target, problems = check_target_file(source, format=format)

@@ -53,7 +53,7 @@ or over one period for periodic records):
     nu = n_seg / (1 + 2 * 0.167^2) (Welch 1967, Hann at 50 % overlap);
     bins where the expected PSD is >= 1e-2 of its peak; Bonferroni over bins.
 ``out_of_band_power``
-    Not a hypothesis test (p_value None): the requirement of issue 3 that the
+    Not a hypothesis test (p_value None): the engine's spectral-purity requirement that the
     power beyond 1.05 f_D is >= 40 dB below the in-band power, estimated with a
     Kaiser (beta 14, sidelobes near -100 dB) Welch PSD at resolution f_D/256.
 ``level_crossing_rate`` / ``fade_duration``
@@ -116,7 +116,7 @@ CHECK_NAMES = (
 
 #: Shortest record, in Doppler periods, on which the statistical checks run.
 MIN_DOPPLER_PERIODS = 50.0
-#: Required suppression of the power beyond 1.05 f_D (issue 3), in dB.
+#: Required suppression of the power beyond 1.05 f_D (the engine's spectral-purity requirement), in dB.
 OUT_OF_BAND_LIMIT_DB = -40.0
 OUT_OF_BAND_FACTOR = 1.05
 #: Envelope quantiles at which crossings are counted, and the fewest expected crossings.
@@ -688,7 +688,7 @@ def _check_out_of_band(ctx):
     return CheckResult(name, ctx.tap, value, None, OUT_OF_BAND_LIMIT_DB, None, passed,
                        None if passed else f"out-of-band power {value:.1f} dB > {OUT_OF_BAND_LIMIT_DB} dB",
                        None, None, "dB",
-                       {"resolution_hz": df, "limit": "issue 3: >= 40 dB below in-band beyond 1.05 f_D",
+                       {"resolution_hz": df, "limit": "required: >= 40 dB below in-band beyond 1.05 f_D",
                         "window": "kaiser(14)", "kind": "limit check, not a hypothesis test"})
 
 

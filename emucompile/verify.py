@@ -82,7 +82,7 @@ Result fields (the contract with :mod:`emucompile.plots` and :mod:`emucompile.re
 ``timings_s`` : dict
     Wall time of its stages (``integrity``, ``decimation``, ``checks``).
 
-``to_dict()`` gives the strict-JSON ``verification.json`` (contract 1's
+``to_dict()`` gives the strict-JSON ``verification.json`` (docs/json-output.md's
 ``verify --json`` keys ``passed``, ``false_alarm``, ``checks`` plus
 ``identity``, ``profile_stats``, ``update_rate_hz``, ``record_rate_hz``,
 ``cautions``).

@@ -109,7 +109,7 @@ def test_bundle_layout_files_and_manifest_validate_against_the_schema(tmp_path):
     for key in ("tool_version", "generator_version", "created_utc", "profile_sha256", "resolved_profile_sha256",
                 "profile", "seed", "method", "update_rate_hz", "n_samples", "duration_s", "n_taps", "periodic",
                 "taps", "mimo", "fir", "platform", "files"):
-        assert key in manifest, key  # every field contract 3 lists
+        assert key in manifest, key  # every field docs/bundle-format.md lists
     assert set(manifest["platform"]) >= {"python", "numpy", "scipy", "machine"}
     gains = np.load(out / "tap_gains.npy")
     assert gains.dtype == np.complex64 and gains.shape == (5000, 1, 1, 3)  # SISO is (n, 1, 1, n_taps)

@@ -67,7 +67,7 @@ def test_compile_writes_a_bundle_with_the_contract_fields(profile_file, tmp_path
         assert key in manifest, key
     assert manifest["format"] == "emucompile-bundle" and manifest["format_version"] == 1
     assert manifest["n_samples"] == 4000 and manifest["duration_s"] == pytest.approx(4.0)
-    # profile_sha256 is of the file's bytes (contract 3)
+    # profile_sha256 is of the file's bytes (docs/bundle-format.md)
     import hashlib
     assert manifest["profile_sha256"] == hashlib.sha256(profile_file.read_bytes()).hexdigest()
     bundle = open_bundle(out)
@@ -229,7 +229,7 @@ def test_formats_from_compile_read_back_equal_to_the_npy(profile_file, tmp_path)
 
 
 def test_periodic_bundle_wraps_without_a_jump(profile_file, tmp_path):
-    """The step across the wrap is like the steps inside (seamless looping, issue 4 point 9)."""
+    """The step across the wrap is like the steps inside (seamless looping, docs/bundle-format.md)."""
     out = tmp_path / "loop"
     result = compiler.compile_profile(profile_file, out, duration_s=4, update_rate_hz=1600, seed=8,
                                       periodic=True)

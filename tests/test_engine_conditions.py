@@ -92,7 +92,7 @@ def _channel(path, rate, n, seed):
 
 
 def test_mimo_gains_are_bit_identical_for_any_chunking_and_random_access(tmp_path):
-    """Reproducibility contract (DESIGN.md contract 3): chunking and offsets never change the bytes."""
+    """Reproducibility promise (docs/bundle-format.md): chunking and offsets never change the bytes."""
     channel = _channel(_write(tmp_path, MIMO_PROFILE), 1000.0, 30000, 5)
     whole = channel.block(0, channel.n_samples)
     assert whole.shape == (30000, 2, 2, 2) and whole.dtype == np.complex64
@@ -337,7 +337,7 @@ def test_the_moving_fir_follows_the_delay_of_ts36104_b4_and_apply_uses_it(tmp_pa
 
 
 def test_conditions_gains_are_bit_identical_for_any_chunking_and_random_access(tmp_path):
-    """Contract 3's reproducibility with a train, shadowing and a moving delay whose carrier follows."""
+    """The reproducibility promise of docs/bundle-format.md with a train, shadowing and a moving delay whose carrier follows."""
     text = HST_PROFILE + (
         "  shadowing: {sigma_db: 5, decorrelation_distance_m: 3, speed_mps: 30}\n"
         "  moving_propagation: {amplitude_us: 1, angular_rate_per_s: 3, carrier_follows: true, carrier_hz: 1.0e6}\n"

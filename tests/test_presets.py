@@ -56,7 +56,7 @@ def test_twelve_presets_with_sources():
     assert [r.name for r in records] == list(PRESET_NAMES)
     assert len(records) == 12
     for record in records:
-        assert re.fullmatch(r"[a-z0-9._-]+", record.name)  # contract 2 name pattern
+        assert re.fullmatch(r"[a-z0-9._-]+", record.name)  # docs/profile-format.md name pattern
         assert record.values in ("transcribed", "transcribed at second hand", "from memory")
         assert record.source and record.data_version >= 1
 
@@ -151,7 +151,7 @@ def test_tables_keep_their_own_order():
 
 
 def test_tdl_c_scaled_to_300_ns_has_300_ns_rms_delay_spread():
-    # Acceptance of issue 6: extends tdl-c with delay_spread_ns 300 -> 300 ns +- 1 %.
+    # docs/profile-format.md (extends): tdl-c with delay_spread_ns 300 -> 300 ns +- 1 %.
     doc = preset_document("tdl-c", delay_spread_ns=300)
     assert document_rms_ns(doc) == pytest.approx(300.0, rel=0.01)
     assert doc["preset"]["delay_spread_ns"] == 300
@@ -303,7 +303,7 @@ def test_bad_overrides(overrides, fragment):
         preset_document("epa", tap_overrides=overrides)
 
 
-def test_override_keys_are_contract_2_tap_keys():
+def test_override_keys_are_profile_format_tap_keys():
     assert set(TAP_OVERRIDE_KEYS) == {
         "delay_ns", "power_db", "fading", "k_db", "los_angle_deg", "los_doppler_hz",
         "los_phase_deg", "spectrum", "sigma_hz", "max_doppler_hz"}
@@ -313,7 +313,7 @@ def test_override_keys_are_contract_2_tap_keys():
 
 
 @pytest.mark.parametrize("name", PRESET_NAMES)
-def test_documents_are_contract_2_shaped_and_round_trip(name):
+def test_documents_are_profile_format_shaped_and_round_trip(name):
     doc = preset_document(name)
     assert doc["format_version"] == 1 and doc["name"] == name
     assert doc["total_power_db"] == 0

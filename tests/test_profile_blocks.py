@@ -86,7 +86,7 @@ def test_the_override_keys_in_the_schema_are_the_ones_resolution_accepts():
 
 
 def test_acceptance_extends_tdl_c_at_300_ns_through_stats(tmp_path):
-    # Issue 6 acceptance: extends tdl-c with delay_spread_ns 300 -> RMS delay spread 300 ns +- 1 %
+    # docs/profile-format.md (extends): tdl-c with delay_spread_ns 300 -> RMS delay spread 300 ns +- 1 %
     # (TR 38.901 clause 7.7.3: delays = normalised delays x DS; the table's RMS spread is 1).
     path = tmp_path / "lab.yaml"
     path.write_text(HEAD + "extends: {preset: tdl-c, delay_spread_ns: 300}\n", encoding="utf-8")

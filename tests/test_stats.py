@@ -236,7 +236,7 @@ def test_all_static_profile_has_null_doppler_quantities_with_reasons():
     assert [t["k_db"] for t in s["taps"]] == [None, None]
 
 
-def test_contract_1_keys_are_present():
+def test_stats_json_keys_are_present():
     result = stats_json("profiles_demo/warehouse-robot.yaml")
     for key in ("n_taps", "total_power_db", "mean_excess_delay_s", "rms_delay_spread_s",
                 "max_excess_delay_s", "coherence_bandwidth_50_hz", "coherence_bandwidth_90_hz",

@@ -1,4 +1,4 @@
-"""The fading engine against theory (issue 3, point 9), through the shared tolerance checks.
+"""The fading engine against theory, through the shared tolerance checks.
 
 Records of T f_D = 5e4 Doppler periods at an update rate of 10 f_D (cheap,
 and the rate verify decimates to), for both generators (doppler-filter and
@@ -25,7 +25,7 @@ Sources, check by check:
 * K: Greenstein, Michelson & Erceg 1999 moment method;
 * Rayleigh phase: uniform on [0, 2 pi) (circular moments);
 * mean power; cross-correlation between taps ~0;
-* power beyond 1.05 f_D >= 40 dB below the in-band power (issue 3).
+* power beyond 1.05 f_D >= 40 dB below the in-band power (the engine's spectral-purity requirement).
 """
 
 from __future__ import annotations
@@ -59,7 +59,7 @@ SOURCES = {
     "autocorrelation": {"classical": "J0 (Clarke 1968, Jakes 1974)", "flat": "sinc(2 f_D tau)",
                         "gaussian": "truncated Gaussian form"},
     "doppler_psd": "Welch 1967 against the spectrum",
-    "out_of_band_power": "issue 3: >= 40 dB below in-band beyond 1.05 f_D",
+    "out_of_band_power": "required: >= 40 dB below in-band beyond 1.05 f_D",
     "level_crossing_rate": "Rice 1944 (Jakes' / Stueber's forms, Rice's integral)",
     "fade_duration": "P(R <= r)/N(r) with Rice 1944",
     "phase_uniformity": "uniform phase of a circular Gaussian",
