@@ -12,3 +12,12 @@ def _doctests_run_from_the_repository_root(request, monkeypatch):
     """Doctest examples name demo files by their path from the repository root (``profiles_demo/...``)."""
     if isinstance(request.node, pytest.DoctestItem):
         monkeypatch.chdir(ROOT)
+
+
+# Property tests are deterministic (fixed seeds, no example database): the same examples on
+# every run and in CI, so a failure is reproducible and never a matter of luck. Every input
+# that once broke the tool stays as an explicit regression test beside its property.
+from hypothesis import settings  # noqa: E402
+
+settings.register_profile("deterministic", derandomize=True, database=None, deadline=None)
+settings.load_profile("deterministic")

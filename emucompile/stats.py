@@ -207,7 +207,9 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
     reciprocal), discards every interval that bound keeps above the level,
     splits each remaining one into 16 and repeats (branch and bound, at most
     6 levels deep), and refines the first interval whose right end is at or
-    below the level with ``scipy.optimize.brentq``. An interval still undecided
+    below the level with ``scipy.optimize.brentq`` only at the deepest level
+    (an interval that ends below the level may dip below it and come back
+    first: a ripple of a weak far tap shorter than the grid step). An interval still undecided
     at the deepest level is searched for a minimum of g (a root of g', by
     ``brentq``) that touches the level within :data:`TANGENCY_TOLERANCE`:
     "falls to" includes touching it. No crossing is missed
@@ -246,12 +248,19 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
 
     def first_in(a, b, g_a, g_b, depth):
         """The first crossing in [a, b] (g_a above the level), or None."""
-        if g_b <= level2:
-            return float(optimize.brentq(lambda x: g(x)[0] - level2, a, b,
-                                         xtol=step * 1e-12, rtol=1e-13))
-        if (g_a + g_b) / 2.0 - slope_bound * (b - a) > reach:
+        crosses = g_b <= level2
+        if not crosses and (g_a + g_b) / 2.0 - slope_bound * (b - a) > reach:
             return None
         if depth == 6:
+            if crosses:  # an interval this short holds one crossing, up to the stated precision
+                # At a tangency g sits on the level within rounding, and a scalar g(x) may
+                # round to the other side of the vectorised value: either end then is the answer.
+                if g(a)[0] <= level2:
+                    return float(a)
+                if g(b)[0] > level2:
+                    return float(b)
+                return float(optimize.brentq(lambda x: g(x)[0] - level2, a, b,
+                                             xtol=step * 1e-12, rtol=1e-13))
             return tangency(a, b, g_a, g_b)
         x = np.linspace(a, b, 17)
         values = g(x)

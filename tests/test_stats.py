@@ -303,3 +303,15 @@ def test_a_target_on_an_undefined_quantity_is_missed_with_the_reason(tmp_path):
     assert result.exit_code == 1
     (target,) = json.loads(result.stdout)["expect"]
     assert target["value"] is None and "one delay" in target["reason"]
+
+
+def test_the_first_crossing_is_found_when_a_weak_far_tap_ripples_within_one_grid_step():
+    # Found by the random-profile test: two strong taps 0.156 ns apart and a weak one at 89 ns,
+    # whose ripple (period 1/89 ns = 11 MHz) is shorter than the first grid step (~8 MHz). The
+    # first interval ending below 0.5 dipped below it earlier: brentq gave a later root.
+    delays = np.array([0.0, 89e-9, 0.15625e-9])
+    weights = 10 ** (np.array([-1.0, -23.0, 0.0]) / 10)
+    b50, _ = coherence_bandwidth(delays, weights, 0.5)
+    grid = np.linspace(0, b50, 200_001)[:-1]
+    assert np.all(frequency_correlation(delays, weights, grid) > 0.5 - 1e-9)
+    assert frequency_correlation(delays, weights, [b50])[0] == pytest.approx(0.5, abs=1e-9)
