@@ -1,0 +1,324 @@
+"""Channel estimate of a capture of the emulator's output: find the probe, least squares per period, project onto taps.
+
+Per period of L samples (one probe period, after a whole period that serves
+as cyclic prefix), with Y[k] the DFT of the window and X[k] the probe's:
+
+* Z[k] = Y[k] / X[k] on the occupied bins (|X[k]| constant: least squares and
+  periodic cross-correlation are the same estimate), the sum over transmit
+  antennas m of H_m[k] exp(-j 2 pi k s_m / L) (cyclic shift s_m);
+* the model Z = A g + noise with A[k, (m, i)] = F_i[k] exp(-j 2 pi k (s_m + d) / L),
+  F_i the DFT of tap i's row of the band-limited FIR map at the capture's rate
+  (:func:`emucompile.grid.fir_map`) and d the alignment (integer by circular
+  correlation of the power delay profile with the map's expected one, then
+  fractional by least squares); the tap gains g = pinv(A) Z, their noise
+  covariance sigma_Z^2 (A^H A)^-1;
+* sigma_Z^2 from the delay bins outside every antenna's support (the inverse
+  DFT of Z over L bins: white noise of variance sigma_Z^2 per occupied bin
+  gives K sigma_Z^2 / L^2 in every delay bin).
+
+The estimate of a period is, to first order in the time variation over L
+samples, the average of the channel over that period: it stands at the
+period's centre. Memory: a block of :data:`BLOCK_PERIODS` periods at a time
+(plus the estimates themselves).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from scipy import fft as sp_fft
+from scipy import optimize
+
+from emucompile.errors import InputError
+
+BLOCK_SAMPLES = 1 << 20
+"""Samples per processing block (whole periods; about 8 MiB of complex64 per receive antenna)."""
+MIN_PSR_DB = 10.0
+"""A preamble peak must stand this far above the largest correlation outside the channel's span."""
+SEARCH_PERIODS = 16
+MAX_SEARCH_SAMPLES = 1 << 22
+ALIGN_PERIODS = 64
+NOISE_PERIODS = 2048
+"""At most this many periods (evenly spread) feed the noise estimate: one inverse DFT each."""
+CI16_FULL_SCALE = 32767
+
+
+class NoProbe(InputError):
+    """No probe preamble in the capture (exit 2)."""
+
+
+@dataclass
+class Capture:
+    """A capture opened for reading: one or more recordings whose channels are the receive antennas."""
+
+    paths: list
+    recordings: list = field(repr=False)
+    sample_rate_hz: float | None
+    clipped: int = 0
+
+    @property
+    def n_samples(self) -> int:
+        return min(r.n_samples for r in self.recordings)
+
+    @property
+    def n_rx(self) -> int:
+        return sum(r.n_channels for r in self.recordings)
+
+    def read(self, start: int, stop: int) -> np.ndarray:
+        parts = []
+        for recording in self.recordings:
+            if recording.datatype == "ci16_le":
+                codes = np.asarray(recording.samples[start:stop])
+                self.clipped += int(np.count_nonzero((codes >= CI16_FULL_SCALE) | (codes <= -CI16_FULL_SCALE)))
+            parts.append(recording.read(start, stop))
+        return parts[0] if len(parts) == 1 else np.concatenate(parts, axis=1)
+
+
+def open_capture(paths, *, n_rx: int = 1, sample_rate_hz: float | None = None) -> Capture:
+    """Open a capture: SigMF (cf32/cf64/ci16), npy, raw cf32 or raw ci16 (``.ci16``); one file or one per antenna."""
+    from emucompile.apply import Recording, read_recording
+
+    if isinstance(paths, (str, Path)):
+        paths = [paths]
+    paths = [Path(p) for p in paths]
+    recordings = []
+    per_file = n_rx if len(paths) == 1 else 1
+    for path in paths:
+        if path.suffix.lower() == ".ci16":
+            if not path.is_file():
+                raise InputError(f"{path}: no such file")
+            size = path.stat().st_size
+            frame = 4 * per_file
+            if size == 0 or size % frame:
+                raise InputError(f"{path}: {size} bytes is not a whole number of ci16 samples "
+                                 f"({frame} bytes each for {per_file} channel(s))")
+            codes = np.memmap(path, dtype="<i2", mode="r", shape=(size // frame, per_file, 2))
+            recordings.append(Recording(path, "ci16", "ci16_le", codes, data_path=path))
+        else:
+            recordings.append(read_recording(path, n_channels=per_file))
+    rates = {r.sample_rate_hz for r in recordings if r.sample_rate_hz is not None}
+    if len(rates) > 1:
+        raise InputError(f"the capture's files disagree on the sample rate: {sorted(rates)}")
+    rate = rates.pop() if rates else None
+    if sample_rate_hz is not None:
+        if rate is not None and not math.isclose(rate, sample_rate_hz, rel_tol=1e-9):
+            raise InputError(f"--sample-rate {sample_rate_hz:g} Hz, but {paths[0]} says {rate:g} Hz")
+        rate = float(sample_rate_hz)
+    return Capture(paths, recordings, rate)
+
+
+@dataclass
+class Estimate:
+    """Tap gains estimated from a capture, per probe period, with what they rest on.
+
+    ``gains`` (n, n_rx, n_tx, n_taps) complex128 at ``rate_hz`` (the probe's
+    repetition rate), ``times_s`` the capture time of each period's centre;
+    ``noise_variance`` (n_rx, n_tx, n_taps) the variance of one estimate's
+    noise; ``noise_delay_power`` (n_rx,) sigma_Z^2 K / L^2 per delay bin;
+    ``pdp`` (n_rx, L) the mean |z|^2 per delay bin (delay 0 = the aligned FIR's
+    column 0 of antenna 0); ``offset_samples`` the alignment d;
+    ``arrival_sample`` the capture sample where the preamble's first sample
+    arrives through the FIR map's column 0.
+    """
+
+    gains: np.ndarray
+    times_s: np.ndarray
+    rate_hz: float
+    noise_variance: np.ndarray
+    noise_delay_power: np.ndarray
+    pdp: np.ndarray
+    offset_samples: float
+    arrival_sample: float
+    probe_start: int
+    psr_db: float
+    residual_fraction: float
+    snr_db: list
+    clipped: int
+    notes: list
+
+
+def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None = None,
+                     progress=None) -> Estimate:
+    """Find the probe in ``capture`` and estimate the tap gains of every period (see the module notes)."""
+    rate = design.sample_rate_hz
+    L = design.period_samples
+    n = capture.n_samples
+    notes = []
+    if n < design.preamble_samples + 4 * L:
+        raise InputError(f"{capture.paths[0]}: not enough data: {n} samples hold fewer than the preamble and "
+                         f"3 probe periods ({design.preamble_samples + 4 * L} samples)")
+    s0, psr_db, seen = find_probe(capture, design, source.span_samples)
+    first = s0 + L  # one whole period after the first probe period: a cyclic prefix and a margin
+    n_est = (n - first) // L
+    if seen:
+        n_est = min(n_est, design.n_periods - 3)
+    else:
+        notes.append(f"no preamble seen in the first {min(n, MAX_SEARCH_SAMPLES) / rate:.4g} s: the capture began "
+                     "inside the probe; its periods are taken from the first whole one to the end of the capture")
+    if n_est < 3:
+        raise InputError(f"{capture.paths[0]}: not enough data: {max(0, n_est)} whole probe period(s) after the "
+                         f"probe's start at sample {s0}")
+    bins = design.bins()
+    signed = np.where(bins > L // 2, bins - L, bins).astype(float)
+    x0 = sp_fft.fft(design.period(0))[bins]
+    rotation = None if cfo_hz is None else float(cfo_hz)
+
+    def spectra(p0, count):
+        block = capture.read(first + p0 * L, first + (p0 + count) * L).astype(np.complex64)
+        if rotation:
+            index = first + p0 * L + np.arange(block.shape[0])
+            block = block * np.exp(-2j * np.pi * rotation * index / rate)[:, None].astype(np.complex64)
+        frames = block.reshape(count, L, capture.n_rx).transpose(0, 2, 1)
+        return sp_fft.fft(frames, axis=-1, workers=2)[..., bins] / x0  # (count, n_rx, K)
+
+    # alignment on the first periods: integer by the delay profile, fractional by least squares
+    head = spectra(0, min(ALIGN_PERIODS, n_est))
+    pdp_head = np.mean(np.abs(_delay_domain(head, bins, L)) ** 2, axis=(0, 1))
+    rows = source.fir_matrix
+    powers = np.array([t.power_linear for t in source.profile.taps])
+    expected = np.zeros(L)
+    for shift in design.cyclic_shifts:
+        expected[(shift + np.arange(rows.shape[1])) % L] += powers @ rows ** 2
+    score = np.real(sp_fft.ifft(sp_fft.fft(pdp_head) * np.conj(sp_fft.fft(expected))))
+    d0 = int(np.argmax(score))
+
+    def residual(delta):
+        a = _design_matrix(rows, design.cyclic_shifts, d0 + delta, signed, L)
+        fit = head @ np.linalg.pinv(a).T @ a.T
+        return float(np.sum(np.abs(head - fit) ** 2))
+
+    found = optimize.minimize_scalar(residual, bounds=(-1.0, 1.0), method="bounded", options={"xatol": 1e-3})
+    offset = d0 + float(found.x)
+    if offset >= L / 2:
+        offset -= L
+    a = _design_matrix(rows, design.cyclic_shifts, offset, signed, L)
+    pinv_t = np.linalg.pinv(a).T  # (K, n_tx * n_taps)
+    gram_inverse = np.linalg.inv(a.conj().T @ a)
+    energy_head = float(np.sum(np.abs(head) ** 2))
+    residual_fraction = residual(float(found.x)) / energy_head if energy_head > 0 else math.nan
+
+    support = np.zeros(L, bool)
+    for shift in design.cyclic_shifts:
+        support[(int(math.floor(offset)) + shift + np.arange(-2, rows.shape[1] + 3)) % L] = True
+    if support.all():
+        raise InputError("the probe's period leaves no delay bins outside the channel's support for the noise estimate")
+    # noise: the residual of the tap model in the delay bins outside every support; white noise of
+    # variance sigma_Z^2 per occupied bin leaves sigma_Z^2 (||M||^2 - ||M Q||^2) there (M the inverse DFT's
+    # rows of those bins, Q an orthonormal basis of the model's columns, which the fit removes)
+    outside_rows = np.exp(2j * np.pi * np.outer(np.flatnonzero(~support), bins) / L) / L
+    basis, _ = np.linalg.qr(a)
+    outside_factor = float(np.sum(np.abs(outside_rows) ** 2) - np.sum(np.abs(outside_rows @ basis) ** 2))
+    n_taps = rows.shape[0]
+    gains = np.empty((n_est, capture.n_rx, design.n_tx, n_taps), np.complex128)
+    noise_sum = np.zeros(capture.n_rx)
+    noise_count = 0
+    pdp = np.zeros((capture.n_rx, L))
+    pdp_count = 0
+    noise_step = max(1, n_est // NOISE_PERIODS)
+    per_block = max(1, BLOCK_SAMPLES // L)
+    for p0 in range(0, n_est, per_block):
+        count = min(per_block, n_est - p0)
+        z = spectra(p0, count)
+        gains[p0:p0 + count] = (z @ pinv_t).reshape(count, capture.n_rx, design.n_tx, n_taps)
+        pick = np.arange((-p0) % noise_step, count, noise_step)
+        if pick.size:
+            chosen = z[pick]
+            fitted = (chosen @ pinv_t) @ a.T
+            noise_sum += np.sum(np.abs((chosen - fitted) @ outside_rows.T) ** 2, axis=(0, 2))
+            noise_count += pick.size
+            pdp += np.sum(np.abs(_delay_domain(chosen, bins, L)) ** 2, axis=0)
+            pdp_count += pick.size
+        if progress is not None:
+            progress(p0 + count, n_est)
+    sigma_z2 = noise_sum / (max(1, noise_count) * outside_factor)
+    noise_delay = sigma_z2 * bins.size / L ** 2
+    diag = np.real(np.diag(gram_inverse)).reshape(design.n_tx, n_taps)
+    noise_variance = sigma_z2[:, None, None] * diag[None]
+    pdp /= max(1, pdp_count)
+    times = (first + np.arange(n_est) * L + L / 2.0) / rate
+    # output power of the unit-power probe: (1/K) sum_k |H_k|^2 = (L/K) sum_n |h_n|^2 (support, noise removed)
+    signal_power = (np.sum(pdp[:, support], axis=1) - noise_delay * np.count_nonzero(support)) * L / bins.size
+    # noise per capture sample sigma_w^2 = sigma_Z^2 L / K (the probe's DFT has magnitude L / sqrt(K)): SNR over the
+    # whole sample-rate band against the channel's output power for the unit-power probe
+    sigma_w2 = sigma_z2 * L / bins.size
+    snr = [None if not (s > 0 and v > 0) else 10 * math.log10(s / v) for s, v in zip(signal_power, sigma_w2)]
+    if capture.clipped:
+        notes.append(f"{capture.clipped} I/Q values at the int16 full scale in the ci16 capture (clipped: "
+                     "lower the capture level)")
+    return Estimate(gains, times, rate / L, noise_variance, noise_delay, np.roll(pdp, -int(round(offset)), axis=1),
+                    offset, s0 + offset - (design.preamble_samples if seen else 0), s0, psr_db, residual_fraction, snr, capture.clipped, notes)
+
+
+def find_probe(capture: Capture, design, span: int) -> tuple[int, float, bool]:
+    """Where the probe's periods start: (sample, peak-to-sidelobe ratio in dB, preamble seen).
+
+    Fading-robust: the capture is correlated with one period of the preamble's
+    root and one of the probe's; the sum of both powers folded modulo L (over
+    every period of the search window, summed over the channel's span) peaks
+    at the channel's arrival phase (its peak-to-sidelobe ratio is reported;
+    below :data:`MIN_PSR_DB` there is no probe: :class:`NoProbe`). At that
+    phase each period is classified by the share of the preamble root's
+    power, a ratio that does not depend on the channel's gain: the probe
+    starts after the last period of the first preamble run. When no preamble
+    period is seen (the capture began inside the probe), the first whole
+    period is taken and the caller says so.
+    """
+    L = design.period_samples
+    window = min(capture.n_samples, max(MAX_SEARCH_SAMPLES, design.preamble_samples + SEARCH_PERIODS * L))
+    y = capture.read(0, window).astype(np.complex128)
+    usable = window - L + 1
+    if usable < 2 * L:
+        raise NoProbe(f"{capture.paths[0]}: no probe found: the capture holds fewer than 3 probe periods")
+    size = sp_fft.next_fast_len(window)
+    spectrum = sp_fft.fft(y, size, axis=0)
+    powers = []
+    for reference in (design.preamble_period(), design.period(0)):
+        kernel = np.conj(sp_fft.fft(reference, size))  # corr[n] = sum_m conj(p[m]) y[n + m]
+        corr = sp_fft.ifft(spectrum * kernel[:, None], axis=0)[:usable]
+        powers.append(np.sum(np.abs(corr) ** 2, axis=1))
+    pre, pro = powers
+    rows = usable // L
+    folded = pro[: rows * L].reshape(rows, L).sum(axis=0) + pre[: rows * L].reshape(rows, L).sum(axis=0)
+    width = min(span + 1, L)
+    smoothed = np.convolve(np.concatenate([folded, folded[: width - 1]]), np.ones(width), "valid")[:L]
+    phase = int(np.argmax(smoothed))  # where the channel's response begins (modulo L)
+    inside = np.zeros(L, bool)
+    margin = max(2, design.guard_samples // 2)  # the band-limited response's own sidelobes stay inside
+    inside[(phase + np.arange(-margin, width + margin)) % L] = True
+    peak = float(np.max(folded[inside]))
+    side = float(np.max(folded[~inside])) if (~inside).any() else 0.0
+    psr = math.inf if side <= 0 else 10 * math.log10(peak / side)
+    if not psr >= MIN_PSR_DB:
+        raise NoProbe(f"{capture.paths[0]}: no probe found in the first {window / design.sample_rate_hz:.4g} s: "
+                      f"the probe's correlation peak stands {psr:.1f} dB above its largest sidelobe "
+                      f"(at least {MIN_PSR_DB:g} dB needed); wrong probe, wrong rate, or no signal")
+    starts = phase + L * np.arange((usable - phase - L) // L + 1)
+    lags = starts[:, None] + np.arange(L)[None]
+    # the right root concentrates a period's correlation energy within the channel's span, the other spreads it
+    concentration = [np.sum(power[lags[:, :width]], axis=1) / np.maximum(np.sum(power[lags], axis=1), 1e-300)
+                     for power in (pre, pro)]
+    score = concentration[0] - concentration[1]
+    is_pre = np.flatnonzero(score > 0.1)
+    if is_pre.size == 0:
+        return int(starts[0]), psr, False
+    run_end = is_pre[0]
+    while run_end + 1 < score.size and score[run_end + 1] > -0.1:
+        run_end += 1
+    return int(starts[min(run_end + 1, starts.size - 1)]), psr, True
+
+
+def _design_matrix(rows, shifts, offset, signed, L):
+    """A[k, m * n_taps + i] = F_i[k] exp(-j 2 pi k (s_m + offset) / L) on the occupied (signed) bins."""
+    n = np.arange(rows.shape[1])
+    base = rows @ np.exp(-2j * np.pi * np.outer(n, signed) / L)  # (n_taps, K)
+    columns = [base * np.exp(-2j * np.pi * signed * (shift + offset) / L) for shift in shifts]
+    return np.concatenate(columns, axis=0).T
+
+
+def _delay_domain(z, bins, L):
+    full = np.zeros(z.shape[:-1] + (L,), np.complex128)
+    full[..., bins] = z
+    return sp_fft.ifft(full, axis=-1)
