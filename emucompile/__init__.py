@@ -67,6 +67,9 @@ _API = {
     "make_figures": "emucompile.plots",
     "render_report": "emucompile.report",
     "write_report": "emucompile.report",
+    "write_probe": "emucompile.loop.probe",
+    "load_probe": "emucompile.loop.probe",
+    "measure_capture": "emucompile.loop.measure",
 }
 
 

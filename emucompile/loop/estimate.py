@@ -70,9 +70,6 @@ class Capture:
     def read(self, start: int, stop: int) -> np.ndarray:
         parts = []
         for recording in self.recordings:
-            if recording.datatype == "ci16_le":
-                codes = np.asarray(recording.samples[start:stop])
-                self.clipped += int(np.count_nonzero((codes >= CI16_FULL_SCALE) | (codes <= -CI16_FULL_SCALE)))
             parts.append(recording.read(start, stop))
         return parts[0] if len(parts) == 1 else np.concatenate(parts, axis=1)
 
@@ -99,6 +96,12 @@ def open_capture(paths, *, n_rx: int = 1, sample_rate_hz: float | None = None) -
             recordings.append(Recording(path, "ci16", "ci16_le", codes, data_path=path))
         else:
             recordings.append(read_recording(path, n_channels=per_file))
+    clipped = 0
+    for recording in recordings:
+        if recording.datatype == "ci16_le":  # one pass over the codes, in blocks
+            for first in range(0, recording.n_samples, BLOCK_SAMPLES):
+                codes = np.asarray(recording.samples[first:first + BLOCK_SAMPLES])
+                clipped += int(np.count_nonzero((codes >= CI16_FULL_SCALE) | (codes <= -CI16_FULL_SCALE)))
     rates = {r.sample_rate_hz for r in recordings if r.sample_rate_hz is not None}
     if len(rates) > 1:
         raise InputError(f"the capture's files disagree on the sample rate: {sorted(rates)}")
@@ -107,7 +110,7 @@ def open_capture(paths, *, n_rx: int = 1, sample_rate_hz: float | None = None) -
         if rate is not None and not math.isclose(rate, sample_rate_hz, rel_tol=1e-9):
             raise InputError(f"--sample-rate {sample_rate_hz:g} Hz, but {paths[0]} says {rate:g} Hz")
         rate = float(sample_rate_hz)
-    return Capture(paths, recordings, rate)
+    return Capture(paths, recordings, rate, clipped)
 
 
 @dataclass
@@ -138,6 +141,7 @@ class Estimate:
     snr_db: list
     clipped: int
     notes: list
+    ramp_response: np.ndarray = field(default=None, repr=False)
 
 
 def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None = None,
@@ -183,7 +187,11 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
     for shift in design.cyclic_shifts:
         expected[(shift + np.arange(rows.shape[1])) % L] += powers @ rows ** 2
     score = np.real(sp_fft.ifft(sp_fft.fft(pdp_head) * np.conj(sp_fft.fft(expected))))
-    d0 = int(np.argmax(score))
+    # antenna 0's response starts near delay 0 of the windows (find_probe placed them so): search within
+    # +-L / (2 n_tx), which keeps the antennas apart when their responses look alike
+    reach = L // (2 * design.n_tx)
+    candidates = np.arange(-reach, reach) % L
+    d0 = int(candidates[np.argmax(score[candidates])])
 
     def residual(delta):
         a = _design_matrix(rows, design.cyclic_shifts, d0 + delta, signed, L)
@@ -197,6 +205,7 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
     a = _design_matrix(rows, design.cyclic_shifts, offset, signed, L)
     pinv_t = np.linalg.pinv(a).T  # (K, n_tx * n_taps)
     gram_inverse = np.linalg.inv(a.conj().T @ a)
+    ramp = _ramp_response(a, pinv_t, design, bins, x0)
     energy_head = float(np.sum(np.abs(head) ** 2))
     residual_fraction = residual(float(found.x)) / energy_head if energy_head > 0 else math.nan
 
@@ -249,7 +258,7 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
         notes.append(f"{capture.clipped} I/Q values at the int16 full scale in the ci16 capture (clipped: "
                      "lower the capture level)")
     return Estimate(gains, times, rate / L, noise_variance, noise_delay, np.roll(pdp, -int(round(offset)), axis=1),
-                    offset, s0 + offset - (design.preamble_samples if seen else 0), s0, psr_db, residual_fraction, snr, capture.clipped, notes)
+                    offset, s0 + offset - (design.preamble_samples if seen else 0), s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp)
 
 
 def find_probe(capture: Capture, design, span: int) -> tuple[int, float, bool]:
@@ -284,10 +293,18 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, bool]:
     folded = pro[: rows * L].reshape(rows, L).sum(axis=0) + pre[: rows * L].reshape(rows, L).sum(axis=0)
     width = min(span + 1, L)
     smoothed = np.convolve(np.concatenate([folded, folded[: width - 1]]), np.ones(width), "valid")[:L]
-    phase = int(np.argmax(smoothed))  # where the channel's response begins (modulo L)
+    # where antenna 0's response begins (modulo L): the sum over the antennas' shifts peaks at any of them;
+    # the preamble (antenna 0 alone) picks antenna 0's
+    combined = sum(np.roll(smoothed, -shift) for shift in design.cyclic_shifts)
+    phase = int(np.argmax(combined))
+    if design.n_tx > 1:
+        pre_folded = pre[: rows * L].reshape(rows, L).sum(axis=0)
+        pre_smoothed = np.convolve(np.concatenate([pre_folded, pre_folded[: width - 1]]), np.ones(width), "valid")[:L]
+        phase = max(((phase + shift) % L for shift in design.cyclic_shifts), key=lambda p: pre_smoothed[p])
     inside = np.zeros(L, bool)
     margin = max(2, design.guard_samples // 2)  # the band-limited response's own sidelobes stay inside
-    inside[(phase + np.arange(-margin, width + margin)) % L] = True
+    for shift in design.cyclic_shifts:  # every transmitter's response, L / n_tx apart
+        inside[(phase + shift + np.arange(-margin, width + margin)) % L] = True
     peak = float(np.max(folded[inside]))
     side = float(np.max(folded[~inside])) if (~inside).any() else 0.0
     psr = math.inf if side <= 0 else 10 * math.log10(peak / side)
@@ -308,6 +325,23 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, bool]:
     while run_end + 1 < score.size and score[run_end + 1] > -0.1:
         run_end += 1
     return int(starts[min(run_end + 1, starts.size - 1)]), psr, True
+
+
+def _ramp_response(a, pinv_t, design, bins, x0):
+    """C with g_hat = mean gain + C x slope, for gains changing linearly over the period (slope per sample).
+
+    The estimate of a period is not only the channel's mean over it: a gain
+    that changes within the period leaks into the other taps (as Doppler does
+    between subcarriers). For gains linear in time the leak is linear in the
+    slopes: column j of C is the estimate of a unit ramp (n - (L - 1) / 2) on
+    model column j alone, the probe through it computed exactly.
+    """
+    L = design.period_samples
+    full = np.zeros((a.shape[1], L), np.complex128)
+    full[:, bins] = (a * x0[:, None]).T  # the received period of each column's static response
+    responses = sp_fft.ifft(full, axis=-1) * (np.arange(L) - (L - 1) / 2.0)
+    z = sp_fft.fft(responses, axis=-1)[:, bins] / x0
+    return z @ pinv_t  # (columns, columns): row j = the estimate of column j's ramp; transpose applies it
 
 
 def _design_matrix(rows, shifts, offset, signed, L):

@@ -82,6 +82,15 @@ class _Integral:
             return self.c[m] + u / self.rate * self.g[m]
         return self.c[m] + (u * self.g[m] + 0.5 * u ** 2 * (self.g[m + 1] - self.g[m])) / self.rate
 
+    def value(self, t):
+        n = self.g.shape[0]
+        x = np.clip(np.asarray(t, float) * self.rate, 0.0, n - 1.0)
+        m = np.minimum(np.floor(x).astype(int), n - (1 if self.mode == "hold" else 2))
+        if self.mode == "hold":
+            return self.g[m]
+        u = (x - m)[(...,) + (None,) * (self.g.ndim - 1)]
+        return self.g[m] + u * (self.g[m + 1] - self.g[m])
+
     def mean(self, t0, t1):
         return (self.at(t1) - self.at(t0)) / (np.asarray(t1) - np.asarray(t0))[(...,) + (None,) * (self.g.ndim - 1)]
 
@@ -139,39 +148,71 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
     integral = _Integral(loaded.reshape(loaded.shape[0], -1), rate_u, mode)
     offset, rho_env = _coarse_offset(g_hat, t, loaded.reshape(loaded.shape[0], -1), rate_u)
 
+    ramp = estimate.ramp_response
+    period = design.period_samples
+    links = n_rx
+
     def expected_at(shift, source=integral):
-        return source.mean(t - half + shift, t + half + shift)
+        """What the estimator gives for the loaded gains: their mean over each period plus the leak of their slope."""
+        mean = source.mean(t - half + shift, t + half + shift)
+        if ramp is None:
+            return mean
+        slope = (source.value(t + half + shift) - source.value(t - half + shift)) / period
+        leak = (slope.reshape(n, links, -1) @ ramp).reshape(n, -1)
+        return mean + leak
 
     if cfo_hz is not None:
         g_hat = g_hat * np.exp(-2j * np.pi * cfo_hz * t)[:, None]
-    grid = offset + np.linspace(-2.0, 2.0, 41) / rate_u
-    scores = []
-    for shift in grid:
-        z = np.sum(g_hat * np.conj(expected_at(shift)), axis=1)
-        scores.append(_line_peak(z, estimate.rate_hz)[0] if cfo_hz is None else abs(np.sum(z)))
-    best = int(np.argmax(scores))
-    offset = grid[best] + _parabola(scores, best) * (grid[1] - grid[0])
-    expected = expected_at(offset)
-    z = np.sum(g_hat * np.conj(expected), axis=1)
-    df = 0.0 if cfo_hz is not None else _line_peak(z, estimate.rate_hz)[1]
-    g_hat = g_hat * np.exp(-2j * np.pi * df * t)[:, None]
-    energy = np.sum(np.abs(expected) ** 2, axis=0)
-    a = np.sum(g_hat * np.conj(expected), axis=0) / np.where(energy > 0, energy, np.inf)
-    rho = np.abs(np.sum(g_hat * np.conj(expected), axis=0)) / np.sqrt(
-        np.maximum(np.sum(np.abs(g_hat) ** 2, axis=0) * energy, 1e-300))
-    follows = rho > UNCORRELATED
-    magnitude = float(np.median(np.abs(a[follows] if follows.any() else a)))
-    phase = np.angle(np.sum(a * energy))
-    gain = magnitude * np.exp(1j * phase) if magnitude > 0 else 1.0
-    reference = gain * expected
     sigma2 = estimate.noise_variance.reshape(-1)
-    ref_energy = np.maximum(np.sum(np.abs(reference) ** 2, axis=0), 1e-300)
-    ne = np.sum(np.abs(g_hat - reference) ** 2, axis=0) / ref_energy
     alpha = false_alarm / g_hat.shape[1]
-    noise_mean = n * sigma2 / ref_energy
-    noise_bound = sigma2 * stats.chi2.ppf(1.0 - alpha, 2 * n) / 2.0 / ref_energy
     limit = 10.0 ** (limit_db / 10.0)
-    passed = ne <= noise_bound + limit
+    quantile = stats.chi2.ppf(1.0 - alpha, 2 * n) / 2.0
+
+    def fit(source):
+        """Offset, frequency offset and common gain for one hypothesis of the update behaviour; the errors."""
+        def products(shift):
+            """g_hat conj(e) per tap, weighted so that sum |.|^2 is the likelihood of a free gain per tap:
+            |<g, e>|^2 / (||e||^2 sigma^2) (a tap that does not follow adds about 1, one that does ~ n P / sigma^2)."""
+            e = expected_at(shift, source)
+            weight = 1.0 / np.sqrt(np.maximum(np.sum(np.abs(e) ** 2, axis=0) * sigma2, 1e-300))
+            return g_hat * np.conj(e) * weight
+
+        def score(shift):
+            z = products(shift)
+            return _line_peak(z, estimate.rate_hz)[0] if cfo_hz is None else float(np.sum(np.abs(np.sum(z, 0)) ** 2))
+
+        grid = offset + np.linspace(-2.0, 2.0, 41) / rate_u
+        scores = [score(shift) for shift in grid]
+        best = int(np.argmax(scores))
+        found = optimize.minimize_scalar(lambda shift: -score(shift), method="bounded",
+                                         bounds=(grid[max(best - 1, 0)], grid[min(best + 1, grid.size - 1)]),
+                                         options={"xatol": 1e-3 / rate_u})
+        shift = float(found.x)
+        expected = expected_at(shift, source)
+        df = 0.0 if cfo_hz is not None else _line_peak(products(shift), estimate.rate_hz)[1]
+        g = g_hat * np.exp(-2j * np.pi * df * t)[:, None]
+        energy = np.sum(np.abs(expected) ** 2, axis=0)
+        product = np.sum(g * np.conj(expected), axis=0)
+        a = product / np.where(energy > 0, energy, np.inf)
+        rho = np.abs(product) / np.sqrt(np.maximum(np.sum(np.abs(g) ** 2, axis=0) * energy, 1e-300))
+        follows = rho > UNCORRELATED
+        magnitude = float(np.median(np.abs(a[follows] if follows.any() else a)))
+        gain = magnitude * np.exp(1j * np.angle(np.sum(a * energy))) if magnitude > 0 else 1.0
+        reference = gain * expected
+        ref_energy = np.maximum(np.sum(np.abs(reference) ** 2, axis=0), 1e-300)
+        ne = np.sum(np.abs(g - reference) ** 2, axis=0) / ref_energy
+        bound = sigma2 * quantile / ref_energy + limit
+        return {"offset": shift, "df": df, "g": g, "expected": expected, "a": a, "rho": rho, "follows": follows,
+                "gain": gain, "reference": reference, "ref_energy": ref_energy, "ne": ne, "tolerance": bound,
+                "passed": ne <= bound}
+
+    nominal = fit(integral)
+    offset, df, g_hat, expected, a, rho, follows, gain, reference, ref_energy, ne = (
+        nominal[k] for k in ("offset", "df", "g", "expected", "a", "rho", "follows", "gain", "reference",
+                             "ref_energy", "ne"))
+    noise_mean = n * sigma2 / ref_energy
+    noise_bound = sigma2 * quantile / ref_energy
+    passed = nominal["passed"]
     checks, per_tap = [], []
     for col in range(g_hat.shape[1]):
         rx, tx, tap = np.unravel_index(col, (n_rx, n_tx, n_taps))
@@ -198,11 +239,11 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
     if not judgement.passed:
         judgement.faults = _name_faults(
             g_hat, reference, ne, noise_bound + limit, a / gain if gain else a, rho, follows, (n_rx, n_tx, n_taps),
-            lambda source: gain * expected_at(offset, source), loaded.reshape(loaded.shape[0], -1), rate_u, mode)
+            fit, loaded.reshape(loaded.shape[0], -1), rate_u, mode)
     return judgement
 
 
-def _name_faults(g_hat, reference, ne, tolerance, relative, rho, follows, shape, expected_with, loaded, rate_u, mode):
+def _name_faults(g_hat, reference, ne, tolerance, relative, rho, follows, shape, fit, loaded, rate_u, mode):
     n_rx, n_tx, n_taps = shape
     failing = set(np.flatnonzero(ne > tolerance).tolist())
     faults = []
@@ -210,13 +251,10 @@ def _name_faults(g_hat, reference, ne, tolerance, relative, rho, follows, shape,
         return [{"fault": "unfollowed", "taps": sorted(failing),
                  "text": "no tap follows its loaded gains (|correlation| <= "
                          f"{UNCORRELATED:g} everywhere): a wrong bundle or a Doppler error"}]
-    # alternative update behaviour: every tap passes under it
+    # alternative update behaviour (alignment, offset and gain fitted again): every tap passes under it
     for alt_mode, factor in ((mode, 2), ("hold" if mode == "linear" else "linear", 1),
                              ("hold" if mode == "linear" else "linear", 2)):
-        source = _Integral(loaded[::factor], rate_u / factor, alt_mode)
-        alt = expected_with(source)
-        alt_ne = np.sum(np.abs(g_hat - alt) ** 2, axis=0) / np.maximum(np.sum(np.abs(alt) ** 2, axis=0), 1e-300)
-        if np.all(alt_ne <= tolerance):
+        if np.all(fit(_Integral(loaded[::factor], rate_u / factor, alt_mode))["passed"]):
             what = (f"coefficients updated at half the rate ({rate_u / 2:g} Hz, {alt_mode} between updates)"
                     if factor == 2 else f"{alt_mode} between updates instead of {mode}")
             return [{"fault": "update_rate" if factor == 2 else "interpolation", "taps": sorted(failing),
@@ -293,9 +331,9 @@ def _coarse_offset(g_hat, t, loaded, rate_u):
 
 
 def _line_peak(z, rate_hz):
-    """(|sum z exp(-j 2 pi f t)| at its largest, f) over |f| < rate / 2, interpolated between FFT bins."""
-    size = sp_fft.next_fast_len(8 * z.size)
-    spectrum = np.abs(sp_fft.fft(z, size))
+    """(sum over columns of |sum_t z exp(-j 2 pi f t)|^2 at its largest, f), |f| < rate / 2, between FFT bins."""
+    size = sp_fft.next_fast_len(8 * z.shape[0])
+    spectrum = np.sum(np.abs(sp_fft.fft(z, size, axis=0)) ** 2, axis=1)
     k = int(np.argmax(spectrum))
     shift = _parabola(spectrum, k)
     f = (k + shift) * rate_hz / size

@@ -50,15 +50,15 @@ class MeasureResult:
     def summary(self) -> str:
         r = self.record
         est = r["estimate"]
-        lines = [f"probe found at sample {est['probe_start_sample']} (peak-to-sidelobe {est['psr_db']:.1f} dB); "
+        lines = [f"probe found at sample {est['probe_start_sample']} (peak-to-sidelobe {_f(est['psr_db'], '.1f')} dB); "
                  f"{est['n_periods']} periods at {est['repetition_rate_hz']:g} Hz; SNR "
-                 + ", ".join("n/a" if s is None else f"{s:.1f} dB" for s in est["snr_db"])
-                 + f"; delay offset {est['offset_samples']:.2f} samples"]
+                 + ", ".join(f"{_f(s, '.1f')} dB" for s in est["snr_db"])
+                 + f"; delay offset {_f(est['offset_samples'], '.2f')} samples"]
         if r.get("bundle"):
             b = r["bundle"]
             within = "below the noise" if b["within_db"] is None else f"{b['within_db']:.1f} dB"
-            lines.append(f"bundle: offset {b['bundle_offset_s']:.6f} s, frequency offset {b['cfo_hz']:.3f} Hz"
-                         f"{' (estimated)' if b['cfo_estimated'] else ''}, gain {b['gain_db']:.2f} dB; "
+            lines.append(f"bundle: offset {_f(b['bundle_offset_s'], '.6f')} s, frequency offset {_f(b['cfo_hz'], '.3f')} Hz"
+                         f"{' (estimated)' if b['cfo_estimated'] else ''}, gain {_f(b['gain_db'], '.2f')} dB; "
                          f"error beyond noise {within} (limit {b['limit_db']:g} dB, {b['between_updates']}): "
                          + ("pass" if b["passed"] else "FAIL"))
         p = r.get("profile")
@@ -68,10 +68,16 @@ class MeasureResult:
                          f"{p['periods_averaged']} period(s) averaged)")
         if r.get("doppler_scale") is not None:
             lines.append(f"measured Doppler scale {r['doppler_scale']:.3f} x the profile's")
+        if r.get("residual_drift_hz") is not None:
+            lines.append(f"residual frequency drift {r['residual_drift_hz']:.3f} Hz (shared reference assumed)")
         for fault in self.faults:
             lines.append(f"fault: {fault['text']}")
         lines.append(f"verdict: {self.status}")
         return "\n".join(lines)
+
+
+def _f(value, spec) -> str:
+    return "n/a" if value is None else format(value, spec)
 
 
 def measure_capture(capture, probe, *, bundle=None, profile=None, outdir=None, report_file=None,
@@ -125,8 +131,9 @@ def measure_capture(capture, probe, *, bundle=None, profile=None, outdir=None, r
                                            cfo_hz=cfo_hz, false_alarm=false_alarm,
                                            limit_db=judge.DEFAULT_LIMIT_DB if limit_db is None else limit_db)
     drift = None
-    gain = None if bundle_result is None else bundle_result.gain
-    residual_cfo = 0.0 if bundle_result is None else bundle_result.cfo_hz - (cfo_hz or 0.0)
+    followed = bundle_result is not None and not any(f["fault"] == "unfollowed" for f in bundle_result.faults)
+    gain = bundle_result.gain if followed else None  # else the taps' power sets the scale
+    residual_cfo = bundle_result.cfo_hz - (cfo_hz or 0.0) if followed else 0.0
     record_gains, record_rate, record_noise, factor, _ = judge.profile_record(estimate, loaded, gain=gain,
                                                                               cfo_hz=residual_cfo)
     if bundle_result is None:
