@@ -18,11 +18,11 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from emucompile.apply import apply_channel
 from emucompile.bundle import open_bundle
 from emucompile.cli import cli
 from emucompile.compiler import compile_profile
 from emucompile.loop import probe as pr
+from emucompile.loop import software
 from emucompile.loop.estimate import NoProbe
 from emucompile.loop.measure import measure_capture
 
@@ -67,21 +67,9 @@ def lab(tmp_path_factory):
             "design": files.design}
 
 
-def play(design, bundle, path, *, gains=None, between="linear", snr_db=30.0, bulk=3, cfo_hz=3.0,
-         gain=0.5 * np.exp(0.7j), seed=5):
-    """The emulator: the probe through the bundle (or changed gains), then delay, offset, gain and noise."""
-    opened = open_bundle(bundle)
-    g = opened.tap_gains if gains is None else gains
-    y = apply_channel(design.waveform(), g, opened.fir_map, update_rate_hz=opened.manifest["update_rate_hz"],
-                      sample_rate_hz=RATE, between_updates=between)
-    y = np.concatenate([np.zeros((bulk, y.shape[1]), y.dtype), y])
-    n = np.arange(y.shape[0])
-    y = y * gain * np.exp(2j * np.pi * cfo_hz * n / RATE)[:, None]
-    rng = np.random.default_rng(seed)
-    power = np.mean(np.abs(y) ** 2)
-    sigma = math.sqrt(power / 10 ** (snr_db / 10) / 2)
-    y = (y + sigma * (rng.standard_normal(y.shape) + 1j * rng.standard_normal(y.shape))).astype(np.complex64)
-    np.save(path, y)
+def play(design, bundle, path, **changes):
+    """The emulator in software (:func:`emucompile.loop.software.play`), its capture saved as npy."""
+    np.save(path, software.play(design, bundle, **changes))
     return path
 
 

@@ -33,6 +33,7 @@ from scipy import fft as sp_fft
 from scipy import optimize
 
 from emucompile.errors import InputError
+from emucompile.loop.probe import PREAMBLE_PERIODS
 
 BLOCK_SAMPLES = 1 << 20
 """Samples per processing block (whole periods; about 8 MiB of complex64 per receive antenna)."""
@@ -154,7 +155,8 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
     if n < design.preamble_samples + 4 * L:
         raise InputError(f"{capture.paths[0]}: not enough data: {n} samples hold fewer than the preamble and "
                          f"3 probe periods ({design.preamble_samples + 4 * L} samples)")
-    s0, psr_db, seen = find_probe(capture, design, source.span_samples)
+    s0, psr_db, preamble_start = find_probe(capture, design, source.span_samples)
+    seen = preamble_start is not None
     first = s0 + L  # one whole period after the first probe period: a cyclic prefix and a margin
     n_est = (n - first) // L
     if seen:
@@ -258,11 +260,11 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
         notes.append(f"{capture.clipped} I/Q values at the int16 full scale in the ci16 capture (clipped: "
                      "lower the capture level)")
     return Estimate(gains, times, rate / L, noise_variance, noise_delay, np.roll(pdp, -int(round(offset)), axis=1),
-                    offset, s0 + offset - (design.preamble_samples if seen else 0), s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp)
+                    offset, (preamble_start if seen else s0) + ((s0 + offset - (preamble_start if seen else s0)) % L + L / 2) % L - L / 2, s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp)
 
 
-def find_probe(capture: Capture, design, span: int) -> tuple[int, float, bool]:
-    """Where the probe's periods start: (sample, peak-to-sidelobe ratio in dB, preamble seen).
+def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | None]:
+    """Where the probe's periods start: (sample, peak-to-sidelobe ratio in dB, the preamble's first period or None).
 
     Fading-robust: the capture is correlated with one period of the preamble's
     root and one of the probe's; the sum of both powers folded modulo L (over
@@ -293,16 +295,11 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, bool]:
     folded = pro[: rows * L].reshape(rows, L).sum(axis=0) + pre[: rows * L].reshape(rows, L).sum(axis=0)
     width = min(span + 1, L)
     smoothed = np.convolve(np.concatenate([folded, folded[: width - 1]]), np.ones(width), "valid")[:L]
-    # where antenna 0's response begins (modulo L): the sum over the antennas' shifts peaks at any of them;
-    # the preamble (antenna 0 alone) picks antenna 0's
+    # where the responses begin (modulo L): the sum over the antennas' shifts peaks at any antenna's
     combined = sum(np.roll(smoothed, -shift) for shift in design.cyclic_shifts)
     phase = int(np.argmax(combined))
-    if design.n_tx > 1:
-        pre_folded = pre[: rows * L].reshape(rows, L).sum(axis=0)
-        pre_smoothed = np.convolve(np.concatenate([pre_folded, pre_folded[: width - 1]]), np.ones(width), "valid")[:L]
-        phase = max(((phase + shift) % L for shift in design.cyclic_shifts), key=lambda p: pre_smoothed[p])
     inside = np.zeros(L, bool)
-    margin = max(2, design.guard_samples // 2)  # the band-limited response's own sidelobes stay inside
+    margin = max(2, design.guard_samples // 4)  # the band-limited response's own sidelobes stay inside
     for shift in design.cyclic_shifts:  # every transmitter's response, L / n_tx apart
         inside[(phase + shift + np.arange(-margin, width + margin)) % L] = True
     peak = float(np.max(folded[inside]))
@@ -312,19 +309,25 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, bool]:
         raise NoProbe(f"{capture.paths[0]}: no probe found in the first {window / design.sample_rate_hz:.4g} s: "
                       f"the probe's correlation peak stands {psr:.1f} dB above its largest sidelobe "
                       f"(at least {MIN_PSR_DB:g} dB needed); wrong probe, wrong rate, or no signal")
-    starts = phase + L * np.arange((usable - phase - L) // L + 1)
-    lags = starts[:, None] + np.arange(L)[None]
-    # the right root concentrates a period's correlation energy within the channel's span, the other spreads it
-    concentration = [np.sum(power[lags[:, :width]], axis=1) / np.maximum(np.sum(power[lags], axis=1), 1e-300)
-                     for power in (pre, pro)]
-    score = concentration[0] - concentration[1]
-    is_pre = np.flatnonzero(score > 0.1)
+    # per period, the share of the preamble root's correlation energy within one response's span: about 1 in a
+    # preamble period (antenna 0 alone sends it; the share does not depend on the channel's gain), about
+    # width / L in a probe period (the other root spreads it); the preamble also tells antenna 0's phase
+    best = None
+    for candidate in sorted({(phase + shift) % L for shift in design.cyclic_shifts}):
+        starts = candidate + L * np.arange((usable - candidate - L) // L + 1)
+        lags = starts[:, None] + np.arange(L)[None]
+        share = np.sum(pre[lags[:, :width]], axis=1) / np.maximum(np.sum(pre[lags], axis=1), 1e-300)
+        if best is None or share.max() > best[1].max():
+            best = (starts, share)
+    starts, share = best
+    threshold = (1.0 + width / L) / 2.0
+    is_pre = np.flatnonzero(share > threshold)
     if is_pre.size == 0:
-        return int(starts[0]), psr, False
-    run_end = is_pre[0]
-    while run_end + 1 < score.size and score[run_end + 1] > -0.1:
-        run_end += 1
-    return int(starts[min(run_end + 1, starts.size - 1)]), psr, True
+        return int(starts[0]), psr, None
+    # the preamble's last period: the last one above the threshold within a preamble's length of the first
+    # (a period in a fade may dip below it)
+    run_end = int(is_pre[is_pre <= is_pre[0] + PREAMBLE_PERIODS].max())
+    return int(starts[min(run_end + 1, starts.size - 1)]), psr, int(starts[is_pre[0]])
 
 
 def _ramp_response(a, pinv_t, design, bins, x0):
