@@ -45,6 +45,8 @@ ALIGN_PERIODS = 64
 NOISE_PERIODS = 2048
 """At most this many periods (evenly spread) feed the noise estimate: one inverse DFT each."""
 CI16_FULL_SCALE = 32767
+STEP_TABLE_ELEMENTS = 1 << 21
+"""The step-response table (positions x columns^2) stays below this many complex numbers (32 MiB)."""
 
 
 class NoProbe(InputError):
@@ -143,6 +145,8 @@ class Estimate:
     clipped: int
     notes: list
     ramp_response: np.ndarray = field(default=None, repr=False)
+    step_response: np.ndarray = field(default=None, repr=False)
+    step_samples: np.ndarray = field(default=None, repr=False)
 
 
 def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None = None,
@@ -207,7 +211,7 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
     a = _design_matrix(rows, design.cyclic_shifts, offset, signed, L)
     pinv_t = np.linalg.pinv(a).T  # (K, n_tx * n_taps)
     gram_inverse = np.linalg.inv(a.conj().T @ a)
-    ramp = _ramp_response(a, pinv_t, design, bins, x0)
+    ramp, steps, step_samples = _time_response(a, pinv_t, design, bins, x0)
     energy_head = float(np.sum(np.abs(head) ** 2))
     residual_fraction = residual(float(found.x)) / energy_head if energy_head > 0 else math.nan
 
@@ -218,10 +222,11 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
         raise InputError("the probe's period leaves no delay bins outside the channel's support for the noise estimate")
     # noise: the residual of the tap model in the delay bins outside every support; white noise of
     # variance sigma_Z^2 per occupied bin leaves sigma_Z^2 (||M||^2 - ||M Q||^2) there (M the inverse DFT's
-    # rows of those bins, Q an orthonormal basis of the model's columns, which the fit removes)
-    outside_rows = np.exp(2j * np.pi * np.outer(np.flatnonzero(~support), bins) / L) / L
+    # rows of those bins, ||M||^2 = |outside| K / L^2; Q an orthonormal basis of the model's columns, which
+    # the fit removes: M Q by inverse DFTs of Q's columns)
     basis, _ = np.linalg.qr(a)
-    outside_factor = float(np.sum(np.abs(outside_rows) ** 2) - np.sum(np.abs(outside_rows @ basis) ** 2))
+    outside_factor = float(np.count_nonzero(~support) * bins.size / L ** 2
+                           - np.sum(np.abs(_delay_domain(basis.T, bins, L)[:, ~support]) ** 2))
     n_taps = rows.shape[0]
     gains = np.empty((n_est, capture.n_rx, design.n_tx, n_taps), np.complex128)
     noise_sum = np.zeros(capture.n_rx)
@@ -238,7 +243,7 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
         if pick.size:
             chosen = z[pick]
             fitted = (chosen @ pinv_t) @ a.T
-            noise_sum += np.sum(np.abs((chosen - fitted) @ outside_rows.T) ** 2, axis=(0, 2))
+            noise_sum += np.sum(np.abs(_delay_domain(chosen - fitted, bins, L)[..., ~support]) ** 2, axis=(0, 2))
             noise_count += pick.size
             pdp += np.sum(np.abs(_delay_domain(chosen, bins, L)) ** 2, axis=0)
             pdp_count += pick.size
@@ -260,7 +265,7 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
         notes.append(f"{capture.clipped} I/Q values at the int16 full scale in the ci16 capture (clipped: "
                      "lower the capture level)")
     return Estimate(gains, times, rate / L, noise_variance, noise_delay, np.roll(pdp, -int(round(offset)), axis=1),
-                    offset, (preamble_start if seen else s0) + ((s0 + offset - (preamble_start if seen else s0)) % L + L / 2) % L - L / 2, s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp)
+                    offset, (preamble_start if seen else s0) + ((s0 + offset - (preamble_start if seen else s0)) % L + L / 2) % L - L / 2, s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp, steps, step_samples)
 
 
 def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | None]:
@@ -330,21 +335,37 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | N
     return int(starts[min(run_end + 1, starts.size - 1)]), psr, int(starts[is_pre[0]])
 
 
-def _ramp_response(a, pinv_t, design, bins, x0):
-    """C with g_hat = mean gain + C x slope, for gains changing linearly over the period (slope per sample).
+def _time_response(a, pinv_t, design, bins, x0):
+    """How the estimate weighs the gain at each sample of the period, and what that gives for ramps and steps.
 
-    The estimate of a period is not only the channel's mean over it: a gain
-    that changes within the period leaks into the other taps (as Doppler does
-    between subcarriers). For gains linear in time the leak is linear in the
-    slopes: column j of C is the estimate of a unit ramp (n - (L - 1) / 2) on
-    model column j alone, the probe through it computed exactly.
+    A gain that changes within the period leaks into the other taps (as
+    Doppler does between subcarriers). The estimate is linear in the gains
+    h_n at the period's samples n: g_hat_i = sum_n sum_j h_n[j] r_j[n] q_i[n],
+    r_j the period of column j's static response (the probe through it), q_i
+    the inverse-DFT weights of output i (one FFT each). Returned: ``ramp``
+    (columns x columns), the estimate of a unit ramp n - (L - 1) / 2 on each
+    column (row j: column j's ramp), and ``steps`` (G, columns, columns): row j
+    of ``steps[s]`` the estimate of a unit step on column j from sample
+    ``step_samples[s]`` on (sum_{n >= tau} of the weights), on a grid of G
+    positions bounded in memory.
     """
     L = design.period_samples
     full = np.zeros((a.shape[1], L), np.complex128)
     full[:, bins] = (a * x0[:, None]).T  # the received period of each column's static response
-    responses = sp_fft.ifft(full, axis=-1) * (np.arange(L) - (L - 1) / 2.0)
-    z = sp_fft.fft(responses, axis=-1)[:, bins] / x0
-    return z @ pinv_t  # (columns, columns): row j = the estimate of column j's ramp; transpose applies it
+    r = sp_fft.ifft(full, axis=-1)
+    weights = np.zeros((a.shape[1], L), np.complex128)
+    weights[:, bins] = pinv_t.T / x0
+    q = sp_fft.fft(weights, axis=-1)  # g_hat_i = sum_k P[i, k] FFT(y)[k] / x0[k] = sum_n y[n] q_i[n]
+    centred = np.arange(L) - (L - 1) / 2.0
+    ramp = (r * centred) @ q.T
+    cols = a.shape[1]
+    grid = int(min(L, max(2, STEP_TABLE_ELEMENTS // max(1, cols * cols))))
+    taus = np.unique(np.round(np.linspace(0, L, grid + 1)[:-1]).astype(int))
+    steps = np.empty((taus.size, cols, cols), np.complex128)
+    for j in range(cols):  # sum over n >= tau of r_j[n] q_i[n], one column at a time (bounded memory)
+        tail = np.cumsum((r[j] * q)[:, ::-1], axis=-1)[:, ::-1]
+        steps[:, j, :] = tail[:, taus].T
+    return ramp, steps, taus
 
 
 def _design_matrix(rows, shifts, offset, signed, L):

@@ -152,14 +152,33 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
     period = design.period_samples
     links = n_rx
 
+    steps, step_samples = estimate.step_response, estimate.step_samples
+    sample_rate = design.sample_rate_hz
+
     def expected_at(shift, source=integral):
-        """What the estimator gives for the loaded gains: their mean over each period plus the leak of their slope."""
-        mean = source.mean(t - half + shift, t + half + shift)
+        """What the estimator gives for the loaded gains over each period (estimate.py, _time_response):
+        linear between updates, their mean plus the leak of their slope; held, the value at the period's start
+        plus the estimate of each step inside it."""
+        start, stop = t - half + shift, t + half + shift
+        if source.mode == "hold" and steps is not None:
+            out = source.value(start).reshape(n, links, -1).copy()
+            first = np.ceil(np.clip(start, 0.0, None) * source.rate).astype(int)
+            for k in range(int(math.ceil(period / sample_rate * source.rate)) + 1):
+                index = first + k
+                inside = (index / source.rate < stop) & (index > 0) & (index < source.g.shape[0])
+                if not inside.any():
+                    continue
+                rows = np.flatnonzero(inside)
+                tau = (index[rows] / source.rate - start[rows]) * sample_rate
+                position = np.clip(np.searchsorted(step_samples, tau), 0, step_samples.size - 1)
+                delta = (source.g[index[rows]] - source.g[index[rows] - 1]).reshape(rows.size, links, -1)
+                out[rows] += np.einsum("rlj,rji->rli", delta, steps[position])
+            return out.reshape(n, -1)
+        mean = source.mean(start, stop)
         if ramp is None:
             return mean
-        slope = (source.value(t + half + shift) - source.value(t - half + shift)) / period
-        leak = (slope.reshape(n, links, -1) @ ramp).reshape(n, -1)
-        return mean + leak
+        slope = (source.value(stop) - source.value(start)) / period
+        return mean + (slope.reshape(n, links, -1) @ ramp).reshape(n, -1)
 
     if cfo_hz is not None:
         g_hat = g_hat * np.exp(-2j * np.pi * cfo_hz * t)[:, None]

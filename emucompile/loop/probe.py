@@ -19,7 +19,9 @@ Design (every number is in the JSON description, ``PROBE.probe.json``):
   estimate: L >= n_tx (span + guard), rounded up to an FFT-friendly length.
 * **Repetition rate.** f_s / L must be at least 2 x the largest Doppler times
   :data:`DOPPLER_MARGIN` (sampling the time variation: Molisch, *Wireless
-  Communications*, 2nd ed., §8.2); a channel with tau_max 2 nu_max >= 1 (an
+  Communications*, 2nd ed., §8.2); where the delays allow, L is lengthened
+  until the rate is about :data:`TARGET_RATE_DOPPLER` x the Doppler (more
+  energy per estimate, fewer estimates). A channel with tau_max 2 nu_max >= 1 (an
   overspread channel) cannot be sounded by any such probe, and one whose
   delay needs a period too long for its Doppler cannot be sounded at this
   rate and antenna count: both are refused (exit 2) with the reason.
@@ -70,6 +72,9 @@ MIN_PERIOD_SAMPLES = 64
 MIN_ZC_LENGTH = 7
 PREAMBLE_PERIODS = 8
 """Periods of the preamble root before the probe (antenna 0 only)."""
+TARGET_RATE_DOPPLER = 64.0
+"""The period is lengthened (never shortened) until the repetition rate is about this many times the largest
+Doppler: far above the sampling condition, and the estimate's leak within a period stays small."""
 DEFAULT_DOPPLER_PERIODS = 200.0
 """Default duration: this many periods of the largest Doppler (4x the statistical checks' 50)."""
 DEFAULT_STATIC_DURATION_S = 1.0
@@ -261,6 +266,8 @@ def design_probe(source: ChannelSource, *, duration_s: float | None = None, band
     guard = max(MIN_GUARD_SAMPLES, int(math.ceil(GUARD_FRACTION * span)))
     need = n_tx * (span + guard)
     period = max(MIN_PERIOD_SAMPLES, need)
+    if nu > 0:  # no faster than needed: a longer period has more energy per estimate and fewer estimates
+        period = max(period, int(rate / (TARGET_RATE_DOPPLER * nu)))
     period = sp_fft.next_fast_len(period)
     while period % n_tx:
         period = sp_fft.next_fast_len(period + 1)
