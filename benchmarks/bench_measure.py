@@ -1,8 +1,10 @@
 """Speed and memory of ``measure``: a capture at 30.72 MHz against reading it plus one FFT pass, same run.
 
 An invented six-tap scenario (delays to 2.5 us, f_D = 100 Hz) is compiled at
-30.72 MHz; its probe is written and played through the bundle by ``apply``
-(file to file, 30 dB SNR) into a raw cf32 capture of ``--seconds`` seconds.
+30.72 MHz; its probe is written and sent through the bundle's channel frozen
+at t = 0 (``--capture static``, the default: quick to make; measure's work does
+not depend on the channel's values) or through the bundle by ``apply``
+(``--capture apply``), 30 dB SNR, into a raw cf32 capture of ``--seconds`` seconds.
 Then, alternately for ``--rounds`` rounds: the baseline (read the capture in
 blocks and FFT it in blocks of one probe period: the least any analysis of
 it must do) and :func:`emucompile.loop.measure.measure_capture` against the
@@ -57,10 +59,42 @@ def baseline(path: Path, period: int, block: int) -> float:
     return time.perf_counter() - began
 
 
+def static_capture(design, bundle, path: Path) -> None:
+    """The probe through the bundle's channel frozen at t = 0, with 30 dB of noise, written in blocks.
+
+    A periodic input through a fixed FIR gives a periodic output: one period of
+    it, tiled, is the whole probe part. measure does the same work whatever the
+    channel's values (its verdict on this capture is a fail: the gains do not move).
+    """
+    from emucompile.bundle import open_bundle
+
+    opened = open_bundle(bundle)
+    fir = np.asarray(opened.tap_gains[0, 0, 0]) @ np.asarray(opened.fir_map)
+    L = design.period_samples
+    x = design.waveform()[:, 0]
+    head = np.convolve(x[: design.preamble_samples + 2 * L], fir)[: design.preamble_samples + 2 * L]
+    period = head[design.preamble_samples + L: design.preamble_samples + 2 * L]
+    rng = np.random.default_rng(1)
+    sigma = np.sqrt(np.mean(np.abs(period) ** 2) / 1e3 / 2)
+    with open(path, "wb") as handle:
+        handle.write(head[: design.preamble_samples + L].astype("<c8").tobytes())
+        remaining = design.n_periods - 1
+        per_block = max(1, (1 << 22) // L)
+        while remaining > 0:
+            count = min(per_block, remaining)
+            block = np.tile(period, count)
+            block = block + sigma * (rng.standard_normal(block.size) + 1j * rng.standard_normal(block.size))
+            handle.write(block.astype("<c8").tobytes())
+            remaining -= count
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seconds", type=float, default=10.0)
     parser.add_argument("--rounds", type=int, default=3)
+    parser.add_argument("--capture", choices=["static", "apply"], default="static",
+                        help="static: the channel frozen at t = 0, tiled (fast to make); apply: the bundle through "
+                             "emucompile apply (realistic, slow to make at 30.72 MHz)")
     parser.add_argument("--keep", metavar="DIR", help="work in DIR (kept) instead of a temporary directory")
     args = parser.parse_args(argv)
 
@@ -82,7 +116,10 @@ def main(argv=None):
                             force=True)
         capture = work / "capture.cf32"
         began = time.perf_counter()
-        apply_bundle(bundle, files.data_paths[0], capture, snr_db=30.0, seed=1, sample_rate_hz=RATE, force=True)
+        if args.capture == "apply":
+            apply_bundle(bundle, files.data_paths[0], capture, snr_db=30.0, seed=1, sample_rate_hz=RATE, force=True)
+        else:
+            static_capture(files.design, bundle, capture)
         print(f"capture: {capture.stat().st_size / 2**30:.2f} GiB ({args.seconds:g} s at {RATE / 1e6:g} MHz), "
               f"made in {time.perf_counter() - began:.1f} s; probe period {files.design.period_samples} samples")
         base_times, measure_times, peaks = [], [], []
