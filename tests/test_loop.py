@@ -145,6 +145,7 @@ def test_correct_emulator_passes(lab):
     assert record["estimate"]["arrival_sample"] == pytest.approx(3.0, abs=0.1)  # the bulk delay
     assert record["bundle"]["cfo_hz"] == pytest.approx(3.0, abs=0.05)
     assert record["bundle"]["gain_db"] == pytest.approx(-6.02, abs=0.1)
+    assert np.all(np.abs(np.array(record["estimate"]["tap_delay_error_s"]) * RATE) < 0.05)
     applicable = [c for c in record["profile"]["checks"] if c["passed"] is not None]
     assert {c["name"].split(" [")[0] for c in applicable} >= {"mean_power", "envelope_ks", "autocorrelation",
                                                             "doppler_psd", "level_crossing_rate"}
@@ -156,6 +157,25 @@ def test_correct_emulator_passes(lab):
 
     verification = verify_gains(lab["dir"] / "m-good" / "gains.npy", lab["profile"], record["profile"]["record_rate_hz"])
     assert verification.checks
+
+
+def test_a_tap_at_the_wrong_delay_is_measured(lab):
+    """The emulator puts tap 1 half a sample (2.5 us) late: its delay error is measured, the others' are ~0."""
+    from emucompile import grid
+
+    opened = open_bundle(lab["bundle"])
+    profile = opened.manifest["taps"]
+    delays = [t["delay_s"] for t in profile]
+    powers = [10 ** (t["power_db"] / 10) for t in profile]
+    right = grid.fir_map(delays, powers, RATE)
+    late = grid.fir_map([d + (0.5 / RATE if i == 1 else 0.0) for i, d in enumerate(delays)], powers, RATE)
+    assert late.bulk_delay_samples == right.bulk_delay_samples
+    capture = play(lab["design"], lab["bundle"], lab["dir"] / "late.npy", fir_matrix=late.matrix)
+    result = measure_capture(capture, lab["probe"], bundle=lab["bundle"])
+    errors = np.array(result.record["estimate"]["tap_delay_error_s"]) * RATE
+    assert errors[1] == pytest.approx(0.5, abs=0.05)
+    assert np.all(np.abs(errors[[0, 2]]) < 0.05)
+    assert result.status == "fail"
 
 
 def _faulty(lab, name, **changes):

@@ -42,6 +42,7 @@ MIN_PSR_DB = 10.0
 SEARCH_PERIODS = 16
 MAX_SEARCH_SAMPLES = 1 << 22
 ALIGN_PERIODS = 64
+ALIGN_CANDIDATES = 16
 NOISE_PERIODS = 2048
 """At most this many periods (evenly spread) feed the noise estimate: one inverse DFT each."""
 CI16_FULL_SCALE = 32767
@@ -147,6 +148,7 @@ class Estimate:
     ramp_response: np.ndarray = field(default=None, repr=False)
     step_response: np.ndarray = field(default=None, repr=False)
     step_samples: np.ndarray = field(default=None, repr=False)
+    tap_delay_errors_s: list = field(default_factory=list)
 
 
 def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None = None,
@@ -197,23 +199,32 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
     # +-L / (2 n_tx), which keeps the antennas apart when their responses look alike
     reach = L // (2 * design.n_tx)
     candidates = np.arange(-reach, reach) % L
-    d0 = int(candidates[np.argmax(score[candidates])])
 
-    def residual(delta):
-        a = _design_matrix(rows, design.cyclic_shifts, d0 + delta, signed, L)
+    def misfit(shift):
+        a = _design_matrix(rows, design.cyclic_shifts, shift, signed, L)
         fit = head @ np.linalg.pinv(a).T @ a.T
         return float(np.sum(np.abs(head - fit) ** 2))
+
+    # the delay profile's correlation is broad (fading weighs the taps unevenly over a few periods): its best
+    # few shifts are shortlisted and the least-squares misfit decides
+    shortlist = candidates[np.argsort(score[candidates])[::-1][:ALIGN_CANDIDATES]]
+    d0 = int(min(shortlist, key=misfit))
+
+    def residual(delta):
+        return misfit(d0 + delta)
 
     found = optimize.minimize_scalar(residual, bounds=(-1.0, 1.0), method="bounded", options={"xatol": 1e-3})
     offset = d0 + float(found.x)
     if offset >= L / 2:
         offset -= L
+    # a tap at the wrong delay pulls the common fit: each tap's delay fitted, the common offset their median
+    delay_errors, offset = _tap_delay_errors(head, rows, design, offset, signed, L, source.profile)
     a = _design_matrix(rows, design.cyclic_shifts, offset, signed, L)
     pinv_t = np.linalg.pinv(a).T  # (K, n_tx * n_taps)
     gram_inverse = np.linalg.inv(a.conj().T @ a)
     ramp, steps, step_samples = _time_response(a, pinv_t, design, bins, x0)
     energy_head = float(np.sum(np.abs(head) ** 2))
-    residual_fraction = residual(float(found.x)) / energy_head if energy_head > 0 else math.nan
+    residual_fraction = residual(offset - d0) / energy_head if energy_head > 0 else math.nan
 
     support = np.zeros(L, bool)
     for shift in design.cyclic_shifts:
@@ -265,7 +276,8 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
         notes.append(f"{capture.clipped} I/Q values at the int16 full scale in the ci16 capture (clipped: "
                      "lower the capture level)")
     return Estimate(gains, times, rate / L, noise_variance, noise_delay, np.roll(pdp, -int(round(offset)), axis=1),
-                    offset, (preamble_start if seen else s0) + ((s0 + offset - (preamble_start if seen else s0)) % L + L / 2) % L - L / 2, s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp, steps, step_samples)
+                    offset, (preamble_start if seen else s0) + ((s0 + offset - (preamble_start if seen else s0)) % L + L / 2) % L - L / 2, s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp, steps, step_samples,
+                    delay_errors)
 
 
 def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | None]:
@@ -333,6 +345,44 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | N
     # (a period in a fade may dip below it)
     run_end = int(is_pre[is_pre <= is_pre[0] + PREAMBLE_PERIODS].max())
     return int(starts[min(run_end + 1, starts.size - 1)]), psr, int(starts[is_pre[0]])
+
+
+def _tap_delay_errors(head, rows, design, offset, signed, L, profile, sweeps: int = 2):
+    """Per tap, the shift of its FIR row (samples, within +-1) that best fits the first periods; the common offset.
+
+    Coordinate descent on the least-squares misfit over the alignment
+    periods: each tap's shift in turn with the others' kept, ``sweeps`` times;
+    after each sweep the common offset takes the median shift (the taps that
+    sit where they should). Returns (shifts in seconds, None for a tap of zero
+    power; the common offset in samples).
+    """
+    n = np.arange(rows.shape[1])
+    spectra = rows @ np.exp(-2j * np.pi * np.outer(n, signed) / L)  # (n_taps, K)
+    k = rows.shape[0]
+    shifts = np.zeros(k)
+    active = [tap for tap in range(k) if profile.taps[tap].power_linear > 0] if len(profile.taps) == k else list(range(k))
+
+    def misfit(values, common):
+        base = spectra * np.exp(-2j * np.pi * np.outer(values, signed) / L)
+        a = np.concatenate([base * np.exp(-2j * np.pi * signed * (shift + common) / L)
+                            for shift in design.cyclic_shifts], axis=0).T
+        fit = head @ np.linalg.pinv(a).T @ a.T
+        return float(np.sum(np.abs(head - fit) ** 2))
+
+    for _ in range(sweeps):
+        for tap in active:
+            def one(delta, tap=tap):
+                values = shifts.copy()
+                values[tap] = delta
+                return misfit(values, offset)
+
+            shifts[tap] = optimize.minimize_scalar(one, bounds=(-1.0, 1.0), method="bounded",
+                                                   options={"xatol": 1e-3}).x
+        centre = float(np.median(shifts[active])) if active else 0.0
+        offset += centre
+        shifts -= centre
+    seconds = [float(shifts[tap]) / design.sample_rate_hz if tap in active else None for tap in range(k)]
+    return seconds, offset
 
 
 def _time_response(a, pinv_t, design, bins, x0):

@@ -53,7 +53,8 @@ class MeasureResult:
         lines = [f"probe found at sample {est['probe_start_sample']} (peak-to-sidelobe {_f(est['psr_db'], '.1f')} dB); "
                  f"{est['n_periods']} periods at {est['repetition_rate_hz']:g} Hz; SNR "
                  + ", ".join(f"{_f(s, '.1f')} dB" for s in est["snr_db"])
-                 + f"; delay offset {_f(est['offset_samples'], '.2f')} samples"]
+                 + f"; delay offset {_f(est['offset_samples'], '.2f')} samples; tap delay errors "
+                 + ", ".join("n/a" if d is None else f"{d * 1e9:+.1f} ns" for d in est["tap_delay_error_s"])]
         if r.get("bundle"):
             b = r["bundle"]
             within = "below the noise" if b["within_db"] is None else f"{b['within_db']:.1f} dB"
@@ -194,7 +195,7 @@ def measure_capture(capture, probe, *, bundle=None, profile=None, outdir=None, r
             "n_periods": int(estimate.gains.shape[0]), "repetition_rate_hz": float(estimate.rate_hz),
             "snr_db": estimate.snr_db, "noise_variance": estimate.noise_variance.tolist(),
             "model_residual_fraction": _finite(estimate.residual_fraction), "clipped_values": int(estimate.clipped),
-            "cfo_hz_given": cfo_hz,
+            "cfo_hz_given": cfo_hz, "tap_delay_error_s": estimate.tap_delay_errors_s,
         },
         "bundle": None if bundle_result is None else bundle_result.to_dict(),
         "residual_drift_hz": drift,

@@ -14,16 +14,16 @@ import math
 import numpy as np
 
 
-def play(design, bundle, *, gains=None, between="linear", snr_db=30.0, bulk=3, cfo_hz=3.0,
+def play(design, bundle, *, gains=None, fir_matrix=None, between="linear", snr_db=30.0, bulk=3, cfo_hz=3.0,
          gain=0.5 * np.exp(0.7j), seed=5) -> np.ndarray:
-    """The capture, (n, n_rx) complex64; ``gains`` replaces the bundle's (same shape) to play a fault."""
+    """The capture, (n, n_rx) complex64; ``gains`` or ``fir_matrix`` replace the bundle's to play a fault."""
     from emucompile.apply import apply_channel
     from emucompile.bundle import open_bundle
 
     opened = open_bundle(bundle)
     rate = design.sample_rate_hz
     g = opened.tap_gains if gains is None else gains
-    y = apply_channel(design.waveform(), g, opened.fir_map, update_rate_hz=opened.manifest["update_rate_hz"],
+    y = apply_channel(design.waveform(), g, opened.fir_map if fir_matrix is None else fir_matrix, update_rate_hz=opened.manifest["update_rate_hz"],
                       sample_rate_hz=rate, between_updates=between)
     y = np.concatenate([np.zeros((bulk, y.shape[1]), y.dtype), y])
     n = np.arange(y.shape[0])
