@@ -491,6 +491,8 @@ def measure(capture, probe_file, bundle, profile, outdir, report_file, as_json, 
     """
     import json
 
+    if "numpy" not in sys.modules:  # as for verify: many small products; BLAS threads only contend
+        os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     from emucompile.errors import CheckFailed, InputError
     from emucompile.loop.measure import measure_capture
 

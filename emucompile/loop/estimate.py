@@ -40,7 +40,9 @@ BLOCK_SAMPLES = 1 << 20
 MIN_PSR_DB = 10.0
 """A preamble peak must stand this far above the largest correlation outside the channel's span."""
 SEARCH_PERIODS = 16
-MAX_SEARCH_SAMPLES = 1 << 22
+SEARCH_SAMPLES = 1 << 20
+"""The probe is looked for in windows of this many samples (or a preamble and 16 periods), in turn."""
+MAX_SEARCH_SAMPLES = 1 << 26
 ALIGN_PERIODS = 64
 ALIGN_CANDIDATES = 16
 NOISE_PERIODS = 2048
@@ -201,9 +203,7 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
     candidates = np.arange(-reach, reach) % L
 
     def misfit(shift):
-        a = _design_matrix(rows, design.cyclic_shifts, shift, signed, L)
-        fit = head @ np.linalg.pinv(a).T @ a.T
-        return float(np.sum(np.abs(head - fit) ** 2))
+        return _misfit(head, _design_matrix(rows, design.cyclic_shifts, shift, signed, L))
 
     # the delay profile's correlation is broad (fading weighs the taps unevenly over a few periods): its best
     # few shifts are shortlisted and the least-squares misfit decides
@@ -295,8 +295,31 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | N
     period is taken and the caller says so.
     """
     L = design.period_samples
-    window = min(capture.n_samples, max(MAX_SEARCH_SAMPLES, design.preamble_samples + SEARCH_PERIODS * L))
-    y = capture.read(0, window).astype(np.complex128)
+    size = max(SEARCH_SAMPLES, design.preamble_samples + SEARCH_PERIODS * L)
+    start, last = 0, None
+    while True:  # windows of the capture in turn (overlapping by a preamble), up to MAX_SEARCH_SAMPLES
+        window = min(capture.n_samples - start, size)
+        try:
+            found = _find_in_window(capture, design, span, start, window)
+        except NoProbe as error:
+            last = error
+            found = None
+        if found is not None and found[0] + 3 * L <= start + window:
+            return found
+        step = size - design.preamble_samples - 2 * L
+        if found is not None:  # the probe begins at the window's end: look again from its preamble
+            step = max(L, (found[2] if found[2] is not None else found[0]) - L - start)
+        start += step
+        if start + 3 * L > min(capture.n_samples, MAX_SEARCH_SAMPLES):
+            if found is not None:
+                return found
+            raise last
+
+
+def _find_in_window(capture, design, span, start, window):
+    """find_probe on capture samples start .. start + window - 1 (indices returned in capture samples)."""
+    L = design.period_samples
+    y = capture.read(start, start + window).astype(np.complex64)
     usable = window - L + 1
     if usable < 2 * L:
         raise NoProbe(f"{capture.paths[0]}: no probe found: the capture holds fewer than 3 probe periods")
@@ -304,7 +327,7 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | N
     spectrum = sp_fft.fft(y, size, axis=0)
     powers = []
     for reference in (design.preamble_period(), design.period(0)):
-        kernel = np.conj(sp_fft.fft(reference, size))  # corr[n] = sum_m conj(p[m]) y[n + m]
+        kernel = np.conj(sp_fft.fft(reference.astype(np.complex64), size))  # corr[n] = sum_m conj(p[m]) y[n + m]
         corr = sp_fft.ifft(spectrum * kernel[:, None], axis=0)[:usable]
         powers.append(np.sum(np.abs(corr) ** 2, axis=1))
     pre, pro = powers
@@ -323,7 +346,7 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | N
     side = float(np.max(folded[~inside])) if (~inside).any() else 0.0
     psr = math.inf if side <= 0 else 10 * math.log10(peak / side)
     if not psr >= MIN_PSR_DB:
-        raise NoProbe(f"{capture.paths[0]}: no probe found in the first {window / design.sample_rate_hz:.4g} s: "
+        raise NoProbe(f"{capture.paths[0]}: no probe found (searched up to {(start + window) / design.sample_rate_hz:.4g} s): "
                       f"the probe's correlation peak stands {psr:.1f} dB above its largest sidelobe "
                       f"(at least {MIN_PSR_DB:g} dB needed); wrong probe, wrong rate, or no signal")
     # per period, the share of the preamble root's correlation energy within one response's span: about 1 in a
@@ -340,11 +363,11 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | N
     threshold = (1.0 + width / L) / 2.0
     is_pre = np.flatnonzero(share > threshold)
     if is_pre.size == 0:
-        return int(starts[0]), psr, None
+        return start + int(starts[0]), psr, None
     # the preamble's last period: the last one above the threshold within a preamble's length of the first
     # (a period in a fade may dip below it)
     run_end = int(is_pre[is_pre <= is_pre[0] + PREAMBLE_PERIODS].max())
-    return int(starts[min(run_end + 1, starts.size - 1)]), psr, int(starts[is_pre[0]])
+    return start + int(starts[min(run_end + 1, starts.size - 1)]), psr, start + int(starts[is_pre[0]])
 
 
 def _tap_delay_errors(head, rows, design, offset, signed, L, profile, sweeps: int = 2):
@@ -366,8 +389,7 @@ def _tap_delay_errors(head, rows, design, offset, signed, L, profile, sweeps: in
         base = spectra * np.exp(-2j * np.pi * np.outer(values, signed) / L)
         a = np.concatenate([base * np.exp(-2j * np.pi * signed * (shift + common) / L)
                             for shift in design.cyclic_shifts], axis=0).T
-        fit = head @ np.linalg.pinv(a).T @ a.T
-        return float(np.sum(np.abs(head - fit) ** 2))
+        return _misfit(head, a)
 
     for _ in range(sweeps):
         for tap in active:
@@ -416,6 +438,14 @@ def _time_response(a, pinv_t, design, bins, x0):
         tail = np.cumsum((r[j] * q)[:, ::-1], axis=-1)[:, ::-1]
         steps[:, j, :] = tail[:, taus].T
     return ramp, steps, taus
+
+
+def _misfit(z, a) -> float:
+    """sum ||z_p - A pinv(A) z_p||^2 = ||z||^2 - sum_p b_p^H (A^H A)^-1 b_p, b_p = A^H z_p (no K x K product)."""
+    b = z @ a.conj()  # (..., columns): b_p^T
+    gram = a.conj().T @ a
+    solved = np.linalg.solve(gram, b.reshape(-1, b.shape[-1]).T)
+    return float(np.sum(np.abs(z) ** 2) - np.real(np.sum(b.reshape(-1, b.shape[-1]).conj().T * solved)))
 
 
 def _design_matrix(rows, shifts, offset, signed, L):
