@@ -112,8 +112,9 @@ def _figures(result, design, source):
         axes = figure.add_subplot()
         rows = b.per_tap
         x = np.arange(len(rows))
-        axes.bar(x, [r["normalised_error_db"] if r["normalised_error_db"] is not None else -80 for r in rows],
-                 bottom=0, color=["#4a4" if r["passed"] else "#c33" for r in rows], label="error")
+        errors = [r["normalised_error_db"] if r["normalised_error_db"] is not None else -80 for r in rows]
+        axes.scatter(x, errors, c=["#292" if r["passed"] else "#c22" for r in rows], zorder=3, label="error")
+        axes.plot(x, [r["noise_explains_db"] for r in rows], "x", color="grey", label="noise explains")
         axes.plot(x, [r["tolerance_db"] for r in rows], "k_", markersize=20, label="tolerance")
         axes.set_xticks(x, [f"{r['tap']}" + ("" if len(rows) == len(set(r['tap'] for r in rows)) else
                                              f"\nrx{r['rx']}tx{r['tx']}") for r in rows], fontsize=7)
