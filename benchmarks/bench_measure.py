@@ -27,8 +27,8 @@ from pathlib import Path
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the measure command sets it (BLAS threads only contend)
 
-import numpy as np  # noqa: E402
-from scipy import fft as sp_fft  # noqa: E402
+import numpy as np
+from scipy import fft as sp_fft
 
 RATE = 30.72e6
 PROFILE = """# Invented six-tap scenario for the measure benchmark (not a measurement).

@@ -26,12 +26,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 
-from test_loop import MIMO, PROFILE, RATE, _bundle  # noqa: E402  (the scenarios the tests use)
+from test_loop import MIMO, PROFILE, RATE, _bundle
 
-from emucompile.bundle import open_bundle  # noqa: E402
-from emucompile.loop import probe as pr  # noqa: E402
-from emucompile.loop import software  # noqa: E402
-from emucompile.loop.measure import measure_capture  # noqa: E402
+from emucompile.bundle import open_bundle
+from emucompile.loop import probe as pr
+from emucompile.loop import software
+from emucompile.loop.measure import measure_capture
 
 
 def _case(directory, design, probe, bundle, against, name, expect, **changes):
@@ -41,7 +41,11 @@ def _case(directory, design, probe, bundle, against, name, expect, **changes):
     faults = [f["fault"] for f in result.faults]
     right = result.status == "pass" if expect is None else (result.status == "fail" and faults == [expect])
     capture.unlink()
+    SCALES.setdefault(name, []).append(result.record["doppler_scale"])
     return right, result.status, faults
+
+
+SCALES = {}
 
 
 def run_seed(seed: int, root: Path) -> list:
@@ -97,6 +101,11 @@ def main(argv=None):
         print(f"{case:<18} {right} / {runs}")
     for seed, case, status, faults in misses:
         print(f"miss: seed {seed} {case}: {status} {faults}")
+    for name in ("correct", "other", "fast"):
+        values = np.array([v for v in SCALES.get(name, []) if v is not None])
+        if values.size:
+            print(f"measured Doppler scale, {name}: mean {values.mean():.4f}, std {values.std(ddof=1) if values.size > 1 else 0:.4f}, "
+                  f"min {values.min():.4f}, max {values.max():.4f}")
 
 
 if __name__ == "__main__":

@@ -18,4 +18,4 @@ from __future__ import annotations
 from emucompile.loop.estimate import estimate_channel, open_capture
 from emucompile.loop.probe import ProbeDesign, design_probe, load_probe, write_probe
 
-__all__ = ["ProbeDesign", "design_probe", "load_probe", "write_probe", "estimate_channel", "open_capture"]
+__all__ = ["ProbeDesign", "design_probe", "estimate_channel", "load_probe", "open_capture", "write_probe"]

@@ -220,7 +220,7 @@ class ProbeDesign:
         }
 
     @classmethod
-    def from_dict(cls, document: dict) -> "ProbeDesign":
+    def from_dict(cls, document: dict) -> ProbeDesign:
         seq = document["sequence"]
         return cls(float(document["sample_rate_hz"]), float(document["bandwidth_hz"]),
                    int(document["period_samples"]), int(document["n_periods"]), int(document["n_tx"]),
@@ -359,7 +359,7 @@ def write_probe(output, sample_rate_hz: float, *, bundle=None, profile=None, dur
     description = design.to_dict()
     description.update(
         tool_version=__version__,
-        created_utc=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        created_utc=_dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
         file={"format": output_format, "name": data_path.name, "datatype": datatype, "channels": design.n_tx,
               "sha256": hashlib.sha256(data).hexdigest(), "size_bytes": len(data),
               "scale": scale, "mean_power": 1.0 if scale is None else float(scale) ** 2},
@@ -476,7 +476,7 @@ def _positive(value, what) -> float:
 def _is_prime(n: int) -> bool:
     if n < 2:
         return False
-    return all(n % d for d in range(2, int(math.isqrt(n)) + 1))
+    return all(n % d for d in range(2, math.isqrt(n) + 1))
 
 
 def _largest_prime_at_most(n: int) -> int:
