@@ -46,6 +46,7 @@ def _case(directory, design, probe, bundle, against, name, expect, **changes):
 
 
 SCALES = {}
+ONLY = False
 
 
 def run_seed(seed: int, root: Path) -> list:
@@ -60,9 +61,12 @@ def run_seed(seed: int, root: Path) -> list:
     missing[..., 2] = 0
     swapped[..., [0, 1]] = swapped[..., [1, 0]]
     half[1::2] = gains[0:-1:2][: half[1::2].shape[0]]
+    common = {"seed": seed}
+    if ONLY:
+        return [("taps swapped", *_case(directory, design, probe, bundle, bundle, "swapped", "swapped", gains=swapped,
+                                        **common))]
     other, _ = _bundle(directory, PROFILE.format(fd=100), seed + 1000, "other")
     fast, _ = _bundle(directory, PROFILE.format(fd=110), seed, "fast")
-    common = {"seed": seed}
     out = [
         ("correct", *_case(directory, design, probe, bundle, bundle, "correct", None, **common)),
         ("tap 3 dB low", *_case(directory, design, probe, bundle, bundle, "low", "power", gains=low, **common)),
@@ -84,7 +88,10 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seeds", type=int, default=20)
     parser.add_argument("--first", type=int, default=1)
+    parser.add_argument("--only-swapped", action="store_true", help="run only the swapped-taps case")
     args = parser.parse_args(argv)
+    global ONLY
+    ONLY = args.only_swapped
     counts = collections.defaultdict(lambda: [0, 0])
     misses = []
     began = time.perf_counter()
