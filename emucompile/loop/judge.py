@@ -199,9 +199,13 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
             weight = 1.0 / np.sqrt(np.maximum(np.sum(np.abs(e) ** 2, axis=0) * sigma2, 1e-300))
             return g_hat * np.conj(e) * weight
 
+        # the frequency offset by one line search at the coarse offset, the offset then at that frequency
+        # (one FFT per fit, not one per trial offset), the frequency once more at the offset found
+        rotation = np.ones(n) if cfo_hz is not None else np.exp(
+            -2j * np.pi * _line_peak(products(offset), estimate.rate_hz)[1] * t)
+
         def score(shift):
-            z = products(shift)
-            return _line_peak(z, estimate.rate_hz)[0] if cfo_hz is None else float(np.sum(np.abs(np.sum(z, 0)) ** 2))
+            return float(np.sum(np.abs(rotation @ products(shift)) ** 2))
 
         grid = offset + np.linspace(-2.0, 2.0, 41) / rate_u
         scores = [score(shift) for shift in grid]
