@@ -74,6 +74,10 @@ _API = {
     "validate_files": "emucompile.validation",
     "compile_findings": "emucompile.rules",
     "write_profile_card": "emucompile.card",
+    # the closed loop
+    "write_probe": "emucompile.loop.probe",
+    "load_probe": "emucompile.loop.probe",
+    "measure_capture": "emucompile.loop.measure",
 }
 
 

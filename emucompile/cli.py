@@ -574,6 +574,82 @@ def _apply_json(result):
     }, indent=2, allow_nan=False))
 
 
+# -- closed loop: probe / measure -----------------------------------------------------
+
+
+@cli.command(epilog="\b\nExamples:\n  emucompile probe -o lab/probe --sample-rate 30.72e6 --bundle out/robot\n"
+             "  emucompile probe -o lab/probe --sample-rate 30.72e6 --profile p.yaml --format ci16 --duration 20")
+@click.option("-o", "--output", required=True, metavar="PROBE", help="Base name: PROBE.probe.json and the data file(s).")
+@click.option("--sample-rate", "sample_rate_hz", required=True, type=float, metavar="HZ", help="The generator's sample rate.")
+@click.option("--bundle", metavar="B", help="The bundle the emulator will run.")
+@click.option("--profile", metavar="P", help="Or the profile it follows.")
+@click.option("--duration", "duration_s", type=float, metavar="S", help="Default: the bundle's length, or 200 / f_D.")
+@click.option("--format", "output_format", type=click.Choice(["sigmf", "cf32", "ci16"]), default="sigmf", show_default=True)
+@click.option("--bandwidth", "bandwidth_hz", type=float, metavar="HZ", help="Occupied bandwidth (default 0.8 x the rate).")
+@click.option("--transmitters", "n_tx", type=int, metavar="N", help="Transmit antennas (default: the profile's).")
+@click.option("--force", is_flag=True, help="Replace existing files.")
+def probe(output, sample_rate_hz, bundle, profile, duration_s, output_format, bandwidth_hz, n_tx, force):
+    """Write a channel-sounding probe (Zadoff-Chu, periodic) for the signal generator.
+
+    Refuses (exit 2) a channel that cannot be sounded: tau_max 2 nu_max >= 1,
+    or a period the delays need that repeats too slowly for the Doppler.
+    """
+    from emucompile.loop.probe import write_probe
+
+    files = write_probe(output, sample_rate_hz, bundle=bundle, profile=profile, duration_s=duration_s,
+                        output_format=output_format, bandwidth_hz=bandwidth_hz, n_tx=n_tx, force=force)
+    d = files.design
+    click.echo(f"wrote {', '.join(str(p) for p in files.data_paths)} and {files.description_path}")
+    click.echo(f"  period {d.period_samples} samples ({d.repetition_rate_hz:g} Hz), {d.n_periods} periods after "
+               f"{d.preamble_samples} preamble samples, {d.duration_s:g} s; Zadoff-Chu N={d.zc_length} on "
+               f"{d.occupied_bins} bins ({d.bandwidth_hz / 1e6:g} MHz); {d.n_tx} transmitter(s)")
+
+
+@cli.command(epilog="\b\nExamples:\n  emucompile measure cap.sigmf-meta --probe lab/probe --bundle out/robot -o out/m1\n"
+             "  emucompile measure rx0.cf32 rx1.cf32 --probe lab/probe --profile p.yaml --sample-rate 30.72e6 --json")
+@click.argument("capture", nargs=-1, required=True, metavar="CAPTURE...")
+@click.option("--probe", "probe_file", required=True, metavar="PROBE", help="The probe's description (PROBE.probe.json).")
+@click.option("--bundle", metavar="B", help="Judge against the loaded bundle (and its profile).")
+@click.option("--profile", metavar="P", help="Or against a profile only.")
+@click.option("-o", "--output", "outdir", metavar="OUTDIR", help="Write gains.npy, measurement.json and report.html here.")
+@click.option("--report", "report_file", metavar="FILE", help="Write the HTML report here.")
+@click.option("--json", "as_json", is_flag=True, help="Print the measurement as strict JSON.")
+@click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ", help="Rate of a raw capture (must be the probe's).")
+@click.option("--cfo-hz", type=float, metavar="HZ", help="A known frequency offset to remove.")
+@click.option("--between-updates", type=click.Choice(["linear", "hold"]), help="The emulator's gains between updates.")
+@click.option("--limit-db", type=float, metavar="DB", help="Error the lab allows beyond the noise (default -30 dB).")
+@click.option("--false-alarm", type=float, default=0.01, show_default=True, metavar="P")
+@click.option("--force", is_flag=True, help="Overwrite an earlier measurement in OUTDIR.")
+def measure(capture, probe_file, bundle, profile, outdir, report_file, as_json, sample_rate_hz, cfo_hz,
+            between_updates, limit_db, false_alarm, force):
+    """Estimate the channel a capture of the emulator's output went through, and judge it.
+
+    Exit 0 when it reproduces the bundle and follows the profile, 1 naming the
+    fault, 2 for bad input (no probe found, another sample rate, not enough data).
+    """
+    import json
+
+    if "numpy" not in sys.modules:  # as for verify: many small products; BLAS threads only contend
+        os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+    from emucompile.errors import CheckFailed, InputError
+    from emucompile.loop.measure import measure_capture
+
+    with _progress(None, "measuring", as_json) as update:
+        result = measure_capture(list(capture), probe_file, bundle=bundle, profile=profile, outdir=outdir,
+                                 report_file=report_file, sample_rate_hz=sample_rate_hz, cfo_hz=cfo_hz,
+                                 between_updates=between_updates, limit_db=limit_db, false_alarm=false_alarm,
+                                 force=force, progress=update)
+    for warning in result.warnings:
+        click.echo(f"emucompile: warning: {warning}", err=True)
+    click.echo(json.dumps(result.record, indent=2, allow_nan=False) if as_json else result.summary())
+    if result.files and not as_json:
+        click.echo("wrote " + ", ".join(str(p) for p in result.files))
+    if result.status == "not enough data":
+        raise InputError(f"{capture[0]}: not enough data for the profile's checks (no verdict): capture longer")
+    if not result.passed:
+        raise CheckFailed(f"{capture[0]}: " + "; ".join(f["text"] for f in result.faults[:4]))
+
+
 class _ProgressBar:
     """A click progress bar on stderr fed by a library callback ``(done, total)``; nothing when quiet."""
 

@@ -366,7 +366,8 @@ def _verify_intact(root, began, *, false_alarm, delivered, progress, workers):
 
 
 def verify_gains(gains_file, profile, update_rate_hz: float, *, false_alarm: float = DEFAULT_FALSE_ALARM,
-                 periodic: bool = False, progress=None, workers: int | None = None) -> Verification:
+                 periodic: bool = False, progress=None, workers: int | None = None, models: dict | None = None,
+                 cautions: list | None = None) -> Verification:
     """Check foreign tap gains (npy or cf32, columns = taps in profile order) against a profile.
 
     Parameters
@@ -379,6 +380,12 @@ def verify_gains(gains_file, profile, update_rate_hz: float, *, false_alarm: flo
         The profile the gains claim to follow.
     update_rate_hz : float
         Rate of the gain samples.
+    models : dict, optional
+        Tap index -> :class:`emucompile.tolerance.TapModel` replacing the
+        profile's (estimated gains: the theory with the estimation noise in it).
+    cautions : list of str, optional
+        Replace the generic caution on measured gains (for a caller that
+        models the estimation noise and says how).
 
     Notes
     -----
@@ -394,8 +401,9 @@ def verify_gains(gains_file, profile, update_rate_hz: float, *, false_alarm: flo
     rate = _positive_rate(update_rate_hz)
     gains = _read_foreign(Path(gains_file), loaded.n_taps)
     n, n_rx, n_tx, n_taps = gains.shape
-    models = {i: _tap_model_from_profile(tap) for i, tap in enumerate(loaded.taps)}
-    cautions = [MEASURED_GAINS_CAUTION]
+    if models is None:
+        models = {i: _tap_model_from_profile(tap) for i, tap in enumerate(loaded.taps)}
+    cautions = list(cautions or []) or [MEASURED_GAINS_CAUTION]
     session = _Session(
         profile=loaded, models=models, update_rate_hz=rate, n_samples=n, n_rx=n_rx, n_tx=n_tx,
         periodic=periodic, false_alarm=false_alarm, cautions=cautions, progress=progress,

@@ -1,0 +1,462 @@
+"""Channel estimate of a capture of the emulator's output: find the probe, least squares per period, project onto taps.
+
+Per period of L samples (one probe period, after a whole period that serves
+as cyclic prefix), with Y[k] the DFT of the window and X[k] the probe's:
+
+* Z[k] = Y[k] / X[k] on the occupied bins (|X[k]| constant: least squares and
+  periodic cross-correlation are the same estimate), the sum over transmit
+  antennas m of H_m[k] exp(-j 2 pi k s_m / L) (cyclic shift s_m);
+* the model Z = A g + noise with A[k, (m, i)] = F_i[k] exp(-j 2 pi k (s_m + d) / L),
+  F_i the DFT of tap i's row of the band-limited FIR map at the capture's rate
+  (:func:`emucompile.grid.fir_map`) and d the alignment (integer by circular
+  correlation of the power delay profile with the map's expected one, then
+  fractional by least squares); the tap gains g = pinv(A) Z, their noise
+  covariance sigma_Z^2 (A^H A)^-1;
+* sigma_Z^2 from the delay bins outside every antenna's support (the inverse
+  DFT of Z over L bins: white noise of variance sigma_Z^2 per occupied bin
+  gives K sigma_Z^2 / L^2 in every delay bin).
+
+The estimate of a period is, to first order in the time variation over L
+samples, the average of the channel over that period: it stands at the
+period's centre. Memory: a block of :data:`BLOCK_PERIODS` periods at a time
+(plus the estimates themselves).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from scipy import fft as sp_fft
+from scipy import optimize
+
+from emucompile.errors import InputError
+from emucompile.loop.probe import PREAMBLE_PERIODS
+
+BLOCK_SAMPLES = 1 << 20
+"""Samples per processing block (whole periods; about 8 MiB of complex64 per receive antenna)."""
+MIN_PSR_DB = 10.0
+"""A preamble peak must stand this far above the largest correlation outside the channel's span."""
+SEARCH_PERIODS = 16
+SEARCH_SAMPLES = 1 << 20
+"""The probe is looked for in windows of this many samples (or a preamble and 16 periods), in turn."""
+MAX_SEARCH_SAMPLES = 1 << 26
+ALIGN_PERIODS = 64
+ALIGN_CANDIDATES = 16
+NOISE_PERIODS = 2048
+"""At most this many periods (evenly spread) feed the noise estimate: one inverse DFT each."""
+CI16_FULL_SCALE = 32767
+STEP_TABLE_ELEMENTS = 1 << 21
+"""The step-response table (positions x columns^2) stays below this many complex numbers (32 MiB)."""
+
+
+class NoProbe(InputError):
+    """No probe preamble in the capture (exit 2)."""
+
+
+@dataclass
+class Capture:
+    """A capture opened for reading: one or more recordings whose channels are the receive antennas."""
+
+    paths: list
+    recordings: list = field(repr=False)
+    sample_rate_hz: float | None
+    clipped: int = 0
+
+    @property
+    def n_samples(self) -> int:
+        return min(r.n_samples for r in self.recordings)
+
+    @property
+    def n_rx(self) -> int:
+        return sum(r.n_channels for r in self.recordings)
+
+    def read(self, start: int, stop: int) -> np.ndarray:
+        parts = []
+        for recording in self.recordings:
+            parts.append(recording.read(start, stop))
+        return parts[0] if len(parts) == 1 else np.concatenate(parts, axis=1)
+
+
+def open_capture(paths, *, n_rx: int = 1, sample_rate_hz: float | None = None) -> Capture:
+    """Open a capture: SigMF (cf32/cf64/ci16), npy, raw cf32 or raw ci16 (``.ci16``); one file or one per antenna."""
+    from emucompile.apply import Recording, read_recording
+
+    if isinstance(paths, (str, Path)):
+        paths = [paths]
+    paths = [Path(p) for p in paths]
+    recordings = []
+    per_file = n_rx if len(paths) == 1 else 1
+    for path in paths:
+        if path.suffix.lower() == ".ci16":
+            if not path.is_file():
+                raise InputError(f"{path}: no such file")
+            size = path.stat().st_size
+            frame = 4 * per_file
+            if size == 0 or size % frame:
+                raise InputError(f"{path}: {size} bytes is not a whole number of ci16 samples "
+                                 f"({frame} bytes each for {per_file} channel(s))")
+            codes = np.memmap(path, dtype="<i2", mode="r", shape=(size // frame, per_file, 2))
+            recordings.append(Recording(path, "ci16", "ci16_le", codes, data_path=path))
+        else:
+            recordings.append(read_recording(path, n_channels=per_file))
+    clipped = 0
+    for recording in recordings:
+        if recording.datatype == "ci16_le":  # one pass over the codes, in blocks
+            for first in range(0, recording.n_samples, BLOCK_SAMPLES):
+                codes = np.asarray(recording.samples[first:first + BLOCK_SAMPLES])
+                clipped += int(np.count_nonzero((codes >= CI16_FULL_SCALE) | (codes <= -CI16_FULL_SCALE)))
+    rates = {r.sample_rate_hz for r in recordings if r.sample_rate_hz is not None}
+    if len(rates) > 1:
+        raise InputError(f"the capture's files disagree on the sample rate: {sorted(rates)}")
+    rate = rates.pop() if rates else None
+    if sample_rate_hz is not None:
+        if rate is not None and not math.isclose(rate, sample_rate_hz, rel_tol=1e-9):
+            raise InputError(f"--sample-rate {sample_rate_hz:g} Hz, but {paths[0]} says {rate:g} Hz")
+        rate = float(sample_rate_hz)
+    return Capture(paths, recordings, rate, clipped)
+
+
+@dataclass
+class Estimate:
+    """Tap gains estimated from a capture, per probe period, with what they rest on.
+
+    ``gains`` (n, n_rx, n_tx, n_taps) complex128 at ``rate_hz`` (the probe's
+    repetition rate), ``times_s`` the capture time of each period's centre;
+    ``noise_variance`` (n_rx, n_tx, n_taps) the variance of one estimate's
+    noise; ``noise_delay_power`` (n_rx,) sigma_Z^2 K / L^2 per delay bin;
+    ``pdp`` (n_rx, L) the mean |z|^2 per delay bin (delay 0 = the aligned FIR's
+    column 0 of antenna 0); ``offset_samples`` the alignment d;
+    ``arrival_sample`` the capture sample where the preamble's first sample
+    arrives through the FIR map's column 0.
+    """
+
+    gains: np.ndarray
+    times_s: np.ndarray
+    rate_hz: float
+    noise_variance: np.ndarray
+    noise_delay_power: np.ndarray
+    pdp: np.ndarray
+    offset_samples: float
+    arrival_sample: float
+    probe_start: int
+    psr_db: float
+    residual_fraction: float
+    snr_db: list
+    clipped: int
+    notes: list
+    ramp_response: np.ndarray = field(default=None, repr=False)
+    step_response: np.ndarray = field(default=None, repr=False)
+    step_samples: np.ndarray = field(default=None, repr=False)
+    tap_delay_errors_s: list = field(default_factory=list)
+
+
+def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None = None,
+                     progress=None) -> Estimate:
+    """Find the probe in ``capture`` and estimate the tap gains of every period (see the module notes)."""
+    rate = design.sample_rate_hz
+    L = design.period_samples
+    n = capture.n_samples
+    notes = []
+    if n < design.preamble_samples + 4 * L:
+        raise InputError(f"{capture.paths[0]}: not enough data: {n} samples hold fewer than the preamble and "
+                         f"3 probe periods ({design.preamble_samples + 4 * L} samples)")
+    s0, psr_db, preamble_start = find_probe(capture, design, source.span_samples)
+    seen = preamble_start is not None
+    first = s0 + L  # one whole period after the first probe period: a cyclic prefix and a margin
+    n_est = (n - first) // L
+    if seen:
+        n_est = min(n_est, design.n_periods - 3)
+    else:
+        notes.append(f"no preamble seen in the first {min(n, MAX_SEARCH_SAMPLES) / rate:.4g} s: the capture began "
+                     "inside the probe; its periods are taken from the first whole one to the end of the capture")
+    if n_est < 3:
+        raise InputError(f"{capture.paths[0]}: not enough data: {max(0, n_est)} whole probe period(s) after the "
+                         f"probe's start at sample {s0}")
+    bins = design.bins()
+    signed = np.where(bins > L // 2, bins - L, bins).astype(float)
+    x0 = sp_fft.fft(design.period(0))[bins]
+    rotation = None if cfo_hz is None else float(cfo_hz)
+
+    def spectra(p0, count):
+        block = capture.read(first + p0 * L, first + (p0 + count) * L).astype(np.complex64)
+        if rotation:
+            index = first + p0 * L + np.arange(block.shape[0])
+            block = block * np.exp(-2j * np.pi * rotation * index / rate)[:, None].astype(np.complex64)
+        frames = block.reshape(count, L, capture.n_rx).transpose(0, 2, 1)
+        return sp_fft.fft(frames, axis=-1, workers=2)[..., bins] / x0  # (count, n_rx, K)
+
+    # alignment on the first periods: integer by the delay profile, fractional by least squares
+    head = spectra(0, min(ALIGN_PERIODS, n_est))
+    pdp_head = np.mean(np.abs(_delay_domain(head, bins, L)) ** 2, axis=(0, 1))
+    rows = source.fir_matrix
+    powers = np.array([t.power_linear for t in source.profile.taps])
+    expected = np.zeros(L)
+    for shift in design.cyclic_shifts:
+        expected[(shift + np.arange(rows.shape[1])) % L] += powers @ rows ** 2
+    score = np.real(sp_fft.ifft(sp_fft.fft(pdp_head) * np.conj(sp_fft.fft(expected))))
+    # antenna 0's response starts near delay 0 of the windows (find_probe placed them so): search within
+    # +-L / (2 n_tx), which keeps the antennas apart when their responses look alike
+    reach = L // (2 * design.n_tx)
+    candidates = np.arange(-reach, reach) % L
+
+    def misfit(shift):
+        return _misfit(head, _design_matrix(rows, design.cyclic_shifts, shift, signed, L))
+
+    # the delay profile's correlation is broad (fading weighs the taps unevenly over a few periods): its best
+    # few shifts are shortlisted and the least-squares misfit decides
+    shortlist = candidates[np.argsort(score[candidates])[::-1][:ALIGN_CANDIDATES]]
+    d0 = int(min(shortlist, key=misfit))
+
+    def residual(delta):
+        return misfit(d0 + delta)
+
+    found = optimize.minimize_scalar(residual, bounds=(-1.0, 1.0), method="bounded", options={"xatol": 1e-3})
+    offset = d0 + float(found.x)
+    if offset >= L / 2:
+        offset -= L
+    # a tap at the wrong delay pulls the common fit: each tap's delay fitted, the common offset their median
+    delay_errors, offset = _tap_delay_errors(head, rows, design, offset, signed, L, source.profile)
+    a = _design_matrix(rows, design.cyclic_shifts, offset, signed, L)
+    pinv_t = np.linalg.pinv(a).T  # (K, n_tx * n_taps)
+    gram_inverse = np.linalg.inv(a.conj().T @ a)
+    ramp, steps, step_samples = _time_response(a, pinv_t, design, bins, x0)
+    energy_head = float(np.sum(np.abs(head) ** 2))
+    residual_fraction = residual(offset - d0) / energy_head if energy_head > 0 else math.nan
+
+    support = np.zeros(L, bool)
+    for shift in design.cyclic_shifts:
+        support[(int(math.floor(offset)) + shift + np.arange(-2, rows.shape[1] + 3)) % L] = True
+    if support.all():
+        raise InputError("the probe's period leaves no delay bins outside the channel's support for the noise estimate")
+    # noise: the residual of the tap model in the delay bins outside every support; white noise of
+    # variance sigma_Z^2 per occupied bin leaves sigma_Z^2 (||M||^2 - ||M Q||^2) there (M the inverse DFT's
+    # rows of those bins, ||M||^2 = |outside| K / L^2; Q an orthonormal basis of the model's columns, which
+    # the fit removes: M Q by inverse DFTs of Q's columns)
+    basis, _ = np.linalg.qr(a)
+    outside_factor = float(np.count_nonzero(~support) * bins.size / L ** 2
+                           - np.sum(np.abs(_delay_domain(basis.T, bins, L)[:, ~support]) ** 2))
+    n_taps = rows.shape[0]
+    gains = np.empty((n_est, capture.n_rx, design.n_tx, n_taps), np.complex128)
+    noise_sum = np.zeros(capture.n_rx)
+    noise_count = 0
+    pdp = np.zeros((capture.n_rx, L))
+    pdp_count = 0
+    noise_step = max(1, n_est // NOISE_PERIODS)
+    per_block = max(1, BLOCK_SAMPLES // L)
+    for p0 in range(0, n_est, per_block):
+        count = min(per_block, n_est - p0)
+        z = spectra(p0, count)
+        gains[p0:p0 + count] = (z @ pinv_t).reshape(count, capture.n_rx, design.n_tx, n_taps)
+        pick = np.arange((-p0) % noise_step, count, noise_step)
+        if pick.size:
+            chosen = z[pick]
+            fitted = (chosen @ pinv_t) @ a.T
+            noise_sum += np.sum(np.abs(_delay_domain(chosen - fitted, bins, L)[..., ~support]) ** 2, axis=(0, 2))
+            noise_count += pick.size
+            pdp += np.sum(np.abs(_delay_domain(chosen, bins, L)) ** 2, axis=0)
+            pdp_count += pick.size
+        if progress is not None:
+            progress(p0 + count, n_est)
+    sigma_z2 = noise_sum / (max(1, noise_count) * outside_factor)
+    noise_delay = sigma_z2 * bins.size / L ** 2
+    diag = np.real(np.diag(gram_inverse)).reshape(design.n_tx, n_taps)
+    noise_variance = sigma_z2[:, None, None] * diag[None]
+    pdp /= max(1, pdp_count)
+    times = (first + np.arange(n_est) * L + L / 2.0) / rate
+    # output power of the unit-power probe: (1/K) sum_k |H_k|^2 = (L/K) sum_n |h_n|^2 (support, noise removed)
+    signal_power = (np.sum(pdp[:, support], axis=1) - noise_delay * np.count_nonzero(support)) * L / bins.size
+    # noise per capture sample sigma_w^2 = sigma_Z^2 L / K (the probe's DFT has magnitude L / sqrt(K)): SNR over the
+    # whole sample-rate band against the channel's output power for the unit-power probe
+    sigma_w2 = sigma_z2 * L / bins.size
+    snr = [None if not (s > 0 and v > 0) else 10 * math.log10(s / v) for s, v in zip(signal_power, sigma_w2)]
+    if capture.clipped:
+        notes.append(f"{capture.clipped} I/Q values at the int16 full scale in the ci16 capture (clipped: "
+                     "lower the capture level)")
+    return Estimate(gains, times, rate / L, noise_variance, noise_delay, np.roll(pdp, -int(round(offset)), axis=1),
+                    offset, (preamble_start if seen else s0) + ((s0 + offset - (preamble_start if seen else s0)) % L + L / 2) % L - L / 2, s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp, steps, step_samples,
+                    delay_errors)
+
+
+def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | None]:
+    """Where the probe's periods start: (sample, peak-to-sidelobe ratio in dB, the preamble's first period or None).
+
+    Fading-robust: the capture is correlated with one period of the preamble's
+    root and one of the probe's; the sum of both powers folded modulo L (over
+    every period of the search window, summed over the channel's span) peaks
+    at the channel's arrival phase (its peak-to-sidelobe ratio is reported;
+    below :data:`MIN_PSR_DB` there is no probe: :class:`NoProbe`). At that
+    phase each period is classified by the share of the preamble root's
+    power, a ratio that does not depend on the channel's gain: the probe
+    starts after the last period of the first preamble run. When no preamble
+    period is seen (the capture began inside the probe), the first whole
+    period is taken and the caller says so.
+    """
+    L = design.period_samples
+    size = max(SEARCH_SAMPLES, design.preamble_samples + SEARCH_PERIODS * L)
+    start, last = 0, None
+    while True:  # windows of the capture in turn (overlapping by a preamble), up to MAX_SEARCH_SAMPLES
+        window = min(capture.n_samples - start, size)
+        try:
+            found = _find_in_window(capture, design, span, start, window)
+        except NoProbe as error:
+            last = error
+            found = None
+        if found is not None and found[0] + 3 * L <= start + window:
+            return found
+        step = size - design.preamble_samples - 2 * L
+        if found is not None:  # the probe begins at the window's end: look again from its preamble
+            step = max(L, (found[2] if found[2] is not None else found[0]) - L - start)
+        start += step
+        if start + 3 * L > min(capture.n_samples, MAX_SEARCH_SAMPLES):
+            if found is not None:
+                return found
+            raise last
+
+
+def _find_in_window(capture, design, span, start, window):
+    """find_probe on capture samples start .. start + window - 1 (indices returned in capture samples)."""
+    L = design.period_samples
+    y = capture.read(start, start + window).astype(np.complex64)
+    usable = window - L + 1
+    if usable < 2 * L:
+        raise NoProbe(f"{capture.paths[0]}: no probe found: the capture holds fewer than 3 probe periods")
+    size = sp_fft.next_fast_len(window)
+    spectrum = sp_fft.fft(y, size, axis=0)
+    powers = []
+    for reference in (design.preamble_period(), design.period(0)):
+        kernel = np.conj(sp_fft.fft(reference.astype(np.complex64), size))  # corr[n] = sum_m conj(p[m]) y[n + m]
+        corr = sp_fft.ifft(spectrum * kernel[:, None], axis=0)[:usable]
+        powers.append(np.sum(np.abs(corr) ** 2, axis=1))
+    pre, pro = powers
+    rows = usable // L
+    folded = pro[: rows * L].reshape(rows, L).sum(axis=0) + pre[: rows * L].reshape(rows, L).sum(axis=0)
+    width = min(span + 1, L)
+    smoothed = np.convolve(np.concatenate([folded, folded[: width - 1]]), np.ones(width), "valid")[:L]
+    # where the responses begin (modulo L): the sum over the antennas' shifts peaks at any antenna's
+    combined = sum(np.roll(smoothed, -shift) for shift in design.cyclic_shifts)
+    phase = int(np.argmax(combined))
+    inside = np.zeros(L, bool)
+    margin = max(2, design.guard_samples // 4)  # the band-limited response's own sidelobes stay inside
+    for shift in design.cyclic_shifts:  # every transmitter's response, L / n_tx apart
+        inside[(phase + shift + np.arange(-margin, width + margin)) % L] = True
+    peak = float(np.max(folded[inside]))
+    side = float(np.max(folded[~inside])) if (~inside).any() else 0.0
+    psr = math.inf if side <= 0 else 10 * math.log10(peak / side)
+    if not psr >= MIN_PSR_DB:
+        raise NoProbe(f"{capture.paths[0]}: no probe found (searched up to {(start + window) / design.sample_rate_hz:.4g} s): "
+                      f"the probe's correlation peak stands {psr:.1f} dB above its largest sidelobe "
+                      f"(at least {MIN_PSR_DB:g} dB needed); wrong probe, wrong rate, or no signal")
+    # per period, the share of the preamble root's correlation energy within one response's span: about 1 in a
+    # preamble period (antenna 0 alone sends it; the share does not depend on the channel's gain), about
+    # width / L in a probe period (the other root spreads it); the preamble also tells antenna 0's phase
+    best = None
+    for candidate in sorted({(phase + shift) % L for shift in design.cyclic_shifts}):
+        starts = candidate + L * np.arange((usable - candidate - L) // L + 1)
+        lags = starts[:, None] + np.arange(L)[None]
+        share = np.sum(pre[lags[:, :width]], axis=1) / np.maximum(np.sum(pre[lags], axis=1), 1e-300)
+        if best is None or share.max() > best[1].max():
+            best = (starts, share)
+    starts, share = best
+    threshold = (1.0 + width / L) / 2.0
+    is_pre = np.flatnonzero(share > threshold)
+    if is_pre.size == 0:
+        return start + int(starts[0]), psr, None
+    # the preamble's last period: the last one above the threshold within a preamble's length of the first
+    # (a period in a fade may dip below it)
+    run_end = int(is_pre[is_pre <= is_pre[0] + PREAMBLE_PERIODS].max())
+    return start + int(starts[min(run_end + 1, starts.size - 1)]), psr, start + int(starts[is_pre[0]])
+
+
+def _tap_delay_errors(head, rows, design, offset, signed, L, profile, sweeps: int = 2):
+    """Per tap, the shift of its FIR row (samples, within +-1) that best fits the first periods; the common offset.
+
+    Coordinate descent on the least-squares misfit over the alignment
+    periods: each tap's shift in turn with the others' kept, ``sweeps`` times;
+    after each sweep the common offset takes the median shift (the taps that
+    sit where they should). Returns (shifts in seconds, None for a tap of zero
+    power; the common offset in samples).
+    """
+    n = np.arange(rows.shape[1])
+    spectra = rows @ np.exp(-2j * np.pi * np.outer(n, signed) / L)  # (n_taps, K)
+    k = rows.shape[0]
+    shifts = np.zeros(k)
+    active = [tap for tap in range(k) if profile.taps[tap].power_linear > 0] if len(profile.taps) == k else list(range(k))
+
+    def misfit(values, common):
+        base = spectra * np.exp(-2j * np.pi * np.outer(values, signed) / L)
+        a = np.concatenate([base * np.exp(-2j * np.pi * signed * (shift + common) / L)
+                            for shift in design.cyclic_shifts], axis=0).T
+        return _misfit(head, a)
+
+    for _ in range(sweeps):
+        for tap in active:
+            def one(delta, tap=tap):
+                values = shifts.copy()
+                values[tap] = delta
+                return misfit(values, offset)
+
+            shifts[tap] = optimize.minimize_scalar(one, bounds=(-1.0, 1.0), method="bounded",
+                                                   options={"xatol": 1e-3}).x
+        centre = float(np.median(shifts[active])) if active else 0.0
+        offset += centre
+        shifts -= centre
+    seconds = [float(shifts[tap]) / design.sample_rate_hz if tap in active else None for tap in range(k)]
+    return seconds, offset
+
+
+def _time_response(a, pinv_t, design, bins, x0):
+    """How the estimate weighs the gain at each sample of the period, and what that gives for ramps and steps.
+
+    A gain that changes within the period leaks into the other taps (as
+    Doppler does between subcarriers). The estimate is linear in the gains
+    h_n at the period's samples n: g_hat_i = sum_n sum_j h_n[j] r_j[n] q_i[n],
+    r_j the period of column j's static response (the probe through it), q_i
+    the inverse-DFT weights of output i (one FFT each). Returned: ``ramp``
+    (columns x columns), the estimate of a unit ramp n - (L - 1) / 2 on each
+    column (row j: column j's ramp), and ``steps`` (G, columns, columns): row j
+    of ``steps[s]`` the estimate of a unit step on column j from sample
+    ``step_samples[s]`` on (sum_{n >= tau} of the weights), on a grid of G
+    positions bounded in memory.
+    """
+    L = design.period_samples
+    full = np.zeros((a.shape[1], L), np.complex128)
+    full[:, bins] = (a * x0[:, None]).T  # the received period of each column's static response
+    r = sp_fft.ifft(full, axis=-1)
+    weights = np.zeros((a.shape[1], L), np.complex128)
+    weights[:, bins] = pinv_t.T / x0
+    q = sp_fft.fft(weights, axis=-1)  # g_hat_i = sum_k P[i, k] FFT(y)[k] / x0[k] = sum_n y[n] q_i[n]
+    centred = np.arange(L) - (L - 1) / 2.0
+    ramp = (r * centred) @ q.T
+    cols = a.shape[1]
+    grid = int(min(L, max(2, STEP_TABLE_ELEMENTS // max(1, cols * cols))))
+    taus = np.unique(np.round(np.linspace(0, L, grid + 1)[:-1]).astype(int))
+    steps = np.empty((taus.size, cols, cols), np.complex128)
+    for j in range(cols):  # sum over n >= tau of r_j[n] q_i[n], one column at a time (bounded memory)
+        tail = np.cumsum((r[j] * q)[:, ::-1], axis=-1)[:, ::-1]
+        steps[:, j, :] = tail[:, taus].T
+    return ramp, steps, taus
+
+
+def _misfit(z, a) -> float:
+    """sum ||z_p - A pinv(A) z_p||^2 = ||z||^2 - sum_p b_p^H (A^H A)^-1 b_p, b_p = A^H z_p (no K x K product)."""
+    b = z @ a.conj()  # (..., columns): b_p^T
+    gram = a.conj().T @ a
+    solved = np.linalg.solve(gram, b.reshape(-1, b.shape[-1]).T)
+    return float(np.sum(np.abs(z) ** 2) - np.real(np.sum(b.reshape(-1, b.shape[-1]).conj().T * solved)))
+
+
+def _design_matrix(rows, shifts, offset, signed, L):
+    """A[k, m * n_taps + i] = F_i[k] exp(-j 2 pi k (s_m + offset) / L) on the occupied (signed) bins."""
+    n = np.arange(rows.shape[1])
+    base = rows @ np.exp(-2j * np.pi * np.outer(n, signed) / L)  # (n_taps, K)
+    columns = [base * np.exp(-2j * np.pi * signed * (shift + offset) / L) for shift in shifts]
+    return np.concatenate(columns, axis=0).T
+
+
+def _delay_domain(z, bins, L):
+    full = np.zeros(z.shape[:-1] + (L,), np.complex128)
+    full[..., bins] = z
+    return sp_fft.ifft(full, axis=-1)
