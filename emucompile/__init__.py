@@ -67,6 +67,8 @@ _API = {
     "make_figures": "emucompile.plots",
     "render_report": "emucompile.report",
     "write_report": "emucompile.report",
+    "expand_plan": "emucompile.campaign",
+    "run_campaign": "emucompile.campaign",
 }
 
 

@@ -13,7 +13,11 @@ lies below it (Holm bounds the rate from above).
 Usage::
 
     python tools/calibrate_verify_false_alarm.py [--profile profiles_demo/port-crane-los.yaml]
-        [--bundles 100] [--duration 5] [--false-alarm 0.01] [--jobs 2]
+        [--bundles 100] [--duration 5] [--false-alarm 0.01] [--jobs 2] [--scheduler tcp://HOST:PORT]
+
+With ``--scheduler`` the bundles are made and verified on that Dask cluster; its
+workers must import emucompile and write ``--work`` (default: a new temporary
+directory here, so give a directory every worker mounts at the same path).
 """
 
 from __future__ import annotations
@@ -24,7 +28,6 @@ import os
 import shutil
 import sys
 import tempfile
-from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -52,22 +55,26 @@ def main(argv=None):
     parser.add_argument("--bundles", type=int, default=100)
     parser.add_argument("--duration", type=float, default=5.0, help="seconds per bundle (default 5)")
     parser.add_argument("--false-alarm", type=float, default=0.01)
-    parser.add_argument("--jobs", type=int, default=2)
+    parser.add_argument("--jobs", type=int, default=2, help="local processes (without --scheduler)")
+    parser.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask cluster at tcp://HOST:PORT")
+    parser.add_argument("--work", help="directory for the bundles (default: a new temporary one)")
     args = parser.parse_args(argv)
 
     from scipy import stats
 
-    work = tempfile.mkdtemp(prefix="calibrate-verify-")
+    from emucompile.campaign.cluster import map_tasks
+
+    work = tempfile.mkdtemp(prefix="calibrate-verify-", dir=args.work)
     tasks = [(args.profile, seed, args.duration, args.false_alarm, work) for seed in range(1, args.bundles + 1)]
     failures, names, n_checks = 0, collections.Counter(), 0
     try:
-        with ProcessPoolExecutor(max_workers=args.jobs) as pool:
-            for seed, failed, checks in pool.map(_one, tasks):
-                n_checks = checks
-                if failed:
-                    failures += 1
-                    names.update(failed)
-                    print(f"seed {seed}: failed {', '.join(failed)}", flush=True)
+        for seed, failed, checks in sorted(map_tasks(_one, tasks, scheduler=args.scheduler, processes=args.jobs,
+                                                     paths=[str(ROOT)])):
+            n_checks = checks
+            if failed:
+                failures += 1
+                names.update(failed)
+                print(f"seed {seed}: failed {', '.join(failed)}", flush=True)
     finally:
         shutil.rmtree(work, ignore_errors=True)
     interval = stats.binomtest(failures, args.bundles).proportion_ci(confidence_level=0.95, method="exact")
