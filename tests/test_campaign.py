@@ -423,3 +423,13 @@ def test_a_calibration_tool_gives_the_same_figures_on_a_cluster_as_in_one_proces
         cluster.close()
     assert spread.returncode == 0, spread.stderr[-2000:]
     assert "D over 6 seeds" in alone.stdout and spread.stdout == alone.stdout
+
+
+def test_the_example_plan_of_the_docs_expands(tmp_path):
+    text = (ROOT / "docs" / "campaign.md").read_text(encoding="utf-8")
+    example = text.split("```yaml\n", 1)[1].split("```", 1)[0]
+    plan = expand_plan(_plan(tmp_path, example.replace("../profiles_demo/", f"{ROOT}/profiles_demo/")))
+    names = [c.name for c in plan.cases]
+    assert len(names) == 2 * 2 * 3 + 3 * 2 * 3 + 2 * 3
+    assert "tdl-c_ds300ns_fd70hz_seed2" in names and "epa-2x2_fd10hz_corr-high_seed1" in names
+    assert all(c.spread_blocks for c in plan.cases if c.label == "warehouse-robot")
