@@ -140,17 +140,18 @@ profiles:
 axes:
   delay_spread_ns: [100]
   seed: [4]
-  formats: ["", "cf32"]
+  formats: ["", "cf32,ci16"]
 """
     plan = expand_plan(_plan(tmp_path, text))
     names = [c.name for c in plan.cases]
-    assert names == ["warehouse-robot_fmt-npy_seed4", "warehouse-robot_fmt-cf32_seed4",
-                     "epa-2x2_corr-low_fmt-npy_seed4", "epa-2x2_corr-low_fmt-cf32_seed4",
-                     "epa-2x2_corr-high_fmt-npy_seed4", "epa-2x2_corr-high_fmt-cf32_seed4",
-                     "tdl-c_ds100ns_fmt-npy_seed4", "tdl-c_ds100ns_fmt-cf32_seed4"]
+    assert names == ["warehouse-robot_fmt-npy_seed4", "warehouse-robot_fmt-cf32.ci16_seed4",
+                     "epa-2x2_corr-low_fmt-npy_seed4", "epa-2x2_corr-low_fmt-cf32.ci16_seed4",
+                     "epa-2x2_corr-high_fmt-npy_seed4", "epa-2x2_corr-high_fmt-cf32.ci16_seed4",
+                     "tdl-c_ds100ns_fmt-npy_seed4", "tdl-c_ds100ns_fmt-cf32.ci16_seed4"]
     high = plan.cases[4]
     assert high.document["mimo"]["correlation"] == {"level": "high", "specification": "ts36101"}
-    assert plan.cases[1].compile_options["formats"] == "cf32"
+    assert plan.cases[1].compile_options["formats"] == "cf32,ci16"
+    assert plan.cases[1].document["name"] == plan.cases[1].name  # a valid profile name too
 
 
 @pytest.mark.parametrize("text, where, message", [
@@ -324,6 +325,43 @@ def test_the_command_runs_on_worker_processes_exits_1_when_a_case_fails_and_prin
     assert "1 in error" in result.stderr and (broken / "notes.txt").read_text() == "keep me"
 
 
+
+def test_the_command_runs_on_an_existing_scheduler_after_checking_the_directory(tmp_path, monkeypatch):
+    from emucompile.campaign import cluster as clusters
+
+    text = MATRIX.replace("seed: [1, 2, 3]", "seed: [5]").replace("  - preset: tdl-b\n  - preset: tdl-c\n", "")
+    plan = _plan(tmp_path, text.replace("max_doppler_hz: [50, 100]", "max_doppler_hz: [50]"))
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                       dashboard_address=None, silence_logs=logging.ERROR)
+    try:
+        runner = CliRunner()
+        both = runner.invoke(cli, ["campaign", str(plan), "-o", str(tmp_path / "out"), "--workers", "2",
+                                   "--scheduler", cluster.scheduler_address])
+        assert both.exit_code == 2 and "drop --workers" in both.output
+        result = runner.invoke(cli, ["campaign", str(plan), "-o", str(tmp_path / "out"), "--scheduler",
+                                     cluster.scheduler_address])
+    finally:
+        cluster.close()
+    assert result.exit_code == 0, result.output
+    assert "PASSED: 2 case(s)" in result.stdout and not list((tmp_path / "out").glob(".campaign-probe-*"))
+    monkeypatch.setattr(clusters, "CONNECT_TIMEOUT_S", 2)  # nothing listens there: no need to wait 20 s
+    nowhere = CliRunner().invoke(cli, ["campaign", str(plan), "-o", str(tmp_path / "other"), "--scheduler",
+                                       "tcp://127.0.0.1:9"])
+    assert nowhere.exit_code == 2 and "cannot reach the Dask scheduler at tcp://127.0.0.1:9" in nowhere.output
+
+
+def test_a_directory_the_workers_cannot_see_is_refused_naming_them(tmp_path):
+    from emucompile.campaign.cluster import check_reachable
+    from emucompile.errors import InputError
+
+    class Blind:  # a cluster whose second worker mounts something else at that path
+        def run(self, function, path):
+            return {"tcp://10.0.0.1:1": function(path), "tcp://10.0.0.2:1": None}
+
+    with pytest.raises(InputError, match=r"not reachable from worker\(s\) tcp://10.0.0.2:1;"):
+        check_reachable(Blind(), tmp_path)
+    assert list(tmp_path.iterdir()) == []
+
 @pytest.mark.slow
 def test_an_interrupted_campaign_leaves_whole_bundles_and_a_rerun_completes_it(tmp_path):
     plan = _plan(tmp_path, MATRIX)
@@ -384,6 +422,32 @@ def test_a_bundle_spread_over_two_workers_has_the_bytes_of_a_single_process_comp
     assert ({k: v for k, v in spread.manifest.items() if k not in drop}
             == {k: v for k, v in single.manifest.items() if k not in drop})
 
+
+def test_a_case_marked_spread_blocks_is_compiled_over_the_workers_with_the_same_bytes(tmp_path, thread_cluster,
+                                                                                      compile_calls):
+    text = """\
+format_version: 1
+name: spread
+profiles:
+  - preset: tdl-a
+  - preset: tdl-a
+    label: spread
+    spread_blocks: true
+axes:
+  delay_spread_ns: [100]
+  max_doppler_hz: [100]
+  seed: [9]
+settings:
+  duration_s: 25
+  plots: false
+"""
+    plan = expand_plan(_plan(tmp_path, text))
+    assert [c.spread_blocks for c in plan.cases] == [False, True] and plan.cases[1].n_samples > 2 * 65536
+    result = run_campaign(plan, tmp_path / "out", client=thread_cluster)
+    assert result.passed, result.summary()
+    assert compile_calls == [plan.cases[0].name]  # the other went through the spread compile
+    first, second = (tmp_path / "out" / c.name / "tap_gains.npy" for c in plan.cases)
+    assert _sha256(first) == _sha256(second)
 
 def test_spreading_refuses_formats_written_in_sample_order_and_leaves_nothing(tmp_path, thread_cluster):
     from emucompile.campaign import compile_spread

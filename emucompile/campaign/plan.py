@@ -37,9 +37,9 @@ _NAME_PARTS = {
     "max_doppler_hz": lambda v: f"fd{v:g}hz",
     "speed_kmh": lambda v: f"v{v:g}kmh",
     "correlation": lambda v: f"corr-{v}",
-    "target": lambda v: f"tgt-{Path(v).stem.lower()}",
+    "target": lambda v: f"tgt-{_label(Path(v).stem)}",
     "duration_s": lambda v: f"t{v:g}s",
-    "formats": lambda v: "fmt-" + ("+".join(p.strip() for p in v.split(",") if p.strip()) or "npy"),
+    "formats": lambda v: "fmt-" + (".".join(p.strip().lower() for p in v.split(",") if p.strip()) or "npy"),
 }
 _OWN = {"seed": "seed-own", "delay_spread_ns": "ds-own", "max_doppler_hz": "fd-own", "speed_kmh": "v-own",
         "correlation": "corr-own", "target": "tgt-own", "duration_s": "t-own", "formats": "fmt-npy"}
@@ -128,7 +128,7 @@ def expand_plan(source) -> Plan:
     >>> plan = expand_plan("profiles_demo/lab-matrix-campaign.yaml")  # doctest: +SKIP
     >>> [case.name for case in plan.cases][:2]                          # doctest: +SKIP
     """
-    problems, plan = check_plan(source)
+    plan, problems = check_plan(source)
     if plan is None:
         raise PlanError(problems)
     return plan
@@ -141,10 +141,10 @@ def check_plan(source):
     document = read_document(source)
     problems = list(document.problems)
     if not document.readable:
-        return problems, None
+        return None, problems
     problems += _schema_problems(document)
     if any(p.severity == "error" for p in problems):
-        return _ordered(problems), None
+        return None, _ordered(problems)
     value = document.value
     base = Path(document.filename).parent
     settings = value.get("settings", {})
@@ -163,12 +163,12 @@ def check_plan(source):
             seen[case.name] = pointer
             cases.append(case)
     if any(p.severity == "error" for p in problems):
-        return _ordered(problems), None
+        return None, _ordered(problems)
     sha = hashlib.sha256(Path(document.filename).read_bytes()).hexdigest()
     plan = Plan(name=value["name"], description=value.get("description", ""), source=document.filename,
                 sha256=sha, cases=tuple(cases), axes=tuple(a for a in AXES if a in axes_used),
                 warnings=tuple(p for p in problems if p.severity == "warning"))
-    return _ordered(problems), plan
+    return plan, _ordered(problems)
 
 
 def list_text(plan: Plan) -> str:
@@ -274,8 +274,7 @@ def _make_case(document, name, label, source, base_document, chosen, settings, e
                                        "compile.seed); a campaign's cases must be repeatable",
                                        "add axes: {seed: [1]}")]
     try:
-        compile_plan = compiler.plan_compile(profile, Path("campaign-check") / name, target=target,
-                                             max_size_bytes=None, **options)
+        compile_plan = compiler.plan_compile(profile, Path("campaign-check") / name, target=target, **options)
     except EmucompileError as error:
         return None, [document.problem(where, f"case {name}: {error}")]
     false_alarm = float(settings.get("false_alarm", DEFAULT_FALSE_ALARM))

@@ -20,9 +20,12 @@ of that case), so an interrupted run leaves every finished case whole.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
+import signal
 import sys
+import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -112,8 +115,9 @@ def run_campaign(plan, directory, *, scheduler: str | None = None, workers: int 
     emit({"event": "start", "total": len(plan.cases), "todo": len(todo), "skipped": skipped})
     try:
         if todo:
-            _run_cases(todo, root, records, scheduler=scheduler, workers=workers, client=client,
-                       emit=emit, total=len(plan.cases), skipped=skipped)
+            with _terminate_as_interrupt():
+                _run_cases(todo, root, records, scheduler=scheduler, workers=workers, client=client,
+                           emit=emit, total=len(plan.cases), skipped=skipped)
     finally:
         # after an interruption, cases the workers finished but did not report yet count too
         ordered = tuple(records[c.name] or _done_record(c, root, recheck=False) or _not_run(c) for c in plan.cases)
@@ -191,7 +195,7 @@ def run_case(case, directory: str, *, client=None) -> dict:
             from emucompile.target import parse_target
 
             target = parse_target(case.target, file=f"case {case.name} target")
-        options = dict(case.compile_options, target=target, force=True, max_size_bytes=None)
+        options = dict(case.compile_options, target=target, force=True)
         if client is not None:
             from emucompile.campaign.spread import compile_spread
 
@@ -278,13 +282,29 @@ def _done_record(case, root: Path, *, recheck: bool) -> dict | None:
         bundle = root / case.name
         manifest_sha = hashlib.sha256((bundle / MANIFEST_NAME).read_bytes()).hexdigest()
         verification = json.loads((bundle / VERIFICATION_DIRECTORY / "verification.json").read_text("utf-8"))
-    except (OSError, ValueError):
+        verified_sha = verification["identity"]["manifest_sha256"]
+    except (OSError, ValueError, KeyError, TypeError):
         return None
-    if not (manifest_sha == record.get("manifest_sha256") == verification["identity"].get("manifest_sha256")):
+    if not (manifest_sha == record.get("manifest_sha256") == verified_sha):
         return None
     if verify_integrity(bundle, hashes=recheck):
         return None
     return record
+
+
+@contextlib.contextmanager
+def _terminate_as_interrupt():
+    """SIGTERM raises KeyboardInterrupt here (main thread only), so the cluster is closed and the index written."""
+    from emucompile.bundle import raise_terminated
+
+    if threading.current_thread() is not threading.main_thread() or signal.getsignal(signal.SIGTERM) != signal.SIG_DFL:
+        yield
+        return
+    signal.signal(signal.SIGTERM, raise_terminated)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)
 
 
 def _prepare_directory(root: Path) -> None:
