@@ -154,6 +154,36 @@ axes:
     assert plan.cases[1].document["name"] == plan.cases[1].name  # a valid profile name too
 
 
+def test_speed_target_and_duration_axes(tmp_path):
+    (tmp_path / "lab-fir-64.yaml").write_text("format_version: 1\nname: lab-fir-64\nsample_rate_hz: 30.72e6\n"
+                                              "max_fir_coefficients: 64\n", encoding="utf-8")
+    text = f"""\
+format_version: 1
+name: speeds
+profiles:
+  - file: {ROOT / 'profiles_demo' / 'port-crane-los.yaml'}
+    label: crane
+axes:
+  speed_kmh: [10, 50]
+  target: [null, lab-fir-64.yaml]
+  duration_s: [3]
+  seed: [2]
+"""
+    plan = expand_plan(_plan(tmp_path, text))
+    assert [c.name for c in plan.cases] == ["crane_v10kmh_tgt-own_t3s_seed2", "crane_v10kmh_tgt-lab-fir-64_t3s_seed2",
+                                            "crane_v50kmh_tgt-own_t3s_seed2", "crane_v50kmh_tgt-lab-fir-64_t3s_seed2"]
+    slow, fast = plan.cases[0], plan.cases[2]
+    assert slow.document["speed_kmh"] == 10 and "max_doppler_hz" not in slow.document
+    # f_D = v f_c / c (common practice): 50 km/h at 2.6 GHz is 120.4 Hz
+    from emucompile.profile import profile_from_document
+
+    assert profile_from_document(fast.document).max_doppler_hz == pytest.approx(50 / 3.6 * 2.6e9 / 299_792_458,
+                                                                               rel=1e-9)
+    assert fast.update_rate_hz == 2000  # the profile's own compile block
+    assert slow.compile_options["duration_s"] == 3 and slow.n_samples == round(3 * slow.update_rate_hz)
+    assert slow.target is None and plan.cases[1].target["max_fir_coefficients"] == 64
+    assert len({c.key for c in plan.cases}) == 4
+
 @pytest.mark.parametrize("text, where, message", [
     ("format_version: 1\nname: x\nprofiles:\n  - preset: epa\n    colour: red\n", ":5:5: /profiles/0/colour",
      "unknown key 'colour'"),
