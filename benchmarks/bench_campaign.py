@@ -6,7 +6,7 @@ and prints the wall times and the speed-up (target >= 1.7 x on 2 cores). The clu
 started before the clock starts (their start-up is printed apart). ``--threads`` runs the
 workers as threads of one process instead of processes, to compare the two.
 
-    python benchmarks/bench_campaign.py [--plan profiles_demo/tdl-matrix-campaign.yaml]
+    python benchmarks/bench_campaign.py [--plan profiles_demo/tdl-matrix-campaign.yml]
         [--workers 2] [--rounds 1] [--threads] [--no-plots]
 
 The load average is printed before and after: on a shared machine the figure is noisy.
@@ -55,7 +55,7 @@ def _run(plan, workers, processes):
 
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--plan", default=str(ROOT / "profiles_demo" / "tdl-matrix-campaign.yaml"))
+    parser.add_argument("--plan", default=str(ROOT / "profiles_demo" / "tdl-matrix-campaign.yml"))
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--rounds", type=int, default=1)
     parser.add_argument("--threads", action="store_true", help="workers as threads of one process")

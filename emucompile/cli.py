@@ -472,8 +472,8 @@ class _ProgressBar:
 # -- campaign --------------------------------------------------------------------------
 
 
-@cli.command(epilog="\b\nExamples:\n  emucompile campaign profiles_demo/tdl-matrix-campaign.yaml --list\n"
-             "  emucompile campaign profiles_demo/tdl-matrix-campaign.yaml -o out/tdl-matrix --workers 2\n"
+@cli.command(epilog="\b\nExamples:\n  emucompile campaign profiles_demo/tdl-matrix-campaign.yml --list\n"
+             "  emucompile campaign profiles_demo/tdl-matrix-campaign.yml -o out/tdl-matrix --workers 2\n"
              "  emucompile campaign plan.yaml -o /shared/matrix --scheduler tcp://10.0.0.5:8786\n"
              "\b\nWith --scheduler the workers write the bundles: DIR must be on storage every\n"
              "worker mounts at the same path (checked before anything starts).")

@@ -34,7 +34,7 @@ from emucompile.cli import cli
 distributed = pytest.importorskip("dask.distributed")
 
 ROOT = Path(__file__).resolve().parent.parent
-DEMO_PLAN = ROOT / "profiles_demo" / "tdl-matrix-campaign.yaml"
+DEMO_PLAN = ROOT / "profiles_demo" / "tdl-matrix-campaign.yml"
 
 # The acceptance matrix: 3 presets x 2 delay spreads x 2 Doppler values x 3 seeds = 36 short cases.
 # 1.2 s at f_D >= 50 Hz: T f_D >= 60, so verify judges every check (it needs T f_D >= 50).

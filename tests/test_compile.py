@@ -21,7 +21,8 @@ from emucompile.errors import InputError
 from emucompile.profile import load_profile_text
 
 ROOT = Path(__file__).resolve().parent.parent
-DEMOS = sorted((ROOT / "profiles_demo").glob("*.*"))
+# the demo campaign plans (*campaign*.yml) are not profiles
+DEMOS = sorted(p for p in (ROOT / "profiles_demo").glob("*.*") if "campaign" not in p.name)
 
 THREE_TAPS = """\
 format_version: 1

@@ -125,7 +125,7 @@ def expand_plan(source) -> Plan:
 
     Examples
     --------
-    >>> plan = expand_plan("profiles_demo/lab-matrix-campaign.yaml")  # doctest: +SKIP
+    >>> plan = expand_plan("profiles_demo/tdl-matrix-campaign.yml")  # doctest: +SKIP
     >>> [case.name for case in plan.cases][:2]                          # doctest: +SKIP
     """
     plan, problems = check_plan(source)

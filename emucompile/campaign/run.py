@@ -99,7 +99,7 @@ def run_campaign(plan, directory, *, scheduler: str | None = None, workers: int 
 
     Examples
     --------
-    >>> result = run_campaign("profiles_demo/lab-matrix-campaign.yaml", "out/matrix", workers=2)  # doctest: +SKIP
+    >>> result = run_campaign("profiles_demo/tdl-matrix-campaign.yml", "out/matrix", workers=2)  # doctest: +SKIP
     >>> result.passed, result.counts()                                                          # doctest: +SKIP
     """
     from emucompile.campaign.plan import Plan, expand_plan
