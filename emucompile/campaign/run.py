@@ -23,6 +23,7 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
+import math
 import signal
 import sys
 import threading
@@ -219,23 +220,36 @@ def run_case(case, directory: str, *, client=None) -> dict:
 
 
 def _case_record(case, verification, elapsed_s) -> dict:
-    result = verification.to_dict()
-    stats = result["profile_stats"]
+    # from the Verification's fields: its to_dict() (a deep strict-JSON copy of every check) costs
+    # more than the rest of the record, and write_outputs has just made it once
+    checks = verification.checks
+    identity, stats = verification.identity, verification.profile_stats
+    statistics = {k: stats.get(k) for k in ("n_taps", "rms_delay_spread_s", "max_doppler_hz",
+                                             "rms_doppler_spread_hz", "coherence_bandwidth_50_hz")}
     return {
         "format": RECORD_FORMAT, "format_version": 1, "name": case.name, "key": case.key,
         "status": PASSED if verification.passed else FAILED, "profile": case.label, "source": case.source,
-        "axes": dict(case.axes), "counts": result["counts"],
-        "failed_checks": [_check_name(c) for c in result["checks"] if c["passed"] is False],
-        "statistics": {k: stats.get(k) for k in ("n_taps", "rms_delay_spread_s", "max_doppler_hz",
-                                                  "rms_doppler_spread_hz", "coherence_bandwidth_50_hz")},
-        "seed": result["identity"].get("seed"), "n_samples": result["identity"].get("n_samples"),
-        "update_rate_hz": result["update_rate_hz"], "duration_s": result["duration_s"],
-        "manifest_sha256": result["identity"]["manifest_sha256"],
-        "resolved_profile_sha256": result["identity"].get("resolved_profile_sha256"),
-        "generator_version": result["identity"].get("generator_version"),
+        "axes": dict(case.axes),
+        "counts": {"passed": sum(c.passed is True for c in checks), "failed": sum(c.passed is False for c in checks),
+                   "not_applicable": sum(c.passed is None for c in checks)},
+        "failed_checks": [c.name + ("" if c.tap is None else f"[tap {c.tap}]") for c in checks if c.passed is False],
+        "statistics": {k: _finite(v) for k, v in statistics.items()},
+        "seed": identity.get("seed"), "n_samples": identity.get("n_samples"),
+        "update_rate_hz": float(verification.update_rate_hz), "duration_s": float(verification.duration_s),
+        "manifest_sha256": identity["manifest_sha256"],
+        "resolved_profile_sha256": identity.get("resolved_profile_sha256"),
+        "generator_version": identity.get("generator_version"),
         "report": f"{case.name}/verification/report.html",
         "elapsed_s": elapsed_s, "message": None,
     }
+
+
+def _finite(value):
+    """A plain number for strict JSON; None for a missing, infinite or NaN value."""
+    if value is None or isinstance(value, (bool, str)):
+        return value
+    value = float(value) if not isinstance(value, int) else value
+    return value if math.isfinite(value) else None
 
 
 def _error_record(case, message, elapsed_s=0.0) -> dict:
@@ -249,10 +263,6 @@ def _not_run(case) -> dict:
     record = _error_record(case, "not run (interrupted)")
     record["status"] = NOT_RUN
     return record
-
-
-def _check_name(check) -> str:
-    return check["name"] + ("" if check.get("tap") is None else f"[tap {check['tap']}]")
 
 
 def _failed_text(record) -> str:
