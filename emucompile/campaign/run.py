@@ -24,6 +24,7 @@ import contextlib
 import hashlib
 import json
 import math
+import secrets
 import signal
 import sys
 import threading
@@ -144,9 +145,11 @@ def _run_cases(todo, root, records, *, scheduler, workers, client, emit, total, 
     began = time.perf_counter()
     futures = {}
     spread = [case for case in todo if case.spread_blocks]
+    run_token = secrets.token_hex(4)  # task keys unique to this run: a shared cluster may run the same plan twice
     for case in todo:
         if not case.spread_blocks:
-            futures[client.submit(run_case, case, str(root.resolve()), pure=False, key=f"case-{case.name}")] = case
+            key = f"case-{case.name}-{run_token}"
+            futures[client.submit(run_case, case, str(root.resolve()), pure=False, key=key)] = case
     done = failed = 0
     durations = []
 
