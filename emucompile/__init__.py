@@ -78,6 +78,9 @@ _API = {
     "write_probe": "emucompile.loop.probe",
     "load_probe": "emucompile.loop.probe",
     "measure_capture": "emucompile.loop.measure",
+    # campaigns
+    "expand_plan": "emucompile.campaign",
+    "run_campaign": "emucompile.campaign",
 }
 
 

@@ -414,6 +414,35 @@ class BundleWriter:
         except BaseException as error:
             self._fail(error)
 
+    def placed_files(self) -> list[dict]:
+        """The open files that accept rows of tap gains at their offsets, from any process.
+
+        For a distributed compile: each entry is ``{"path", "data_offset",
+        "row_bytes"}``; rows n0..n1 of complex64 little-endian gains go at
+        ``data_offset + n0 * row_bytes``. Only formats that store the gains as
+        they are (npy, cf32) can be placed; call :meth:`adopt_placed` when
+        every row is written, then :meth:`finish`.
+        """
+        self._require_open()
+        plain = [w for w in self._writers if type(w) is fmt.ArrayWriter]
+        if len(plain) != len(self._writers):
+            others = ", ".join(w.name for w in self._writers if w not in plain)
+            raise InputError(f"{others}: written in sample order only, not placed by several workers",
+                             hint="leave out the formats other than npy and cf32, or compile on one process")
+        row_bytes = math.prod(self.layout.gains_shape[1:]) * np.dtype(np.complex64).itemsize
+        return [{"path": str(self._temp / w.name), "data_offset": len(w._header), "row_bytes": row_bytes}
+                for w in plain]
+
+    def adopt_placed(self) -> None:
+        """Count every sample as written: the placed files are hashed as they stand on disk."""
+        self._require_open()
+        try:
+            for writer in self._writers:
+                writer._file.adopt(writer.size_bytes)
+            self.samples_written = self.layout.n_samples
+        except BaseException as error:
+            self._fail(error)
+
     def finish(self, manifest_fields: dict) -> Path:
         """Close the files, write the manifest, move the bundle into place; return OUTDIR.
 

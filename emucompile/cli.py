@@ -224,6 +224,9 @@ def _write_card(profile, html_file, as_json):
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
 @click.option("--accept-missed-targets", is_flag=True, help="Compile although an expect: target is missed (recorded).")
 @click.option("--json", "as_json", is_flag=True, help="Print the summary as strict JSON (no progress bar).")
+@click.option("--scheduler", metavar="ADDRESS", help="Generate the blocks on the Dask cluster at tcp://HOST:PORT "
+              "(OUTDIR on storage its workers share; formats npy and cf32).")
+@click.option("--workers", type=click.IntRange(min=1), help="Generate the blocks on a local Dask cluster of N processes.")
 def compile_command(profile, outdir, quiet, max_size, target_file, **options):
     """Compile a profile into a bundle of tap gains (and FIR map) in OUTDIR.
 
@@ -246,6 +249,7 @@ def _compile_command(profile, outdir, quiet, max_size, target_file, options):
     from emucompile.bundle import DEFAULT_MAX_SIZE_BYTES
 
     as_json = options.pop("as_json")
+    scheduler, workers = options.pop("scheduler"), options.pop("workers")
     quiet = quiet or as_json
     plan = compiler.plan_compile(
         profile, outdir, target=target_file,
@@ -257,7 +261,12 @@ def _compile_command(profile, outdir, quiet, max_size, target_file, options):
         click.echo(f"compiling {plan.profile.name}: {plan.profile.n_taps} taps x {plan.n_samples} samples "
                    f"at {plan.update_rate_hz:g} Hz, about {_size_text(plan.estimated_size_bytes)}", err=True)
     with _progress(plan.n_samples, "compiling", quiet) as update:
-        result = compiler.run_plan(plan, progress=update)
+        if scheduler is None and workers is None:
+            result = compiler.run_plan(plan, progress=update)
+        else:
+            from emucompile.campaign import compile_spread
+
+            result = compile_spread(plan=plan, scheduler=scheduler, workers=workers, progress=update)
     if as_json:
         click.echo(json.dumps(_compile_record(result), indent=2, allow_nan=False))
     elif not quiet:
@@ -673,6 +682,51 @@ class _ProgressBar:
         if self._bar is not None:
             self._bar.__exit__(exc_type, exc, tb)
         return False
+
+
+# -- campaign --------------------------------------------------------------------------
+
+
+@cli.command(epilog="\b\nExamples:\n  emucompile campaign profiles_demo/tdl-matrix-campaign.yml --list\n"
+             "  emucompile campaign profiles_demo/tdl-matrix-campaign.yml -o out/tdl-matrix --workers 2\n"
+             "  emucompile campaign plan.yaml -o /shared/matrix --scheduler tcp://10.0.0.5:8786\n"
+             "\b\nWith --scheduler the workers write the bundles: DIR must be on storage every\n"
+             "worker mounts at the same path (checked before anything starts).")
+@click.argument("plan_file", metavar="PLAN")
+@click.option("-o", "--output", "outdir", metavar="DIR", help="Campaign directory (made, or reused to resume).")
+@click.option("--list", "list_only", is_flag=True, help="Show the cases the plan expands into; run nothing.")
+@click.option("--scheduler", metavar="ADDRESS", help="Run on the Dask cluster at tcp://HOST:PORT.")
+@click.option("--workers", type=click.IntRange(min=1), help="Processes of the local cluster (default: the cores).")
+@click.option("--recheck", is_flag=True, help="Hash every file of a finished case again before reusing it.")
+@click.option("--json", "as_json", is_flag=True, help="Print the cases (with --list) or campaign.json as strict JSON.")
+@click.option("--quiet", is_flag=True, help="No progress lines on stderr.")
+def campaign(plan_file, outdir, list_only, scheduler, workers, recheck, as_json, quiet):
+    """Compile and verify every case of a test plan as Dask tasks; write DIR/index.html.
+
+    A case already done (same resolved profile, settings, generator version
+    and hashes) is skipped, so a rerun resumes an interrupted campaign. Exit
+    0 when every case passed, 1 when a check failed (or a case could not
+    run), 2 when the plan is bad.
+    """
+    import json
+
+    from emucompile import campaign as plans
+    from emucompile.errors import CheckFailed, InputError
+
+    plan = plans.expand_plan(plan_file)
+    if list_only:
+        click.echo(json.dumps([c.to_dict() for c in plan.cases], indent=2, allow_nan=False) if as_json
+                   else plans.list_text(plan))
+        return
+    if outdir is None:
+        raise InputError("give -o DIR (the campaign directory), or --list")
+    result = plans.run_campaign(plan, outdir, scheduler=scheduler, workers=workers, recheck=recheck,
+                                progress=None if quiet else plans.ProgressPrinter())
+    click.echo(result.campaign_json.read_text("utf-8") if as_json else result.summary(), nl=not as_json)
+    if not result.passed:
+        counts = result.counts()
+        raise CheckFailed(f"{plan_file}: {counts['failed']} case(s) failed a check, {counts['error']} in error, "
+                          f"{counts['not run']} not run (see {result.index_html})")
 
 
 # -- helpers shared by commands ---------------------------------------------------------

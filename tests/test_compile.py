@@ -23,7 +23,8 @@ from emucompile.profile import load_profile, load_profile_text
 from profile_helpers import FIT_EXAMPLE
 
 ROOT = Path(__file__).resolve().parent.parent
-DEMOS = sorted((ROOT / "profiles_demo").glob("*.*"))
+# the demo campaign plans (*campaign*.yml) are not profiles
+DEMOS = sorted(p for p in (ROOT / "profiles_demo").glob("*.*") if "campaign" not in p.name)
 
 THREE_TAPS = """\
 format_version: 1
@@ -391,7 +392,9 @@ def test_summary_names_links_and_conditions(tmp_path):
 # Where the command spells an option its own way: --target FILE -> target (a file's path
 # or a parsed Target), --max-size -> max_size_bytes, --quiet -> no progress callable.
 CLI_TO_API = {"target_file": "target", "max_size": "max_size_bytes", "quiet": "progress"}
-CLI_ONLY = {"as_json"}  # how the summary is printed: nothing for the library to choose
+# How the summary is printed, and where the blocks are generated (the library's way to spread
+# them over a cluster is emucompile.campaign.compile_spread): nothing for compile_profile to choose.
+CLI_ONLY = {"as_json", "scheduler", "workers"}
 API_ONLY = {"plan"}  # a prepared CompilePlan: nothing to type on a command line
 
 

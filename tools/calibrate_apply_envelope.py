@@ -36,17 +36,27 @@ UPDATE_RATE_HZ = 1600.0
 MAX_DOPPLER_HZ = 50.0
 
 
+def _distance(seed):
+    """KS distance of one record's envelope from the Rayleigh law."""
+    gains, _ = bf.circulant_gaussian_gains(N_SAMPLES, UPDATE_RATE_HZ, MAX_DOPPLER_HZ, 10_000 + seed)
+    envelope = np.abs(gains[:, 0, 0, 0].astype(np.complex128))
+    return stats.kstest(envelope, "rayleigh", args=(0.0, np.sqrt(0.5))).statistic
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seeds", type=int, default=4000)
+    parser.add_argument("--processes", type=int, default=1, help="local processes (without --scheduler)")
+    parser.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask cluster at tcp://HOST:PORT "
+                        "(its workers must see this checkout at the same path)")
     options = parser.parse_args()
+    from emucompile.campaign.cluster import map_tasks
+
     p = bf.doppler_bin_powers(N_SAMPLES, UPDATE_RATE_HZ, MAX_DOPPLER_HZ)
     n_eff = bf.effective_independent_samples(p)
-    distances = np.empty(options.seeds)
-    for seed in range(options.seeds):
-        gains, _ = bf.circulant_gaussian_gains(N_SAMPLES, UPDATE_RATE_HZ, MAX_DOPPLER_HZ, 10_000 + seed)
-        envelope = np.abs(gains[:, 0, 0, 0].astype(np.complex128))
-        distances[seed] = stats.kstest(envelope, "rayleigh", args=(0.0, np.sqrt(0.5))).statistic
+    distances = np.array(list(map_tasks(_distance, range(options.seeds), scheduler=options.scheduler,
+                                        processes=options.processes, chunksize=16,
+                                        paths=[str(ROOT), str(ROOT / "tests")])))
     print(f"N_eff = {n_eff:.1f}; Kolmogorov rule at alpha 1e-3: {stats.kstwobign.isf(1e-3) / np.sqrt(n_eff):.4f}")
     q99, q999 = np.quantile(distances, [0.99, 0.999])
     print(f"D over {options.seeds} seeds: mean {distances.mean():.4f}, 99 % {q99:.4f}, 99.9 % {q999:.4f}, max {distances.max():.4f}")

@@ -46,7 +46,6 @@ import argparse
 import datetime
 import json
 import math
-import multiprocessing
 import os
 import platform
 import sys
@@ -170,7 +169,8 @@ def main(argv=None):
     ap.add_argument("--quick", action="store_true", help="tiny smoke run; writes nothing")
     ap.add_argument("--engine-test", action="store_true", help="the older study of the engine test's tolerance")
     ap.add_argument("--seeds", type=int, default=1000, help="seeds of --engine-test")
-    ap.add_argument("--processes", type=int, default=2)
+    ap.add_argument("--processes", type=int, default=2, help="local processes (without --scheduler)")
+    ap.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask cluster at tcp://HOST:PORT")
     ap.add_argument("--output", default=str(ROOT / "emucompile" / "data" / tolerance.MIMO_CALIBRATION_FILE))
     args = ap.parse_args(argv)
     if args.engine_test:
@@ -181,11 +181,14 @@ def main(argv=None):
     tasks.sort(key=lambda t: -t[1]["periods"] * matrices()[t[1]["matrix"]].shape[0])
     began = time.time()
     rows = {}
-    with multiprocessing.Pool(args.processes) as pool:
-        for done, (index, out) in enumerate(pool.imap_unordered(run_one, tasks, chunksize=2), 1):
-            rows.setdefault(index, []).extend(out)
-            if done % 200 == 0:
-                print(f"{done}/{len(tasks)} records, {time.time() - began:.0f} s", flush=True)
+    from emucompile.campaign.cluster import map_tasks
+
+    results = map_tasks(run_one, tasks, scheduler=args.scheduler, processes=args.processes, chunksize=2,
+                        paths=[str(ROOT)])
+    for done, (index, out) in enumerate(results, 1):
+        rows.setdefault(index, []).extend(out)
+        if done % 200 == 0:
+            print(f"{done}/{len(tasks)} records, {time.time() - began:.0f} s", flush=True)
     runtime = time.time() - began
     critical = tolerance._critical("exp", 1.0 - FIT_QUANTILE, 1)
     ratios = []

@@ -22,6 +22,8 @@ Writes ``emucompile/data/tolerance_calibration.json``. CI only reads it.
 
     python tools/calibrate_tolerances.py            # ~15 min on 2 otherwise idle cores
     python tools/calibrate_tolerances.py --quick    # a smoke run, writes nothing
+    python tools/calibrate_tolerances.py --scheduler tcp://HOST:PORT   # on a Dask cluster
+        (its workers must import emucompile: installed, or this checkout at the same path)
 """
 
 from __future__ import annotations
@@ -30,7 +32,6 @@ import argparse
 import datetime
 import json
 import math
-import multiprocessing
 import os
 import platform
 import sys
@@ -121,7 +122,8 @@ def clopper_pearson(k, n, conf=0.95):
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--quick", action="store_true", help="tiny smoke run; writes nothing")
-    ap.add_argument("--processes", type=int, default=2)
+    ap.add_argument("--processes", type=int, default=2, help="local processes (without --scheduler)")
+    ap.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask cluster at tcp://HOST:PORT")
     ap.add_argument("--output", default=str(ROOT / "emucompile" / "data" / "tolerance_calibration.json"))
     args = ap.parse_args(argv)
     plan = QUICK_PLAN if args.quick else PLAN
@@ -131,12 +133,15 @@ def main(argv=None):
     tasks.sort(key=lambda t: -t[1]["periods"] * t[1]["rate_doppler"])
     t0 = time.time()
     samples: dict = {}
-    with multiprocessing.Pool(args.processes) as pool:
-        for done, (index, out) in enumerate(pool.imap_unordered(run_one, tasks, chunksize=4), 1):
-            for name, law, m, z in out:
-                samples.setdefault(name, {}).setdefault(index, []).append((law, m, z))
-            if done % 500 == 0:
-                print(f"{done}/{len(tasks)} records, {time.time() - t0:.0f} s", flush=True)
+    from emucompile.campaign.cluster import map_tasks
+
+    results = map_tasks(run_one, tasks, scheduler=args.scheduler, processes=args.processes, chunksize=4,
+                        paths=[str(ROOT)])
+    for done, (index, out) in enumerate(results, 1):
+        for name, law, m, z in out:
+            samples.setdefault(name, {}).setdefault(index, []).append((law, m, z))
+        if done % 500 == 0:
+            print(f"{done}/{len(tasks)} records, {time.time() - t0:.0f} s", flush=True)
     runtime = time.time() - t0
 
     factors, per_check = {}, {}

@@ -32,7 +32,6 @@ import os
 import shutil
 import sys
 import tempfile
-from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -67,7 +66,9 @@ def main(argv=None):
     parser.add_argument("--bundles", type=int, default=100)
     parser.add_argument("--duration", type=float, default=5.0, help="seconds per bundle (default 5)")
     parser.add_argument("--false-alarm", type=float, default=0.01)
-    parser.add_argument("--jobs", type=int, default=2)
+    parser.add_argument("--jobs", type=int, default=2, help="local processes (without --scheduler)")
+    parser.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask cluster at tcp://HOST:PORT "
+                        "(the bundles' temporary folder must be on storage its workers share)")
     parser.add_argument("--method", default=None, help="tap-gain generator (default: the profile's or compile's)")
     parser.add_argument("--update-rate", type=float, default=None, help="update rate in Hz (default: compile's)")
     args = parser.parse_args(argv)
@@ -82,14 +83,16 @@ def main(argv=None):
     failures, names, n_checks = 0, collections.Counter(), 0
     largest = {"taps": 0.0, "links": 0.0}
     try:
-        with ProcessPoolExecutor(max_workers=args.jobs) as pool:
-            for seed, failed, checks, found in pool.map(_one, tasks):
-                n_checks = checks
-                largest = {k: max(v, found[k]) for k, v in largest.items()}
-                if failed:
-                    failures += 1
-                    names.update(failed)
-                    print(f"seed {seed}: failed {', '.join(failed)}", flush=True)
+        from emucompile.campaign.cluster import map_tasks
+
+        results = map_tasks(_one, tasks, scheduler=args.scheduler, processes=args.jobs, paths=[str(ROOT)])
+        for seed, failed, checks, found in sorted(results, key=lambda r: r[0]):
+            n_checks = checks
+            largest = {k: max(v, found[k]) for k, v in largest.items()}
+            if failed:
+                failures += 1
+                names.update(failed)
+                print(f"seed {seed}: failed {', '.join(failed)}", flush=True)
     finally:
         shutil.rmtree(work, ignore_errors=True)
     interval = stats.binomtest(failures, args.bundles).proportion_ci(confidence_level=0.95, method="exact")
