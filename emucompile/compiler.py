@@ -41,6 +41,7 @@ import numpy as np
 from emucompile import fading
 from emucompile.bundle import (
     DEFAULT_MAX_SIZE_BYTES,
+    RATE_RANGE_HZ,
     BundleLayout,
     BundleWriter,
     open_bundle,
@@ -61,6 +62,12 @@ WARN_UPDATE_FACTOR = 16
 DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ = 1000.0
 DEFAULT_DURATION_S = 10.0
 CHUNK_SAMPLES = 1 << 16
+MAX_SEED = 2**64 - 1  # as the profile's compile.seed
+MAX_UPDATE_TO_DOPPLER = 1e6
+"""Largest update rate / a fading tap's maximum Doppler: the rate plan's size (its candidate
+factors and the linear stage's phases) grows with it, and its design takes minutes near 1e6."""
+MAX_FIR_COEFFICIENTS = 1 << 20
+"""Longest FIR map (delay span x sample rate): 8 MiB per tap; no emulator takes more."""
 
 
 @dataclass(frozen=True)
@@ -171,11 +178,13 @@ def plan_compile(
         if cap is not None and rate > cap:
             rate = float(cap)
             sources["update_rate_hz"] = "target"
-    rate = _positive("update rate", rate, "Hz")
+    rate = _in_rate_range("update rate", _positive("update rate", rate, "Hz"))
     _check_update_rate(rate, largest_doppler, warnings)
 
     duration = _pick(sources, "duration_s", duration_s, defaults.duration_s)
     duration = DEFAULT_DURATION_S if duration is None else _positive("duration", duration, "s")
+    if not math.isfinite(duration * rate):
+        raise InputError(f"a duration of {duration:g} s at {rate:g} Hz is more samples than any bundle holds")
     n_samples = int(round(duration * rate))
     if n_samples < 1:
         raise InputError(
@@ -188,6 +197,8 @@ def plan_compile(
         seed_value = secrets.randbits(63)
         sources["seed"] = "drawn"
     seed_value = int(seed_value)
+    if not 0 <= seed_value <= MAX_SEED:
+        raise InputError(f"seed {_short_number(seed_value)} must be an integer from 0 to 2**64 - 1")
 
     method_value = _pick(sources, "method", method, defaults.method) or fading.DEFAULT_METHOD
     periodic_value = bool(_pick(sources, "periodic", periodic, defaults.periodic) or False)
@@ -195,6 +206,7 @@ def plan_compile(
     mapping = _pick(sources, "delay_mapping", delay_mapping, defaults.delay_mapping)
     rate_fs = _pick(sources, "sample_rate_hz", sample_rate_hz, defaults.sample_rate_hz)
 
+    _refuse_oversized(profile, rate, n_samples, formats_value, rate_fs, target_obj, max_size_bytes)
     fit = None
     grid_map = None
     conditions = profile.conditions
@@ -492,6 +504,57 @@ def _pick(sources, name, option, from_profile):
         return from_profile
     sources[name] = "default"
     return None
+
+
+def _refuse_oversized(profile, rate, n_samples, formats, rate_fs, target, max_size_bytes) -> None:
+    """Closed-form sizes, checked before anything is designed or allocated (refused, never clamped).
+
+    The rate plan grows with update rate / Doppler; the FIR map with delay span x
+    sample rate; the bundle at least by its tap gains, each extra format's copy and
+    the FIR map (lower bounds: the exact estimate follows once the map exists).
+    """
+    edges = [t.max_doppler_hz for t in profile.taps
+             if t.fading != "static" and t.max_doppler_hz is not None and t.max_doppler_hz > 0]
+    if edges and rate / min(edges) > MAX_UPDATE_TO_DOPPLER:
+        raise InputError(
+            f"update rate {rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
+            f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x of the interpolation design",
+            hint=f"use --update-rate {MAX_UPDATE_TO_DOPPLER * min(edges):g} or less; an emulator "
+                 "interpolates between updates",
+        )
+    n_fir = 0
+    if rate_fs is not None and target is None:
+        rate_fs = _in_rate_range("sample rate", _positive("sample rate", rate_fs, "Hz"))
+        delays = [t.delay_s for t in profile.taps]
+        n_fir = math.floor((max(delays) - min(delays)) * rate_fs) + 1
+        if n_fir > MAX_FIR_COEFFICIENTS:
+            raise InputError(
+                f"the FIR map would have {n_fir} coefficients per tap (delay span {max(delays) - min(delays):g} s "
+                f"x sample rate {rate_fs:g} Hz), above the limit of {MAX_FIR_COEFFICIENTS}",
+                hint="lower --sample-rate, or shorten the delay span",
+            )
+    gains = n_samples * profile.n_rx * profile.n_tx * profile.n_taps * 8
+    copies = {"cf32": 1.0, "ci16": 0.5, "csv": 1.0, "sigmf": 1.0}
+    least = gains * (1 + sum(copies.get(name, 0.0) for name in formats)) + profile.n_taps * n_fir * 8
+    if "fir" in formats:
+        least += n_samples * profile.n_rx * profile.n_tx * n_fir * 8
+    if max_size_bytes is not None and least > max_size_bytes:
+        raise InputError(
+            f"the bundle would take at least {_size_text(int(least))}, above the limit of {_size_text(max_size_bytes)}",
+            hint="shorten --duration, lower --update-rate, drop formats, or raise --max-size",
+        )
+
+
+def _short_number(value: int) -> str:
+    text = str(value) if abs(value) < 10**40 else f"{str(value)[:20]}... ({len(str(abs(value)))} digits)"
+    return text
+
+
+def _in_rate_range(what, rate):
+    low, high = RATE_RANGE_HZ
+    if not low <= rate <= high:
+        raise InputError(f"{what} {rate:g} Hz lies outside {low:g} to {high:g} Hz")
+    return rate
 
 
 def _positive(what, value, unit):

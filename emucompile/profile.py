@@ -397,7 +397,8 @@ def _check_value(document: Document, value, *, failed: bool, standard_keys=None)
         return None, problems
     broken = {pointer_tokens(p.pointer)[0] for p in problems
               if p.severity == "error" and p.pointer} | {pointer_tokens(p)[0] for p in flagged if p}
-    checker = _Checker(document, value, broken_blocks=broken, flagged=flagged, standard_keys=standard_keys)
+    checker = _Checker(document, value, broken_blocks=broken, standard_keys=standard_keys,
+                       flagged=flagged | {p.pointer for p in problems if p.severity == "error"})
     profile = checker.run(build=not failed and not any(p.severity == "error" for p in problems))
     return profile, problems + checker.problems
 
@@ -946,7 +947,10 @@ class _Checker:
 
     # -- across taps -------------------------------------------------------------
     def _tap_warnings(self, taps):
-        known = [t for t in taps if t and t["delay_s"] is not None]
+        # Only taps without errors: a value that already failed (delay_ns: -1e308) says nothing more.
+        failed = {pointer.split("/")[2] for pointer in self.flagged | {p.pointer for p in self.problems if p.severity == "error"}
+                  if pointer.startswith("/taps/")}
+        known = [t for t in taps if t and t["delay_s"] is not None and str(t["index"]) not in failed]
         first_at = {}
         previous = None
         for tap in known:

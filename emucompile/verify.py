@@ -958,8 +958,9 @@ def _components_or_none(root, cautions):
 
 
 def _ci16_source(root, entry, shape, shadowing):
-    codes = np.memmap(root / entry["name"], dtype="<i2", mode="r", offset=entry["data_offset"],
-                      shape=(*shape, 2))
+    from emucompile import bundle as bd
+
+    codes = bd.member_raw(root, entry, "<i2", (*shape, 2))
     divide = None if shadowing is None else shadowing.shadowing_amplitude
     return _Ci16Source(codes, float(entry["quantisation"]["scale_factor"]), divide)
 
