@@ -431,6 +431,10 @@ def write_outputs(verification: Verification, *, directory=None, report_file=Non
         figure_dir = None
     else:
         directory = Path(directory)
+        if directory.is_symlink() or (directory.exists() and not directory.is_dir()):
+            # a bundle from elsewhere may carry verification -> somewhere else: never written through
+            raise InputError(f"{directory}: is a symbolic link or not a directory; the report is not written there",
+                             hint="remove it, or give --report FILE")
         directory.mkdir(parents=True, exist_ok=True)
         report_path, json_path, figure_dir = directory / REPORT_NAME, directory / JSON_NAME, directory
     figures = []

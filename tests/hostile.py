@@ -292,13 +292,37 @@ MUTATIONS = {
 }
 
 
-def make_hostile(intact: Path, where: Path, name: str) -> tuple[Path, Path]:
-    """A copy of the bundle ``intact`` under ``where``, mutated by ``MUTATIONS[name]``; ``(bundle, outside)``."""
-    bundle = where / "bundle"
-    outside = where / "outside"
+def compile_intact(where: Path, *, duration="0.3", seed="5") -> Path:
+    """A small bundle ``where/b`` with every format the mutations touch (cf32, ci16, sigmf, FIR map)."""
+    code, _, stderr = run_cli(
+        ["compile", ROOT / "profiles_demo" / "warehouse-robot.yaml", "-o", where / "b", "--duration", duration,
+         "--seed", seed, "--sample-rate", "1e6", "--format", "cf32,ci16,sigmf", "--quiet"], cwd=where)
+    assert code == 0, stderr
+    return where / "b"
+
+
+def apply_mutations(intact: Path, where: Path, names) -> tuple[Path, Path]:
+    """A copy of ``intact`` under ``where`` changed by each mutation in turn; ``(bundle, outside)``.
+
+    A mutation whose target an earlier one removed or replaced is skipped.
+    """
+    bundle, outside = where / "bundle", where / "outside"
     shutil.copytree(intact, bundle, symlinks=True)
     outside.mkdir(exist_ok=True)
-    MUTATIONS[name](bundle, outside)
+    for name in names:
+        try:
+            MUTATIONS[name](bundle, outside)
+        except (FileNotFoundError, StopIteration, KeyError, TypeError, ValueError, OSError):
+            pass
+    return bundle, outside
+
+
+def make_hostile(intact: Path, where: Path, name: str) -> tuple[Path, Path]:
+    """A copy of the bundle ``intact`` under ``where``, mutated by ``MUTATIONS[name]``; ``(bundle, outside)``."""
+    bundle, outside = where / "bundle", where / "outside"
+    shutil.copytree(intact, bundle, symlinks=True)
+    outside.mkdir(exist_ok=True)
+    MUTATIONS[name](bundle, outside)  # here a failing mutation is a broken test
     return bundle, outside
 
 

@@ -35,10 +35,7 @@ CORPUS = Path(__file__).resolve().parent / "corpus"
 def intact(tmp_path_factory):
     """A small bundle with every format the mutations touch (cf32, ci16, sigmf, FIR map)."""
     where = tmp_path_factory.mktemp("intact")
-    code, _, stderr = hostile.run_cli(
-        ["compile", DEMO / "warehouse-robot.yaml", "-o", where / "b", "--duration", "0.5", "--seed", "3",
-         "--sample-rate", "1e6", "--format", "cf32,ci16,sigmf", "--quiet"], cwd=where)
-    assert code == 0, stderr
+    hostile.compile_intact(where, duration="0.5", seed="3")
     np.save(where / "rec.npy", (np.exp(2j * np.pi * 0.01 * np.arange(400))).astype(np.complex64))
     return where
 
@@ -56,6 +53,7 @@ LINK_CASES = ["tap_gains link out", "manifest link out", "fir_map link out", "si
               "tap_gains FIFO", "manifest FIFO", "fir_map FIFO", "tap_gains directory", "tap_gains link to /dev/zero"]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("case", LINK_CASES)
 def test_links_and_special_files_are_refused_by_every_reader_naming_the_file(intact, tmp_path, case):
     bundle, _ = hostile.make_hostile(intact / "b", tmp_path, case)
@@ -124,6 +122,7 @@ def test_apply_checks_the_hashes_of_the_files_it_uses_unless_told_not_to(intact,
 KILL_POINTS = ["data-written", "manifest-written", "exchanged", "manifest-removed", "file-removed"]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("point", KILL_POINTS)
 def test_a_force_killed_at_any_instant_leaves_no_partial_and_the_next_run_no_temporary(intact, tmp_path, point):
     compile_args = ["compile", DEMO / "warehouse-robot.yaml", "-o", tmp_path / "b", "--duration", "0.2",
@@ -207,6 +206,7 @@ EXTREME = {
 }
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("case", list(EXTREME))
 def test_extreme_compile_options_are_refused_before_any_large_allocation(tmp_path, case):
     profile = DEMO / ("rural-rail-line.yaml" if "1e9" in case else "warehouse-robot.yaml")
@@ -334,3 +334,15 @@ def test_every_corpus_bundle_mutation_is_refused_or_read(intact, tmp_path):
 
 def test_memory_limit_helper_is_linux_kib():
     assert resource.getrusage(resource.RUSAGE_SELF).ru_maxrss > 10 * 1024  # this process: > 10 MiB in KiB
+
+
+def test_verify_never_writes_its_report_through_a_link_in_the_bundle(intact, tmp_path):
+    import shutil
+
+    shutil.copytree(intact / "b", tmp_path / "b")
+    (tmp_path / "elsewhere").mkdir()
+    (tmp_path / "elsewhere" / "figure-01.png").write_bytes(b"not ours")
+    os.symlink(tmp_path / "elsewhere", tmp_path / "b" / "verification")
+    code, _, stderr = invoke(["verify", tmp_path / "b"])
+    assert code == 2 and "symbolic link" in stderr, stderr
+    assert [p.name for p in (tmp_path / "elsewhere").iterdir()] == ["figure-01.png"]
