@@ -74,6 +74,9 @@ MANIFEST_ALLOWANCE_BYTES = 64 * 1024  # the manifest embeds the profile; generou
 MANIFEST_ENTRY_BYTES = 2048  # per file entry (the ci16 entry, the largest, is about 1.5 KiB)
 MANIFEST_MAX_BYTES = 64 * 1024**2  # readers refuse a larger manifest.json (the writer too)
 RATE_RANGE_HZ = (1e-6, 1e15)  # update and sample rates a bundle may have (compile refuses others too)
+MAX_UPDATE_TO_DOPPLER = 1e6
+"""Largest update rate / a fading tap's maximum Doppler (compile's rate plan limit; readers check it too:
+verify's decimation and reproduce's design grow with it)."""
 SCHEMA_RESOURCE = "bundle-manifest-v1.schema.json"
 WRITER_FIELDS = (
     "format", "format_version", "tool_version", "created_utc", "update_rate_hz",
@@ -1149,6 +1152,11 @@ def _consistency_problems(manifest: dict, source: str) -> list[Problem]:
     for pointer, value in rates:
         if not low <= value <= high:
             problem(pointer, f"{value:g} Hz lies outside {low:g} to {high:g} Hz (no bundle is made so)")
+    edges = [t.get("max_doppler_hz") for t in manifest["taps"] if isinstance(t, dict) and t.get("fading") != "static"]
+    edges = [e for e in edges if isinstance(e, (int, float)) and not isinstance(e, bool) and e > 0]
+    if edges and rate / min(edges) > MAX_UPDATE_TO_DOPPLER:
+        problem("/update_rate_hz", f"{rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
+                f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x (no bundle is made so)")
     if problems:
         return problems
     if abs(manifest["duration_s"] - n / rate) > 1.0 / rate * (1 + 1e-9):
@@ -1440,5 +1448,5 @@ __all__ = [
     "BundleError", "WriteInterrupted", "parse_formats", "BundleLayout", "BundleWriter",
     "write_bundle", "Bundle", "open_bundle", "verify_integrity", "validate_manifest",
     "manifest_schema", "platform_info", "open_member", "verify_members", "member_npy", "member_raw", "member_json",
-    "MANIFEST_MAX_BYTES", "RATE_RANGE_HZ",
+    "MANIFEST_MAX_BYTES", "RATE_RANGE_HZ", "MAX_UPDATE_TO_DOPPLER",
 ]

@@ -41,6 +41,7 @@ import numpy as np
 from emucompile import fading
 from emucompile.bundle import (
     DEFAULT_MAX_SIZE_BYTES,
+    MAX_UPDATE_TO_DOPPLER,
     RATE_RANGE_HZ,
     BundleLayout,
     BundleWriter,
@@ -63,9 +64,6 @@ DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ = 1000.0
 DEFAULT_DURATION_S = 10.0
 CHUNK_SAMPLES = 1 << 16
 MAX_SEED = 2**64 - 1  # as the profile's compile.seed
-MAX_UPDATE_TO_DOPPLER = 1e6
-"""Largest update rate / a fading tap's maximum Doppler: the rate plan's size (its candidate
-factors and the linear stage's phases) grows with it, and its design takes minutes near 1e6."""
 MAX_FIR_COEFFICIENTS = 1 << 20
 """Longest FIR map (delay span x sample rate): 8 MiB per tap; no emulator takes more."""
 

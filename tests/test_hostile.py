@@ -236,7 +236,7 @@ def test_apply_takes_an_snr_of_300_db(intact, tmp_path):
     assert code == 0, stderr
 
 
-MANIFEST_CASES = ["manifest deep 1e5", "profile deep 5000", "profile deep 60", "rate 1e300 consistent",
+MANIFEST_CASES = ["manifest deep 1e5", "rate 1e14 consistent", "profile deep 5000", "profile deep 60", "rate 1e300 consistent",
                   "rate 5e-324 consistent", "manifest duplicate key", "manifest over 64 MiB",
                   "manifest 5000-digit int", "data_offset lie cf32", "data_offset huge cf32",
                   "profile delay -1e308", "seed huge"]
