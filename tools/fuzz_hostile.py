@@ -77,6 +77,8 @@ def fuzz_profiles(count: int) -> dict:
     def one(case):
         suffix, data = case
         stats["profiles"] += 1
+        if stats["profiles"] % 200 == 0:
+            print(f"  ... {stats['profiles']} profiles, {len(stats['broken'])} broken", flush=True)
         with tempfile.TemporaryDirectory() as scratch:
             path = Path(scratch) / f"p{suffix}"
             path.write_bytes(data)
@@ -127,6 +129,8 @@ def fuzz_bundles(count: int, workers: int) -> dict:
         with ThreadPoolExecutor(workers) as pool:
             for plan, results, changed in pool.map(one, enumerate(plans)):
                 stats["bundles"] += 1
+                if stats["bundles"] % 10 == 0:
+                    print(f"  ... {stats['bundles']} bundles, {len(stats['broken'])} broken", flush=True)
                 for command, code, problem in results:
                     stats["runs"] += 1
                     key = f"{command} {code}"
