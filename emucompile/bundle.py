@@ -326,6 +326,13 @@ class BundleWriter:
                 f"{outdir}: the bundle would take about {_size_text(size)}, above the limit of {_size_text(max_size_bytes)}",
                 hint="raise it with --max-size, or shorten the record / drop formats",
             )
+        manifest_bound = dict(layout.planned_files())[MANIFEST_NAME]
+        if manifest_bound > MANIFEST_MAX_BYTES:
+            raise InputError(
+                f"{outdir}: the manifest would take up to {_size_text(manifest_bound)}, above the "
+                f"{_size_text(MANIFEST_MAX_BYTES)} every reader accepts (too many files: taps x links x formats)",
+                hint="drop the sigmf format, or compile fewer taps or links",
+            )
         free = shutil.disk_usage(_existing_ancestor(self._target.parent)).free
         if size > free:
             raise InputError(f"{outdir}: the bundle needs about {_size_text(size)}, only {_size_text(free)} free on that disk")

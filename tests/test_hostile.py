@@ -346,3 +346,11 @@ def test_verify_never_writes_its_report_through_a_link_in_the_bundle(intact, tmp
     code, _, stderr = invoke(["verify", tmp_path / "b"])
     assert code == 2 and "symbolic link" in stderr, stderr
     assert [p.name for p in (tmp_path / "elsewhere").iterdir()] == ["figure-01.png"]
+
+
+def test_the_writer_refuses_a_manifest_no_reader_would_accept(tmp_path):
+    many = bd.BundleLayout(n_samples=1, n_taps=1024, update_rate_hz=1000.0, n_rx=8, n_tx=8, formats=("sigmf",))
+    assert dict(many.planned_files())["manifest.json"] > bd.MANIFEST_MAX_BYTES
+    with pytest.raises(bd.InputError, match="manifest would take"):
+        bd.BundleWriter(tmp_path / "b", many)
+    assert not (tmp_path / "b").exists()
