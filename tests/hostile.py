@@ -66,11 +66,11 @@ def digest_tree(directory: Path) -> dict:
 
 
 def _manifest(bundle: Path) -> dict:
-    return json.loads((bundle / "manifest.json").read_text())
+    return json.loads(_regular(bundle / "manifest.json").read_text())
 
 
 def _write_manifest(bundle: Path, manifest) -> None:
-    (bundle / "manifest.json").write_text(json.dumps(manifest, indent=1) if not isinstance(manifest, str) else manifest)
+    _regular(bundle / "manifest.json").write_text(json.dumps(manifest, indent=1) if not isinstance(manifest, str) else manifest)
 
 
 def _link_out(name):
@@ -183,7 +183,7 @@ def _oversized(manifest):
 
 def _npy_header_lie(dtype_text):
     def mutate(bundle: Path, outside: Path):
-        path = bundle / "tap_gains.npy"
+        path = _regular(bundle / "tap_gains.npy")
         data = bytearray(path.read_bytes())
         header_end = data.index(b"\n") + 1
         header = data[10:header_end].decode("latin1").replace("'<c8'", dtype_text)
@@ -193,16 +193,23 @@ def _npy_header_lie(dtype_text):
     return mutate
 
 
+def _regular(path: Path) -> Path:
+    """The path, if a plain file: a mutation never writes through a link or into a FIFO (it would block)."""
+    if path.is_symlink() or not path.is_file():
+        raise FileNotFoundError(path)
+    return path
+
+
 def _truncate(name, keep):
     def mutate(bundle: Path, outside: Path):
-        path = bundle / name
+        path = _regular(bundle / name)
         path.write_bytes(path.read_bytes()[:keep])
     return mutate
 
 
 def _garbage(name):
     def mutate(bundle: Path, outside: Path):
-        path = bundle / name
+        path = _regular(bundle / name)
         size = path.stat().st_size
         path.write_bytes(bytes((i * 37 + 11) % 256 for i in range(size)))
     return mutate
@@ -210,7 +217,7 @@ def _garbage(name):
 
 def _replace_bytes(name, data):
     def mutate(bundle: Path, outside: Path):
-        (bundle / name).write_bytes(data)
+        _regular(bundle / name).write_bytes(data)
     return mutate
 
 
