@@ -595,7 +595,8 @@ class ApplyResult:
 def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None = None, seed: int | None = None,
                  loop: bool = False, sample_rate_hz: float | None = None, start_s: float = 0.0,
                  between_updates: str | None = None, delay_mapping: str = "sinc", force: bool = False,
-                 progress=None, engine: str = "auto", block_samples: int = BLOCK_SAMPLES) -> ApplyResult:
+                 progress=None, engine: str = "auto", block_samples: int = BLOCK_SAMPLES,
+                 hash_check: bool = True) -> ApplyResult:
     """Pass an IQ recording through a bundle's channel and write the output beside its metadata.
 
     Parameters
@@ -629,6 +630,10 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
     progress : callable(samples_done, samples_total), optional
     engine, block_samples
         See :class:`TimeVaryingFir` and :func:`apply_channel`.
+    hash_check : bool
+        Check the size, header and SHA-256 of every bundle file used (tap
+        gains, FIR map, time-varying FIR) against the manifest first (default;
+        one read of those files). False skips the hashes only.
 
     Returns
     -------
@@ -645,13 +650,17 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
     """
     bundle = bd.open_bundle(bundle_path)
     manifest = bundle.manifest
+    problems = bd.verify_members(bundle_path, manifest, _ROLES_USED, hashes=hash_check)
+    if problems:
+        raise bd.BundleError(problems)
     recording = read_recording(input_path, n_channels=manifest["n_tx"])
     _check_recording(recording, manifest)
     rate_hz = _resolve_sample_rate(recording, sample_rate_hz, manifest, bundle_path)
     fir, fir_record = _resolve_fir_map(bundle, rate_hz, delay_mapping, bundle_path, recording.path)
     between_updates = between_updates or _target_between_updates(manifest) or "linear"
-    if snr_db is not None and not math.isfinite(snr_db):
-        raise InputError(f"--snr-db must be a finite number of dB, got {snr_db!r}")
+    if snr_db is not None and not (math.isfinite(snr_db) and abs(snr_db) <= MAX_ABS_SNR_DB):
+        raise InputError(f"--snr-db must be a finite number from -{MAX_ABS_SNR_DB:g} to {MAX_ABS_SNR_DB:g} dB, got {snr_db!r}",
+                         hint="beyond that the noise power leaves the range of float32 samples")
     if seed is not None and (isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0):
         raise InputError(f"--seed must be an integer >= 0, got {seed!r}")
     duration_s = manifest["n_samples"] / manifest["update_rate_hz"]
@@ -673,6 +682,7 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
     )
     _check_length(channel, recording, duration_s, start_s)
     paths = _output_paths(Path(output_path), recording, force)
+    _refuse_inside(paths, bundle_path)
 
     powers = _scan(recording, block_samples)
     mean_power = channel_mean_power(fir, tap_powers)
@@ -759,11 +769,13 @@ def _sigmf_paths(path: Path) -> tuple[Path, Path]:
 def _read_sigmf(path: Path) -> Recording:
     meta_path, data_path = _sigmf_paths(path)
     try:
-        metadata = json.loads(meta_path.read_text("utf-8"))
+        with open(meta_path, "rb") as handle:
+            metadata = fmt.strict_json(fmt.read_capped(handle, fmt.SIGMF_META_MAX_BYTES),
+                                       max_bytes=fmt.SIGMF_META_MAX_BYTES)
     except FileNotFoundError:
         raise InputError(f"{meta_path}: no such file (a SigMF recording needs its .sigmf-meta)") from None
-    except (OSError, UnicodeDecodeError, ValueError) as error:
-        raise InputError(f"{meta_path}: not readable SigMF metadata ({error})") from None
+    except (OSError, ValueError) as error:
+        raise InputError(f"{meta_path}: not readable SigMF metadata ({getattr(error, 'strerror', None) or error})") from None
     top = metadata.get("global") if isinstance(metadata, dict) else None
     if not isinstance(top, dict):
         raise InputError(f"{meta_path}: /global: missing; not SigMF metadata")
@@ -775,6 +787,8 @@ def _read_sigmf(path: Path) -> Recording:
     if isinstance(channels, bool) or not isinstance(channels, int) or channels < 1:
         raise InputError(f"{meta_path}: /global/core:num_channels: {channels!r} is not a count >= 1")
     rate = top.get("core:sample_rate")
+    if isinstance(rate, int) and not isinstance(rate, bool) and rate > bd.RATE_RANGE_HZ[1]:
+        rate = math.inf  # an integer beyond any rate (400 digits would not even make a float)
     if rate is not None and not (isinstance(rate, (int, float)) and math.isfinite(rate) and rate > 0):
         raise InputError(f"{meta_path}: /global/core:sample_rate: {rate!r} is not a rate > 0")
     if top.get("core:dataset"):
@@ -929,6 +943,18 @@ def _output_paths(output: Path, recording: Recording, force: bool) -> list[Path]
 
 
 _FORMAT_SUFFIX = {"npy": ".npy", "cf32": ".cf32", "sigmf": ".sigmf-meta"}
+MAX_ABS_SNR_DB = 300.0  # 1e30 in power: already beyond any float32 sample's dynamic range
+_ROLES_USED = ("tap_gains", "fir_map", "fir")  # the bundle files apply reads
+
+
+def _refuse_inside(paths: list[Path], bundle_path) -> None:
+    """Refuse an output or metadata file inside the bundle directory (it would change what it reads)."""
+    bundle = Path(bundle_path).resolve()
+    for path in paths:
+        where = path.parent.resolve() / path.name
+        if where == bundle or bundle in where.parents:
+            raise InputError(f"{path}: is inside the bundle {bundle_path}; apply never writes into the bundle it reads",
+                             hint="choose an OUTPUT outside the bundle directory")
 
 
 class _OutputWriter:

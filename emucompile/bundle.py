@@ -41,14 +41,17 @@ import contextlib
 import ctypes
 import errno
 import importlib.metadata
+import io
 import json
 import math
 import os
 import platform
 import queue
+import re
 import secrets
 import shutil
 import signal
+import stat
 import threading
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -69,6 +72,11 @@ VERIFICATION_DIRECTORY = "verification"  # verify's reports: not hashed, replace
 TEMP_MARKER = ".emucompile-tmp-"  # .gitignore ignores *.emucompile-tmp*/
 MANIFEST_ALLOWANCE_BYTES = 64 * 1024  # the manifest embeds the profile; generous upper bound
 MANIFEST_ENTRY_BYTES = 2048  # per file entry (the ci16 entry, the largest, is about 1.5 KiB)
+MANIFEST_MAX_BYTES = 64 * 1024**2  # readers refuse a larger manifest.json (the writer too)
+RATE_RANGE_HZ = (1e-6, 1e15)  # update and sample rates a bundle may have (compile refuses others too)
+MAX_UPDATE_TO_DOPPLER = 1e6
+"""Largest update rate / a fading tap's maximum Doppler (compile's rate plan limit; readers check it too:
+verify's decimation and reproduce's design grow with it)."""
 SCHEMA_RESOURCE = "bundle-manifest-v1.schema.json"
 WRITER_FIELDS = (
     "format", "format_version", "tool_version", "created_utc", "update_rate_hz",
@@ -329,6 +337,13 @@ class BundleWriter:
                 f"{outdir}: the bundle would take about {_size_text(size)}, above the limit of {_size_text(max_size_bytes)}",
                 hint="raise it with --max-size, or shorten the record / drop formats",
             )
+        manifest_bound = dict(layout.planned_files())[MANIFEST_NAME]
+        if manifest_bound > MANIFEST_MAX_BYTES:
+            raise InputError(
+                f"{outdir}: the manifest would take up to {_size_text(manifest_bound)}, above the "
+                f"{_size_text(MANIFEST_MAX_BYTES)} every reader accepts (too many files: taps x links x formats)",
+                hint="drop the sigmf format, or compile fewer taps or links",
+            )
         free = shutil.disk_usage(_existing_ancestor(self._target.parent)).free
         if size > free:
             raise InputError(f"{outdir}: the bundle needs about {_size_text(size)}, only {_size_text(free)} free on that disk")
@@ -490,9 +505,11 @@ class BundleWriter:
             if problems:
                 raise ValueError("the manifest does not validate:\n" + "\n".join(p.format() for p in problems))
             text = (json.dumps(manifest, indent=2, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
+            _fault_point("data-written")
             manifest_file = fmt.HashedFile(self._temp / MANIFEST_NAME)
             manifest_file.write(text)
             manifest_file.close()
+            _fault_point("manifest-written")
             if "sigmf" in self.layout.formats:
                 fsync_directory(self._temp / fmt.SigmfWriter.directory)
             fsync_directory(self._temp)
@@ -627,7 +644,8 @@ class BundleWriter:
                 # visible and whole, so a failure here is not a failed write.
                 fsync_directory(self._target.parent)
             if old is not None:
-                shutil.rmtree(old, ignore_errors=True)
+                _fault_point("exchanged")
+                _remove_tree(old)
         return bool(arrived)
 
     def _install_signal_handlers(self):
@@ -723,20 +741,26 @@ class Bundle:
             return self._present(self.fir, "fir")
         if name == "cf32":
             entry = self._present(self.entry("tap_gains_cf32"), name)
-            return fmt.read_cf32(self.path / entry["name"], shape, offset=entry["data_offset"])
+            return member_raw(self.path, entry, "<c8", shape)
         if name == "ci16":
             entry = self._present(self.entry("tap_gains_ci16"), name)
-            return fmt.read_ci16(self.path / entry["name"], shape, entry["quantisation"]["scale_factor"], offset=entry["data_offset"])
+            return fmt.dequantise_ci16(member_raw(self.path, entry, "<i2", (*shape, 2)),
+                                       entry["quantisation"]["scale_factor"])
         if name == "csv":
             entry = self._present(self.entry("tap_gains_csv"), name)
-            _, values, _ = fmt.read_csv(self.path / entry["name"])
+            with open_member(self.path, entry["name"]) as handle:
+                _, values, _ = fmt.read_csv(io.TextIOWrapper(io.BufferedReader(handle), encoding="ascii", newline=""))
             return values.reshape(shape)
         if name == "sigmf":
             out = np.empty(shape, dtype=np.complex64)
             for entry in self._present(self.entries("sigmf_data"), name):
-                meta = self.path / (entry["name"][: -len(".sigmf-data")] + ".sigmf-meta")
-                _, samples = fmt.read_sigmf(meta)
-                out[:, entry["rx"], entry["tx"], entry["tap"]] = samples
+                meta_name = entry["name"][: -len(".sigmf-data")] + ".sigmf-meta"
+                metadata = member_json(self.path, meta_name, max_bytes=fmt.SIGMF_META_MAX_BYTES)
+                datatype = (metadata.get("global") or {}).get("core:datatype") if isinstance(metadata, dict) else None
+                if datatype != "cf32_le":
+                    raise BundleError([Problem(str(self.path / meta_name), "/global/core:datatype",
+                                               f"{_short_repr(datatype)}; a bundle's SigMF data are cf32_le")])
+                out[:, entry["rx"], entry["tx"], entry["tap"]] = member_raw(self.path, entry, "<c8", shape[:1])
             return out
         raise ValueError(f"unknown format {name!r}; choose from npy, {', '.join(EXTRA_FORMATS)}")
 
@@ -751,14 +775,15 @@ class Bundle:
 
     def _mapped_npy(self, role, *, mmap=True):
         entry = self.entry(role)
-        path = self.path / entry["name"]
         try:
-            array = fmt.read_npy(path, mmap=mmap)
-        except (OSError, ValueError) as error:
-            raise BundleError([Problem(str(path), "", f"cannot be read: {error}")]) from None
-        if list(array.shape) != entry["shape"] or array.dtype.name != entry["dtype"]:
-            raise BundleError([Problem(str(path), "", f"corrupted or edited after compiling (holds {array.dtype.name} {list(array.shape)}, the manifest says {entry['dtype']} {entry['shape']})")])
-        return array
+            return member_npy(self.path, entry, mmap=mmap)
+        except OSError as error:
+            raise BundleError([Problem(str(self.path / entry["name"]), "", f"cannot be read: {error.strerror or error}")]) from None
+
+    def member(self, role: str, *, mmap: bool = True):
+        """The npy file of a role (e.g. ``shadowing_db``), opened safely; None when the bundle has none."""
+        entry = self.entry(role)
+        return None if entry is None else member_npy(self.path, entry, mmap=mmap)
 
 
 def open_bundle(path, *, verify: bool = False) -> Bundle:
@@ -769,7 +794,9 @@ def open_bundle(path, *, verify: bool = False) -> Bundle:
     path : str or os.PathLike
         The bundle directory.
     verify : bool
-        Also check every file's size and SHA-256 (reads all the data).
+        Also check every file's SHA-256 (reads all the data). Without it
+        every listed file is still opened (safely: no link, FIFO or device is
+        read) and its size and npy header checked against the manifest.
 
     Raises
     ------
@@ -777,15 +804,11 @@ def open_bundle(path, *, verify: bool = False) -> Bundle:
         (exit code 2) The directory is not a bundle, its manifest is invalid,
         or (with ``verify``) a file is missing or corrupted; one line per problem.
     """
-    manifest, problems = _read_manifest(Path(path))
+    manifest, problems = _read_manifest(Path(path))  # read once: what is checked is what is used
     if manifest is not None:
-        problems = validate_manifest(manifest, source=str(Path(path) / MANIFEST_NAME))
+        problems = _integrity_problems(Path(path), manifest, hashes=verify)
     if problems:
         raise BundleError(problems)
-    if verify:
-        problems = verify_integrity(path)
-        if problems:
-            raise BundleError(problems)
     return Bundle(path, manifest)
 
 
@@ -803,24 +826,53 @@ def verify_integrity(path, *, hashes: bool = True) -> list[Problem]:
     manifest, problems = _read_manifest(root)
     if manifest is None:
         return problems
+    return _integrity_problems(root, manifest, hashes=hashes)
+
+
+def _integrity_problems(root: Path, manifest: dict, *, hashes: bool) -> list[Problem]:
     problems = validate_manifest(manifest, source=str(root / MANIFEST_NAME))
+    seen = set()
     for index, entry in enumerate(manifest.get("files") or []):
         if not _is_safe_entry(entry):
             continue
-        file = root / entry["name"]
-        pointer = f"/files/{index}"
-        if not file.is_file():
-            problems.append(Problem(str(file), pointer, "missing (the manifest lists it)"))
-            continue
-        size = file.stat().st_size
-        if isinstance(entry.get("size_bytes"), int) and size != entry["size_bytes"]:
-            problems.append(Problem(str(file), pointer, f"corrupted or edited after compiling ({size} bytes, the manifest says {entry['size_bytes']})"))
-            continue
-        header_problem = _npy_header_problem(file, entry) if entry["name"].endswith(".npy") else None
-        if header_problem:
-            problems.append(Problem(str(file), pointer, f"corrupted or edited after compiling ({header_problem})"))
-        elif hashes and fmt.sha256_file(file) != entry.get("sha256"):
-            problems.append(Problem(str(file), pointer, "corrupted or edited after compiling (SHA-256 differs from the manifest)"))
+        problem = _member_problem(root, entry, hashes)
+        if problem is not None and (problem.file, problem.message) not in seen:
+            seen.add((problem.file, problem.message))  # a linked folder is named once, not per file in it
+            problems.append(Problem(problem.file, f"/files/{index}", problem.message))
+    return problems
+
+
+def _member_problem(root: Path, entry: dict, hashes: bool) -> Problem | None:
+    """What is wrong with one listed file (opened safely), or None."""
+    file = root / entry["name"]
+    try:
+        with open_member(root, entry["name"]) as handle:
+            size = os.fstat(handle.fileno()).st_size
+            if isinstance(entry.get("size_bytes"), int) and size != entry["size_bytes"]:
+                return Problem(str(file), "", f"corrupted or edited after compiling ({size} bytes, the manifest says {entry['size_bytes']})")
+            header_problem = _npy_header(handle, entry)[0] if entry["name"].endswith(".npy") else None
+            if header_problem:
+                return Problem(str(file), "", f"corrupted or edited after compiling ({header_problem})")
+            if hashes:
+                handle.seek(0)
+                if fmt.sha256_file(handle) != entry.get("sha256"):
+                    return Problem(str(file), "", "corrupted or edited after compiling (SHA-256 differs from the manifest)")
+    except BundleError as error:
+        return error.problems[0]
+    except OSError as error:
+        return Problem(str(file), "", f"cannot be read: {error.strerror or error}")
+    return None
+
+
+def verify_members(path, manifest: dict, roles, *, hashes: bool = True) -> list[Problem]:
+    """Size, header and SHA-256 of the listed files of some roles only (what a reader uses), opened safely."""
+    root = Path(path)
+    problems = []
+    for index, entry in enumerate(manifest["files"]):
+        if entry["role"] in roles:
+            problem = _member_problem(root, entry, hashes)
+            if problem is not None:
+                problems.append(Problem(problem.file, f"/files/{index}", problem.message))
     return problems
 
 
@@ -930,24 +982,185 @@ def _read_manifest(directory: Path):
     file = directory / MANIFEST_NAME
     if not directory.is_dir():
         return None, [Problem(str(directory), "", "not a directory (a bundle is a directory with a manifest.json)")]
-    if not file.is_file():
-        return None, [Problem(str(directory), "", "not an emucompile bundle: manifest.json is missing")]
     try:
-        text = file.read_text("utf-8")
-        manifest = json.loads(text, object_pairs_hook=_no_duplicate_keys, parse_constant=_no_constant)
-    except json.JSONDecodeError as error:
-        return None, [Problem(str(file), "", f"not valid JSON: {error.msg}", line=error.lineno, column=error.colno)]
-    except (OSError, UnicodeDecodeError, ValueError) as error:
-        return None, [Problem(str(file), "", f"cannot be read: {error}")]
+        with open_member(directory, MANIFEST_NAME) as handle:
+            data = fmt.read_capped(handle, MANIFEST_MAX_BYTES)
+    except BundleError as error:
+        if error.missing:
+            return None, [Problem(str(directory), "", "not an emucompile bundle: manifest.json is missing")]
+        return None, error.problems
+    except OSError as error:
+        return None, [Problem(str(file), "", f"cannot be read: {error.strerror or error}")]
+    try:
+        manifest = fmt.strict_json(data, max_bytes=MANIFEST_MAX_BYTES)
+    except ValueError as error:
+        return None, [Problem(str(file), "", f"not a readable manifest: {error}")]
     if not isinstance(manifest, dict):
         return None, [Problem(str(file), "", "not an emucompile manifest (not a JSON object)")]
     if manifest.get("format") != FORMAT_NAME:
-        return None, [Problem(str(file), "/format", f"not an emucompile bundle manifest (format {manifest.get('format')!r})")]
+        return None, [Problem(str(file), "/format", f"not an emucompile bundle manifest (format {_short_repr(manifest.get('format'))})")]
     version = manifest.get("format_version")
     if version != FORMAT_VERSION:
         hint = "written by a newer emucompile; upgrade" if isinstance(version, int) and version > FORMAT_VERSION else None
-        return None, [Problem(str(file), "/format_version", f"format_version {version!r} is not supported (this is {FORMAT_VERSION})", hint=hint)]
+        return None, [Problem(str(file), "/format_version", f"format_version {_short_repr(version)} is not supported (this is {FORMAT_VERSION})", hint=hint)]
     return manifest, []
+
+
+def _short_repr(value, limit: int = 40) -> str:
+    text = repr(value) if not isinstance(value, (dict, list)) else type(value).__name__
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+# -- the one way a bundle's files are opened for reading ------------------------------------
+
+_O_NOFOLLOW = getattr(os, "O_NOFOLLOW", 0)
+_O_NONBLOCK = getattr(os, "O_NONBLOCK", 0)
+_O_DIRECTORY = getattr(os, "O_DIRECTORY", 0)
+_O_READ = os.O_RDONLY | getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)
+
+
+class MemberError(BundleError):
+    """A listed file or folder of a bundle that may not be read: missing, a link, not regular, outside."""
+
+    def __init__(self, shown, message: str, *, missing: bool = False):
+        super().__init__([Problem(str(shown), "", message)])
+        self.missing = missing
+
+
+BundleError.missing = False
+
+
+def open_member(root, name: str):
+    """Open the file ``name`` (``/``-separated, relative) of the bundle ``root`` for reading; a binary file object.
+
+    Every reader of a bundle (verify, reproduce, apply, :class:`Bundle`) opens
+    its files here. Refused (:class:`BundleError`, exit 2, naming the file):
+    a name that is absolute or has ``.``/``..`` parts, any part that is a
+    symbolic link (never followed, so nothing resolves outside the bundle),
+    a folder that is not a directory, and a file that is not regular (a FIFO
+    would block a reader forever, a device could be anything). Folders and
+    the file are opened one below the other (``openat``) with ``O_NOFOLLOW``
+    and ``O_NONBLOCK`` where the platform has them, and checked with
+    ``fstat`` after opening; elsewhere every part is ``lstat``-ed and the
+    opened file compared with it. ``root`` itself is the user's choice and
+    may be reached through a link.
+    """
+    shown = Path(root) / name
+    parts = name.split("/") if isinstance(name, str) else []
+    if not parts or name.startswith("/") or any(part in ("", ".", "..") or "\\" in part for part in parts):
+        raise MemberError(shown, "not a plain relative name inside the bundle; not read")
+    if os.open in os.supports_dir_fd and _O_NOFOLLOW:
+        fd = _open_below(root, parts, shown)
+    else:
+        fd = _open_checked(root, parts, shown)
+    return os.fdopen(fd, "rb", buffering=0)
+
+
+def _open_below(root, parts, shown) -> int:
+    directory = os.open(root, _O_READ | _O_DIRECTORY)
+    try:
+        for depth, part in enumerate(parts):
+            last = depth == len(parts) - 1
+            here = Path(root).joinpath(*parts[: depth + 1])
+            try:
+                before = os.stat(part, dir_fd=directory, follow_symlinks=False)
+            except FileNotFoundError:
+                raise MemberError(here, "missing (the manifest lists it)", missing=True) from None
+            _refuse_kind(before.st_mode, here, folder=not last)
+            fd = os.open(part, _O_READ | _O_NOFOLLOW | _O_NONBLOCK | (0 if last else _O_DIRECTORY), dir_fd=directory)
+            after = os.fstat(fd)
+            if (after.st_dev, after.st_ino) != (before.st_dev, before.st_ino):
+                os.close(fd)
+                raise MemberError(here, "changed while it was opened; not read")
+            try:
+                _refuse_kind(after.st_mode, here, folder=not last)
+            except MemberError:
+                os.close(fd)
+                raise
+            os.close(directory)
+            directory = fd
+        fd, directory = directory, -1
+        return fd
+    except OSError as error:
+        if error.errno in (errno.ELOOP, errno.EMLINK):
+            raise MemberError(shown, "is a symbolic link; a bundle's files must be regular files inside it (not followed)") from None
+        raise
+    finally:
+        if directory >= 0:
+            os.close(directory)
+
+
+def _open_checked(root, parts, shown) -> int:
+    """The same refusals without ``openat`` (Windows): lstat every part, then compare the opened file."""
+    path = Path(root)
+    before = None
+    for depth, part in enumerate(parts):
+        path = path / part
+        try:
+            before = os.lstat(path)
+        except FileNotFoundError:
+            raise MemberError(path, "missing (the manifest lists it)", missing=True) from None
+        _refuse_kind(before.st_mode, path, folder=depth < len(parts) - 1)
+    real_root = os.path.realpath(root)
+    if os.path.commonpath([real_root, os.path.realpath(path)]) != real_root:
+        raise MemberError(shown, "resolves outside the bundle directory; not read")
+    fd = os.open(path, _O_READ | _O_NOFOLLOW | _O_NONBLOCK)
+    after = os.fstat(fd)
+    if (after.st_dev, after.st_ino) != (before.st_dev, before.st_ino) or not stat.S_ISREG(after.st_mode):
+        os.close(fd)
+        raise MemberError(shown, "changed while it was opened; not read")
+    return fd
+
+
+def _refuse_kind(mode: int, shown, *, folder: bool) -> None:
+    if stat.S_ISLNK(mode):
+        raise MemberError(shown, "is a symbolic link; a bundle's files must be regular files inside it (not followed)")
+    if folder and not stat.S_ISDIR(mode):
+        raise MemberError(shown, "is not a directory; not read")
+    if not folder and not stat.S_ISREG(mode):
+        kind = ("a FIFO" if stat.S_ISFIFO(mode) else "a directory" if stat.S_ISDIR(mode)
+                else "a socket" if stat.S_ISSOCK(mode) else "a device" if stat.S_ISCHR(mode) or stat.S_ISBLK(mode)
+                else "not a regular file")
+        raise MemberError(shown, f"is {kind}, not a regular file; not read")
+
+
+def member_npy(root, entry: dict, *, mmap: bool = True):
+    """A listed npy file of a bundle, opened safely, its header checked against the entry; memory-mapped."""
+    shown = Path(root) / entry["name"]
+    with open_member(root, entry["name"]) as handle:
+        size = os.fstat(handle.fileno()).st_size
+        problem, dtype, shape, offset = _npy_header(handle, entry)
+        if problem:
+            raise BundleError([Problem(str(shown), "", f"corrupted or edited after compiling ({problem})")])
+        if offset + int(np.prod(shape, dtype=object)) * dtype.itemsize != size:
+            raise BundleError([Problem(str(shown), "", f"corrupted or edited after compiling ({size} bytes "
+                                       f"do not hold {dtype.name} {list(shape)})")])
+        if not mmap or size == offset:
+            handle.seek(offset)
+            return np.frombuffer(handle.read(), dtype=dtype).reshape(shape).copy()
+        return np.memmap(handle, dtype=dtype, mode="r", offset=offset, shape=tuple(shape))
+
+
+def member_raw(root, entry: dict, dtype, shape):
+    """A listed headerless file (cf32, ci16) memory-mapped from its manifest ``data_offset``, opened safely."""
+    dtype = np.dtype(dtype)
+    with open_member(root, entry["name"]) as handle:
+        size = os.fstat(handle.fileno()).st_size
+        offset = entry.get("data_offset", 0)
+        if offset + int(np.prod(shape, dtype=object)) * dtype.itemsize != size:
+            raise BundleError([Problem(str(Path(root) / entry["name"]), "", f"corrupted or edited after compiling "
+                                       f"({size} bytes, data from byte {offset} hold no {list(shape)} {dtype.name})")])
+        return np.memmap(handle, dtype=dtype, mode="r", offset=offset, shape=tuple(shape))
+
+
+def member_json(root, name: str, *, max_bytes: int):
+    """A JSON file of a bundle (SigMF metadata) opened safely and read strictly (size cap, depth, duplicate keys)."""
+    with open_member(root, name) as handle:
+        data = fmt.read_capped(handle, max_bytes)
+    try:
+        return fmt.strict_json(data, max_bytes=max_bytes)
+    except ValueError as error:
+        raise BundleError([Problem(str(Path(root) / name), "", f"not readable JSON: {error}")]) from None
 
 
 def _no_duplicate_keys(pairs):
@@ -980,6 +1193,19 @@ def _consistency_problems(manifest: dict, source: str) -> list[Problem]:
     if len(manifest["taps"]) != taps:
         problem("/taps", f"lists {len(manifest['taps'])} taps, n_taps is {taps}")
     rate = manifest["update_rate_hz"]
+    low, high = RATE_RANGE_HZ
+    rates = [("/update_rate_hz", rate)] + ([("/fir/sample_rate_hz", manifest["fir"]["sample_rate_hz"])]
+                                            if manifest["fir"] is not None else [])
+    for pointer, value in rates:
+        if not low <= value <= high:
+            problem(pointer, f"{value:g} Hz lies outside {low:g} to {high:g} Hz (no bundle is made so)")
+    edges = [t.get("max_doppler_hz") for t in manifest["taps"] if isinstance(t, dict) and t.get("fading") != "static"]
+    edges = [e for e in edges if isinstance(e, (int, float)) and not isinstance(e, bool) and e > 0]
+    if edges and rate / min(edges) > MAX_UPDATE_TO_DOPPLER:
+        problem("/update_rate_hz", f"{rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
+                f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x (no bundle is made so)")
+    if problems:
+        return problems
     if abs(manifest["duration_s"] - n / rate) > 1.0 / rate * (1 + 1e-9):
         problem("/duration_s", f"{manifest['duration_s']} s disagrees with n_samples / update_rate_hz = {n / rate} s")
     files = manifest["files"]
@@ -1006,6 +1232,10 @@ def _consistency_problems(manifest: dict, source: str) -> list[Problem]:
         index, entry = found[0]
         if entry["shape"] != shape or (dtype and entry["dtype"] != dtype):
             problem(f"/files/{index}", f"{name}: {entry['dtype']} {entry['shape']}, expected {dtype or 'a float/complex'} {shape}")
+    for index, entry in enumerate(files):
+        message = _layout_problem(entry)
+        if message:
+            problem(f"/files/{index}", message)
     roles_of_format = {"cf32": "tap_gains_cf32", "ci16": "tap_gains_ci16", "csv": "tap_gains_csv", "sigmf": "sigmf_data"}
     for name, role in roles_of_format.items():
         if (name in manifest["formats"]) != (role in by_role):
@@ -1037,6 +1267,27 @@ def _fir_codes_problems(manifest: dict, found: list, source: str) -> list[Proble
     return []
 
 
+def _layout_problem(entry: dict) -> str | None:
+    """A file entry whose data_offset, shape and dtype do not add up to its size_bytes (None when they do)."""
+    offset, size, shape = entry.get("data_offset"), entry.get("size_bytes"), entry.get("shape")
+    if not (isinstance(offset, int) and isinstance(size, int)) or isinstance(offset, bool):
+        return None  # the schema speaks about types
+    if not 0 <= offset <= size:
+        return f"{entry['name']}: data_offset {offset} lies outside its {size} bytes"
+    try:
+        dtype = np.dtype(entry.get("dtype"))
+    except TypeError:
+        return None  # text, json: no fixed element size
+    if dtype.kind not in "iufc" or not isinstance(shape, list) or not all(
+            isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape):
+        return None
+    data = math.prod(shape) * dtype.itemsize
+    if offset + data != size:
+        return (f"{entry['name']}: data_offset {offset} + {data} bytes of {dtype.name} {shape} "
+                f"!= size_bytes {size}")
+    return None
+
+
 def _is_safe_entry(entry) -> bool:
     name = entry.get("name") if isinstance(entry, dict) else None
     return isinstance(name, str) and name != "" and not name.startswith("/") and all(
@@ -1044,20 +1295,21 @@ def _is_safe_entry(entry) -> bool:
     )
 
 
-def _npy_header_problem(file: Path, entry: dict) -> str | None:
+def _npy_header(handle, entry: dict):
+    """``(problem or None, dtype, shape, data offset)`` of an npy file open at its start."""
     try:
-        with open(file, "rb") as handle:
-            version = np.lib.format.read_magic(handle)
-            read_header = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
-            shape, fortran, dtype = read_header(handle)
-            offset = handle.tell()
-    except (OSError, ValueError) as error:
-        return f"npy header unreadable: {error}"
-    if list(shape) != entry.get("shape") or dtype.name != entry.get("dtype") or fortran:
-        return f"npy header says {dtype.name} {list(shape)}, the manifest {entry.get('dtype')} {entry.get('shape')}"
+        version = np.lib.format.read_magic(handle)
+        read_header = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
+        shape, fortran, dtype = read_header(handle, max_header_size=1 << 16)
+        offset = handle.tell()
+    except (OSError, ValueError, TypeError, SyntaxError) as error:
+        return f"npy header unreadable: {_short_repr(str(error), 120)}", None, None, None
+    if list(shape) != entry.get("shape") or dtype.name != entry.get("dtype") or fortran or dtype.hasobject:
+        return (f"npy header says {dtype.name} {list(shape)}, the manifest {entry.get('dtype')} {entry.get('shape')}",
+                dtype, shape, offset)
     if offset != entry.get("data_offset"):
-        return f"npy data start at byte {offset}, the manifest says {entry.get('data_offset')}"
-    return None
+        return f"npy data start at byte {offset}, the manifest says {entry.get('data_offset')}", dtype, shape, offset
+    return None, dtype, shape, offset
 
 
 def _plain_json(value):
@@ -1099,26 +1351,50 @@ def _make_parents(parent: Path) -> list[Path]:
     return made
 
 
-def _remove_stale_partials(target: Path) -> None:
-    """Remove partial siblings left by a process that died (killed), if they hold no manifest.
+_TEMP_NAME = re.compile(r"\.(?P<name>.+)" + re.escape(TEMP_MARKER) + r"(?:old-)?(?P<pid>[0-9]+)-[0-9a-f]+")
 
-    Only names of our own pattern with a dead writer PID qualify; a sibling
-    holding a manifest (an old bundle renamed aside) is left alone.
+
+def _remove_stale_partials(target: Path) -> None:
+    """Remove every temporary folder in OUTDIR's parent left by a process that died (killed).
+
+    Our names only (``.NAME.emucompile-tmp-PID-HEX`` and the ``old-PID-HEX``
+    form), any NAME, whose writer PID is not alive on this machine; whatever
+    they hold (a killed ``--force`` can leave the old bundle, or a part of it,
+    under such a name): none is a bundle anyone asked for. The manifest goes
+    first, so that a removal killed in turn leaves no complete-looking folder.
     """
-    prefix = f".{target.name}{TEMP_MARKER}"
     try:
         names = os.listdir(target.parent)
     except OSError:
         return
     for name in names:
-        if not name.startswith(prefix):
+        match = _TEMP_NAME.fullmatch(name)
+        if match is None:
             continue
-        pid_text = name[len(prefix):].split("-")[0]
+        pid = int(match.group("pid"))
         path = target.parent / name
-        if not pid_text.isdigit() or int(pid_text) == os.getpid() or _process_alive(int(pid_text)):
+        if pid == os.getpid() or _process_alive(pid) or path.is_symlink() or not path.is_dir():
             continue
-        if path.is_dir() and not path.is_symlink() and not (path / MANIFEST_NAME).exists():
-            shutil.rmtree(path, ignore_errors=True)
+        _remove_tree(path)
+
+
+def _remove_tree(path: Path) -> None:
+    """Delete a bundle-like folder, its manifest first (a kill midway leaves no complete-looking bundle)."""
+    with contextlib.suppress(OSError):
+        os.unlink(path / MANIFEST_NAME)
+    _fault_point("manifest-removed")
+    with contextlib.suppress(OSError):
+        for entry in sorted(os.scandir(path), key=lambda e: e.name):
+            if entry.is_file(follow_symlinks=False):
+                os.unlink(entry.path)
+                _fault_point("file-removed")
+    shutil.rmtree(path, ignore_errors=True)
+
+
+def _fault_point(name: str) -> None:
+    """Test hook: ``EMUCOMPILE_FAULT_KILL_AT=name`` kills this process with SIGKILL here (tests of crash safety)."""
+    if os.environ.get("EMUCOMPILE_FAULT_KILL_AT") == name:
+        os.kill(os.getpid(), getattr(signal, "SIGKILL", signal.SIGTERM))
 
 
 def _process_alive(pid: int) -> bool:
@@ -1240,5 +1516,6 @@ __all__ = [
     "FORMAT_NAME", "FORMAT_VERSION", "DEFAULT_MAX_SIZE_BYTES", "EXTRA_FORMATS", "TEMP_MARKER",
     "BundleError", "WriteInterrupted", "parse_formats", "BundleLayout", "BundleWriter",
     "write_bundle", "Bundle", "open_bundle", "verify_integrity", "validate_manifest",
-    "manifest_schema", "platform_info",
+    "manifest_schema", "platform_info", "open_member", "verify_members", "member_npy", "member_raw", "member_json",
+    "MANIFEST_MAX_BYTES", "RATE_RANGE_HZ", "MAX_UPDATE_TO_DOPPLER",
 ]

@@ -9,6 +9,7 @@ error (a bug: ``--debug`` shows its traceback).
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import sys
@@ -19,6 +20,7 @@ from emucompile._version import __version__
 from emucompile.errors import EXIT_BAD_INPUT, EmucompileError
 
 EXIT_INTERNAL = 3
+EXIT_BROKEN_PIPE = 141  # 128 + SIGPIPE, what a shell shows for a tool that stopped on a closed pipe
 
 
 class _ReportedError(click.ClickException):
@@ -34,12 +36,34 @@ class _ReportedError(click.ClickException):
             click.echo(f"emucompile: error: {line}", file=stream)
 
 
+def _debug_option(ctx, param, value):
+    """``--debug`` given after a sub-command: the same as before it."""
+    if value:
+        root = ctx.find_root()
+        root.ensure_object(dict)["debug"] = True
+    return value
+
+
+class _Command(click.Command):
+    """A sub-command that also takes ``--debug`` (placed after the sub-command's name)."""
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.params.append(click.Option(["--debug"], is_flag=True, expose_value=False, callback=_debug_option,
+                                        help="Show full tracebacks of errors (also accepted before the command)."))
+
+
 class _Group(click.Group):
     """Turns library errors into messages and exit codes; tracebacks only with --debug."""
+
+    command_class = _Command
+    group_class = type  # sub-groups are _Group too, their commands _Command
 
     def invoke(self, ctx):
         try:
             return super().invoke(ctx)
+        except BrokenPipeError:
+            _quiet_broken_pipe()
         except EmucompileError as error:
             if _debug(ctx):
                 raise
@@ -58,6 +82,18 @@ class _Group(click.Group):
                 "(this is a bug; run with --debug for the traceback and report it)",
                 EXIT_INTERNAL,
             ) from None
+
+
+def _quiet_broken_pipe():
+    """The reader of our output went away (``emucompile verify B | head -1``): end quietly, like other tools.
+
+    stdout is pointed at the null device so that the interpreter's last flush
+    does not complain; the exit status is the shell's for a SIGPIPE death (141).
+    """
+    with contextlib.suppress(OSError, ValueError):
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, sys.stdout.fileno())
+    raise click.exceptions.Exit(EXIT_BROKEN_PIPE)
 
 
 def _debug(ctx) -> bool:
@@ -209,7 +245,7 @@ def _write_card(profile, html_file, as_json):
 @click.option("-o", "--output", "outdir", required=True, metavar="OUTDIR", help="Bundle directory to create.")
 @click.option("--duration", "duration_s", type=float, metavar="SECONDS", help="Length of the record.")
 @click.option("--update-rate", "update_rate_hz", type=float, metavar="HZ", help="Rate of the tap-gain samples.")
-@click.option("--seed", type=int, help="Seed of the random streams (recorded in the manifest).")
+@click.option("--seed", type=click.IntRange(0, 2**64 - 1), help="Seed of the random streams, 0 to 2**64 - 1 (recorded in the manifest).")
 @click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ", help="Emulator signal sample rate: adds the FIR map.")
 @click.option("--delay-mapping", type=click.Choice(["sinc", "nearest"]), help="How tap delays map onto the FIR grid.")
 @click.option("--target", "target_file", metavar="FILE", help="Emulator constraints to fit the profile to.")
@@ -522,12 +558,15 @@ def presets_show(name, delay_spread_ns, output_format):
              "beside it (OUTPUT.json, or the .sigmf-meta): the bundle and its manifest's\n"
              "SHA-256, the start offset and the FIR's bulk delay, the SNR and the noise seed.\n"
              "SNR: noise power over the whole sample-rate band against the nominal output\n"
-             "power, input power x the channel's mean power.")
+             "power, input power x the channel's mean power.\n"
+             "Before replaying, the bundle files used (tap_gains.npy, fir_map.npy, fir.npy)\n"
+             "are checked against the manifest's sizes and SHA-256 (--no-hash-check skips\n"
+             "the hashes of a very long bundle); OUTPUT may not lie inside the bundle.")
 @click.argument("outdir", metavar="OUTDIR")
 @click.argument("input_file", metavar="INPUT")
 @click.option("-o", "--output", "output_file", required=True, metavar="OUTPUT", help="Output recording (the input's format).")
 @click.option("--snr-db", type=float, help="Add white Gaussian noise at this SNR.")
-@click.option("--seed", type=click.IntRange(min=0), help="Seed of the noise (drawn and recorded when absent).")
+@click.option("--seed", type=click.IntRange(0, 2**128 - 1), help="Seed of the noise (drawn and recorded when absent).")
 @click.option("--loop", is_flag=True, help="Loop the bundle when the input is longer.")
 @click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ",
               help="Sample rate of an npy/cf32 input (required there; SigMF states its own).")
@@ -537,9 +576,10 @@ def presets_show(name, delay_spread_ns, output_format):
               help="Gains between update instants (default: the bundle target's, else linear).")
 @click.option("--force", is_flag=True, help="Replace existing output files.")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
+@click.option("--no-hash-check", is_flag=True, help="Skip the SHA-256 of the bundle files used (sizes and headers are still checked).")
 @click.option("--json", "as_json", is_flag=True, help="Print the summary and the written metadata as strict JSON.")
 def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet,
-          as_json):
+          as_json, no_hash_check):
     """Pass an IQ recording through a bundle's time-varying channel."""
     from emucompile.apply import apply_bundle
 
@@ -548,6 +588,7 @@ def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, s
         result = apply_bundle(
             outdir, input_file, output_file, snr_db=snr_db, seed=seed, loop=loop, sample_rate_hz=sample_rate_hz,
             start_s=start_s, between_updates=between_updates, force=force, progress=bar.update,
+            hash_check=not no_hash_check,
         )
     if result.clipped_values:
         click.echo(f"emucompile: warning: {result.clipped_values} I/Q values clipped to the int16 full scale "

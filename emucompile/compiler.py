@@ -42,6 +42,7 @@ import numpy as np
 from emucompile import fading
 from emucompile.bundle import (
     DEFAULT_MAX_SIZE_BYTES,
+    MAX_UPDATE_TO_DOPPLER,
     BundleLayout,
     BundleWriter,
     open_bundle,
@@ -200,6 +201,7 @@ def plan_compile(
     formats_value = parse_formats(formats or ())
     mapping, rate_fs = choices.delay_mapping, choices.sample_rate_hz
 
+    _refuse_oversized(profile, rate, n_samples, formats_value, rate_fs, target_obj, max_size_bytes)
     fit = None
     acceptance = None
     grid_map = None
@@ -703,6 +705,38 @@ def _target(target, profile, sources):
 
         return target_module.load_target(target)
     return target
+
+
+def _refuse_oversized(profile, rate, n_samples, formats, rate_fs, target, max_size_bytes) -> None:
+    """Closed-form sizes, checked before anything is designed or allocated (refused, never clamped).
+
+    The rate plan grows with update rate / Doppler; the FIR map with delay span x
+    sample rate; the bundle at least by its tap gains, each extra format's copy and
+    the FIR map (lower bounds: the exact estimate follows once the map exists).
+    """
+    edges = [t.max_doppler_hz for t in profile.taps
+             if t.fading != "static" and t.max_doppler_hz is not None and t.max_doppler_hz > 0]
+    if edges and rate / min(edges) > MAX_UPDATE_TO_DOPPLER:
+        raise InputError(
+            f"update rate {rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
+            f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x of the interpolation design",
+            hint=f"use --update-rate {MAX_UPDATE_TO_DOPPLER * min(edges):g} or less; an emulator "
+                 "interpolates between updates",
+        )
+    n_fir = 0
+    if rate_fs is not None and target is None:  # its length is checked by emucompile.rules
+        delays = [t.delay_s for t in profile.taps]
+        n_fir = math.floor((max(delays) - min(delays)) * rate_fs) + 1
+    gains = n_samples * profile.n_rx * profile.n_tx * profile.n_taps * 8
+    copies = {"cf32": 1.0, "ci16": 0.5, "csv": 1.0, "sigmf": 1.0}
+    least = gains * (1 + sum(copies.get(name, 0.0) for name in formats)) + profile.n_taps * n_fir * 8
+    if "fir" in formats:
+        least += n_samples * profile.n_rx * profile.n_tx * n_fir * 8
+    if max_size_bytes is not None and least > max_size_bytes:
+        raise InputError(
+            f"the bundle would take at least {_size_text(int(least))}, above the limit of {_size_text(max_size_bytes)}",
+            hint="shorten --duration, lower --update-rate, drop formats, or raise --max-size",
+        )
 
 
 def _manifest_taps(profile, info):

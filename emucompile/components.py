@@ -22,8 +22,6 @@ Not run as a doctest: it needs a compiled bundle (``emucompile compile ... -o ou
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 
 from emucompile import mimo
@@ -52,10 +50,7 @@ class Components:
         self.n_tx = int(self.manifest["n_tx"])
         self.n_taps = int(self.manifest["n_taps"])
         self.n_links = self.n_rx * self.n_tx
-        entry = bundle.entry(SHADOWING_ROLE)
-        self._shadowing_db = None
-        if entry is not None:
-            self._shadowing_db = np.load(Path(bundle.path) / entry["name"], mmap_mode="r")
+        self._shadowing_db = bundle.member(SHADOWING_ROLE)
 
     def small_scale(self, start: int, stop: int) -> np.ndarray:
         """Stored tap gains with the shadowing divided out: (m, n_rx, n_tx, n_taps)."""

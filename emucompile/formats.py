@@ -54,6 +54,7 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import io
 import json
@@ -168,6 +169,85 @@ def ci16_scaling(tap_power_linear, tap_k_linear, *, clip_probability=DEFAULT_CLI
 # -- readers -------------------------------------------------------------------------
 
 
+MAX_JSON_DEPTH = 64  # as profiles (reader.MAX_DEPTH): nothing we write nests deeper
+MAX_JSON_INT_DIGITS = 310  # as profiles: 10**309 already exceeds the largest float
+SIGMF_META_MAX_BYTES = 16 * 1024**2  # one recording's metadata; ours take a few KiB
+
+
+def read_capped(handle, max_bytes: int) -> bytes:
+    """All of a small file's bytes, or (above ``max_bytes``) ``max_bytes + 1`` of them for the caller to refuse."""
+    wanted = min(os.fstat(handle.fileno()).st_size, max_bytes) + 1
+    chunks = []
+    while wanted > 0:
+        chunk = handle.read(min(wanted, 1 << 20))
+        if not chunk:
+            break
+        chunks.append(chunk)
+        wanted -= len(chunk)
+    return b"".join(chunks)
+
+
+def strict_json(data: bytes, *, max_bytes: int, max_depth: int = MAX_JSON_DEPTH):
+    """Parse JSON read from outside (a manifest, SigMF metadata); ``ValueError`` with one line if hostile.
+
+    Refuses, before or while parsing and without recursion: more than
+    ``max_bytes``, text that is not UTF-8, nesting deeper than ``max_depth``,
+    duplicate keys, NaN/Infinity and integers of more than 310 digits.
+    """
+    if len(data) > max_bytes:
+        raise ValueError(f"larger than the limit of {max_bytes} bytes")
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as error:
+        raise ValueError(f"not UTF-8 text (byte {error.start})") from None
+    depth = _json_depth(text)
+    if depth > max_depth:
+        raise ValueError(f"nested deeper than {max_depth} levels")
+    try:
+        return json.loads(text, object_pairs_hook=_unique_pairs, parse_constant=_refuse_constant,
+                          parse_int=_bounded_int)
+    except json.JSONDecodeError as error:
+        raise ValueError(f"not valid JSON: {error.msg} (line {error.lineno}, column {error.colno})") from None
+    except RecursionError:  # unreachable after the depth check; kept as a last guard
+        raise ValueError(f"nested deeper than {max_depth} levels") from None
+
+
+def _json_depth(text: str) -> int:
+    """Deepest bracket nesting outside strings (linear, no recursion)."""
+    import re
+
+    depth = deepest = 0
+    # strings (with escapes) are skipped whole; only brackets outside them count
+    for match in re.finditer(r'"(?:[^"\\]|\\.)*"|[\[{]|[\]}]', text):
+        token = match.group()
+        if token in "[{":
+            depth += 1
+            deepest = max(deepest, depth)
+        elif token in "]}":
+            depth -= 1
+    return deepest
+
+
+def _unique_pairs(pairs):
+    result = {}
+    for key, value in pairs:
+        if key in result:
+            raise ValueError(f"duplicate key {key!r}")
+        result[key] = value
+    return result
+
+
+def _refuse_constant(name):
+    raise ValueError(f"{name} is not JSON")
+
+
+def _bounded_int(digits: str) -> int:
+    if len(digits.lstrip("-0")) > MAX_JSON_INT_DIGITS:
+        raise ValueError(f"an integer of {len(digits)} digits (more than {MAX_JSON_INT_DIGITS})")
+    return int(digits)
+
+
+
 def read_npy(path, *, mmap: bool = True):
     """Read an npy file, memory-mapped read-only by default."""
     return np.load(path, mmap_mode="r" if mmap else None, allow_pickle=False)
@@ -184,7 +264,12 @@ def read_ci16(path, shape, scale_factor: float, *, offset: int = 0):
     ``shape`` is the shape of the gains (without the trailing I/Q axis).
     """
     codes = np.memmap(path, dtype="<i2", mode="r", offset=offset, shape=(*shape, 2))
-    gains = np.empty(tuple(shape), dtype=np.complex64)
+    return dequantise_ci16(codes, scale_factor)
+
+
+def dequantise_ci16(codes, scale_factor: float):
+    """int16 I/Q codes (..., 2) -> complex64 gains (code / scale_factor)."""
+    gains = np.empty(codes.shape[:-1], dtype=np.complex64)
     gains.real = codes[..., 0] / scale_factor
     gains.imag = codes[..., 1] / scale_factor
     return gains
@@ -197,7 +282,7 @@ def read_csv(path):
     the file's (rx, tx, tap) order; ``column_names`` are the complex columns'
     names without the ``_re``/``_im`` suffix.
     """
-    with open(path, encoding="ascii", newline="") as handle:
+    with (open(path, encoding="ascii", newline="") if isinstance(path, (str, os.PathLike)) else path) as handle:
         header = handle.readline().rstrip("\n").split(",")
         values = np.loadtxt(handle, delimiter=",", dtype=np.float64, ndmin=2)
     if header[0] != "time_s" or len(header) % 2 != 1:
@@ -228,7 +313,7 @@ def read_sigmf(meta_path):
 def sha256_file(path, *, block_bytes: int = HASH_BLOCK_BYTES) -> str:
     """SHA-256 of a file's bytes, read in blocks (bounded memory)."""
     digest = hashlib.sha256()
-    with open(path, "rb", buffering=0) as handle:
+    with (open(path, "rb", buffering=0) if isinstance(path, (str, os.PathLike)) else contextlib.nullcontext(path)) as handle:
         block = bytearray(block_bytes)
         view = memoryview(block)
         while True:
@@ -789,8 +874,8 @@ def _rounded(value: float) -> float:
 
 __all__ = [
     "CI16_FULL_SCALE", "CSV_FLOAT_FORMAT", "DEFAULT_CLIP_PROBABILITY", "DEFAULT_CSV_MAX_ROWS",
-    "SIGMF_VERSION", "Ci16Scaling", "ci16_scaling", "read_npy", "read_cf32", "read_ci16",
-    "read_csv", "read_sigmf", "sha256_file", "HashedFile", "npy_header", "write_npy_file",
+    "SIGMF_VERSION", "Ci16Scaling", "ci16_scaling", "read_npy", "read_cf32", "read_ci16", "dequantise_ci16",
+    "read_csv", "read_sigmf", "strict_json", "read_capped", "SIGMF_META_MAX_BYTES", "sha256_file", "HashedFile", "npy_header", "write_npy_file",
     "StreamWriter", "ArrayWriter", "FirWriter", "Ci16Writer", "CsvWriter", "SigmfWriter",
     "FirCodesWriter", "FIR_CODES_ROLE",
 ]

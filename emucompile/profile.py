@@ -398,7 +398,8 @@ def _check_value(document: Document, value, *, failed: bool, standard_keys=None)
         return None, problems
     broken = {pointer_tokens(p.pointer)[0] for p in problems
               if p.severity == "error" and p.pointer} | {pointer_tokens(p)[0] for p in flagged if p}
-    checker = _Checker(document, value, broken_blocks=broken, flagged=flagged, standard_keys=standard_keys)
+    checker = _Checker(document, value, broken_blocks=broken, standard_keys=standard_keys,
+                       flagged=flagged | {p.pointer for p in problems if p.severity == "error"})
     profile = checker.run(build=not failed and not any(p.severity == "error" for p in problems))
     return profile, problems + checker.problems
 
@@ -947,8 +948,15 @@ class _Checker:
                          "the truncated spectrum is used as is, renormalised to unit power")
 
     # -- across taps -------------------------------------------------------------
+    def _taps_without_errors(self, taps):
+        """The resolved taps none of whose values failed: a value that already failed
+        (delay_ns: -1e308) says nothing more, and the warning passes must not trip on it."""
+        failed = {pointer.split("/")[2] for pointer in self.flagged | {p.pointer for p in self.problems if p.severity == "error"}
+                  if pointer.startswith("/taps/")}
+        return [t for t in taps if t and t["delay_s"] is not None and str(t["index"]) not in failed]
+
     def _tap_warnings(self, taps):
-        known = [t for t in taps if t and t["delay_s"] is not None]
+        known = self._taps_without_errors(taps)
         first_at = {}
         previous = None
         for tap in known:
@@ -981,7 +989,7 @@ class _Checker:
     def _slip_warnings(self, taps):
         from emucompile.slips import slip_warnings
 
-        for pointer, message, hint in slip_warnings(self.root, taps, self.standard_keys):
+        for pointer, message, hint in slip_warnings(self.root, self._taps_without_errors(taps), self.standard_keys):
             if pointer.split("/")[1] not in self.broken_blocks:
                 self.warning(pointer, message, hint)
 

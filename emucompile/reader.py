@@ -291,7 +291,7 @@ def _parse_json(text: str, document: Document) -> None:
     # values and their positions come from the same event walk as YAML, since
     # JSON text is YAML 1.2 flow text.
     try:
-        json.loads(text, parse_constant=float)
+        json.loads(text, parse_constant=float, parse_int=len)  # syntax only: no 5000-digit int is converted
     except json.JSONDecodeError as error:
         document.problems.append(
             Problem(
@@ -332,7 +332,8 @@ def _json_without_positions(text: str, document: Document):
         return result
 
     # NaN and Infinity are kept here; the profile checks refuse them, naming their pointer.
-    value = json.loads(text, object_pairs_hook=pairs_hook, parse_constant=_JSON_NON_NUMBERS.get)
+    value = json.loads(text, object_pairs_hook=pairs_hook, parse_constant=_JSON_NON_NUMBERS.get,
+                       parse_int=_json_int)
     try:
         return _clean_strings(value, document, "", 0)
     except _Stop:
@@ -618,7 +619,10 @@ class _Builder:
                 float(value)
             except OverflowError:
                 too_large = True
-        if too_large:
+        if too_large and not any(c in text for c in ".eE"):
+            self._error(event, pointer, f"the integer {_shorten(text)} ({len(text.lstrip('+-'))} digits) is "
+                        "too large for any value of a profile", "is a digit too many?")
+        elif too_large:
             self._error(event, pointer, f"the number {_shorten(text)} is too large for a "
                         "floating-point value", "is a digit or an exponent too many?")
             return float("inf") if not text.startswith("-") else float("-inf")
@@ -727,6 +731,14 @@ def _dump_scalar(value) -> str:
             return value
         return json.dumps(value)
     raise ValueError(f"cannot write a {type(value).__name__} as YAML")
+
+
+def _json_int(digits: str):
+    """An integer of a JSON text read without positions: beyond a float's range, infinity (then refused)."""
+    value = _to_int(digits)
+    if value is _TOO_LARGE:
+        return float("-inf") if digits.startswith("-") else float("inf")
+    return value
 
 
 def _to_int(digits: str, base: int = 10):

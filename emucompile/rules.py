@@ -116,7 +116,7 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
         if cap is not None and rate > cap:
             rate = float(cap)
             sources["update_rate_hz"] = "target"
-    rate = _positive(find, "update_rate_hz", "update rate", rate, "Hz")
+    rate = _in_range(find, "update_rate_hz", "update rate", _positive(find, "update_rate_hz", "update rate", rate, "Hz"))
     if rate is not None and largest > 0:
         minimum = MIN_UPDATE_FACTOR * largest
         if rate < minimum:
@@ -134,7 +134,9 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
     duration = _pick(sources, "duration_s", duration_s, defaults.duration_s)
     duration = DEFAULT_DURATION_S if duration is None else _positive(find, "duration_s", "duration", duration, "s")
     n_samples = None
-    if duration is not None and rate is not None:
+    if duration is not None and rate is not None and not math.isfinite(duration * rate):
+        find("duration_s", f"a duration of {duration:g} s at {rate:g} Hz is more samples than any bundle holds")
+    elif duration is not None and rate is not None:
         n_samples = int(round(duration * rate))
         if n_samples < 1:
             find("duration_s", f"a duration of {duration:g} s at {rate:g} Hz gives no sample",
@@ -142,7 +144,10 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
 
     seed_value = _pick(sources, "seed", seed, defaults.seed)
     if seed_value is not None and (isinstance(seed_value, bool) or int(seed_value) != seed_value or seed_value < 0):
-        find("seed", f"seed must be an integer >= 0, got {seed_value!r}")
+        find("seed", f"seed must be an integer >= 0, got {_short_number(seed_value)}")
+        seed_value = None
+    elif seed_value is not None and seed_value > MAX_SEED:
+        find("seed", f"seed {_short_number(seed_value)} must be an integer from 0 to 2**64 - 1")
         seed_value = None
     method_value = _pick(sources, "method", method, defaults.method) or fading.DEFAULT_METHOD
     if method_value not in fading.METHODS:
@@ -151,7 +156,8 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
     mapping = _pick(sources, "delay_mapping", delay_mapping, defaults.delay_mapping)
     rate_fs = _pick(sources, "sample_rate_hz", sample_rate_hz, defaults.sample_rate_hz)
     if rate_fs is not None:
-        rate_fs = _positive(find, "sample_rate_hz", "sample rate", rate_fs, "Hz")
+        rate_fs = _in_range(find, "sample_rate_hz", "sample rate",
+                            _positive(find, "sample_rate_hz", "sample rate", rate_fs, "Hz"))
 
     conditions = profile.conditions
     moving = getattr(conditions, "moving_propagation", None)
@@ -215,6 +221,29 @@ def compile_findings(profile, *, target=None, max_size_bytes=None) -> list[Findi
     return found + list(plan.findings)
 
 
+MAX_SEED = 2**64 - 1
+"""Largest seed (as the profile's compile.seed): numpy's SeedSequence takes any size, a file need not."""
+
+
+def _in_range(find, key, what, rate):
+    """``rate`` inside :data:`emucompile.bundle.RATE_RANGE_HZ`, else a finding and None."""
+    from emucompile.bundle import RATE_RANGE_HZ
+
+    low, high = RATE_RANGE_HZ
+    if rate is not None and not low <= rate <= high:
+        find(key, f"{what} {rate:g} Hz lies outside {low:g} to {high:g} Hz")
+        return None
+    return rate
+
+
+def _short_number(value) -> str:
+    """A number for a message: a 5000-digit integer is shown by its head and its length."""
+    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 128:
+        return f"an integer of about {int(value.bit_length() * 0.30103) + 1} digits"  # repr may refuse it
+    text = repr(value)
+    return text if len(text) <= 40 else f"{text[:20]}... ({len(text)} characters)"
+
+
 def _sample_rate_rules(find, profile, rate, rate_fs, mapping):
     """The sample rate against the update rate and the tap delays."""
     if rate_fs is None:
@@ -266,11 +295,11 @@ def _pick(sources, name, option, from_profile):
 def _positive(find, key, what, value, unit):
     try:
         number = float(value)
-    except (TypeError, ValueError):
-        find(key, f"{what} must be a number, got {value!r}")
+    except (TypeError, ValueError, OverflowError):
+        find(key, f"{what} must be a finite number, got {_short_number(value)}")
         return None
     if not (number > 0 and math.isfinite(number)):
-        find(key, f"{what} must be finite and > 0 {unit}, got {value!r}")
+        find(key, f"{what} must be finite and > 0 {unit}, got {_short_number(value)}")
         return None
     return number
 

@@ -576,7 +576,9 @@ def _range_text(t: TargetResult) -> str:
         return f"[{t.low:.6g}, {t.high:.6g}] {unit}"
     if t.low is not None:
         return f">= {t.low:.6g} {unit}"
-    return f"<= {t.high:.6g} {unit}"
+    if t.high is not None:
+        return f"<= {t.high:.6g} {unit}"
+    return f"any value ({unit})"  # a tolerance so wide that both ends overflow
 
 
 __all__ = [

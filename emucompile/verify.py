@@ -458,6 +458,10 @@ def write_outputs(verification: Verification, *, directory=None, report_file=Non
         figure_dir = None
     else:
         directory = Path(directory)
+        if directory.is_symlink() or (directory.exists() and not directory.is_dir()):
+            # a bundle from elsewhere may carry verification -> somewhere else: never written through
+            raise InputError(f"{directory}: is a symbolic link or not a directory; the report is not written there",
+                             hint="remove it, or give --report FILE")
         directory.mkdir(parents=True, exist_ok=True)
         report_path, json_path, figure_dir = directory / REPORT_NAME, directory / JSON_NAME, directory
     figures = []
@@ -1011,8 +1015,9 @@ def _components_or_none(root, cautions):
 
 
 def _ci16_source(root, entry, shape, shadowing):
-    codes = np.memmap(root / entry["name"], dtype="<i2", mode="r", offset=entry["data_offset"],
-                      shape=(*shape, 2))
+    from emucompile import bundle as bd
+
+    codes = bd.member_raw(root, entry, "<i2", (*shape, 2))
     divide = None if shadowing is None else shadowing.shadowing_amplitude
     return _Ci16Source(codes, float(entry["quantisation"]["scale_factor"]), divide)
 

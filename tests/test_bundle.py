@@ -441,16 +441,25 @@ def test_chunks_are_checked(tmp_path):
     assert not (tmp_path / "b").exists() and leftovers(tmp_path) == []
 
 
-def test_stale_partials_of_dead_writers_are_cleared_but_not_an_old_bundle(tmp_path):
+def test_stale_temporary_folders_of_dead_writers_are_cleared_whatever_they_hold(tmp_path):
+    # A --force killed while deleting the old bundle leaves it (or a part with its
+    # manifest) under a temporary name: nobody asked for it, so it goes too, as does
+    # the old-PID form and a temporary folder of another name in the same parent.
     child = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
     dead_pid = int(child.stdout)  # that process has exited
     partial = tmp_path / f".b{bd.TEMP_MARKER}{dead_pid}-0000abcd"
     partial.mkdir()
     (partial / "tap_gains.npy").write_bytes(b"half")
     aside = tmp_path / f".b{bd.TEMP_MARKER}{dead_pid}-0000beef"
-    build(aside)  # holds a manifest: someone's bundle, kept
+    build(aside)
+    old_form = tmp_path / f".b{bd.TEMP_MARKER}old-{dead_pid}-0000cafe"
+    build(old_form)
+    other = tmp_path / f".c{bd.TEMP_MARKER}{dead_pid}-00001234"
+    other.mkdir()
+    alive = tmp_path / f".b{bd.TEMP_MARKER}{os.getppid()}-0000f00d"  # a live writer's: kept
+    alive.mkdir()
     build(tmp_path / "b")
-    assert not partial.exists() and aside.exists()
+    assert sorted(leftovers(tmp_path)) == [alive.name]
 
 
 def test_temporary_names_are_ignored_by_git():

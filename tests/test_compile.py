@@ -394,7 +394,7 @@ def test_summary_names_links_and_conditions(tmp_path):
 CLI_TO_API = {"target_file": "target", "max_size": "max_size_bytes", "quiet": "progress"}
 # How the summary is printed, and where the blocks are generated (the library's way to spread
 # them over a cluster is emucompile.campaign.compile_spread): nothing for compile_profile to choose.
-CLI_ONLY = {"as_json", "scheduler", "workers"}
+CLI_ONLY = {"as_json", "scheduler", "workers", "debug"}  # --debug: every command takes it
 API_ONLY = {"plan"}  # a prepared CompilePlan: nothing to type on a command line
 
 
