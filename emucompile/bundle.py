@@ -141,8 +141,10 @@ class BundleLayout:
     csv_max_rows : int or None
         ``csv`` is refused above this many rows (default 1,000,000); None lifts the limit.
     extra_arrays : tuple of (name, role, dtype, shape, make, axes)
-        Whole arrays written at the start (``make()`` returns the array), e.g.
-        ``shadowing_db.npy``.
+        Arrays along the sample axis streamed beside the gains, e.g.
+        ``shadowing_db.npy``: ``make(start, stop)`` returns rows [start, stop)
+        (shape ``(stop - start, *shape[1:])``); it is called on the caller's
+        thread for each chunk, so memory stays flat in the record's length.
     fir_maps : callable(start, stop) -> array (m, n_taps, n_fir), optional
         A time-varying FIR map (moving delay): ``fir.npy`` is then
         sum_k tap_gains[n, ..., k] fir_maps(n)[k]; ``fir_map`` stays the map
@@ -337,6 +339,7 @@ class BundleWriter:
         self._failure = None
         self._thread = None
         self._writers = []
+        self._extra_writers = []
         self._temp = None
         self._made_parents = []
         self._saved_handlers = {}
@@ -384,12 +387,10 @@ class BundleWriter:
             self._fir_map_entry = None
             if self.layout.fir_map is not None:
                 self._fir_map_entry = fmt.write_npy_file(self._temp, "fir_map.npy", "fir_map", self.layout.fir_map, ("tap", "fir_coefficient"))
-            self._extra_entries = []
-            for name, role, dtype, shape, make, axes in self.layout.extra_arrays:
-                array = np.asarray(make(), dtype=dtype)
-                if array.shape != tuple(shape):
-                    raise ValueError(f"{name}: shape {array.shape}, planned {tuple(shape)}")
-                self._extra_entries.append(fmt.write_npy_file(self._temp, name, role, array, axes))
+            self._extra_writers = [fmt.ArrayWriter(name, role, dtype, shape, axes, header=True)
+                                   for name, role, dtype, shape, _make, axes in self.layout.extra_arrays]
+            for writer in self._extra_writers:
+                writer.open(self._temp)
             if self.threaded:
                 self._thread = threading.Thread(target=self._drain, name="emucompile-bundle-writer", daemon=True)
                 self._thread.start()
@@ -404,10 +405,11 @@ class BundleWriter:
         self._require_open()
         try:
             chunk = self._checked_chunk(start, gains)
+            extras = self._extra_rows(start, start + chunk.shape[0])
             if self.threaded:
-                self._put(chunk)
+                self._put((chunk, extras))
             else:
-                self._consume(chunk)
+                self._consume((chunk, extras))
             self.samples_written += chunk.shape[0]
             if self.progress is not None:
                 self.progress(self.samples_written, self.layout.n_samples)
@@ -448,7 +450,8 @@ class BundleWriter:
             entries = [self._writers[0].close()[0]]
             if self._fir_map_entry is not None:
                 entries.append(self._fir_map_entry)
-            entries += self._extra_entries
+            for writer in self._extra_writers:
+                entries += writer.close()
             context = {
                 "taps": fields.get("taps"),
                 "recorder": f"emucompile {__version__}",
@@ -490,7 +493,7 @@ class BundleWriter:
                         self._queue.get_nowait()
                 self._queue.put(None)
                 self._thread.join()
-            for writer in self._writers:
+            for writer in self._writers + self._extra_writers:
                 writer.discard()
             if self._temp is not None:
                 shutil.rmtree(self._temp, ignore_errors=True)
@@ -521,9 +524,23 @@ class BundleWriter:
             return np.array(gains, dtype="<c8", order="C", copy=True)
         return np.ascontiguousarray(gains, dtype="<c8")
 
-    def _consume(self, chunk):
+    def _extra_rows(self, start, stop):
+        """Rows [start, stop) of each extra array, made on the caller's thread."""
+        rows = []
+        for writer, (name, _role, dtype, shape, make, _axes) in zip(self._extra_writers, self.layout.extra_arrays):
+            array = np.asarray(make(start, stop), dtype=dtype)
+            if array.shape != (stop - start, *tuple(shape)[1:]):
+                raise ValueError(f"{name}: rows of shape {array.shape} for samples [{start}, {stop}), "
+                                 f"planned {tuple(shape)}")
+            rows.append(array)
+        return rows
+
+    def _consume(self, item):
+        chunk, extras = item
         for writer in self._writers:
             writer.write(chunk)
+        for writer, rows in zip(self._extra_writers, extras):
+            writer.write_encoded(rows)
 
     def _drain(self):
         while True:

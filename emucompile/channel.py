@@ -78,6 +78,7 @@ class ChannelPlan:
         spec = getattr(conditions, "shadowing", None)
         self.shadowing_spec = spec
         self.shadowing = None
+        self._shadowing_last = (None, None, None)
         if spec is not None:
             self.shadowing = spec.generator(np.random.SeedSequence(engine.seed, spawn_key=(SHADOWING,)))
         if engine.periodic and (self.train is not None or self.moving is not None or spec is not None):
@@ -160,7 +161,11 @@ class ChannelPlan:
         """S(n) in dB (offset for the held mean or median included), float64 (m,), or None."""
         if self.shadowing is None:
             return None
-        return self.shadowing.gain_db_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+        if self._shadowing_last[:2] != (start, stop):  # the bundle writer asks again for the chunk just made
+            db = self.shadowing.gain_db_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+            db.flags.writeable = False
+            self._shadowing_last = (start, stop, db)
+        return self._shadowing_last[2]
 
     def shadowing_amplitude(self, start, stop) -> np.ndarray | None:
         db = self.shadowing_db(start, stop)

@@ -229,7 +229,7 @@ def plan_compile(
     extra = ()
     if channel.shadowing is not None:
         extra = ((SHADOWING_FILE, SHADOWING_ROLE, np.float64, (engine.n_samples,),
-                  lambda: channel.shadowing_db(0, engine.n_samples), ("sample",)),)
+                  channel.shadowing_db, ("sample",)),)
     layout = BundleLayout.from_profile(
         profile,
         n_samples=engine.n_samples,

@@ -222,6 +222,23 @@ def test_every_format_round_trips_against_the_npy(tmp_path):
     assert len(b.entries("sigmf_data")) == 2 * 2 * 3 and len(b.entries("sigmf_meta")) == 12
 
 
+def test_extra_arrays_are_streamed_chunk_by_chunk_beside_the_gains(tmp_path):
+    """An extra array (shadowing_db.npy) is asked for the rows of each chunk, never whole."""
+    asked = []
+    trajectory = np.sin(np.arange(2500) / 37.0)
+
+    def rows(start, stop):
+        asked.append((start, stop))
+        return trajectory[start:stop]
+
+    lay = layout(2500, extra_arrays=(("shadowing_db.npy", "shadowing_db", np.float64, (2500,), rows, ("sample",)),))
+    out = build(tmp_path / "b", lay, chunk=700)
+    assert asked == [(0, 700), (700, 1400), (1400, 2100), (2100, 2500)]
+    b = bd.open_bundle(out, verify=True)
+    np.testing.assert_array_equal(np.load(out / "shadowing_db.npy"), trajectory)
+    assert [e["name"] for e in b.manifest["files"]][:2] == ["tap_gains.npy", "shadowing_db.npy"]
+
+
 def test_estimated_size_bounds_the_real_size_and_is_close(tmp_path):
     lay = layout(4000, n_rx=2, formats="cf32,ci16,sigmf,fir", fir=True)
     out = build(tmp_path / "b", lay)
