@@ -148,7 +148,8 @@ class BundleLayout:
     fir_maps : callable(start, stop) -> array (m, n_taps, n_fir), optional
         A time-varying FIR map (moving delay): ``fir.npy`` is then
         sum_k tap_gains[n, ..., k] fir_maps(n)[k]; ``fir_map`` stays the map
-        at zero offset on the same grid.
+        at zero offset on the same grid. It may return the map sparse instead,
+        as ``(index, values)`` of :meth:`emucompile.grid.MovingFirMap.sparse`.
     fir_codes : dict, optional
         The emulator's integer FIR coefficients (a target with
         ``coefficient_bits``): ``{"columns", "bits", "step", "headroom_db",

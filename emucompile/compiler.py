@@ -238,7 +238,7 @@ def plan_compile(
         n_tx=profile.n_tx,
         formats=formats_value,
         fir_map=None if grid_map is None else grid_map.matrix,
-        fir_maps=grid_map.maps if moving is not None else None,
+        fir_maps=grid_map.sparse if moving is not None else None,
         extra_arrays=extra,
         fir_codes=None if fit is None else _fir_codes(fit),
         csv_max_rows=None if force else BundleLayout.__dataclass_fields__["csv_max_rows"].default,

@@ -446,13 +446,32 @@ class FirWriter(ArrayWriter):
             # A time-varying map: this writer sees the chunks in sample order.
             first = self._position
             self._position += chunk.shape[0]
-            maps = self.maps(first, self._position)  # (m, n_taps, n_fir)
-            for k in range(chunk.shape[3]):
-                accumulator += chunk[..., k, None].astype(np.complex128) * maps[:, None, None, k, :]
+            maps = self.maps(first, self._position)
+            if isinstance(maps, tuple):
+                self._add_sparse(accumulator, chunk, *maps)
+            else:  # dense (m, n_taps, n_fir)
+                for k in range(chunk.shape[3]):
+                    accumulator += chunk[..., k, None].astype(np.complex128) * maps[:, None, None, k, :]
             return accumulator.astype(np.complex64)
         for k in range(chunk.shape[3]):
             accumulator += chunk[..., k, None].astype(np.complex128) * self.fir_map[k]
         return accumulator.astype(np.complex64)
+
+
+    @staticmethod
+    def _add_sparse(accumulator, chunk, index, values):
+        """The dense sum with only each tap's 2L + 1 coefficients (index, values: (m, n_taps, 2L + 1)).
+
+        A zero coefficient adds a signed zero, which leaves every sum as it was, so
+        each column gets the same terms in the same tap order: the same bits.
+        """
+        m, n_rx, n_tx, n_fir = accumulator.shape
+        flat = accumulator.reshape(m, n_rx * n_tx, n_fir)
+        rows = np.arange(m)
+        for k in range(chunk.shape[3]):
+            gains = chunk[..., k].reshape(m, n_rx * n_tx).astype(np.complex128)
+            for o in range(index.shape[2]):  # distinct columns: each row gets one term per o
+                flat[rows, :, index[:, k, o]] += gains * values[:, k, o, None]
 
 
 class Ci16Writer(ArrayWriter):
