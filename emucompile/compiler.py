@@ -389,7 +389,7 @@ def run_plan(plan: CompilePlan, *, progress=None) -> CompileResult:
     with BundleWriter(plan.outdir, plan.layout, force=plan.force,
                       max_size_bytes=plan.max_size_bytes, progress=progress) as writer:
         for start, gains in plan.channel.chunks(CHUNK_SAMPLES):
-            writer.write_chunk(start, gains)
+            writer.write_chunk(start, gains, owned=True)  # fresh engine arrays, finite by construction
         path = writer.finish(manifest_fields(plan))
     manifest = open_bundle(path).manifest
     return CompileResult(path=Path(path), manifest=manifest, plan=plan,

@@ -440,6 +440,20 @@ def test_progress_is_reported_to_the_caller(tmp_path):
     assert seen[:4] == [(1500, 5000), (3000, 5000), (4500, 5000), (5000, 5000)] and seen[-1] == (5000, 5000)
 
 
+def test_an_owned_chunk_is_written_as_it_is_and_others_are_copied(tmp_path):
+    """owned=True (the engine's fresh chunks): no copy; otherwise the caller may reuse its buffer."""
+    lay = layout(20)
+    with bd.BundleWriter(tmp_path / "b", lay) as writer:  # threaded: the worker writes later
+        owned, borrowed = (np.full((10, 1, 1, 3), v, np.complex64) for v in (1, 2))
+        assert writer._checked_chunk(0, owned, True) is owned
+        copied = writer._checked_chunk(0, borrowed)
+        assert copied is not borrowed and not np.shares_memory(copied, borrowed)
+        writer.abort()
+    with pytest.raises(ValueError, match="NaN"):  # the type and shape are still checked; finite only if not owned
+        with bd.BundleWriter(tmp_path / "c", lay) as writer:
+            writer.write_chunk(0, np.full((10, 1, 1, 3), np.nan, np.complex64))
+
+
 def test_chunks_are_checked(tmp_path):
     lay = layout(100)
     with bd.BundleWriter(tmp_path / "b", lay) as writer:
