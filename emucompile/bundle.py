@@ -149,12 +149,15 @@ class BundleLayout:
     csv_max_rows : int or None
         ``csv`` is refused above this many rows (default 1,000,000); None lifts the limit.
     extra_arrays : tuple of (name, role, dtype, shape, make, axes)
-        Whole arrays written at the start (``make()`` returns the array), e.g.
-        ``shadowing_db.npy``.
+        Arrays along the sample axis streamed beside the gains, e.g.
+        ``shadowing_db.npy``: ``make(start, stop)`` returns rows [start, stop)
+        (shape ``(stop - start, *shape[1:])``); it is called on the caller's
+        thread for each chunk, so memory stays flat in the record's length.
     fir_maps : callable(start, stop) -> array (m, n_taps, n_fir), optional
         A time-varying FIR map (moving delay): ``fir.npy`` is then
         sum_k tap_gains[n, ..., k] fir_maps(n)[k]; ``fir_map`` stays the map
-        at zero offset on the same grid.
+        at zero offset on the same grid. It may return the map sparse instead,
+        as ``(index, values)`` of :meth:`emucompile.grid.MovingFirMap.sparse`.
     fir_codes : dict, optional
         The emulator's integer FIR coefficients (a target with
         ``coefficient_bits``): ``{"columns", "bits", "step", "headroom_db",
@@ -352,6 +355,7 @@ class BundleWriter:
         self._failure = None
         self._thread = None
         self._writers = []
+        self._extra_writers = []
         self._temp = None
         self._made_parents = []
         self._saved_handlers = {}
@@ -399,30 +403,33 @@ class BundleWriter:
             self._fir_map_entry = None
             if self.layout.fir_map is not None:
                 self._fir_map_entry = fmt.write_npy_file(self._temp, "fir_map.npy", "fir_map", self.layout.fir_map, ("tap", "fir_coefficient"))
-            self._extra_entries = []
-            for name, role, dtype, shape, make, axes in self.layout.extra_arrays:
-                array = np.asarray(make(), dtype=dtype)
-                if array.shape != tuple(shape):
-                    raise ValueError(f"{name}: shape {array.shape}, planned {tuple(shape)}")
-                self._extra_entries.append(fmt.write_npy_file(self._temp, name, role, array, axes))
+            self._extra_writers = [fmt.ArrayWriter(name, role, dtype, shape, axes, header=True)
+                                   for name, role, dtype, shape, _make, axes in self.layout.extra_arrays]
+            for writer in self._extra_writers:
+                writer.open(self._temp)
             if self.threaded:
                 self._thread = threading.Thread(target=self._drain, name="emucompile-bundle-writer", daemon=True)
                 self._thread.start()
         except BaseException as error:
             self._fail(error)
 
-    def write_chunk(self, start: int, gains) -> None:
+    def write_chunk(self, start: int, gains, *, owned: bool = False) -> None:
         """Append ``gains`` (complex64, shape (m, n_rx, n_tx, n_taps)) at sample ``start``.
 
         Chunks come in order: ``start`` must equal the samples written so far.
+        ``owned=True`` hands over a new C-ordered array that nobody changes
+        afterwards and that is finite by construction (the engine's own
+        chunks): it is then written as it is, without the check for NaN or
+        infinity and without the copy.
         """
         self._require_open()
         try:
-            chunk = self._checked_chunk(start, gains)
+            chunk = self._checked_chunk(start, gains, owned)
+            extras = self._extra_rows(start, start + chunk.shape[0])
             if self.threaded:
-                self._put(chunk)
+                self._put((chunk, extras))
             else:
-                self._consume(chunk)
+                self._consume((chunk, extras))
             self.samples_written += chunk.shape[0]
             if self.progress is not None:
                 self.progress(self.samples_written, self.layout.n_samples)
@@ -492,7 +499,8 @@ class BundleWriter:
             entries = [self._writers[0].close()[0]]
             if self._fir_map_entry is not None:
                 entries.append(self._fir_map_entry)
-            entries += self._extra_entries
+            for writer in self._extra_writers:
+                entries += writer.close()
             context = {
                 "taps": fields.get("taps"),
                 "recorder": f"emucompile {__version__}",
@@ -536,7 +544,7 @@ class BundleWriter:
                         self._queue.get_nowait()
                 self._queue.put(None)
                 self._thread.join()
-            for writer in self._writers:
+            for writer in self._writers + self._extra_writers:
                 writer.discard()
             if self._temp is not None:
                 shutil.rmtree(self._temp, ignore_errors=True)
@@ -551,7 +559,7 @@ class BundleWriter:
         if self._state != "open":
             raise RuntimeError(f"BundleWriter is {self._state}; use it as a context manager or call start()")
 
-    def _checked_chunk(self, start, gains):
+    def _checked_chunk(self, start, gains, owned=False):
         if not isinstance(gains, np.ndarray) or gains.dtype != np.complex64:
             raise TypeError(f"a chunk must be a complex64 numpy array, got {type(gains).__name__} {getattr(gains, 'dtype', '')}")
         expected = self.layout.gains_shape[1:]
@@ -561,15 +569,31 @@ class BundleWriter:
             raise ValueError(f"chunk starts at sample {start}, expected {self.samples_written} (chunks come in order)")
         if start + gains.shape[0] > self.layout.n_samples:
             raise ValueError(f"chunk ends at sample {start + gains.shape[0]}, past n_samples = {self.layout.n_samples}")
+        if owned and gains.flags.c_contiguous and gains.dtype == np.dtype("<c8"):
+            return gains
         if not np.isfinite(gains).all():
             raise ValueError(f"the chunk at sample {start} holds NaN or infinity")
         if self.threaded:
             return np.array(gains, dtype="<c8", order="C", copy=True)
         return np.ascontiguousarray(gains, dtype="<c8")
 
-    def _consume(self, chunk):
+    def _extra_rows(self, start, stop):
+        """Rows [start, stop) of each extra array, made on the caller's thread."""
+        rows = []
+        for writer, (name, _role, dtype, shape, make, _axes) in zip(self._extra_writers, self.layout.extra_arrays):
+            array = np.asarray(make(start, stop), dtype=dtype)
+            if array.shape != (stop - start, *tuple(shape)[1:]):
+                raise ValueError(f"{name}: rows of shape {array.shape} for samples [{start}, {stop}), "
+                                 f"planned {tuple(shape)}")
+            rows.append(array)
+        return rows
+
+    def _consume(self, item):
+        chunk, extras = item
         for writer in self._writers:
             writer.write(chunk)
+        for writer, rows in zip(self._extra_writers, extras):
+            writer.write_encoded(rows)
 
     def _drain(self):
         while True:

@@ -41,6 +41,8 @@ from emucompile.fading._streams import SHADOWING
 
 SHADOWING_FILE = "shadowing_db.npy"
 SHADOWING_ROLE = "shadowing_db"
+_SUB_BLOCK_ELEMENTS = 1 << 15
+"""Gains (links x taps x samples) worked on at once in :meth:`ChannelPlan.block`: 512 KiB of complex128."""
 
 
 class ChannelPlan:
@@ -78,6 +80,7 @@ class ChannelPlan:
         spec = getattr(conditions, "shadowing", None)
         self.shadowing_spec = spec
         self.shadowing = None
+        self._shadowing_last = (None, None, None)
         if spec is not None:
             self.shadowing = spec.generator(np.random.SeedSequence(engine.seed, spawn_key=(SHADOWING,)))
         if engine.periodic and (self.train is not None or self.moving is not None or spec is not None):
@@ -86,6 +89,7 @@ class ChannelPlan:
         self._follows = self.moving is not None and self.moving.carrier_follows
         self.plain = setup is None and not self.train_taps and not self._follows and spec is None
         self._amps = [_amplitudes(t) for t in profile.taps]
+        self._diffuse_amps = np.array([a_s for _, a_s in self._amps])
         info = engine.tap_info()
         self._phase0 = [math.radians(i.get("los_phase_deg") or 0.0) for i in info]
 
@@ -94,11 +98,30 @@ class ChannelPlan:
         """Tap gains at samples [start, stop): complex64 (m, n_rx, n_tx, n_taps)."""
         if self.plain:
             return self.engine.block(start, stop).reshape(stop - start, 1, 1, self.n_taps)
-        total = self.small_scale_links(start, stop)
+        # Link by link in contiguous (m, n_taps) slabs over sub-blocks of samples that stay in
+        # cache, each written once into the bundle's axes; the same operations on the same
+        # operands as small_scale_links (elementwise, so the sub-blocks do not change the bits).
+        m = stop - start
+        rotation = self._rotation(start, stop)
+        streams = [self.engine.diffuse(start, stop, link) for link in range(self.n_links)]
+        products = {j: column[:, None] * self.direct_response[None, :]
+                    for j, column in self._direct_columns(start, stop, rotation).items()}
         amplitude = self.shadowing_amplitude(start, stop)
-        if amplitude is not None:
-            total *= amplitude[:, None, None]
-        return self.to_axes(total.astype(np.complex64))
+        out = np.empty((m, self.n_rx, self.n_tx, self.n_taps), np.complex64)
+        step = max(1, _SUB_BLOCK_ELEMENTS // (self.n_links * self.n_taps))
+        for a in range(0, m, step):
+            b = min(a + step, m)
+            diffuse = self._correlate([s[a:b] for s in streams], None if rotation is None else rotation[a:b])
+            direct = np.zeros((b - a, self.n_taps), np.complex128)
+            for link in range(self.n_links):
+                for j, product in products.items():
+                    direct[:, j] = product[a:b, link]
+                total = np.add(direct, diffuse[link], out=diffuse[link])
+                if amplitude is not None:
+                    total *= amplitude[a:b, None]
+                tx, rx = divmod(link, self.n_rx)  # link order of to_axes
+                out[a:b, rx, tx, :] = total
+        return out
 
     def chunks(self, chunk_size: int):
         """Yield ``(first_index, gains)`` over the record in order (gains as :meth:`block`)."""
@@ -117,38 +140,51 @@ class ChannelPlan:
         """The deterministic direct part a_d c_l exp(j phi(n)) r(n): complex128 (m, n_links, n_taps)."""
         m = stop - start
         out = np.zeros((m, self.n_links, self.n_taps), np.complex128)
-        has_direct = [j for j, (a_d, _) in enumerate(self._amps) if a_d > 0]
-        if not has_direct:
-            return out
-        phasors = self.engine.direct(start, stop).astype(np.complex128)
-        if self.train_taps:
-            phase = self.train.phase_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
-            for j in self.train_taps:
-                phasors[:, j] = np.exp(1j * (phase + self._phase0[j]))
-        rotation = self._rotation(start, stop)
-        for j in has_direct:
-            column = self._amps[j][0] * phasors[:, j]
-            if rotation is not None:
-                column = column * rotation
+        for j, column in self._direct_columns(start, stop, self._rotation(start, stop)).items():
             out[:, :, j] = column[:, None] * self.direct_response[None, :]
         return out
 
     def diffuse_links(self, start, stop) -> np.ndarray:
         """The correlated diffuse part a_s (S w)_l r(n): complex128 (m, n_links, n_taps)."""
-        m = stop - start
-        streams = np.empty((m, self.n_links, self.n_taps), np.complex128)
-        for link in range(self.n_links):
-            streams[:, link, :] = self.engine.diffuse(start, stop, link)
+        return self._diffuse_slabs(start, stop, self._rotation(start, stop)).transpose(1, 0, 2)
+
+    def _direct_columns(self, start, stop, rotation) -> dict:
+        """{tap: a_d exp(j phi(n)) r(n)}, complex128 (m,), for the taps with a direct part."""
+        has_direct = [j for j, (a_d, _) in enumerate(self._amps) if a_d > 0]
+        if not has_direct:
+            return {}
+        phasors = self.engine.direct(start, stop).astype(np.complex128)
+        if self.train_taps:
+            phase = self.train.phase_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+            for j in self.train_taps:
+                phasors[:, j] = np.exp(1j * (phase + self._phase0[j]))
+        columns = {}
+        for j in has_direct:
+            column = self._amps[j][0] * phasors[:, j]
+            if rotation is not None:
+                column = column * rotation
+            columns[j] = column
+        return columns
+
+    def _diffuse_slabs(self, start, stop, rotation) -> np.ndarray:
+        """a_s (S w)_l r(n) link-major: complex128 (n_links, m, n_taps), each link contiguous."""
+        return self._correlate([self.engine.diffuse(start, stop, link) for link in range(self.n_links)], rotation)
+
+    def _correlate(self, unit_streams, rotation) -> np.ndarray:
+        """a_s (S w)_l r(n) from the links' unit streams w (each (m, n_taps)): complex128 (n_links, m, n_taps)."""
+        streams = np.empty((self.n_links, *unit_streams[0].shape), np.complex128)
+        for link, stream in enumerate(unit_streams):
+            streams[link] = stream
         out = np.zeros_like(streams)
+        term = np.empty(streams.shape[1:], np.complex128)
         root = self.square_root
         for row in range(self.n_links):  # explicit sum in link order: same bits for any m
             for k in range(self.n_links):
                 if root[row, k] != 0:
-                    out[:, row, :] += root[row, k] * streams[:, k, :]
-        out *= np.array([a_s for _, a_s in self._amps])[None, None, :]
-        rotation = self._rotation(start, stop)
+                    out[row] += np.multiply(root[row, k], streams[k], out=term)
+        out *= self._diffuse_amps[None, None, :]
         if rotation is not None:
-            out *= rotation[:, None, None]
+            out *= rotation[None, :, None]
         return out
 
     def unit_diffuse_links(self, start, stop, tap) -> np.ndarray:
@@ -160,7 +196,11 @@ class ChannelPlan:
         """S(n) in dB (offset for the held mean or median included), float64 (m,), or None."""
         if self.shadowing is None:
             return None
-        return self.shadowing.gain_db_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+        if self._shadowing_last[:2] != (start, stop):  # the bundle writer asks again for the chunk just made
+            db = self.shadowing.gain_db_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+            db.flags.writeable = False
+            self._shadowing_last = (start, stop, db)
+        return self._shadowing_last[2]
 
     def shadowing_amplitude(self, start, stop) -> np.ndarray | None:
         db = self.shadowing_db(start, stop)

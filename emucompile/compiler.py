@@ -231,7 +231,7 @@ def plan_compile(
     extra = ()
     if channel.shadowing is not None:
         extra = ((SHADOWING_FILE, SHADOWING_ROLE, np.float64, (engine.n_samples,),
-                  lambda: channel.shadowing_db(0, engine.n_samples), ("sample",)),)
+                  channel.shadowing_db, ("sample",)),)
     layout = BundleLayout.from_profile(
         profile,
         n_samples=engine.n_samples,
@@ -240,7 +240,7 @@ def plan_compile(
         n_tx=profile.n_tx,
         formats=formats_value,
         fir_map=None if grid_map is None else grid_map.matrix,
-        fir_maps=grid_map.maps if moving is not None else None,
+        fir_maps=grid_map.sparse if moving is not None else None,
         extra_arrays=extra,
         fir_codes=None if fit is None else _fir_codes(fit),
         csv_max_rows=None if force else BundleLayout.__dataclass_fields__["csv_max_rows"].default,
@@ -393,7 +393,7 @@ def run_plan(plan: CompilePlan, *, progress=None) -> CompileResult:
     with BundleWriter(plan.outdir, plan.layout, force=plan.force,
                       max_size_bytes=plan.max_size_bytes, progress=progress) as writer:
         for start, gains in plan.channel.chunks(CHUNK_SAMPLES):
-            writer.write_chunk(start, gains)
+            writer.write_chunk(start, gains, owned=True)  # fresh engine arrays, finite by construction
         path = writer.finish(manifest_fields(plan))
     manifest = open_bundle(path).manifest
     return CompileResult(path=Path(path), manifest=manifest, plan=plan,

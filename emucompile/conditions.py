@@ -37,8 +37,10 @@ Decisions
   recursion, exact for an exponential autocorrelation sampled on a uniform
   grid. Innovations come from a seed keyed by block of nodes, so node k is
   the same however far the precomputation went; reaching node k costs O(k)
-  once (about 10 ns a node with ``scipy.signal.lfilter``), then any time span
-  is read from the cache. Between nodes the dB value is interpolated
+  once (about 10 ns a node with ``scipy.signal.lfilter``); only the blocks of
+  the last request are kept, with the last node of every block reached (the
+  AR(1) state to recompute any block alone), so memory stays flat in the
+  record's length. Between nodes the dB value is interpolated
   linearly, which lowers the variance by at most (1 - rho)/2 = 1.5 % midway
   (0.8 % in sigma) with 32 nodes per decorrelation distance.
 * **Verify: large scale apart from small scale.** Shadowing is one factor
@@ -377,7 +379,12 @@ class LogNormalShadowing:
         self.hold = hold
         self.nodes_per_decorrelation = int(nodes_per_decorrelation)
         self._seed = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
+        # Only the node blocks of the last request are held (memory flat in duration), with the
+        # last node of every block computed so far: the AR(1) state from which any block is
+        # recomputed alone, with the same bits as in sequence.
         self._nodes = np.empty(0)
+        self._first_block = 0
+        self._block_ends: list[float] = []
 
     @property
     def offset_db(self) -> float:
@@ -401,8 +408,10 @@ class LogNormalShadowing:
         """Zero-mean node values (dB, without ``offset_db``) of nodes first .. first+count-1."""
         if first < 0 or count < 0:
             raise InputError("shadowing: node indices must be >= 0")
-        self._extend(first + count)
-        return self._nodes[first:first + count].copy()
+        if count == 0:
+            return np.empty(0)
+        base = self._cover(first, first + count)
+        return self._nodes[first - base:first - base + count].copy()
 
     def gain_db(self, time_s) -> np.ndarray:
         """S(v t) + offset_db, in dB, at the given times (>= 0)."""
@@ -412,8 +421,11 @@ class LogNormalShadowing:
         position = t * self.speed_mps / self.node_spacing_m  # in node units
         below = np.floor(position).astype(np.int64)
         fraction = position - below
-        top = int(below.max()) + 2 if below.size else 1
-        self._extend(top)
+        if below.size == 0:
+            return fraction + self.offset_db
+        base = self._cover(int(below.min()), int(below.max()) + 2)
+        if base:
+            below = below - base
         value = (1.0 - fraction) * self._nodes[below] + fraction * self._nodes[below + 1]
         return value + self.offset_db
 
@@ -443,27 +455,36 @@ class LogNormalShadowing:
                           "linear interpolation in dB between nodes",
         }
 
-    def _extend(self, count: int):
-        """Make sure nodes 0 .. count-1 exist (exact AR(1), innovations keyed by block)."""
-        have = self._nodes.size
-        if count <= have:
-            return
+    def _cover(self, first: int, stop: int) -> int:
+        """Hold nodes first .. stop-1 (and no block outside them); return the index of the first held node."""
+        size = self._BLOCK_NODES
+        lo, hi = first // size, -(-stop // size)
+        held = self._nodes.size // size
+        if not (self._first_block <= lo and hi <= self._first_block + held):
+            blocks = [self._nodes[(b - self._first_block) * size:(b - self._first_block + 1) * size]
+                      if self._first_block <= b < self._first_block + held else self._block_values(b)
+                      for b in range(lo, hi)]
+            self._nodes = blocks[0] if len(blocks) == 1 else np.concatenate(blocks)
+            self._first_block = lo
+        return self._first_block * size
+
+    def _block_values(self, block: int) -> np.ndarray:
+        """Node values of one block (exact AR(1), innovations keyed by block), from the previous block's end."""
+        while len(self._block_ends) < block:  # the AR(1) state at the block's start, computed once
+            self._block_values(len(self._block_ends))
         rho = self.node_correlation
         gain = self.sigma_db * math.sqrt(1.0 - rho * rho)
-        blocks = [self._nodes]
-        last = self._nodes[-1] if have else None
-        for block in range(have // self._BLOCK_NODES, -(-count // self._BLOCK_NODES)):
-            innovations = self._block_innovations(block)
-            if last is None:
-                # Node 0 drawn from the stationary law, the rest by the recursion.
-                start = np.array([self.sigma_db * innovations[0]])
-                rest, _ = signal.lfilter([gain], [1.0, -rho], innovations[1:], zi=[rho * start[0]])
-                values = np.concatenate([start, rest])
-            else:
-                values, _ = signal.lfilter([gain], [1.0, -rho], innovations, zi=[rho * last])
-            blocks.append(values)
-            last = values[-1]
-        self._nodes = np.concatenate(blocks)
+        innovations = self._block_innovations(block)
+        if block == 0:
+            # Node 0 drawn from the stationary law, the rest by the recursion.
+            start = np.array([self.sigma_db * innovations[0]])
+            rest, _ = signal.lfilter([gain], [1.0, -rho], innovations[1:], zi=[rho * start[0]])
+            values = np.concatenate([start, rest])
+        else:
+            values, _ = signal.lfilter([gain], [1.0, -rho], innovations, zi=[rho * self._block_ends[block - 1]])
+        if len(self._block_ends) == block:
+            self._block_ends.append(values[-1])
+        return values
 
     def _block_innovations(self, block: int) -> np.ndarray:
         key = np.random.SeedSequence(self._seed.entropy, spawn_key=tuple(self._seed.spawn_key) + (block,))

@@ -549,13 +549,32 @@ class FirWriter(ArrayWriter):
             # A time-varying map: this writer sees the chunks in sample order.
             first = self._position
             self._position += chunk.shape[0]
-            maps = self.maps(first, self._position)  # (m, n_taps, n_fir)
-            for k in range(chunk.shape[3]):
-                accumulator += chunk[..., k, None].astype(np.complex128) * maps[:, None, None, k, :]
+            maps = self.maps(first, self._position)
+            if isinstance(maps, tuple):
+                self._add_sparse(accumulator, chunk, *maps)
+            else:  # dense (m, n_taps, n_fir)
+                for k in range(chunk.shape[3]):
+                    accumulator += chunk[..., k, None].astype(np.complex128) * maps[:, None, None, k, :]
             return accumulator.astype(np.complex64)
         for k in range(chunk.shape[3]):
             accumulator += chunk[..., k, None].astype(np.complex128) * self.fir_map[k]
         return accumulator.astype(np.complex64)
+
+
+    @staticmethod
+    def _add_sparse(accumulator, chunk, index, values):
+        """The dense sum with only each tap's 2L + 1 coefficients (index, values: (m, n_taps, 2L + 1)).
+
+        A zero coefficient adds a signed zero, which leaves every sum as it was, so
+        each column gets the same terms in the same tap order: the same bits.
+        """
+        m, n_rx, n_tx, n_fir = accumulator.shape
+        flat = accumulator.reshape(m, n_rx * n_tx, n_fir)
+        rows = np.arange(m)
+        for k in range(chunk.shape[3]):
+            gains = chunk[..., k].reshape(m, n_rx * n_tx).astype(np.complex128)
+            for o in range(index.shape[2]):  # distinct columns: each row gets one term per o
+                flat[rows, :, index[:, k, o]] += gains * values[:, k, o, None]
 
 
 class Ci16Writer(ArrayWriter):
@@ -574,20 +593,30 @@ class Ci16Writer(ArrayWriter):
         self._error = np.zeros(n_taps)
         self._clipped = np.zeros(n_taps, dtype=np.int64)
 
-    _block_elements = 1 << 20  # float64 temporaries of about 8 MiB each
+    _block_elements = 1 << 15  # codes per block: float64 buffers of 256 KiB, kept in cache and reused
 
     def encode(self, chunk):
-        components = chunk.view(np.float32).reshape(*chunk.shape, 2).astype(np.float64)
-        scaled = components * self.scaling.scale_factor
-        codes = np.rint(scaled)
-        over = np.abs(codes) > CI16_FULL_SCALE
-        np.clip(codes, -CI16_FULL_SCALE, CI16_FULL_SCALE, out=codes)
-        error = (scaled - codes) / self.scaling.scale_factor
-        links_samples_iq = (0, 1, 2, 4)
-        self._clipped += over.sum(axis=links_samples_iq)
-        self._signal += np.square(components).sum(axis=links_samples_iq)
-        self._error += np.square(error).sum(axis=links_samples_iq)
+        # The same float64 arithmetic as ever (so the same codes: float32 -> float64 is exact,
+        # one product, round half to even), in place in reused buffers; bytes unchanged.
+        components = chunk.view(np.float32).reshape(*chunk.shape, 2)
+        scaled, codes, square = self._buffers(components.shape)
+        np.multiply(components, np.float64(self.scaling.scale_factor), out=scaled)
+        np.rint(scaled, out=codes)
+        if codes.max(initial=0.0) > CI16_FULL_SCALE or codes.min(initial=0.0) < -CI16_FULL_SCALE:
+            self._clipped += _per_tap_sum(np.abs(codes) > CI16_FULL_SCALE)
+            np.clip(codes, -CI16_FULL_SCALE, CI16_FULL_SCALE, out=codes)
+        self._signal += _per_tap_sum(np.square(components, out=square, dtype=np.float64))
+        error = np.subtract(scaled, codes, out=scaled)
+        error /= self.scaling.scale_factor
+        self._error += _per_tap_sum(np.square(error, out=square))
         return codes.astype("<i2")
+
+    def _buffers(self, shape):
+        """Three float64 work arrays of ``shape`` (views of one buffer reused from block to block)."""
+        size = math.prod(shape)
+        if getattr(self, "_work", None) is None or self._work.shape[1] < size:
+            self._work = np.empty((3, size))
+        return tuple(self._work[i, :size].reshape(shape) for i in range(3))
 
     def close(self, **context) -> list[dict]:
         entries = super().close()
@@ -858,6 +887,12 @@ def _entry(name, role, dtype, shape, byte_order, data_offset, size_bytes, sha256
 
 def _dtype_name(dtype) -> str:
     return np.dtype(dtype).newbyteorder("=").name
+
+
+def _per_tap_sum(values):
+    """Sums over (sample, rx, tx, iq) of an array (m, n_rx, n_tx, n_taps, 2), per tap; row sums run contiguous."""
+    n_taps = values.shape[3]
+    return values.reshape(-1, 2 * n_taps).sum(axis=0).reshape(n_taps, 2).sum(axis=1)
 
 
 def _db_ratio(numerator: float, denominator: float) -> float | None:

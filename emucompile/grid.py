@@ -436,6 +436,24 @@ class MovingFirMap:
 
     def maps(self, start: int, stop: int) -> np.ndarray:
         """The map at every update of [start, stop): float64 (m, n_taps, n_fir)."""
+        index, values = self.sparse(start, stop)
+        out = np.zeros((*index.shape[:2], self.n_fir))
+        np.put_along_axis(out, index, values, axis=-1)
+        # put_along_axis keeps the last write at a repeated index; index 0 repeats only where
+        # outside, whose value is 0, so restore any real coefficient at index 0.
+        at_zero = (index == 0) & (values != 0.0)
+        if at_zero.any():
+            out[..., 0] = np.sum(np.where(at_zero, values, 0.0), axis=-1)
+        return out
+
+    def sparse(self, start: int, stop: int) -> tuple[np.ndarray, np.ndarray]:
+        """The same map as :meth:`maps`, as the 2L + 1 coefficients a tap can have.
+
+        Returns ``(index, values)``, int64 and float64 (m, n_taps, 2L + 1):
+        row k of the map at update n holds ``values[n, k, o]`` at column
+        ``index[n, k, o]`` (offsets o in increasing column order); a
+        coefficient outside the grid has value 0 at column 0.
+        """
         c = self.centres(start, stop)
         half, beta = self.grid.half_length, self.grid.kaiser_beta
         whole = np.floor(c)
@@ -450,14 +468,7 @@ class MovingFirMap:
         values = np.where(np.abs(x) < half, window * sinc, 0.0)
         index = whole[..., None].astype(np.int64) + offsets
         inside = (index >= 0) & (index < self.n_fir)
-        out = np.zeros((*c.shape, self.n_fir))
-        np.put_along_axis(out, np.where(inside, index, 0), np.where(inside, values, 0.0), axis=-1)
-        # put_along_axis keeps the last write at a repeated index; index 0 repeats only where
-        # outside, whose value is 0, so restore any real coefficient at index 0.
-        at_zero = inside & (index == 0)
-        if at_zero.any():
-            out[..., 0] = np.sum(np.where(at_zero, values, 0.0), axis=-1)
-        return out
+        return np.where(inside, index, 0), np.where(inside, values, 0.0)
 
     def manifest_entry(self) -> dict:
         entry = self.grid.manifest_entry()

@@ -222,6 +222,23 @@ def test_every_format_round_trips_against_the_npy(tmp_path):
     assert len(b.entries("sigmf_data")) == 2 * 2 * 3 and len(b.entries("sigmf_meta")) == 12
 
 
+def test_extra_arrays_are_streamed_chunk_by_chunk_beside_the_gains(tmp_path):
+    """An extra array (shadowing_db.npy) is asked for the rows of each chunk, never whole."""
+    asked = []
+    trajectory = np.sin(np.arange(2500) / 37.0)
+
+    def rows(start, stop):
+        asked.append((start, stop))
+        return trajectory[start:stop]
+
+    lay = layout(2500, extra_arrays=(("shadowing_db.npy", "shadowing_db", np.float64, (2500,), rows, ("sample",)),))
+    out = build(tmp_path / "b", lay, chunk=700)
+    assert asked == [(0, 700), (700, 1400), (1400, 2100), (2100, 2500)]
+    b = bd.open_bundle(out, verify=True)
+    np.testing.assert_array_equal(np.load(out / "shadowing_db.npy"), trajectory)
+    assert [e["name"] for e in b.manifest["files"]][:2] == ["tap_gains.npy", "shadowing_db.npy"]
+
+
 def test_estimated_size_bounds_the_real_size_and_is_close(tmp_path):
     lay = layout(4000, n_rx=2, formats="cf32,ci16,sigmf,fir", fir=True)
     out = build(tmp_path / "b", lay)
@@ -421,6 +438,20 @@ def test_progress_is_reported_to_the_caller(tmp_path):
     seen = []
     build(tmp_path / "b", chunk=1500, progress=lambda done, total: seen.append((done, total)))
     assert seen[:4] == [(1500, 5000), (3000, 5000), (4500, 5000), (5000, 5000)] and seen[-1] == (5000, 5000)
+
+
+def test_an_owned_chunk_is_written_as_it_is_and_others_are_copied(tmp_path):
+    """owned=True (the engine's fresh chunks): no copy; otherwise the caller may reuse its buffer."""
+    lay = layout(20)
+    with bd.BundleWriter(tmp_path / "b", lay) as writer:  # threaded: the worker writes later
+        owned, borrowed = (np.full((10, 1, 1, 3), v, np.complex64) for v in (1, 2))
+        assert writer._checked_chunk(0, owned, True) is owned
+        copied = writer._checked_chunk(0, borrowed)
+        assert copied is not borrowed and not np.shares_memory(copied, borrowed)
+        writer.abort()
+    with pytest.raises(ValueError, match="NaN"):  # the type and shape are still checked; finite only if not owned
+        with bd.BundleWriter(tmp_path / "c", lay) as writer:
+            writer.write_chunk(0, np.full((10, 1, 1, 3), np.nan, np.complex64))
 
 
 def test_chunks_are_checked(tmp_path):

@@ -283,6 +283,23 @@ def test_shadowing_is_reproducible_and_random_access():
     assert a.as_record()["hold"] == "mean"
 
 
+def test_shadowing_holds_only_the_blocks_asked_for_and_any_order_gives_the_same_nodes():
+    """Memory flat in duration: after a request only its blocks of nodes stay; a block made again
+    from the stored AR(1) state at its start has the bits it had in sequence."""
+    size = LogNormalShadowing._BLOCK_NODES
+    whole = LogNormalShadowing(5.0, 20.0, 30.0, seed=9).nodes_db(0, 10 * size + 17)
+    piecewise = LogNormalShadowing(5.0, 20.0, 30.0, seed=9)
+    pieces = {}
+    for first in (7 * size - 5, 2 * size + 3, 0, 9 * size, 5 * size + 1, 3 * size - 1):
+        pieces[first] = piecewise.nodes_db(first, 300)
+        assert piecewise._nodes.size <= 2 * size  # the covering blocks only, not the trajectory so far
+    for first, values in pieces.items():
+        np.testing.assert_array_equal(values, whole[first:first + 300])
+    times = np.arange(2_000_000, 2_000_500)
+    np.testing.assert_array_equal(piecewise.gain_db_at_samples(times, 1000.0),
+                                  LogNormalShadowing(5.0, 20.0, 30.0, seed=9).gain_db_at_samples(times, 1000.0))
+
+
 def test_shadowing_standing_still_is_constant():
     still = LogNormalShadowing(8.0, 50.0, 0.0, seed=3)
     values = still.gain_db(np.linspace(0, 1000, 7))

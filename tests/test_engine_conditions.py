@@ -351,6 +351,10 @@ def test_conditions_gains_are_bit_identical_for_any_chunking_and_random_access(t
     fresh = _channel(path, 2000.0, 20000, 9)
     assert np.array_equal(fresh.block(15000, 15077), whole[15000:15077])
     assert np.array_equal(fresh.block(7, 8), whole[7:8])
+    # The gains are the documented parts combined, bit for bit (block works link by link in
+    # sub-blocks; small_scale_links and shadowing_amplitude are what verify reads).
+    parts = channel.small_scale_links(0, 20000) * channel.shadowing_amplitude(0, 20000)[:, None, None]
+    assert np.array_equal(channel.to_axes(parts.astype(np.complex64)), whole)
     # The carrier follows: every tap turns by -2 pi f_c delta_tau(t) (TS 36.104 B.4 with the
     # carrier, see emucompile.conditions); the static tap's phase is the train's plus that.
     n = np.arange(20000)
@@ -358,3 +362,28 @@ def test_conditions_gains_are_bit_identical_for_any_chunking_and_random_access(t
     drift = -2 * math.pi * 1e6 * channel.moving.delay_offset_at_samples(n, 2000.0)
     residual = np.angle(whole[:, 0, 0, 0] * np.exp(-1j * (train + drift)))
     assert np.max(np.abs(residual)) < 1e-5
+
+
+def test_the_moving_fir_from_sparse_coefficients_has_the_bits_of_the_dense_map(tmp_path):
+    """fir.npy of a moving delay is sum_k g_k(n) map_k(n) (bundle notes): the writer adds only each
+    tap's 2L + 1 coefficients; the dense sum over every column gives the same bytes."""
+    from emucompile import formats as fmt
+    from emucompile.grid import moving_fir_map
+
+    moving = load_profile(_write(tmp_path, MOVING_PROFILE)).conditions.moving_propagation
+    grid = moving_fir_map([0.0, 130e-9, 410e-9], [1.0, 0.5, 0.25], 1e6, moving, 20000.0)
+    start, stop = 12345, 12345 + 700
+    index, values = grid.sparse(start, stop)
+    dense = grid.maps(start, stop)
+    rebuilt = np.zeros_like(dense)
+    for n, k, o in np.ndindex(index.shape):
+        rebuilt[n, k, index[n, k, o]] += values[n, k, o]
+    np.testing.assert_array_equal(rebuilt, dense)
+    assert np.count_nonzero(dense, axis=-1).max() <= index.shape[2] < dense.shape[2]
+    rng = np.random.default_rng(3)
+    gains = (rng.standard_normal((700, 2, 1, 3)) + 1j * rng.standard_normal((700, 2, 1, 3))).astype(np.complex64)
+    outputs = []
+    for maps in (lambda a, b: grid.maps(a + start, b + start), lambda a, b: grid.sparse(a + start, b + start)):
+        writer = fmt.FirWriter(grid.matrix, 700, 2, 1, maps=maps)
+        outputs.append(np.concatenate([writer.encode(gains[:300]), writer.encode(gains[300:])]))
+    assert outputs[0].tobytes() == outputs[1].tobytes()

@@ -334,3 +334,27 @@ def test_fir_of_a_one_hot_map_copies_the_tap(tmp_path):
     np.testing.assert_array_equal(fir[..., 0], gains[..., 0])
     np.testing.assert_array_equal(fir[..., 3], gains[..., 1])
     assert not fir[..., [1, 2, 4]].any()
+
+
+def test_ci16_codes_follow_the_float64_rule_at_exact_halves_clipping_and_block_edges(tmp_path):
+    """code = clip(round_half_even(float64(g) * scale), +-32767): ties go to even, clipped
+    values are counted per tap, and the per-tap sums do not depend on the blocks."""
+    scaling = fmt.Ci16Scaling(scale_factor=2.0, clip_level=fmt.CI16_FULL_SCALE / 2.0, headroom_db=0.0,
+                              clip_probability=1e-6, strongest_tap=0)
+    n = 3 * fmt.Ci16Writer._block_elements // 6 + 5  # three taps x 2 components: several blocks
+    gains = _gains(4, (n, 1, 1, 3), [1.0, 4.0, 1e4])
+    halves = np.array([0.25, 0.75, 1.25, -0.25, -0.75, -1.25], np.float32)  # x 2 = +-0.5, +-1.5, +-2.5
+    gains[:6, 0, 0, 0] = halves + 1j * halves
+    gains[7, 0, 0, 2] = 1e5 - 1e5j  # both components clip
+    writer = fmt.Ci16Writer(scaling, n, 1, 1, 3, [1.0, 4.0, 1e4])
+    [entry] = _stream(writer, tmp_path, [gains[:1000], gains[1000:]])
+    codes = np.fromfile(tmp_path / "tap_gains.ci16", dtype="<i2").reshape(n, 1, 1, 3, 2)
+    assert codes[:6, 0, 0, 0, 0].tolist() == [0, 2, 2, 0, -2, -2]
+    components = gains.view(np.float32).reshape(n, 1, 1, 3, 2).astype(np.float64) * 2.0
+    np.testing.assert_array_equal(codes, np.clip(np.rint(components), -32767, 32767))
+    clipped = (np.abs(np.rint(components)) > 32767).sum(axis=(0, 1, 2, 4))
+    assert entry["quantisation"]["clipped_values_per_tap"] == clipped.tolist() and clipped[2] >= 2
+    error = (components - codes) / 2.0
+    expected = [fmt._db_ratio(s, e) for s, e in zip(np.square(components / 2.0).sum(axis=(0, 1, 2, 4)),
+                                                    np.square(error).sum(axis=(0, 1, 2, 4)))]
+    assert entry["quantisation"]["sqnr_db_per_tap"] == pytest.approx(expected, abs=2e-3)  # rounded to 1e-3 dB
