@@ -58,7 +58,12 @@ ensemble autocorrelation moves by < 0.66/M at any lag (2.6e-3 at M = 256,
 at lags ~1/(2 G^-1(1/(2M)))) and by < 1e-5 over the lags <= 3/f_D that
 verify checks; a record's mean varies less than a Gaussian process's (at
 T f_D = 5e4, M = 256 its variance is ~1e-3 of the Gaussian's) instead of
-having a heavy tail. Figures: ``tools/sos_near_dc.py``.
+having a heavy tail. Figures: ``tools/sos_near_dc.py``. Measured with
+version 4 (``tools/calibrate_verify_false_alarm.py``, T f_D = 5e4, 80 Hz,
+f_D 10 Hz): 0 of 130 twelve-tap bundles failed verify (95 % CI [0, 0.028]),
+1 of 70 4x4 (CI [0.0004, 0.077]; an autocorrelation check, failed by
+version 3 on that seed too); largest |rho_hat| 0.0165 between taps, 0.0187
+between links.
 
 Evaluation: exactly (float64 phase arithmetic on an integer grid of 2^-52
 cycles per sample, so the phase at any absolute index is exact) at the
