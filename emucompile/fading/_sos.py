@@ -54,7 +54,7 @@ placement. What version 4 changes, exactly: in each quadrature a fraction
 1/(2M) of the power moves from |f| < G^-1(1/(2M)) to [G^-1(1/(2M)),
 G^-1(1/M)) (the ensemble spectrum is 0 near 0 Hz, twice the law's density
 in the rest of the lowest stratum, exact elsewhere); the normalised
-ensemble autocorrelation moves by < 0.66/M at any lag (2.6e-3 at M = 256,
+ensemble autocorrelation moves by <= 0.67/M at any lag (2.6e-3 at M = 256,
 at lags ~1/(2 G^-1(1/(2M)))) and by < 1e-5 over the lags <= 3/f_D that
 verify checks; a record's mean varies less than a Gaussian process's (at
 T f_D = 5e4, M = 256 its variance is ~1e-3 of the Gaussian's) instead of
