@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy import signal, special, stats
+from scipy import optimize, signal, special, stats
 
 from emucompile import fading, tolerance
 from emucompile.errors import InputError
@@ -349,6 +349,40 @@ def test_sum_of_sinusoids_angles_are_stratified_with_an_offset_each_for_the_clas
             np.testing.assert_array_equal(np.sort(np.floor(a * 2 * m / np.pi)), np.arange(m))
         angles.append(np.sort(np.arccos(np.clip(fc / FD, -1, 1))))
     assert np.min(np.abs(angles[0] - angles[1])) > 1e-9
+
+
+@pytest.mark.parametrize("spectrum", ["classical", "flat", "gaussian"])
+def test_sum_of_sinusoids_keeps_its_lowest_sinusoid_off_0_hz(spectrum):
+    """Generator version 4: each quadrature's lowest sinusoid is >= G^-1(1/(2M)) from 0 Hz.
+
+    With u_1 uniform on (0, 1/M] (version 3) a quadrature had a sinusoid within c/T of 0 Hz with
+    probability M G(c/T) (~1 % at M = 256, T f_D = 5e4, c = 3: tools/sos_near_dc.py), a constant
+    offset of up to 1/sqrt(M) over the record that failed phase_uniformity. Now u_1 is uniform on
+    [1/(2M), 1/M] (the upper half of the lowest stratum: the lowest line of Patzold's MEDS is its
+    least value), the other strata unchanged. Checked on 400 streams x 2 quadratures: the bound, the
+    stratum, and u_1's law (KS against uniform on [1/2, 1] after scaling by M; the test errs at
+    1e-3 for a correct law).
+    """
+    m = 16  # few sinusoids: the lowest stratum is wide, so a misplaced u_1 could not hide
+    sp = DopplerSpectrum(spectrum, FD, FD / 2.0 if spectrum == "gaussian" else None)
+    bound = _sos.lowest_frequency(sp, m)
+    assert bound == pytest.approx(float(_sos.quantile(sp, 0.5 / m)), rel=1e-15)
+    if spectrum == "classical":
+        assert bound == pytest.approx(FD * math.sin(math.pi / (4 * m)), rel=1e-12)  # MEDS's f_1
+    lowest, second = [], []
+    for stream in range(400):
+        rng = _streams.generator(11, _streams.SINUSOIDS, stream % 4, stream // 4)
+        _, (fc, _), (fs, _) = _sos.draw_sinusoids(sp, m, rng)
+        for f in (np.sort(np.abs(fc)), np.sort(np.abs(fs))):
+            lowest.append(f[0])
+            second.append(f[1])
+    lowest, second = np.array(lowest), np.array(second)
+    assert lowest.min() >= bound
+    assert lowest.max() <= float(_sos.quantile(sp, 1.0 / m)) <= second.min()
+    # u_1 M from the frequency: classical G(f) = (2/pi) asin(f/f_D); flat f/f_D; Gaussian by bisection
+    u = np.array([optimize.brentq(lambda x, f=f: float(_sos.quantile(sp, x)) - f, 0.0, 1.0, xtol=1e-14)
+                  for f in lowest]) * m
+    assert stats.kstest(u, stats.uniform(0.5, 0.5).cdf).pvalue > 1e-3
 
 
 def test_sum_of_sinusoids_taps_and_links_correlate_only_as_independent_processes():

@@ -17,7 +17,7 @@ every bundle, for the generator's cross-correlation study.
 Usage::
 
     python tools/calibrate_verify_false_alarm.py [--profile profiles_demo/port-crane-los.yaml]
-        [--bundles 100] [--duration 5] [--false-alarm 0.01] [--jobs 2]
+        [--bundles 100] [--first-seed 1] [--duration 5] [--false-alarm 0.01] [--jobs 2]
         [--method doppler-filter|sum-of-sinusoids] [--update-rate HZ]
 
 The profiles of the MIMO and sum-of-sinusoids studies are in
@@ -64,6 +64,8 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--profile", default=str(ROOT / "profiles_demo" / "port-crane-los.yaml"))
     parser.add_argument("--bundles", type=int, default=100)
+    parser.add_argument("--first-seed", type=int, default=1,
+                        help="seeds first..first+bundles-1 (default 1), to split a long run in parts")
     parser.add_argument("--duration", type=float, default=5.0, help="seconds per bundle (default 5)")
     parser.add_argument("--false-alarm", type=float, default=0.01)
     parser.add_argument("--jobs", type=int, default=2, help="local processes (without --scheduler)")
@@ -79,7 +81,7 @@ def main(argv=None):
 
     work = tempfile.mkdtemp(prefix="calibrate-verify-")
     tasks = [(args.profile, seed, args.duration, args.false_alarm, work, options)
-             for seed in range(1, args.bundles + 1)]
+             for seed in range(args.first_seed, args.first_seed + args.bundles)]
     failures, names, n_checks = 0, collections.Counter(), 0
     largest = {"taps": 0.0, "links": 0.0}
     try:
@@ -93,11 +95,13 @@ def main(argv=None):
                 failures += 1
                 names.update(failed)
                 print(f"seed {seed}: failed {', '.join(failed)}", flush=True)
+            else:
+                print(f"seed {seed}: passed", flush=True)
     finally:
         shutil.rmtree(work, ignore_errors=True)
     interval = stats.binomtest(failures, args.bundles).proportion_ci(confidence_level=0.95, method="exact")
     print(f"profile {Path(args.profile).name}, {args.duration:g} s per bundle, {n_checks} checks per bundle, "
-          f"seeds 1..{args.bundles}" + "".join(f", {k} {v}" for k, v in options.items()))
+          f"seeds {args.first_seed}..{args.first_seed + args.bundles - 1}" + "".join(f", {k} {v}" for k, v in options.items()))
     print(f"largest |rho_hat| between taps {largest['taps']:.4f}, between links expected uncorrelated "
           f"{largest['links']:.4f} (0 when there are none)")
     print(f"bundles failing: {failures} of {args.bundles} = {failures / args.bundles:.3f}; "

@@ -72,7 +72,9 @@ from emucompile.fading._streams import BIT_GENERATOR
 #: GAUSSIAN_SINUSOIDS (1024) for a Gaussian spectrum by default (was 256). 3: sum-of-sinusoids
 #: draws an independent angle offset per sinusoid for the classical spectrum too (one per tap
 #: and link made taps and links correlate); the doppler-filter generator's numbers are unchanged.
-GENERATOR_VERSION = 3
+#: 4: sum-of-sinusoids keeps each quadrature's lowest sinusoid >= G^-1(1/(2M)) from 0 Hz (a
+#: near-0 Hz sinusoid is a constant offset over the record); doppler-filter numbers unchanged.
+GENERATOR_VERSION = 4
 
 #: Largest difference, relative to a tap's RMS gain, promised between runs of the
 #: same version on different machines or library versions (see :func:`reproducibility`):
