@@ -10,6 +10,10 @@ from click.testing import CliRunner
 from emucompile.cli import cli
 from emucompile.profile import check_profile_text
 
+ROOT = __import__("pathlib").Path(__file__).resolve().parent.parent
+DEMO_PROFILES = sorted(p for p in (ROOT / "profiles_demo").glob("*.*") if "campaign" not in p.name)
+"""The demo profiles (the demo campaign plans, ``*campaign*.yml``, are not profiles)."""
+
 BASE = {
     "format_version": 1,
     "name": "unit-test",

@@ -10,6 +10,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+
+from profile_helpers import DEMO_PROFILES
 from click.testing import CliRunner
 from matplotlib import image as mpimage
 
@@ -18,7 +20,7 @@ from emucompile.cli import cli
 from emucompile.profile import load_profile, load_profile_text
 
 ROOT = Path(__file__).resolve().parent.parent
-DEMOS = sorted((ROOT / "profiles_demo").glob("*.*"))
+DEMOS = DEMO_PROFILES
 DATA_URI = re.compile(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"')
 
 HOSTILE = """\

@@ -6,6 +6,8 @@ import json
 from pathlib import Path
 
 import pytest
+
+from profile_helpers import DEMO_PROFILES
 from click.testing import CliRunner
 
 from emucompile import compiler, open_bundle
@@ -95,7 +97,7 @@ def test_the_rate_rule_counts_the_high_speed_train_s_peak_doppler(tmp_path):
 
 
 def test_every_demo_validates_with_no_compile_finding_it_would_not_also_make():
-    for demo in sorted((ROOT / "profiles_demo").glob("*.*")):
+    for demo in DEMO_PROFILES:
         profile = load_profile(demo)
         findings = compile_findings(profile)
         assert all(f.severity == "warning" for f in findings), (demo, findings)

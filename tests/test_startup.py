@@ -14,8 +14,10 @@ from pathlib import Path
 
 import pytest
 
+from profile_helpers import DEMO_PROFILES
+
 ROOT = Path(__file__).resolve().parent.parent
-DEMOS = sorted(str(p.relative_to(ROOT)) for p in (ROOT / "profiles_demo").glob("*.*"))
+DEMOS = [str(p.relative_to(ROOT)) for p in DEMO_PROFILES]
 
 # Never needed to read, check or describe a profile on the command line.
 NEVER = ("matplotlib", "emucompile.verify", "emucompile.plots", "emucompile.report")
