@@ -10,8 +10,6 @@ from __future__ import annotations
 
 import html
 import json
-import os
-import secrets
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -31,9 +29,9 @@ def write_index(plan, root, records) -> tuple[Path, Path]:
     root = Path(root)
     document = campaign_document(plan, records)
     json_path = root / JSON_NAME
-    write_atomic(json_path, (json.dumps(document, indent=2, allow_nan=False) + "\n").encode())
+    write_atomic(json_path, json.dumps(document, indent=2, allow_nan=False) + "\n")
     html_path = root / INDEX_NAME
-    write_atomic(html_path, render_index(document).encode("utf-8"))
+    write_atomic(html_path, render_index(document))
     return html_path, json_path
 
 
@@ -117,20 +115,13 @@ def render_index(document: dict) -> str:
     return "\n".join(p for p in parts if p)
 
 
-def write_atomic(path: Path, data: bytes) -> None:
-    """Write ``data`` to ``path`` through a temporary sibling: fsync, then rename."""
+def write_atomic(path: Path, text: str) -> None:
+    """Write ``text`` to ``path`` (parents made) as the report is written: fsync-ed sibling, rename."""
+    from emucompile.report import write_text_atomic
+
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    temporary = path.with_name(f".{path.name}.emucompile-tmp-{os.getpid()}-{secrets.token_hex(4)}")
-    try:
-        with open(temporary, "wb") as stream:
-            stream.write(data)
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.replace(temporary, path)
-    except BaseException:
-        temporary.unlink(missing_ok=True)
-        raise
+    write_text_atomic(path, text)
 
 
 def _value_text(value) -> str:

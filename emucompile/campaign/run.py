@@ -277,7 +277,7 @@ def _write_record(root: Path, record: dict) -> None:
     from emucompile.campaign.index import write_atomic
 
     write_atomic(root / CASES_DIRECTORY / f"{record['name']}.json",
-                 (json.dumps(record, indent=2, allow_nan=False) + "\n").encode())
+                 json.dumps(record, indent=2, allow_nan=False) + "\n")
 
 
 def _done_record(case, root: Path, *, recheck: bool) -> dict | None:
