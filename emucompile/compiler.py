@@ -389,7 +389,6 @@ def compile_profile(
 def run_plan(plan: CompilePlan, *, progress=None) -> CompileResult:
     """Generate and write the bundle a :class:`CompilePlan` describes."""
     began = time.perf_counter()
-    engine = plan.engine
     with BundleWriter(plan.outdir, plan.layout, force=plan.force,
                       max_size_bytes=plan.max_size_bytes, progress=progress) as writer:
         for start, gains in plan.channel.chunks(CHUNK_SAMPLES):

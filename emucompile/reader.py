@@ -281,8 +281,6 @@ def _format_from_name(filename: str) -> str | None:
 
 
 def _parse_yaml(text: str, document: Document) -> None:
-    from ruamel.yaml import YAML
-
     _build_from_events(text, document, json_mode=False)
 
 

@@ -719,7 +719,6 @@ def _check_crossings(ctx):
         power = np.concatenate([power, power[:1]])  # the crossing across the wrap counts
     else:
         power = power[trim * up: power.size - trim * up]
-    rate_up = ctx.rate * up
     duration = kept / ctx.rate
     levels, rho, n_exp = levels[use], rho[use], n_exp[use]
     counts, below = np.zeros(levels.size), np.zeros(levels.size)

@@ -1068,7 +1068,6 @@ def _is_fading(model):
 
 def _diffuse_model(model):
     """The model of a tap's diffuse part alone: Rayleigh with power P / (K + 1)."""
-    k = model.k_linear or 0.0
     return dataclasses.replace(model, mean_power=model.diffuse_power, k_linear=0.0, los_doppler_hz=0.0)
 
 

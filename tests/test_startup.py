@@ -73,19 +73,12 @@ def test_version_imports_nothing_numeric():
     assert not {m for m in modules if m.split(".")[0] in ("numpy", "scipy", "matplotlib", "jsonschema")}
 
 
+@pytest.mark.parametrize("unwanted", [NEVER, pytest.param(HEAVY, marks=PLANNER_GAP)], ids=["plots", "engine"])
 @pytest.mark.parametrize("demo", DEMOS)
-def test_validate_imports_no_plots_or_verify(demo):
+def test_validate_imports_no_plots_or_engine(demo, unwanted):
     code, modules = _loaded_after("validate", demo)
     assert code == 0
-    assert not [m for m in NEVER if m in modules]
-
-
-@PLANNER_GAP
-@pytest.mark.parametrize("demo", DEMOS)
-def test_validate_imports_no_statistics_plots_or_engine(demo):
-    code, modules = _loaded_after("validate", demo)
-    assert code == 0
-    assert not [m for m in HEAVY if m in modules]
+    assert not [m for m in unwanted if m in modules]
 
 
 @PLANNER_GAP
