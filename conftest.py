@@ -21,3 +21,9 @@ from hypothesis import settings  # noqa: E402
 
 settings.register_profile("deterministic", derandomize=True, database=None, deadline=None)
 settings.load_profile("deterministic")
+
+# Tests live in subfolders mirroring the package (tests/<subpackage>/test_<module>.py); their
+# shared helpers (profile_helpers, bundle_factory, ...) stay in tests/ and are imported by name.
+import sys  # noqa: E402
+
+sys.path.insert(0, str(ROOT / "tests"))

@@ -49,9 +49,9 @@ from scipy import stats
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from emucompile import fading  # noqa: E402
-from emucompile.profile import Profile, Tap  # noqa: E402
-from emucompile.theory import DopplerSpectrum, level_crossing_rate  # noqa: E402
+from emucompile.models import fading  # noqa: E402
+from emucompile.profile.model import Profile, Tap  # noqa: E402
+from emucompile.models.theory import DopplerSpectrum, level_crossing_rate  # noqa: E402
 
 DOPPLER_HZ = 10.0
 RATE_RATIO = 32
@@ -115,7 +115,7 @@ def main(argv=None):
 
 
 def _time_average_table(spectrum):
-    from emucompile.fading._sos import draw_sinusoids
+    from emucompile.models.fading._sos import draw_sinusoids
 
     tau = np.linspace(0.0, 3.0, 301) / spectrum.max_doppler_hz
     theory = spectrum.autocorrelation(tau)

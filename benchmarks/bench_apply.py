@@ -7,9 +7,9 @@ Printed: samples per second and the ratio of times against the baseline
 ``scipy.signal.oaconvolve`` of the same input with one static FIR of the same
 length (the FIR at the bundle's first update), measured in the same run:
 
-- ``channel``: :func:`emucompile.apply.apply_channel` in memory (auto engine);
+- ``channel``: :func:`emucompile.apply.replay.apply_channel` in memory (auto engine);
 - ``channel + noise``: the same with the noise source added;
-- ``file to file``: :func:`emucompile.apply.apply_bundle` from an npy input
+- ``file to file``: :func:`emucompile.apply.replay.apply_bundle` from an npy input
   to an npy output with SNR 20 dB (reads, scans, writes, hashes, fsyncs).
 
 ``--sweep`` times both engines against the samples per update interval
@@ -32,9 +32,9 @@ import scipy.signal
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from emucompile import apply as ap  # noqa: E402
-from emucompile import bundle as bd  # noqa: E402
-from emucompile import grid  # noqa: E402
+from emucompile.apply import replay as ap  # noqa: E402
+from emucompile.bundle import store as bd  # noqa: E402
+from emucompile.models import grid  # noqa: E402
 
 SAMPLE_RATE_HZ = 30.72e6
 DELAYS_S = np.array([0, 30, 150, 310, 370, 710, 1090, 1730, 2510, 2600, 2700, 2800]) * 1e-9 * 0.9

@@ -28,7 +28,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from emucompile import bundle as bd  # noqa: E402
+from emucompile.bundle import store as bd  # noqa: E402
 
 CHUNK = 65536
 

@@ -76,7 +76,7 @@ CASES = {
 CHILD = """
 import json, resource, sys, time
 sys.path.insert(0, {root!r})
-from emucompile import compiler
+from emucompile.compile import compiler
 began = time.perf_counter()
 result = compiler.compile_profile({profile!r}, {out!r}, update_rate_hz={rate!r}, duration_s={duration!r},
                                   seed=1, force=True, max_size_bytes=None, **{options!r})

@@ -40,7 +40,7 @@ CHILD_OURS = """
 import json, resource, shutil, sys, time
 sys.path.insert(0, {root!r})
 import emucompile
-from emucompile import compiler
+from emucompile.compile import compiler
 began = time.perf_counter()
 compiler.compile_profile({profile!r}, {out!r}, update_rate_hz={rate!r}, duration_s={duration!r},
                          seed=1, force=True, max_size_bytes=None)

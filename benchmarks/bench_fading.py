@@ -56,7 +56,7 @@ def main(argv=None):
     if args.worker:
         print(json.dumps(_work(json.loads(args.worker))))
         return
-    from emucompile import fading
+    from emucompile.models import fading
 
     print(f"fading engine benchmark: {N_TAPS} taps, f_D = {DOPPLER_HZ:g} Hz, update rate "
           f"{RATE_HZ:g} Hz (100 f_D), chunks of {CHUNK}, CPUs: {os.cpu_count()}")
@@ -93,7 +93,7 @@ def _run(job: dict) -> dict:
 
 
 def _profile():
-    from emucompile.profile import Profile, Tap
+    from emucompile.profile.model import Profile, Tap
 
     first = Tap(0.0, 0.3, fading="rician", k_linear=10.0, max_doppler_hz=DOPPLER_HZ,
                 los_doppler_hz=0.7 * DOPPLER_HZ)
@@ -107,7 +107,7 @@ def _work(job: dict) -> dict:
 
     import numpy as np
 
-    from emucompile import fading
+    from emucompile.models import fading
 
     n = job["n"]
     threads = None if job["threads"] == "auto" else int(job["threads"])
@@ -137,7 +137,7 @@ def _work(job: dict) -> dict:
 
 
 def _platform_line():
-    from emucompile import fading
+    from emucompile.models import fading
 
     r = fading.reproducibility()
     return f"numpy {r['numpy']}, scipy {r['scipy']}, Python {r['python']}, {r['machine']}"

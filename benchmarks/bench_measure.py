@@ -68,7 +68,7 @@ def static_capture(design, bundle, path: Path) -> None:
     it, tiled, is the whole probe part. measure does the same work whatever the
     channel's values (its verdict on this capture is a fail: the gains do not move).
     """
-    from emucompile.bundle import open_bundle
+    from emucompile.bundle.store import open_bundle
 
     opened = open_bundle(bundle)
     fir = np.asarray(opened.tap_gains[0, 0, 0]) @ np.asarray(opened.fir_map)
@@ -100,8 +100,8 @@ def main(argv=None):
     parser.add_argument("--keep", metavar="DIR", help="work in DIR (kept) instead of a temporary directory")
     args = parser.parse_args(argv)
 
-    from emucompile.apply import apply_bundle
-    from emucompile.compiler import compile_profile
+    from emucompile.apply.replay import apply_bundle
+    from emucompile.compile.compiler import compile_profile
     from emucompile.loop.estimate import BLOCK_SAMPLES
     from emucompile.loop.measure import measure_capture
     from emucompile.loop.probe import write_probe

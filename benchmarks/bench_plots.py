@@ -24,7 +24,9 @@ sys.path[:0] = [str(ROOT), str(ROOT / "tests")]
 from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
-from emucompile import plots, report  # noqa: E402
+from emucompile.report import figures as plots  # noqa: E402
+
+from emucompile.report import html as report  # noqa: E402
 from verification_standin import standin_verification  # noqa: E402
 
 

@@ -42,7 +42,11 @@ def main(argv=None):
     parser.add_argument("--workers", type=int, default=None, help="processes for the checks (default: verify's rule)")
     args = parser.parse_args(argv)
 
-    from emucompile import compiler, tolerance, verify
+    from emucompile.compile import compiler
+
+    from emucompile.verify import tolerance
+
+    from emucompile.verify import run as verify
 
     n = int(args.samples)
     work = Path(tempfile.mkdtemp(prefix="bench-verify-", dir=args.dir))

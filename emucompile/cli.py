@@ -172,7 +172,7 @@ def validate(profiles, target_file, as_json):
 def _validate_command(profiles, target_file, as_json):
     import json
 
-    from emucompile.validation import validate_files
+    from emucompile.compile.validation import validate_files
 
     verdicts = validate_files(profiles, target_file=target_file)
     if as_json:
@@ -203,8 +203,8 @@ def stats(profile, as_json, html_file):
     import json
 
     from emucompile.errors import CheckFailed, ProfileError
-    from emucompile.profile import check_profile
-    from emucompile.stats import check_targets, format_statistics, profile_statistics
+    from emucompile.profile.model import check_profile
+    from emucompile.profile.stats import check_targets, format_statistics, profile_statistics
 
     loaded, problems = check_profile(profile)
     if loaded is None:
@@ -227,7 +227,7 @@ def stats(profile, as_json, html_file):
 
 
 def _write_card(profile, html_file, as_json):
-    from emucompile.card import write_profile_card
+    from emucompile.report.card import write_profile_card
     from emucompile.errors import InputError
 
     try:
@@ -281,8 +281,8 @@ def compile_command(profile, outdir, quiet, max_size, target_file, **options):
 def _compile_command(profile, outdir, quiet, max_size, target_file, options):
     import json
 
-    from emucompile import compiler
-    from emucompile.bundle import DEFAULT_MAX_SIZE_BYTES
+    from emucompile.compile import compiler
+    from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES
 
     as_json = options.pop("as_json")
     scheduler, workers = options.pop("scheduler"), options.pop("workers")
@@ -344,7 +344,7 @@ def reproduce(outdir, as_json):
 def _reproduce_command(outdir, as_json):
     import json
 
-    from emucompile import compiler
+    from emucompile.compile import compiler
     from emucompile.errors import CheckFailed
 
     with _progress(None, "regenerating", as_json) as update:
@@ -440,7 +440,7 @@ def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_fil
         # verify's statistics are many short vector products: BLAS threads only contend
         # (measured: 1e6 x 12 taps, 8.7 s with OpenBLAS's default threads, 4.5 s with one)
         os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
-    from emucompile import verify as verifier
+    from emucompile.verify import run as verifier
     from emucompile.errors import CheckFailed, InputError
 
     if (outdir is None) == (gains_file is None):
@@ -505,7 +505,7 @@ def presets_list(as_json):
     """
     import json
 
-    from emucompile.presets import list_presets
+    from emucompile.profile.presets import list_presets
 
     records = list_presets()
     if as_json:
@@ -534,8 +534,8 @@ def presets_show(name, delay_spread_ns, output_format):
     """
     import json
 
-    from emucompile.presets import load_preset, preset_document
-    from emucompile.reader import dump_yaml
+    from emucompile.profile.presets import load_preset, preset_document
+    from emucompile.profile.reader import dump_yaml
 
     document = preset_document(name, delay_spread_ns=delay_spread_ns)
     if output_format == "json":
@@ -581,7 +581,7 @@ def presets_show(name, delay_spread_ns, output_format):
 def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet,
           as_json, no_hash_check):
     """Pass an IQ recording through a bundle's time-varying channel."""
-    from emucompile.apply import apply_bundle
+    from emucompile.apply.replay import apply_bundle
 
     quiet = quiet or as_json
     with _ProgressBar("applying", quiet) as bar:
@@ -824,7 +824,7 @@ def _compile_summary(result) -> str:
     ]
     mimo_setup = plan.profile.mimo
     if mimo_setup is not None:
-        from emucompile.blocks import correlation_text
+        from emucompile.profile.blocks import correlation_text
 
         lines.append(f"links       {mimo_setup.n_rx} rx x {mimo_setup.n_tx} tx, correlation "
                      + correlation_text(mimo_setup.correlation))
@@ -858,7 +858,7 @@ def _compile_summary(result) -> str:
 
 def _fit_summary_lines(manifest: dict) -> list[str]:
     """The "emulator fit" section of compile's summary (empty without a target)."""
-    from emucompile.target import fit_lines, fit_record
+    from emucompile.profile.target import fit_lines, fit_record
 
     record = fit_record(manifest)
     return [] if record is None else fit_lines(record)

@@ -2,7 +2,7 @@
 
 Both sides are compared *resolved*: presets expanded, powers scaled to the
 total, Doppler from speed and carrier worked out, units in SI
-(:class:`emucompile.profile.Profile`). So a profile built with ``extends:``
+(:class:`emucompile.profile.model.Profile`). So a profile built with ``extends:``
 and the ``presets show`` expansion of the same preset describe the same
 channel even though their texts differ.
 
@@ -66,7 +66,7 @@ STATISTICS = (
     ("rms_doppler_spread_hz", "RMS Doppler spread", "Hz", 1.0),
     ("coherence_time_rule_s", "coherence time (0.423/f_D rule)", "ms", 1e3),
 )
-"""The statistics shown side by side: key of :func:`emucompile.stats.profile_statistics`, label, unit, factor."""
+"""The statistics shown side by side: key of :func:`emucompile.profile.stats.profile_statistics`, label, unit, factor."""
 
 BYTES_SETTINGS = ("resolved_profile_sha256", "seed", "method", "generator_version", "update_rate_hz",
                   "n_samples", "periodic", "fir.sample_rate_hz", "fir.delay_mapping", "formats", "target")
@@ -188,7 +188,7 @@ def diff_profiles(a, b, *, tolerances: dict | None = None) -> DiffResult:
     ----------
     a, b : str, os.PathLike or Profile
         A profile file, a bundle directory (its embedded resolved profile and
-        generation settings), or a loaded :class:`~emucompile.profile.Profile`.
+        generation settings), or a loaded :class:`~emucompile.profile.model.Profile`.
     tolerances : dict, optional
         Overrides of :data:`DEFAULT_TOLERANCES` by name.
 
@@ -228,13 +228,13 @@ def diff_profiles(a, b, *, tolerances: dict | None = None) -> DiffResult:
 
 
 def _side(source) -> Side:
-    from emucompile.profile import Profile, load_profile, profile_from_document
+    from emucompile.profile.model import Profile, load_profile, profile_from_document
 
     if isinstance(source, Profile):
         return Side(source.source or f"<profile {source.name}>", source)
     path = Path(source)
     if path.is_dir():
-        from emucompile.bundle import open_bundle
+        from emucompile.bundle.store import open_bundle
 
         manifest = open_bundle(path, verify=False).manifest
         profile = profile_from_document(manifest["profile"], source=f"{path}/manifest.json#/profile")
@@ -398,7 +398,7 @@ def _neighbour_gap(delays, index):
 
 
 def _statistics(a, b) -> tuple:
-    from emucompile.stats import profile_statistics
+    from emucompile.profile.stats import profile_statistics
 
     sa, sb = profile_statistics(a), profile_statistics(b)
     return tuple((key, label, unit, sa.get(key), sb.get(key)) for key, label, unit, _ in STATISTICS)

@@ -2,9 +2,9 @@
 
 The compile command is not needed: :func:`make_bundle` writes any complex
 gains of shape (n_samples, n_rx, n_tx, n_taps) through
-:func:`emucompile.bundle.write_bundle` with the manifest fields that
-:meth:`emucompile.bundle.BundleWriter.finish` documents, and a FIR map from
-:func:`emucompile.grid.fir_map` when a sample rate is given. The processes:
+:func:`emucompile.bundle.store.write_bundle` with the manifest fields that
+:meth:`emucompile.bundle.store.BundleWriter.finish` documents, and a FIR map from
+:func:`emucompile.models.grid.fir_map` when a sample rate is given. The processes:
 
 - :func:`static_gains`: constant gains;
 - :func:`tone_gains`: one complex exponential per tap, exactly known at any time;
@@ -23,8 +23,8 @@ import math
 
 import numpy as np
 
-from emucompile import bundle as bd
-from emucompile import grid
+from emucompile.bundle import store as bd
+from emucompile.models import grid
 
 PROFILE = {"format_version": 1, "name": "apply-test-scenario", "description": "invented for the tests"}
 
@@ -42,7 +42,7 @@ def make_bundle(path, gains, *, update_rate_hz, delays_s=None, powers_linear=Non
     fading : str or sequence of str
         Fading kind written for each tap in the manifest.
     sample_rate_hz : float, optional
-        Adds the FIR map made by :func:`emucompile.grid.fir_map` at this rate
+        Adds the FIR map made by :func:`emucompile.models.grid.fir_map` at this rate
         (``delay_mapping``), unless ``fir_matrix`` gives the matrix itself.
     target : dict, optional
         The manifest's ``target`` record (e.g. ``{"between_updates": "hold"}``).

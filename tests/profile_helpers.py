@@ -8,7 +8,7 @@ import json
 from click.testing import CliRunner
 
 from emucompile.cli import cli
-from emucompile.profile import check_profile_text
+from emucompile.profile.model import check_profile_text
 
 ROOT = __import__("pathlib").Path(__file__).resolve().parent.parent
 DEMO_PROFILES = sorted(p for p in (ROOT / "profiles_demo").glob("*.*") if "campaign" not in p.name)

@@ -9,12 +9,12 @@ import pytest
 from click.testing import CliRunner
 
 import emucompile
-from emucompile import compiler
+from emucompile.compile import compiler
 from emucompile.cli import cli
 from emucompile.diff import CHANNEL, LABEL, SETTINGS, diff_profiles
 from emucompile.errors import InputError
-from emucompile.profile import load_profile
-from emucompile.stats import profile_statistics
+from emucompile.profile.model import load_profile
+from emucompile.profile.stats import profile_statistics
 
 ROOT = Path(__file__).resolve().parent.parent
 CRANE = ROOT / "profiles_demo" / "port-crane-los.yaml"

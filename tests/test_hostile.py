@@ -22,8 +22,8 @@ import pytest
 from click.testing import CliRunner
 
 import hostile
-from emucompile import bundle as bd
-from emucompile import formats as fmt
+from emucompile.bundle import store as bd
+from emucompile.bundle import formats as fmt
 from emucompile.cli import cli
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -285,12 +285,12 @@ def test_a_broken_pipe_ends_quietly(intact):
 
 @pytest.mark.parametrize("where", ["before", "after"])
 def test_debug_works_before_or_after_the_sub_command(tmp_path, monkeypatch, where):
-    import emucompile.validation
+    import emucompile.compile.validation
 
     def broken(*args, **kwargs):
         raise RuntimeError("a planted bug")
 
-    monkeypatch.setattr(emucompile.validation, "validate_files", broken)  # what validate calls
+    monkeypatch.setattr(emucompile.compile.validation, "validate_files", broken)  # what validate calls
     monkeypatch.delenv("EMUCOMPILE_DEBUG", raising=False)
     args = ["validate", "x.yaml"]
     args = ["--debug", *args] if where == "before" else [*args, "--debug"]

@@ -20,14 +20,14 @@ ROOT = Path(__file__).resolve().parent.parent
 DEMOS = [str(p.relative_to(ROOT)) for p in DEMO_PROFILES]
 
 # Never needed to read, check or describe a profile on the command line.
-NEVER = ("matplotlib", "emucompile.verify", "emucompile.plots", "emucompile.report")
+NEVER = ("matplotlib", "emucompile.verify.run", "emucompile.report.figures", "emucompile.report.html")
 # Not needed either, but validate now checks a profile's compile: block by running compile's
-# planner without writing (emucompile.rules.compile_findings: one set of rules), and the planner
-# designs the engine's filters. Closed-form rules in emucompile.rules would drop these again:
+# planner without writing (emucompile.compile.rules.compile_findings: one set of rules), and the planner
+# designs the engine's filters. Closed-form rules in emucompile.compile.rules would drop these again:
 # until then the strict xfail below marks the gap (it fails loudly once the gap is closed).
 HEAVY = NEVER + ("scipy.stats", "scipy.signal", "scipy.optimize", "scipy.integrate",
-                 "emucompile.fading", "emucompile.compiler", "emucompile.bundle")
-PLANNER_GAP = pytest.mark.xfail(strict=True, reason="validate dry-runs compile's planner (emucompile.rules)")
+                 "emucompile.models.fading", "emucompile.compile.compiler", "emucompile.bundle.store")
+PLANNER_GAP = pytest.mark.xfail(strict=True, reason="validate dry-runs compile's planner (emucompile.compile.rules)")
 
 _PROBE = """
 import json, sys
@@ -98,7 +98,7 @@ def test_validate_of_a_profile_with_a_target_block_imports_no_statistics(tmp_pat
     path.write_text(text, encoding="utf-8")
     code, modules = _loaded_after("validate", str(path))
     assert code == 0
-    assert "emucompile.target" in modules  # the block was really checked
+    assert "emucompile.profile.target" in modules  # the block was really checked
     assert not [m for m in HEAVY if m in modules]
 
 

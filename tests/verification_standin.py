@@ -1,7 +1,7 @@
 """A stand-in verification result for the plot and report tests.
 
-It has the attributes :mod:`emucompile.plots` and :mod:`emucompile.report`
-read from a verification (``emucompile.verify``), filled from the fading
+It has the attributes :mod:`emucompile.report.figures` and :mod:`emucompile.report.html`
+read from a verification (``emucompile.verify.run``), filled from the fading
 engine's own output, so the figures and the report can be tested without
 running the checks. The checks listed are invented rows covering each
 verdict (pass, fail, not applicable); their numbers mean nothing.
@@ -16,9 +16,13 @@ from types import SimpleNamespace
 
 import numpy as np
 
-from emucompile import fading, grid, stats
-from emucompile.channel import generate_channel_gains
-from emucompile.profile import load_profile
+from emucompile.models import fading
+
+from emucompile.models import grid
+
+from emucompile.profile import stats
+from emucompile.models.channel import generate_channel_gains
+from emucompile.profile.model import load_profile
 
 
 @dataclass
@@ -106,7 +110,7 @@ def standin_verification(profile_path="profiles_demo/port-crane-los.yaml", *, pe
 @functools.lru_cache(maxsize=None)
 def report_inputs():
     """One stand-in verification of the port-crane demo (T f_D = 500) and its figures, shared by tests."""
-    from emucompile.plots import make_figures
+    from emucompile.report.figures import make_figures
 
     verification = standin_verification(periods=500.0, foreign=True)
     return verification, tuple(make_figures(verification))

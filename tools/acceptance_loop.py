@@ -28,7 +28,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 
 from test_loop import MIMO, PROFILE, RATE, _bundle
 
-from emucompile.bundle import open_bundle
+from emucompile.bundle.store import open_bundle
 from emucompile.loop import probe as pr
 from emucompile.loop import software
 from emucompile.loop.measure import measure_capture

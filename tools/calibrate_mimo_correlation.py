@@ -2,17 +2,17 @@
 
 The exact reference: independent unit-power complex Gaussian streams with a
 Doppler spectrum, shaped on the DFT grid with bin-integrated spectra
-(:func:`emucompile.reference.diffuse`; Young & Beaulieu 2000), one per link,
+(:func:`emucompile.verify.reference.diffuse`; Young & Beaulieu 2000), one per link,
 correlated by the Hermitian square root of the link correlation matrix R
-(:func:`emucompile.mimo.hermitian_sqrt`), as the engine correlates its links.
+(:func:`emucompile.models.mimo.hermitian_sqrt`), as the engine correlates its links.
 Aperiodic records are the first N samples of a period-2N process; periodic
 ones are one period. Records at 8 f_D, the rate verify's decimated copies
 have.
 
 For every pair of links the statistic of
-:func:`emucompile.tolerance.check_cross_correlation` (``name="mimo_correlation"``)
+:func:`emucompile.verify.tolerance.check_cross_correlation` (``name="mimo_correlation"``)
 is formed from the same estimate verify uses
-(:func:`emucompile.estimators.correlation_coefficient`, sample powers): the
+(:func:`emucompile.verify.estimators.correlation_coefficient`, sample powers): the
 Mahalanobis distance D of rho_hat - R[a, b] with the radial and tangential
 variances g (1-|rho|^2)^2 / 2 and g (1-|rho|^2) / 2; uncalibrated z = D / sqrt 2,
 whose nominal law is P(z > x) = exp(-x^2).
@@ -60,8 +60,10 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from calibrate_tolerances import order_statistic_bound  # the same fit as the per-tap checks' (tools/ is on sys.path)
-from emucompile import mimo, reference, tolerance
-from emucompile.theory import DopplerSpectrum
+from emucompile.models import mimo
+from emucompile.verify import reference
+from emucompile.verify import tolerance
+from emucompile.models.theory import DopplerSpectrum
 
 BASE_SEED = 20261203
 FIT_QUANTILE = 0.9
@@ -233,7 +235,7 @@ def main(argv=None):
                            np.array(found) for i, found in rows.items()})
     doc = {
         "note": "Written by tools/calibrate_mimo_correlation.py; the factor multiplies the mimo_correlation "
-                "check's nominal spread (see emucompile.tolerance.check_cross_correlation).",
+                "check's nominal spread (see emucompile.verify.tolerance.check_cross_correlation).",
         "factor": c,
         "worst_configuration": cfgs[worst],
         "factor_range": [round(min(r for r, _ in ratios), 4), c],

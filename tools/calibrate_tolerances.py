@@ -1,8 +1,8 @@
 """Calibrate the tolerance checks by Monte Carlo of the exact reference process.
 
 For every configuration (spectrum x fading x record length x rate x periodic)
-draws ``seeds`` records of :func:`emucompile.reference.tap_record` (exact
-statistics by construction), runs :func:`emucompile.tolerance.check_tap` on
+draws ``seeds`` records of :func:`emucompile.verify.reference.tap_record` (exact
+statistics by construction), runs :func:`emucompile.verify.tolerance.check_tap` on
 each and keeps every check's uncalibrated statistic z with its null law.
 Each check's calibration factor c is then the largest, over configurations,
 of
@@ -45,8 +45,10 @@ from scipy import stats
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from emucompile import reference, tolerance  # noqa: E402
-from emucompile.theory import DopplerSpectrum  # noqa: E402
+from emucompile.verify import reference  # noqa: E402
+
+from emucompile.verify import tolerance  # noqa: E402
+from emucompile.models.theory import DopplerSpectrum  # noqa: E402
 
 BASE_SEED = 20261202
 FIT_QUANTILE = 0.9
@@ -210,7 +212,7 @@ def main(argv=None):
             "plan": [dict(doppler_periods=p, rate_over_doppler=r, periodic=q, seeds=s) for p, r, q, s in plan],
             "spectra": [dict(kind=k, sigma_over_doppler=s) for k, s in SPECTRA],
             "fadings": [dict(name=n, k_linear=k, los_doppler_over_doppler=f) for n, k, f in FADINGS],
-            "reference": "inverse-DFT shaping with bin-integrated exact spectra (emucompile.reference); "
+            "reference": "inverse-DFT shaping with bin-integrated exact spectra (emucompile.verify.reference); "
                          "aperiodic records are the first N samples of a period-2N process",
             "levels_reported": list(LEVELS),
         },

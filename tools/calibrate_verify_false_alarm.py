@@ -41,7 +41,8 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the verify command sets
 
 def _one(args):
     profile, seed, duration, false_alarm, work, options = args
-    from emucompile import compiler, verify
+    from emucompile.compile import compiler
+    from emucompile.verify import run as verify
 
     out = Path(work) / f"seed-{seed}"
     compiler.compile_profile(profile, out, duration_s=duration, seed=seed, force=True, **options)

@@ -54,9 +54,9 @@ from scipy import integrate, optimize, stats
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from emucompile.fading import _sos
-from emucompile.fading._plan import DEFAULT_SINUSOIDS, GAUSSIAN_SINUSOIDS
-from emucompile.theory import DopplerSpectrum
+from emucompile.models.fading import _sos
+from emucompile.models.fading._plan import DEFAULT_SINUSOIDS, GAUSSIAN_SINUSOIDS
+from emucompile.models.theory import DopplerSpectrum
 
 FD = 1.0  # Hz: every figure here depends on T f_D only
 

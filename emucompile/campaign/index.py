@@ -117,7 +117,7 @@ def render_index(document: dict) -> str:
 
 def write_atomic(path: Path, text: str) -> None:
     """Write ``text`` to ``path`` (parents made) as the report is written: fsync-ed sibling, rename."""
-    from emucompile.report import write_text_atomic
+    from emucompile.report.html import write_text_atomic
 
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)

@@ -1,7 +1,7 @@
 """Plan files: read and check a campaign plan, expand it into named cases.
 
 A plan (``schemas/campaign-plan-v1.schema.json``) is read by the same safe
-reader as profiles (:func:`emucompile.reader.read_document`) and every
+reader as profiles (:func:`emucompile.profile.reader.read_document`) and every
 problem is reported as ``FILE:LINE:COL: /pointer: message (hint)``. Each case
 is checked as a whole before anything runs: its profile (the file's own
 problems at their place in that file, a problem the axes make at the plan's
@@ -136,7 +136,7 @@ def expand_plan(source) -> Plan:
 
 def check_plan(source):
     """``(plan_or_None, problems)`` of a plan file, never raising for bad input."""
-    from emucompile.reader import read_document
+    from emucompile.profile.reader import read_document
 
     document = read_document(source)
     problems = list(document.problems)
@@ -203,8 +203,8 @@ CHANNEL_AXES = ("delay_spread_ns", "max_doppler_hz", "speed_kmh", "correlation")
 
 def _entry_cases(document, entry, pointer, plan_axes, settings, base):
     """``(problems, [(case, axes_pointer)])`` for one entry of ``profiles``."""
-    from emucompile.profile import check_document
-    from emucompile.reader import read_document
+    from emucompile.profile.model import check_document
+    from emucompile.profile.reader import read_document
 
     problems = []
     if "file" in entry:
@@ -247,9 +247,10 @@ def _entry_cases(document, entry, pointer, plan_axes, settings, base):
 
 def _make_case(document, name, label, source, base_document, chosen, settings, entry, pointer, axis_pointers,
                base, targets):
-    from emucompile import compiler, fading
+    from emucompile.compile import compiler
+    from emucompile.models import fading
     from emucompile.errors import EmucompileError
-    from emucompile.profile import profile_from_document
+    from emucompile.profile.model import profile_from_document
 
     where = pointer  # a case's problem is placed at its entry; the case's name says its axes
     profile_document = copy.deepcopy(base_document)
@@ -340,7 +341,7 @@ def _apply_axes(document, profile_document, chosen, axis_pointers, name) -> list
 
 def _target(document, name, pointer, base, cache):
     """``(Target, None)`` or ``(None, problems)`` for a target file named in the plan."""
-    from emucompile.target import check_target_file
+    from emucompile.profile.target import check_target_file
 
     if name not in cache:
         target, found = check_target_file(base / name)
@@ -378,8 +379,8 @@ def _validator():
 
 def _schema_problems(document) -> list[Problem]:
     """The schema's errors, worded as the profile checker words them."""
-    from emucompile.profile import _describe_schema_error
-    from emucompile.reader import pointer_join
+    from emucompile.profile.model import _describe_schema_error
+    from emucompile.profile.reader import pointer_join
 
     problems, seen = [], set()
     for error in _validator().iter_errors(document.value):

@@ -13,7 +13,7 @@ bundle's ``manifest.json`` and ``verification/verification.json`` both have
 the SHA-256 of the manifest the record names (the manifest holds every data
 file's SHA-256; the files' sizes are checked, and with ``recheck`` their
 hashes too). A rerun skips done cases without starting a cluster and redoes
-the rest. Bundles are written atomically by :class:`emucompile.bundle.BundleWriter`
+the rest. Bundles are written atomically by :class:`emucompile.bundle.store.BundleWriter`
 (a killed task leaves a hidden temporary sibling, removed by the next write
 of that case), so an interrupted run leaves every finished case whole.
 """
@@ -185,9 +185,9 @@ def run_case(case, directory: str, *, client=None) -> dict:
     are spread over the workers). Never raises for a failing case: a check
     that fails gives status ``failed``, an error status ``error`` with its message.
     """
-    from emucompile import compiler
-    from emucompile import verify as verifier
-    from emucompile.profile import profile_from_document
+    from emucompile.compile import compiler
+    from emucompile.verify import run as verifier
+    from emucompile.profile.model import profile_from_document
 
     root = Path(directory)
     bundle_path = root / case.name
@@ -196,7 +196,7 @@ def run_case(case, directory: str, *, client=None) -> dict:
         profile = profile_from_document(case.document, source=f"case {case.name}")
         target = None
         if case.target is not None:
-            from emucompile.target import parse_target
+            from emucompile.profile.target import parse_target
 
             target = parse_target(case.target, file=f"case {case.name} target")
         options = dict(case.compile_options, target=target, force=True)
@@ -282,7 +282,7 @@ def _write_record(root: Path, record: dict) -> None:
 
 def _done_record(case, root: Path, *, recheck: bool) -> dict | None:
     """The case's record when the case is done and whole (see the module notes), else None."""
-    from emucompile.bundle import (
+    from emucompile.bundle.store import (
         MANIFEST_NAME,
         VERIFICATION_DIRECTORY,
         verify_integrity,
@@ -308,7 +308,7 @@ def _done_record(case, root: Path, *, recheck: bool) -> dict | None:
 @contextlib.contextmanager
 def _terminate_as_interrupt():
     """SIGTERM raises KeyboardInterrupt here (main thread only), so the cluster is closed and the index written."""
-    from emucompile.bundle import raise_terminated
+    from emucompile.bundle.store import raise_terminated
 
     if threading.current_thread() is not threading.main_thread() or signal.getsignal(signal.SIGTERM) != signal.SIG_DFL:
         yield

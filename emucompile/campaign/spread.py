@@ -2,14 +2,14 @@
 
 The engine keys every block of every tap by (seed, link, tap, block), so any
 range of samples can be generated alone with the same bits
-(:meth:`emucompile.channel.ChannelPlan.block`). Here the record is cut into
+(:meth:`emucompile.models.channel.ChannelPlan.block`). Here the record is cut into
 ranges on the compile's own chunk grid; each worker plans the compile once
 (the same plan, from the same resolved profile and options), generates its
 ranges and writes their bytes at their offsets into the files of the one
 temporary bundle directory (``tap_gains.npy``, and ``tap_gains.cf32`` when
 asked for), with ``fsync`` before it reports. The process that opened the
-:class:`emucompile.bundle.BundleWriter` then hashes each file as it stands
-(:meth:`~emucompile.bundle.BundleWriter.adopt_placed`), writes the manifest
+:class:`emucompile.bundle.store.BundleWriter` then hashes each file as it stands
+(:meth:`~emucompile.bundle.store.BundleWriter.adopt_placed`), writes the manifest
 last and renames the directory into place, as an ordinary compile does:
 the data files' bytes equal a single-process compile's (tested on a
 two-worker LocalCluster by SHA-256). Formats re-encoded from the gains
@@ -42,9 +42,9 @@ def compile_spread(profile=None, outdir=None, *, plan=None, client=None, schedul
     Parameters
     ----------
     profile, outdir, **options
-        As for :func:`emucompile.compiler.plan_compile` (or give ``plan``).
+        As for :func:`emucompile.compile.compiler.plan_compile` (or give ``plan``).
     plan : CompilePlan, optional
-        A plan made by :func:`~emucompile.compiler.plan_compile`.
+        A plan made by :func:`~emucompile.compile.compiler.plan_compile`.
     client : dask.distributed.Client, optional
         Use this cluster; otherwise one is opened from ``scheduler`` / ``workers``
         (:func:`emucompile.campaign.cluster.open_client`) and closed after.
@@ -52,7 +52,7 @@ def compile_spread(profile=None, outdir=None, *, plan=None, client=None, schedul
 
     Returns
     -------
-    emucompile.compiler.CompileResult
+    emucompile.compile.compiler.CompileResult
 
     Raises
     ------
@@ -60,7 +60,7 @@ def compile_spread(profile=None, outdir=None, *, plan=None, client=None, schedul
         A format that cannot be placed (ci16, csv, sigmf, fir), or OUTDIR not
         reachable from every worker at the same path.
     """
-    from emucompile import compiler
+    from emucompile.compile import compiler
     from emucompile.campaign import cluster
 
     if plan is None:
@@ -69,7 +69,7 @@ def compile_spread(profile=None, outdir=None, *, plan=None, client=None, schedul
         with cluster.open_client(scheduler, workers) as opened:
             return compile_spread(plan=plan, client=opened, progress=progress)
     distributed = cluster.dask_distributed()
-    from emucompile.bundle import BundleWriter, open_bundle
+    from emucompile.bundle.store import BundleWriter, open_bundle
 
     began = time.perf_counter()
     spec = _spec(plan)
@@ -96,7 +96,7 @@ def compile_spread(profile=None, outdir=None, *, plan=None, client=None, schedul
 
 def place_range(spec: dict, start: int, stop: int, files: list) -> int:
     """On a worker: generate samples [start, stop) and write them into every placed file; return their count."""
-    from emucompile import compiler
+    from emucompile.compile import compiler
 
     plan = _worker_plan(spec)
     for first in range(start, stop, compiler.CHUNK_SAMPLES):
@@ -146,13 +146,13 @@ def _worker_plan(spec: dict):
     plan = _WORKER_PLANS.get(spec["key"])
     if plan is not None:
         return plan
-    from emucompile import compiler
-    from emucompile.profile import profile_from_document
+    from emucompile.compile import compiler
+    from emucompile.profile.model import profile_from_document
 
     profile = profile_from_document(spec["profile"], source="spread compile")
     target = None
     if spec["target"] is not None:
-        from emucompile.target import parse_target
+        from emucompile.profile.target import parse_target
 
         target = parse_target(spec["target"], file="spread compile target")
     plan = compiler.plan_compile(profile, "spread-worker", duration_s=spec["duration_s"],

@@ -8,7 +8,7 @@ as cyclic prefix), with Y[k] the DFT of the window and X[k] the probe's:
   antennas m of H_m[k] exp(-j 2 pi k s_m / L) (cyclic shift s_m);
 * the model Z = A g + noise with A[k, (m, i)] = F_i[k] exp(-j 2 pi k (s_m + d) / L),
   F_i the DFT of tap i's row of the band-limited FIR map at the capture's rate
-  (:func:`emucompile.grid.fir_map`) and d the alignment (integer by circular
+  (:func:`emucompile.models.grid.fir_map`) and d the alignment (integer by circular
   correlation of the power delay profile with the map's expected one, then
   fractional by least squares); the tap gains g = pinv(A) Z, their noise
   covariance sigma_Z^2 (A^H A)^-1;
@@ -82,7 +82,7 @@ class Capture:
 
 def open_capture(paths, *, n_rx: int = 1, sample_rate_hz: float | None = None) -> Capture:
     """Open a capture: SigMF (cf32/cf64/ci16), npy, raw cf32 or raw ci16 (``.ci16``); one file or one per antenna."""
-    from emucompile.apply import Recording, read_recording
+    from emucompile.apply.replay import Recording, read_recording
 
     if isinstance(paths, (str, Path)):
         paths = [paths]

@@ -2,7 +2,7 @@
 
 **Against the bundle.** The loaded gains are what the emulator should apply
 at each output sample (``hold`` or ``linear`` between update instants, as
-:mod:`emucompile.apply` does); a period's estimate is their average over the
+:mod:`emucompile.apply.replay` does); a period's estimate is their average over the
 period's L samples (the exact integral of the piecewise-constant or linear
 gain). Alignment: the bundle time of the capture's start, coarse by
 correlating the measured and loaded power envelopes of every tap (immune to a
@@ -25,7 +25,7 @@ pass), a Doppler error or a wrong bundle (no tap follows its loaded gains;
 Doppler when the measured Doppler scale or the profile's Doppler checks
 disagree with the profile).
 
-**Against the profile.** :func:`emucompile.verify.verify_gains` on the
+**Against the profile.** :func:`emucompile.verify.run.verify_gains` on the
 estimated gains averaged over M periods (M chosen so that the record rate
 lies in [8, 16) x the largest Doppler: verify then uses it as it is, and the
 estimation noise stays white at that rate, variance sigma^2 / M), with each
@@ -131,7 +131,7 @@ class BundleJudgement:
 def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None, cfo_hz: float | None = None,
                  limit_db: float = DEFAULT_LIMIT_DB, false_alarm: float = 0.01) -> BundleJudgement:
     """Compare estimated gains with the loaded ones (see the module notes); faults named in ``faults``."""
-    from emucompile.tolerance import CheckResult
+    from emucompile.verify.tolerance import CheckResult
 
     manifest = bundle.manifest
     rate_u = float(manifest["update_rate_hz"])
@@ -467,7 +467,7 @@ class NoisySpectrum:
 
 def noisy_models(profile, noise_variance, rate_hz):
     """Tap index -> TapModel with the estimation noise (variance per tap) in it; static taps None."""
-    from emucompile.tolerance import TapModel
+    from emucompile.verify.tolerance import TapModel
 
     models = {}
     for i, tap in enumerate(profile.taps):
@@ -491,7 +491,7 @@ def profile_record(estimate, profile, *, gain=None, cfo_hz: float = 0.0):
 
     Returns (gains (m, n_rx, n_tx, n_taps) complex64, rate, noise variance per tap (n_taps,), M, gain used).
     """
-    from emucompile import verify
+    from emucompile.verify import run as verify
 
     n = estimate.gains.shape[0]
     g = estimate.gains * np.exp(-2j * np.pi * cfo_hz * estimate.times_s)[:, None, None, None]
@@ -515,8 +515,8 @@ def profile_record(estimate, profile, *, gain=None, cfo_hz: float = 0.0):
 
 def judge_profile(gains_file, profile, rate_hz, noise, *, false_alarm: float = 0.01):
     """verify's checks on a measured record with the noise in the theory; crossing checks n/a above the limit."""
-    from emucompile import verify
-    from emucompile.tolerance import CheckResult
+    from emucompile.verify import run as verify
+    from emucompile.verify.tolerance import CheckResult
 
     models = noisy_models(profile, noise, rate_hz)
     cautions = ["Gains estimated from a capture: the estimation noise (measured from the delay bins outside the "

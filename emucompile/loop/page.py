@@ -1,6 +1,6 @@
 """One self-contained HTML page for a measurement (figures inline as PNG), written atomically.
 
-Kept apart from :mod:`emucompile.report` (which a later change may call
+Kept apart from :mod:`emucompile.report.html` (which a later change may call
 :func:`render_page` from): measured power delay profile against the
 profile's, measured against loaded tap magnitude over time, the error per tap
 against its tolerance, every check, the identities and the cautions.

@@ -108,11 +108,11 @@ def channel_source(sample_rate_hz: float, *, bundle=None, profile=None) -> Chann
 
     The bundle's own FIR map is used when it is at this rate (target-fitted
     maps included); otherwise the profile's tap delays are mapped onto this
-    rate's grid (Kaiser-windowed sinc, :func:`emucompile.grid.fir_map`).
+    rate's grid (Kaiser-windowed sinc, :func:`emucompile.models.grid.fir_map`).
     """
-    from emucompile import grid
-    from emucompile.bundle import Bundle, open_bundle
-    from emucompile.profile import Profile, load_profile, profile_from_document
+    from emucompile.models import grid
+    from emucompile.bundle.store import Bundle, open_bundle
+    from emucompile.profile.model import Profile, load_profile, profile_from_document
 
     if (bundle is None) == (profile is None):
         raise InputError("give either a bundle or a profile")
@@ -240,7 +240,7 @@ def design_probe(source: ChannelSource, *, duration_s: float | None = None, band
     InputError
         A bandwidth outside (0, f_s], too few occupied bins, a bad duration.
     """
-    from emucompile.stats import delay_statistics
+    from emucompile.profile.stats import delay_statistics
 
     profile = source.profile
     rate = source.sample_rate_hz

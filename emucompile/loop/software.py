@@ -1,6 +1,6 @@
 """A software stand-in for the emulator and its RF path, for tests, the acceptance run and the benchmark.
 
-:func:`play` passes the probe through a bundle with :func:`emucompile.apply.apply_channel`
+:func:`play` passes the probe through a bundle with :func:`emucompile.apply.replay.apply_channel`
 (or through gains the caller changed, to play a faulty emulator), then adds what
 a lab set-up adds: a bulk delay of whole samples, a frequency offset, a complex
 gain and white Gaussian noise at an SNR over the whole sample-rate band against
@@ -21,8 +21,8 @@ SET_UP_GAIN = 0.5 * np.exp(0.7j)
 def play(design, bundle, *, gains=None, fir_matrix=None, between="linear", snr_db=30.0, bulk=3, cfo_hz=3.0,
          gain=SET_UP_GAIN, seed=5) -> np.ndarray:
     """The capture, (n, n_rx) complex64; ``gains`` or ``fir_matrix`` replace the bundle's to play a fault."""
-    from emucompile.apply import apply_channel
-    from emucompile.bundle import open_bundle
+    from emucompile.apply.replay import apply_channel
+    from emucompile.bundle.store import open_bundle
 
     opened = open_bundle(bundle)
     rate = design.sample_rate_hz

@@ -1,0 +1,303 @@
+"""A profile's whole channel over its links and conditions: MIMO, high-speed train, shadowing.
+
+:class:`ChannelPlan` sits on the fading engine (:class:`emucompile.models.fading.FadingPlan`)
+and gives, for any sample range [start, stop), the tap gains in the bundle's
+axes (m, n_rx, n_tx, n_taps), complex64, and their parts:
+
+    g_l(n) = A(n) r(n) [ a_d d_l(n) + a_s (S w(n))_l ]
+
+per tap, link l (order of :mod:`emucompile.models.mimo`), with
+
+* w(n): independent unit-power diffuse streams, one per link (the engine's
+  ``diffuse(start, stop, link)``, keyed by link), S the Hermitian square
+  root of the tap's spatial correlation (identity for SISO);
+* d_l(n) = c_l exp(j phi(n)): the direct part, c_l the MIMO direct response
+  (``MimoSetup.direct_response``, 1 for SISO), phi the constant-Doppler
+  phase of the engine or, for a high-speed-train tap, 2 pi integral f_s dt
+  (:meth:`emucompile.models.conditions.HighSpeedTrain.phase_at_samples`) plus the
+  tap's initial phase;
+* a_d = sqrt(P K/(K+1)), a_s = sqrt(P/(K+1)) (static: a_d = sqrt(P), a_s = 0);
+* r(n) = exp(-j 2 pi f_c Delta tau(n)) when a moving delay's carrier follows
+  it, else 1;
+* A(n) = 10^(S(n)/20), the log-normal shadowing common to every tap and link
+  (1 without shadowing).
+
+A SISO profile without conditions takes the engine's own ``block`` (the bytes
+of earlier bundles do not change). Every operation is elementwise in a fixed
+order from the absolute sample index (the correlation is an explicit sum over
+links, not a BLAS product, whose blocking could depend on the request size),
+so any chunking gives bit-identical output.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from emucompile.models import fading
+from emucompile.errors import InputError
+from emucompile.models.fading._streams import SHADOWING
+
+SHADOWING_FILE = "shadowing_db.npy"
+SHADOWING_ROLE = "shadowing_db"
+_SUB_BLOCK_ELEMENTS = 1 << 15
+"""Gains (links x taps x samples) worked on at once in :meth:`ChannelPlan.block`: 512 KiB of complex128."""
+
+
+class ChannelPlan:
+    """The channel of one profile at one update rate for one seed; samples on demand.
+
+    Parameters
+    ----------
+    profile : emucompile.profile.model.Profile
+    engine : emucompile.models.fading.FadingPlan
+        The engine planned for ``profile`` (same taps, rate, length, seed).
+    """
+
+    def __init__(self, profile, engine):
+        self.profile = profile
+        self.engine = engine
+        self.update_rate_hz = engine.update_rate_hz
+        self.n_samples = engine.n_samples
+        self.n_taps = engine.n_taps
+        setup = profile.mimo
+        self.n_rx, self.n_tx = profile.n_rx, profile.n_tx
+        self.n_links = self.n_rx * self.n_tx
+        if setup is not None:
+            self.square_root = np.asarray(setup.correlation.square_root(), dtype=np.complex128)
+            self.correlation = np.asarray(setup.correlation.matrix, dtype=np.complex128)
+            self.direct_response = np.asarray(setup.direct_response, dtype=np.complex128)
+        else:
+            self.square_root = np.ones((1, 1), np.complex128)
+            self.correlation = np.ones((1, 1), np.complex128)
+            self.direct_response = np.ones(1, np.complex128)
+        conditions = profile.conditions
+        self.train = getattr(conditions, "high_speed_train", None)
+        self.train_taps = tuple(getattr(conditions, "high_speed_train_taps", ()) or ()) if self.train else ()
+        self.moving = getattr(conditions, "moving_propagation", None)
+        self.carrier_hz = getattr(conditions, "moving_propagation_carrier_hz", None)
+        spec = getattr(conditions, "shadowing", None)
+        self.shadowing_spec = spec
+        self.shadowing = None
+        self._shadowing_last = (None, None, None)
+        if spec is not None:
+            self.shadowing = spec.generator(np.random.SeedSequence(engine.seed, spawn_key=(SHADOWING,)))
+        if engine.periodic and (self.train is not None or self.moving is not None or spec is not None):
+            raise InputError("periodic mode is not supported yet with time-varying conditions",
+                             hint="drop --periodic, or the conditions block")
+        self._follows = self.moving is not None and self.moving.carrier_follows
+        self.plain = setup is None and not self.train_taps and not self._follows and spec is None
+        self._amps = [_amplitudes(t) for t in profile.taps]
+        self._diffuse_amps = np.array([a_s for _, a_s in self._amps])
+        info = engine.tap_info()
+        self._phase0 = [math.radians(i.get("los_phase_deg") or 0.0) for i in info]
+
+    # -- whole gains ----------------------------------------------------------------
+    def block(self, start: int, stop: int) -> np.ndarray:
+        """Tap gains at samples [start, stop): complex64 (m, n_rx, n_tx, n_taps)."""
+        if self.plain:
+            return self.engine.block(start, stop).reshape(stop - start, 1, 1, self.n_taps)
+        # Link by link in contiguous (m, n_taps) slabs over sub-blocks of samples that stay in
+        # cache, each written once into the bundle's axes; the same operations on the same
+        # operands as small_scale_links (elementwise, so the sub-blocks do not change the bits).
+        m = stop - start
+        rotation = self._rotation(start, stop)
+        streams = [self.engine.diffuse(start, stop, link) for link in range(self.n_links)]
+        products = {j: column[:, None] * self.direct_response[None, :]
+                    for j, column in self._direct_columns(start, stop, rotation).items()}
+        amplitude = self.shadowing_amplitude(start, stop)
+        out = np.empty((m, self.n_rx, self.n_tx, self.n_taps), np.complex64)
+        step = max(1, _SUB_BLOCK_ELEMENTS // (self.n_links * self.n_taps))
+        for a in range(0, m, step):
+            b = min(a + step, m)
+            diffuse = self._correlate([s[a:b] for s in streams], None if rotation is None else rotation[a:b])
+            direct = np.zeros((b - a, self.n_taps), np.complex128)
+            for link in range(self.n_links):
+                for j, product in products.items():
+                    direct[:, j] = product[a:b, link]
+                total = np.add(direct, diffuse[link], out=diffuse[link])
+                if amplitude is not None:
+                    total *= amplitude[a:b, None]
+                tx, rx = divmod(link, self.n_rx)  # link order of to_axes
+                out[a:b, rx, tx, :] = total
+        return out
+
+    def chunks(self, chunk_size: int):
+        """Yield ``(first_index, gains)`` over the record in order (gains as :meth:`block`)."""
+        pos = 0
+        while pos < self.n_samples:
+            end = min(pos + chunk_size, self.n_samples)
+            yield pos, self.block(pos, end)
+            pos = end
+
+    # -- parts, as link vectors (m, n_links, n_taps), complex128 ---------------------------
+    def small_scale_links(self, start, stop) -> np.ndarray:
+        """Direct + diffuse, without shadowing: complex128 (m, n_links, n_taps)."""
+        return self.direct_links(start, stop) + self.diffuse_links(start, stop)
+
+    def direct_links(self, start, stop) -> np.ndarray:
+        """The deterministic direct part a_d c_l exp(j phi(n)) r(n): complex128 (m, n_links, n_taps)."""
+        m = stop - start
+        out = np.zeros((m, self.n_links, self.n_taps), np.complex128)
+        for j, column in self._direct_columns(start, stop, self._rotation(start, stop)).items():
+            out[:, :, j] = column[:, None] * self.direct_response[None, :]
+        return out
+
+    def diffuse_links(self, start, stop) -> np.ndarray:
+        """The correlated diffuse part a_s (S w)_l r(n): complex128 (m, n_links, n_taps)."""
+        return self._diffuse_slabs(start, stop, self._rotation(start, stop)).transpose(1, 0, 2)
+
+    def _direct_columns(self, start, stop, rotation) -> dict:
+        """{tap: a_d exp(j phi(n)) r(n)}, complex128 (m,), for the taps with a direct part."""
+        has_direct = [j for j, (a_d, _) in enumerate(self._amps) if a_d > 0]
+        if not has_direct:
+            return {}
+        phasors = self.engine.direct(start, stop).astype(np.complex128)
+        if self.train_taps:
+            phase = self.train.phase_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+            for j in self.train_taps:
+                phasors[:, j] = np.exp(1j * (phase + self._phase0[j]))
+        columns = {}
+        for j in has_direct:
+            column = self._amps[j][0] * phasors[:, j]
+            if rotation is not None:
+                column = column * rotation
+            columns[j] = column
+        return columns
+
+    def _diffuse_slabs(self, start, stop, rotation) -> np.ndarray:
+        """a_s (S w)_l r(n) link-major: complex128 (n_links, m, n_taps), each link contiguous."""
+        return self._correlate([self.engine.diffuse(start, stop, link) for link in range(self.n_links)], rotation)
+
+    def _correlate(self, unit_streams, rotation) -> np.ndarray:
+        """a_s (S w)_l r(n) from the links' unit streams w (each (m, n_taps)): complex128 (n_links, m, n_taps)."""
+        streams = np.empty((self.n_links, *unit_streams[0].shape), np.complex128)
+        for link, stream in enumerate(unit_streams):
+            streams[link] = stream
+        out = np.zeros_like(streams)
+        term = np.empty(streams.shape[1:], np.complex128)
+        root = self.square_root
+        for row in range(self.n_links):  # explicit sum in link order: same bits for any m
+            for k in range(self.n_links):
+                if root[row, k] != 0:
+                    out[row] += np.multiply(root[row, k], streams[k], out=term)
+        out *= self._diffuse_amps[None, None, :]
+        if rotation is not None:
+            out *= rotation[None, :, None]
+        return out
+
+    def unit_diffuse_links(self, start, stop, tap) -> np.ndarray:
+        """Independent unit-power streams of one tap before correlation: complex64 (m, n_links)."""
+        return np.stack([self.engine.diffuse(start, stop, link)[:, tap] for link in range(self.n_links)], axis=1)
+
+    # -- conditions ----------------------------------------------------------------------
+    def shadowing_db(self, start, stop) -> np.ndarray | None:
+        """S(n) in dB (offset for the held mean or median included), float64 (m,), or None."""
+        if self.shadowing is None:
+            return None
+        if self._shadowing_last[:2] != (start, stop):  # the bundle writer asks again for the chunk just made
+            db = self.shadowing.gain_db_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+            db.flags.writeable = False
+            self._shadowing_last = (start, stop, db)
+        return self._shadowing_last[2]
+
+    def shadowing_amplitude(self, start, stop) -> np.ndarray | None:
+        db = self.shadowing_db(start, stop)
+        return None if db is None else 10.0 ** (db / 20.0)
+
+    def delay_offset_s(self, start, stop) -> np.ndarray | None:
+        """Delta tau(n) of a moving delay, float64 (m,), or None."""
+        if self.moving is None:
+            return None
+        return self.moving.delay_offset_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
+
+    def _rotation(self, start, stop):
+        if not self._follows:
+            return None
+        offset = self.delay_offset_s(start, stop)
+        return np.exp(-2j * math.pi * self.carrier_hz * offset)
+
+    # -- records ----------------------------------------------------------------------------
+    def conditions_record(self) -> dict | None:
+        """The manifest's ``conditions``: each condition's trajectory definition, or None."""
+        conditions = self.profile.conditions
+        if conditions is None:
+            return None
+        record = conditions.as_record()
+        if record.get("high_speed_train") is not None:
+            record["high_speed_train"]["phase"] = (
+                "direct part of each listed tap: exp(j (2 pi f_d integral_0^t cos theta(u) du + los_phase)), "
+                "t = n / update_rate_hz")
+        if record.get("moving_propagation") is not None:
+            record["moving_propagation"]["delay"] = (
+                "every tap's delay + (A/2) sin(delta_omega t), t = n / update_rate_hz; the FIR follows it")
+            record["moving_propagation"]["carrier_phase_follows"] = bool(self._follows)
+        if record.get("shadowing") is not None:
+            record["shadowing"]["generator"] = self.shadowing.as_record()
+            record["shadowing"]["file"] = SHADOWING_FILE
+            record["shadowing"]["applies_to"] = "every tap and link of tap_gains, as 10^(S/20)"
+        return record
+
+    # -- axes ------------------------------------------------------------------------------
+    def to_axes(self, links) -> np.ndarray:
+        """Link vectors (m, n_links, n_taps) -> bundle axes (m, n_rx, n_tx, n_taps)."""
+        m = links.shape[0]
+        return links.reshape(m, self.n_tx, self.n_rx, self.n_taps).transpose(0, 2, 1, 3)
+
+
+def generate_channel_gains(profile, update_rate_hz, n_samples, seed, **engine_options) -> np.ndarray:
+    """A profile's whole channel at once, MIMO block and conditions included.
+
+    Parameters
+    ----------
+    profile : emucompile.profile.model.Profile
+    update_rate_hz, n_samples, seed
+        As for :func:`emucompile.models.fading.plan`.
+    **engine_options
+        ``method``, ``periodic``, ``n_sinusoids``, ``sos_evaluation``,
+        ``threads`` of :func:`emucompile.models.fading.plan`.
+
+    Returns
+    -------
+    numpy.ndarray
+        complex64, shape (n_samples, n_rx, n_tx, n_taps): the bundle's
+        ``tap_gains`` for the same arguments (SISO: n_rx = n_tx = 1).
+
+    Examples
+    --------
+    >>> import emucompile
+    >>> profile = emucompile.load_profile("profiles_demo/campus-eva-2x2.yaml")
+    >>> emucompile.generate_channel_gains(profile, 2000.0, 4000, seed=1).shape
+    (4000, 2, 2, 9)
+    """
+    channel = _plan_channel(profile, update_rate_hz, n_samples, seed, engine_options)
+    out = np.empty((channel.n_samples, channel.n_rx, channel.n_tx, channel.n_taps), np.complex64)
+    for start, gains in channel.chunks(fading.DEFAULT_CHUNK):
+        out[start:start + len(gains)] = gains
+    return out
+
+
+def stream_channel_gains(profile, update_rate_hz, n_samples, seed, *, chunk_size=None, **engine_options):
+    """Iterate ``(first_index, gains)`` over :func:`generate_channel_gains`'s record in chunks.
+
+    Memory stays bounded; the chunks concatenated equal the whole record bit for bit.
+    """
+    channel = _plan_channel(profile, update_rate_hz, n_samples, seed, engine_options)
+    return channel.chunks(chunk_size or fading.DEFAULT_CHUNK)
+
+
+def _plan_channel(profile, update_rate_hz, n_samples, seed, engine_options):
+    return ChannelPlan(profile, fading.plan(profile, update_rate_hz, n_samples, seed, **engine_options))
+
+
+def _amplitudes(tap):
+    """(a_d, a_s) of a tap (see the module notes)."""
+    power = float(tap.power_linear)
+    if tap.fading == "static":
+        return math.sqrt(power), 0.0
+    k = float(tap.k_linear) if tap.fading == "rician" else 0.0
+    return math.sqrt(power * k / (k + 1.0)), math.sqrt(power / (k + 1.0))
+
+
+__all__ = ["ChannelPlan", "SHADOWING_FILE", "SHADOWING_ROLE", "generate_channel_gains", "stream_channel_gains"]

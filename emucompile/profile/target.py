@@ -1,0 +1,1174 @@
+"""Emulator targets: the constraints of an FIR channel emulator and the fit of a profile to them.
+
+A target (a stand-alone file or a profile's ``target:`` block, schema
+``schemas/target-v1.schema.json``) says what the emulator can hold: its
+sample rate, how many FIR coefficients and non-zero paths, the delay grid
+they sit on, how fast and how it updates coefficients, their bit width.
+:func:`fit_to_target` maps a profile's taps onto that emulator and reports
+what the fit costs; it refuses (:class:`emucompile.errors.InputError`) when
+the target cannot hold the profile at all.
+
+Reading files (with line numbers) belongs to the profile loader; here a target
+arrives as a plain dict already parsed: :func:`check_target` lists every
+problem, :func:`parse_target` returns a :class:`Target` or raises.
+
+Fit rules (in this order)
+-------------------------
+1. Rates. The update rate must be at least 2x the largest frequency in any tap
+   gain (band edges and direct-component shifts: Nyquist) and at most the
+   target's ``max_update_rate_hz``; a target whose maximum is below that
+   Nyquist minimum cannot hold the profile at all.
+2. Mapping. ``sinc`` needs ``delay_step_samples = 1``; when it does not fit
+   the FIR length or the path limit its half-length shrinks (Kaiser beta
+   re-derived) down to :data:`MIN_SINC_HALF_LENGTH`. Left to choose
+   (``delay_mapping=None``) the fit takes ``sinc`` when that works, else
+   ``nearest``.
+3. Merging (``nearest``). Taps whose delays round to the same grid point
+   become one path: their gains add. For independent zero-mean taps the sum
+   is again complex Gaussian with the summed power and the power-weighted
+   mixture of the Doppler spectra, so Rayleigh stays Rayleigh (with a
+   different spectrum if the members' spectra differ). With direct parts the
+   merged path has K = sum of direct powers / sum of diffuse powers; two
+   direct parts with different Doppler shifts beat, so the merged envelope is
+   no longer Rician; static gains add coherently, so their merged power
+   depends on their phases (the mean over phases is the sum of powers).
+   Each merge is listed in the report.
+4. Path limit. Beyond ``max_paths`` occupied grid points the weakest (by
+   merged mean power; at equal power the later one) are dropped with all
+   their taps; the power dropped is reported.
+5. FIR length. What is kept must fit in ``max_fir_coefficients`` on the
+   grid, counting the bulk delay; a profile that does not is refused, never
+   cut (a late path cut off changes the channel more than any reported
+   figure would convey).
+
+Costs
+-----
+RMS delay-spread change (grid minus profile, from the fitted map's coefficient
+powers), power dropped, image level and droop from hold/linear updating
+(:func:`update_images`), coefficient quantisation SQNR
+(:func:`coefficient_quantisation`).
+
+References
+----------
+.. [Bennett1948] W. R. Bennett, "Spectra of quantized signals", Bell Syst.
+   Tech. J. 27, 446-472, 1948: granular noise Delta^2/12 for a uniform
+   quantiser with a busy input; 6.02 b + 1.76 dB for a full-scale sine.
+.. [Widrow1961] B. Widrow, "Statistical analysis of amplitude-quantized
+   sampled-data systems", AIEE Trans. 79(II), 555-568, 1961: when the
+   uniform-noise model holds.
+.. [OppenheimSchafer] A. V. Oppenheim, R. W. Schafer, Discrete-Time Signal
+   Processing (zero-order hold response T sinc(f T) exp(-j pi f T); linear
+   interpolation as a triangle kernel with response T sinc^2(f T)).
+"""
+
+from __future__ import annotations
+
+import difflib
+import json
+import math
+from dataclasses import asdict, dataclass, field, replace
+from importlib import resources
+
+import jsonschema
+import numpy as np
+
+from emucompile._lazy import LazyModule
+from emucompile.errors import CheckFailed, InputError, Problem, ProfileError
+from emucompile.models.grid import (
+    DEFAULT_HALF_LENGTH,
+    DEFAULT_PASSBAND_FRACTION,
+    FirMap,
+    fir_map,
+    rms_delay_spread,
+)
+
+# Imported on first use: checking a profile's target: block does not integrate (start-up).
+integrate = LazyModule("scipy.integrate")
+special = LazyModule("scipy.special")
+stats = LazyModule("scipy.stats")
+
+BETWEEN_UPDATES = ("hold", "linear")
+DEFAULT_HEADROOM_DB = 12.0
+DEFAULT_FIT_TOLERANCE_PCT = 10.0
+"""How far (in % of the profile's) a fit may move the RMS delay spread before compile calls the
+target missed (our choice, stated; ``compile --fit-tolerance-pct``). Ordinary fits move it 0-4 %
+(sinc and nearest maps of TDL-A/C at 100 ns and EVA at 30.72 and 61.44 MHz); dropping paths
+moves it far more (TDL-C at 100 ns into 8 paths at 30.72 MHz: -37 %)."""
+MIN_SINC_HALF_LENGTH = 4
+SCHEMA_NAME = "target-v1.schema.json"
+
+
+@dataclass(frozen=True)
+class Target:
+    """An emulator's constraints; ``None`` means "no limit" (see the schema for each key).
+
+    Attributes
+    ----------
+    sample_rate_hz : float or None
+        Signal sample rate; sets the FIR grid.
+    max_fir_coefficients : int or None
+        Coefficients the FIR holds, counted on the delay grid.
+    max_paths : int or None
+        Non-zero coefficients it can place at once.
+    delay_step_samples : int
+        Spacing of the delay grid in samples.
+    max_update_rate_hz : float or None
+        Highest coefficient update rate.
+    between_updates : {"hold", "linear"}
+        What a coefficient does between updates.
+    coefficient_bits : int or None
+        Bits of each of the real and imaginary parts.
+    headroom_db : float
+        Full scale above the RMS of the strongest coefficient.
+    """
+
+    sample_rate_hz: float | None = None
+    max_fir_coefficients: int | None = None
+    max_paths: int | None = None
+    delay_step_samples: int = 1
+    max_update_rate_hz: float | None = None
+    between_updates: str = "hold"
+    coefficient_bits: int | None = None
+    headroom_db: float = DEFAULT_HEADROOM_DB
+    name: str | None = None
+    description: str = ""
+
+    def to_dict(self) -> dict:
+        """The target as a document (keys of the schema; absent limits omitted)."""
+        return {k: v for k, v in asdict(self).items() if v is not None and v != ""}
+
+
+@dataclass(frozen=True)
+class UpdateImages:
+    """What hold/linear updating does to one tap gain, as fractions of its mean power.
+
+    ``wanted_fraction``: power left in the original band (below 1: the droop
+    of the hold/interpolation response); ``image_fraction``: power moved to
+    the images around multiples of the update rate.
+    """
+
+    wanted_fraction: float
+    image_fraction: float
+
+    @property
+    def image_to_wanted(self) -> float:
+        return self.image_fraction / self.wanted_fraction
+
+    @property
+    def image_to_wanted_db(self) -> float:
+        return _db(self.image_to_wanted)
+
+    @property
+    def droop_db(self) -> float:
+        return _db(self.wanted_fraction)
+
+
+@dataclass(frozen=True)
+class CoefficientQuantisation:
+    """Quantisation of the FIR coefficients to ``bits`` per real and imaginary part.
+
+    ``full_scale`` is per part, in the units of the coefficients:
+    10^(headroom/20) times the RMS of the strongest coefficient. ``sqnr_db``
+    is the total coefficient power over the total error power (what a white
+    input sees); ``strongest_sqnr_db`` that of the strongest coefficient;
+    ``clip_probability`` the chance that a part of the strongest coefficient
+    exceeds full scale (per update).
+    """
+
+    bits: int
+    headroom_db: float
+    full_scale: float
+    step: float
+    sqnr_db: float
+    strongest_sqnr_db: float
+    granular_sqnr_db: float
+    clip_probability: float
+
+
+@dataclass(frozen=True)
+class MergedPath:
+    """Taps that the fit put on one grid point (their gains add).
+
+    ``taps`` are positions in the fitted tap sequence; ``power_linear`` the
+    merged mean power (taps independent); ``fading``/``k_linear`` describe the
+    sum's mean composition (module docstring, rule 3); ``remark`` says where
+    the sum is not what ``fading`` suggests.
+    """
+
+    delay_s: float
+    taps: tuple
+    power_linear: float
+    fading: str  # "rayleigh", "rician" or "static" (of the sum's mean composition)
+    k_linear: float | None
+    remark: str = ""
+
+
+@dataclass(frozen=True)
+class FitCosts:
+    """What fitting a profile to a target costs. SI units; ratios linear unless ``_db``.
+
+    Attributes
+    ----------
+    delay_mapping, sample_rate_hz, delay_step_samples, half_length
+        The map chosen (``half_length`` None for ``nearest``).
+    n_paths : int
+        Non-zero FIR columns (paths the emulator places).
+    n_fir : int
+        FIR length in samples (the map's columns, bulk delay included).
+    n_coefficients : int
+        FIR length counted on the target's grid: (n_fir - 1) // step + 1.
+    profile_rms_delay_spread_s, fit_rms_delay_spread_s, rms_delay_spread_change_s
+        The profile's RMS delay spread, the fitted grid's (from coefficient
+        powers), and fit minus profile.
+    power_dropped_fraction : float
+        Mean power of the dropped taps over the total (``power_dropped_db``: the loss in dB).
+    dropped_taps : tuple of int
+    merged : tuple of MergedPath
+    max_abs_delay_error_s : float
+        Largest |mapped - true delay| over the kept taps (0 for ``sinc``).
+    energy_kept : float
+        The map's power-weighted energy kept (dropping included).
+    passband_error_bound : float
+        The map's frequency-response error bound per unit tap gain (see ``FirMap``).
+    update_rate_hz, between_updates
+    image_to_wanted : float
+        Power of the update images over the wanted power, summed over the kept
+        taps weighted by their kept power (``image_to_wanted_db``); NaN when
+        nothing is kept.
+    droop_db : float
+        Wanted power after hold/interpolation over the kept power, in dB (<= 0).
+    tap_images : tuple of UpdateImages
+        Per tap (dropped ones included), from :func:`update_images`.
+    quantisation : CoefficientQuantisation or None
+        None when the target gives no ``coefficient_bits``.
+    notes : tuple of str
+        Choices the fit made on its own (mapping chosen, window shortened).
+    profile_mean_delay_s, fit_mean_delay_s
+        Power-weighted mean delay of the profile's taps and of the fitted
+        grid (coefficient powers at their delays), from the profile's zero.
+    """
+
+    delay_mapping: str
+    sample_rate_hz: float
+    delay_step_samples: int
+    half_length: int | None
+    n_paths: int
+    n_fir: int
+    n_coefficients: int
+    profile_rms_delay_spread_s: float
+    fit_rms_delay_spread_s: float
+    rms_delay_spread_change_s: float
+    power_dropped_fraction: float
+    dropped_taps: tuple
+    merged: tuple
+    max_abs_delay_error_s: float
+    energy_kept: float
+    passband_error_bound: float
+    update_rate_hz: float
+    between_updates: str
+    image_to_wanted: float
+    droop_db: float
+    tap_images: tuple
+    quantisation: CoefficientQuantisation | None
+    notes: tuple = field(default_factory=tuple)
+    profile_mean_delay_s: float = math.nan
+    fit_mean_delay_s: float = math.nan
+
+    @property
+    def power_dropped_db(self) -> float:
+        """Loss of mean power from dropping taps, in dB (>= 0)."""
+        return 0.0 - _db(1.0 - self.power_dropped_fraction)
+
+    @property
+    def image_to_wanted_db(self) -> float:
+        return _db(self.image_to_wanted)
+
+    def to_dict(self) -> dict:
+        """Strict-JSON form: infinite or undefined figures are null with a reason."""
+        out = {}
+        for key, value in asdict(self).items():
+            if key in ("tap_images", "merged", "quantisation"):
+                continue
+            out[key] = list(value) if isinstance(value, tuple) else _json_value(value)
+        out["power_dropped_db"] = _json_value(self.power_dropped_db)
+        out["image_to_wanted_db"] = _json_value(self.image_to_wanted_db)
+        if out["image_to_wanted_db"] is None:
+            out["image_to_wanted_db_reason"] = "no tap gain changes with time: updating adds no image"
+        out["tap_images"] = [
+            {
+                "wanted_fraction": _json_value(t.wanted_fraction),
+                "image_fraction": _json_value(t.image_fraction),
+                "image_to_wanted_db": _json_value(t.image_to_wanted_db),
+            }
+            for t in self.tap_images
+        ]
+        out["merged"] = [{k: _json_value(v) for k, v in asdict(m).items()} for m in self.merged]
+        for m in out["merged"]:
+            m["taps"] = list(m["taps"])
+        out["quantisation"] = (
+            None if self.quantisation is None else {k: _json_value(v) for k, v in asdict(self.quantisation).items()}
+        )
+        if self.quantisation is None:
+            out["quantisation_reason"] = "the target gives no coefficient_bits"
+        return out
+
+
+@dataclass(frozen=True)
+class FitAcceptance:
+    """Whether a fit kept the RMS delay spread within the stated tolerance, and whether it was accepted.
+
+    ``fit_rms_delay_spread_s`` is the fitted channel's
+    (:func:`fitted_channel_rms_delay_spread`). ``bound_s`` is
+    ``tolerance_pct`` % of the profile's RMS delay spread (half
+    a grid step, ``delay_step_samples / (2 sample_rate_hz)``, for a profile
+    whose spread is 0). ``within_tolerance``: |fit - profile| <= bound_s.
+    ``accepted``: the user accepted the fit anyway (``compile --accept-fit``).
+    """
+
+    tolerance_pct: float
+    profile_rms_delay_spread_s: float
+    fit_rms_delay_spread_s: float
+    bound_s: float
+    within_tolerance: bool
+    accepted: bool
+
+    @property
+    def change_s(self) -> float:
+        return self.fit_rms_delay_spread_s - self.profile_rms_delay_spread_s
+
+    @property
+    def change_pct(self) -> float | None:
+        if not self.profile_rms_delay_spread_s > 0:
+            return None
+        return 100.0 * self.change_s / self.profile_rms_delay_spread_s
+
+    @property
+    def missed(self) -> bool:
+        """Beyond the tolerance and not accepted: compile refuses (exit 1)."""
+        return not self.within_tolerance and not self.accepted
+
+    def sentence(self) -> str:
+        """One line: the move, the tolerance, the outcome."""
+        pct = self.change_pct
+        moved = (f"the fit moves the RMS delay spread from {self.profile_rms_delay_spread_s * 1e9:.1f} ns to "
+                 f"{self.fit_rms_delay_spread_s * 1e9:.1f} ns"
+                 + ("" if pct is None else f" ({pct:+.1f} %)"))
+        bound = f"the fit tolerance of {self.tolerance_pct:g} % ({self.bound_s * 1e9:.3g} ns)"
+        if self.within_tolerance:
+            return f"{moved}, within {bound}"
+        return f"{moved}, beyond {bound}" + ("; accepted with --accept-fit" if self.accepted else "")
+
+    def to_dict(self) -> dict:
+        return {
+            "rule": ("|fitted channel - profile RMS delay spread| <= tolerance_pct % of the profile's (half a grid "
+                     "step when the profile's spread is 0); the fitted channel's spread is the grid's for nearest, "
+                     "the profile's for sinc (every delay kept in band); beyond it compile refuses unless accepted "
+                     "(--accept-fit)"),
+            "tolerance_pct": self.tolerance_pct,
+            "bound_s": _json_value(self.bound_s),
+            "profile_rms_delay_spread_s": _json_value(self.profile_rms_delay_spread_s),
+            "fit_rms_delay_spread_s": _json_value(self.fit_rms_delay_spread_s),
+            "change_s": _json_value(self.change_s),
+            "change_pct": _json_value(self.change_pct),
+            "within_tolerance": self.within_tolerance,
+            "accepted": self.accepted,
+        }
+
+
+def fitted_channel_rms_delay_spread(costs: "FitCosts") -> float:
+    """The fitted channel's RMS delay spread: what the fit tolerance judges.
+
+    ``nearest``: the kept taps at their grid delays, merged taps' powers added
+    (the spread of the coefficient powers, ``fit_rms_delay_spread_s``).
+    ``sinc``: the profile's own, as that map keeps every tap at its delay within
+    the passband (and never drops one); the coefficient powers' spread there
+    includes each window's interpolation tails (e.g. one tap 10 ns late at
+    30.72 MHz: 25.9 ns), a property of the map, not of the channel.
+    """
+    if costs.delay_mapping == "sinc" and not costs.dropped_taps:
+        return float(costs.profile_rms_delay_spread_s)
+    return float(costs.fit_rms_delay_spread_s)
+
+
+class TargetMissed(CheckFailed):
+    """The fit moved the RMS delay spread beyond the stated tolerance and was not accepted (exit 1)."""
+
+
+def missed_target_error(costs: "FitCosts", acceptance: FitAcceptance) -> TargetMissed:
+    """The error compile raises for a missed target: the move, what the fit did, what to do."""
+    dropped = list(costs.dropped_taps)
+    did = [f"{costs.n_paths} path(s)"]
+    if dropped:
+        did.append(f"{len(dropped)} tap(s) dropped ({', '.join(map(str, dropped))}), "
+                   f"power dropped {costs.power_dropped_db:.3g} dB")
+    if costs.merged:
+        did.append(f"{len(costs.merged)} group(s) of taps merged")
+    return TargetMissed(
+        f"target missed: {acceptance.sentence()}; {'; '.join(did)}; nothing written",
+        hint="accept the fit with --accept-fit (recorded in the manifest), widen --fit-tolerance-pct, "
+             "or use a target with more paths or a finer delay grid",
+    )
+
+
+def judge_fit(costs: "FitCosts", tolerance_pct: float = DEFAULT_FIT_TOLERANCE_PCT, *,
+              accepted: bool = False) -> FitAcceptance:
+    """Judge a fit's RMS delay-spread change against ``tolerance_pct`` (see :class:`FitAcceptance`).
+
+    Raises
+    ------
+    emucompile.errors.InputError
+        For a tolerance that is not a finite number >= 0.
+    """
+    try:
+        tolerance = float(tolerance_pct)
+    except (TypeError, ValueError):
+        tolerance = math.nan
+    if not (math.isfinite(tolerance) and tolerance >= 0):
+        raise InputError(f"the fit tolerance must be a finite percentage >= 0, got {tolerance_pct!r}")
+    profile = float(costs.profile_rms_delay_spread_s)
+    fit = fitted_channel_rms_delay_spread(costs)
+    if profile > 0:
+        bound = tolerance / 100.0 * profile
+    else:
+        bound = 0.5 * costs.delay_step_samples / costs.sample_rate_hz
+    within = math.isfinite(fit) and abs(fit - profile) <= bound * (1 + 1e-12)
+    return FitAcceptance(tolerance_pct=tolerance, profile_rms_delay_spread_s=profile, fit_rms_delay_spread_s=fit,
+                         bound_s=bound, within_tolerance=bool(within), accepted=bool(accepted))
+
+
+@dataclass(frozen=True, eq=False)
+class TargetFit:
+    """The fitted FIR map (the bundle's ``fir_map``, docs/bundle-format.md) and what the fit costs."""
+
+    fir_map: FirMap
+    costs: FitCosts
+    target: Target
+
+
+# -- the fit in plain view --------------------------------------------------------
+
+
+def fit_record(manifest: dict) -> dict | None:
+    """The "emulator fit" section of a bundle (compile's summary, verification.json, the report).
+
+    Built from the manifest alone: ``target.costs`` (the fitted figures),
+    ``target.fit_acceptance`` (the delay-spread judgement; absent in bundles
+    made before it existed) and the integer FIR coefficients' entry (clip
+    counts and measured SQNR). None when the bundle was not fitted to a target.
+    Strict JSON; SI units.
+    """
+    entry = (manifest or {}).get("target") or {}
+    costs = entry.get("costs")
+    if not costs:
+        return None
+    codes_entry = next((f for f in manifest.get("files") or () if f.get("role") == "fir_coefficients_int"), None)
+    codes = (codes_entry or {}).get("coefficient_codes") or {}
+    quantisation = costs.get("quantisation") or {}
+    profile_spread, grid_spread = costs.get("profile_rms_delay_spread_s"), costs.get("fit_rms_delay_spread_s")
+    fit_spread = grid_spread
+    if costs.get("delay_mapping") == "sinc" and not costs.get("dropped_taps"):
+        fit_spread = profile_spread  # fitted_channel_rms_delay_spread: sinc keeps every delay in band
+    change_pct = (100.0 * (fit_spread - profile_spread) / profile_spread
+                  if profile_spread and fit_spread is not None else None)
+    return {
+        "constraints": entry.get("constraints") or {},
+        "delay_mapping": costs.get("delay_mapping"),
+        "sample_rate_hz": costs.get("sample_rate_hz"),
+        "delay_step_samples": costs.get("delay_step_samples"),
+        "n_paths": costs.get("n_paths"),
+        "n_coefficients": costs.get("n_coefficients"),
+        "taps_merged": [{k: m.get(k) for k in ("taps", "delay_s", "fading", "remark")}
+                        for m in costs.get("merged") or ()],
+        "taps_dropped": list(costs.get("dropped_taps") or ()),
+        "power_dropped_db": costs.get("power_dropped_db"),
+        "power_dropped_fraction": costs.get("power_dropped_fraction"),
+        "rms_delay_spread_s": {"profile": profile_spread, "fitted": fit_spread, "change_pct": change_pct,
+                               "coefficient_powers": grid_spread},
+        "mean_delay_s": {"profile": costs.get("profile_mean_delay_s"), "fitted": costs.get("fit_mean_delay_s")},
+        "max_abs_delay_error_s": costs.get("max_abs_delay_error_s"),
+        "update_images": {
+            "between_updates": costs.get("between_updates"), "update_rate_hz": costs.get("update_rate_hz"),
+            "image_to_wanted_db": costs.get("image_to_wanted_db"), "droop_db": costs.get("droop_db"),
+        },
+        "coefficients": None if not quantisation else {
+            "bits": quantisation.get("bits"), "headroom_db": quantisation.get("headroom_db"),
+            "sqnr_db_model": quantisation.get("sqnr_db"),
+            "clip_probability_model": quantisation.get("clip_probability"),
+            "file": (codes_entry or {}).get("name"),
+            "sqnr_db_measured": codes.get("sqnr_db"),
+            "clipped_values": codes.get("clipped_values"),
+            "clipped_values_per_path": codes.get("clipped_values_per_path"),
+        },
+        "acceptance": entry.get("fit_acceptance"),
+        "notes": list(costs.get("notes") or ()),
+    }
+
+
+def fit_lines(record: dict) -> list[str]:
+    """The fit section as short lines of text (compile's summary and verify's)."""
+    def ns(value):
+        return "undefined" if value is None else f"{value * 1e9:.1f} ns"
+
+    def db(value, unit="dB"):
+        return "none" if value is None else f"{value:.3g} {unit}"
+
+    spread, mean = record["rms_delay_spread_s"], record["mean_delay_s"]
+    change = "" if spread["change_pct"] is None else f" ({spread['change_pct']:+.1f} %)"
+    merged = "; ".join(f"taps {', '.join(map(str, m['taps']))} at {ns(m['delay_s'])}" for m in record["taps_merged"])
+    dropped = record["taps_dropped"]
+    images = record["update_images"]
+    lines = [
+        f"{record['delay_mapping']} mapping, delay step {record['delay_step_samples']} sample(s) at "
+        f"{(record['sample_rate_hz'] or 0) / 1e6:g} MHz: {record['n_paths']} path(s)",
+        f"taps merged: {merged or 'none'}",
+        f"taps dropped: {', '.join(map(str, dropped)) or 'none'}",
+        f"RMS delay spread {ns(spread['profile'])} -> {ns(spread['fitted'])}{change}"
+        + ("" if spread.get("coefficient_powers") in (None, spread["fitted"]) else
+           f" (coefficient powers: {ns(spread['coefficient_powers'])}, interpolation tails included)")
+        + f"; mean delay {ns(mean['profile'])} -> {ns(mean['fitted'])}",
+        f"power dropped {db(record['power_dropped_db'])}; largest delay error {ns(record['max_abs_delay_error_s'])}",
+        f"update images {db(images['image_to_wanted_db'])} ({images['between_updates']} at "
+        f"{images['update_rate_hz']:g} Hz), droop {db(images['droop_db'])}",
+    ]
+    coefficients = record["coefficients"]
+    if coefficients:
+        clipped = coefficients["clipped_values"]
+        lines.append(
+            f"coefficients {coefficients['bits']} bits, headroom {coefficients['headroom_db']:g} dB: SQNR "
+            f"{db(coefficients['sqnr_db_model'])} (model)"
+            + ("" if coefficients["sqnr_db_measured"] is None else f", {db(coefficients['sqnr_db_measured'])} measured")
+            + ("" if clipped is None else f", {clipped} value(s) clipped")
+            + ("" if not coefficients["file"] else f" ({coefficients['file']})"))
+    acceptance = record.get("acceptance")
+    if acceptance:
+        outcome = ("within the fit tolerance" if acceptance["within_tolerance"] else
+                   "BEYOND the fit tolerance, accepted with --accept-fit" if acceptance["accepted"] else
+                   "BEYOND the fit tolerance")
+        lines.append(f"fit tolerance {acceptance['tolerance_pct']:g} % of the profile's RMS delay spread: {outcome}")
+    lines += [f"note: {note}" for note in record["notes"]]
+    return lines
+
+
+# -- reading -----------------------------------------------------------------------
+
+
+def target_schema() -> dict:
+    """The target JSON Schema (draft 2020-12) shipped in the package."""
+    text = resources.files("emucompile").joinpath("schemas", SCHEMA_NAME).read_text(encoding="utf-8")
+    return json.loads(text)
+
+
+def check_target(document, *, file: str = "<target>", base_pointer: str = "") -> list[Problem]:
+    """Every problem of a target document: schema errors, then semantic checks.
+
+    Parameters
+    ----------
+    document : dict
+        The parsed target (a target file's content or a profile's ``target:`` value).
+    file : str
+        Name used in the problems (the target file or the profile).
+    base_pointer : str
+        JSON pointer of the document inside its file, e.g. ``"/target"``.
+
+    Returns
+    -------
+    list of emucompile.errors.Problem
+        Errors and warnings, each with the JSON pointer of the value concerned;
+        ``line``/``column`` are left for the loader to fill from its positions.
+    """
+    schema = target_schema()
+    validator = jsonschema.Draft202012Validator(schema)
+    problems = [
+        _schema_problem(error, schema, file, base_pointer)
+        for error in sorted(validator.iter_errors(document), key=lambda e: list(e.absolute_path))
+    ]
+    if isinstance(document, dict):
+        problems.extend(_semantic_problems(document, file, base_pointer))
+    return problems
+
+
+def parse_target(document, *, file: str = "<target>", base_pointer: str = "") -> Target:
+    """A :class:`Target` from a parsed document; raise ``ProfileError`` listing every error."""
+    problems = check_target(document, file=file, base_pointer=base_pointer)
+    if any(p.severity == "error" for p in problems):
+        raise ProfileError(problems)
+    d = document
+    return Target(
+        sample_rate_hz=_float_or_none(d.get("sample_rate_hz")),
+        max_fir_coefficients=_int_or_none(d.get("max_fir_coefficients")),
+        max_paths=_int_or_none(d.get("max_paths")),
+        delay_step_samples=int(d.get("delay_step_samples", 1)),
+        max_update_rate_hz=_float_or_none(d.get("max_update_rate_hz")),
+        between_updates=d.get("between_updates", "hold"),
+        coefficient_bits=_int_or_none(d.get("coefficient_bits")),
+        headroom_db=float(d.get("headroom_db", DEFAULT_HEADROOM_DB)),
+        name=d.get("name"),
+        description=d.get("description", ""),
+    )
+
+
+# -- the fit -----------------------------------------------------------------------
+
+
+def check_target_file(source, *, format: str | None = None):
+    """Read and check a target file; ``(target_or_None, problems)``, never raising for bad input.
+
+    The file is read by :func:`emucompile.profile.reader.read_document` (YAML 1.2 or
+    JSON, safely, with positions), so every problem carries its line and column.
+    """
+    from emucompile.profile.reader import read_document
+
+    document = read_document(source, format=format)
+    problems = list(document.problems)
+    if not document.readable:
+        return None, problems
+    for problem in check_target(document.value, file=document.filename):
+        if problem.pointer in document.replaced:
+            continue  # the reader has said why that value is missing
+        line, column = document.locate(problem.pointer, key=True)
+        problems.append(replace(problem, line=line, column=column))
+    problems.sort(key=lambda p: (p.line is None, p.line or 0, p.column or 0))
+    if any(p.severity == "error" for p in problems):
+        return None, problems
+    return parse_target(document.value, file=document.filename), problems
+
+
+def load_target(source, *, format: str | None = None) -> Target:
+    """A :class:`Target` from a target file (``compile --target FILE``).
+
+    Raises
+    ------
+    emucompile.errors.ProfileError
+        Listing every error, one line each (``FILE:LINE:COL: /pointer: message``); exit code 2.
+
+    Examples
+    --------
+    Not run as a doctest: it reads a target file of your own.
+
+    >>> target = load_target("bench-fir-8.yaml")  # doctest: +SKIP
+    """
+    target, problems = check_target_file(source, format=format)
+    if target is None:
+        raise ProfileError(problems)
+    return target
+
+
+def fit_to_target(
+    target: Target,
+    taps,
+    *,
+    update_rate_hz: float,
+    sample_rate_hz: float | None = None,
+    delay_mapping: str | None = None,
+    half_length: int = DEFAULT_HALF_LENGTH,
+    passband_fraction: float = DEFAULT_PASSBAND_FRACTION,
+) -> TargetFit:
+    """Fit a profile's taps to an emulator and report what it costs.
+
+    Parameters
+    ----------
+    target : Target
+    taps : emucompile.profile.model.Profile or sequence of emucompile.profile.model.Tap
+        The profile's taps (delays, powers after scaling, fading, Doppler);
+        tap numbers in the report are positions in this sequence (= the last
+        axis of ``tap_gains.npy``).
+    update_rate_hz : float
+        The chosen update rate of the tap gains (what the emulator is fed).
+    sample_rate_hz : float, optional
+        The command line's sample rate; must equal the target's when both are given.
+    delay_mapping : {"sinc", "nearest"}, optional
+        Honoured or refused; None lets the fit choose (rule 2 of the module docstring).
+    half_length, passband_fraction
+        The sinc window asked for (see :func:`emucompile.models.grid.fir_map`).
+
+    Returns
+    -------
+    TargetFit
+
+    Raises
+    ------
+    emucompile.errors.InputError
+        When the target cannot hold the profile, or the request contradicts it;
+        the message says the limit and what would be needed.
+    """
+    taps = tuple(getattr(taps, "taps", taps))  # a Profile or its taps
+    if not taps:
+        raise InputError("the profile has no taps to fit to the target")
+    rate = _sample_rate(target, sample_rate_hz)
+    _check_update_rate(target, taps, update_rate_hz)
+    notes = []
+    mapping = delay_mapping
+    if mapping not in (None, "sinc", "nearest"):
+        raise InputError(f"delay mapping must be 'sinc' or 'nearest', got {mapping!r}")
+    step = target.delay_step_samples
+    if mapping == "sinc" and step != 1:
+        raise InputError(
+            f"sinc delay mapping needs a delay step of 1 sample; the target's step is {step} samples",
+            hint="use --delay-mapping nearest",
+        )
+    delays = [t.delay_s for t in taps]
+    powers = [t.power_linear for t in taps]
+    fitted = None
+    if mapping in (None, "sinc") and step == 1:
+        fitted, sinc_notes = _fit_sinc(target, delays, powers, rate, half_length, passband_fraction)
+        if fitted is None and mapping == "sinc":
+            raise InputError(sinc_notes[-1], hint="use --delay-mapping nearest or a target with a longer FIR")
+        notes.extend(sinc_notes)
+    if fitted is None:
+        if mapping is None:
+            why = f"the target's delay step is {step} samples" if step != 1 else "sinc does not fit the target"
+            notes.append(f"delay mapping: nearest ({why})")
+        base = fir_map(delays, powers, rate, mapping="nearest", delay_step_samples=step,
+                       passband_fraction=passband_fraction)
+        fitted, merged, dropped = _fit_nearest(target, taps, base)
+    else:
+        merged, dropped = (), ()
+    return TargetFit(
+        fir_map=fitted,
+        costs=_costs(target, taps, fitted, merged, dropped, update_rate_hz, tuple(notes)),
+        target=target,
+    )
+
+
+# -- costs -------------------------------------------------------------------------
+
+
+def update_images(tap, update_rate_hz: float, between_updates: str = "hold") -> UpdateImages:
+    """Power of the images that hold or linear updating at ``update_rate_hz`` adds to one tap.
+
+    Parameters
+    ----------
+    tap : emucompile.profile.model.Tap
+        Its diffuse part has the Doppler spectrum ``tap.doppler_spectrum``;
+        its direct part (Rician, or a turning static tap) is a line at
+        ``tap.los_doppler_hz``.
+    update_rate_hz : float
+        f_u, with the tap's largest frequency at most f_u / 2.
+    between_updates : {"hold", "linear"}
+
+    Returns
+    -------
+    UpdateImages
+
+    Notes
+    -----
+    Samples g(k/f_u) held for 1/f_u (or joined by straight lines) form
+    y(t) = sum_k g(k/f_u) r(t f_u - k) with r a unit box (or triangle), whose
+    transform is sinc(f/f_u) (or sinc^2) [OppenheimSchafer]_. The samples'
+    spectrum repeats S(f) at every multiple of f_u, so
+
+        S_y(f) = sum_m S(f - m f_u) sinc^{2q}(f/f_u),   q = 1 (hold), 2 (linear),
+
+    and with x = f/f_u the power kept in band and moved to images is
+
+        wanted = integral S(f) sinc^{2q}(x) df,
+        image  = integral S(f) sum_{m != 0} sinc^{2q}(x + m) df
+               = integral S(f) (sin(pi x)/pi)^{2q} [zeta(2q, 1+x) + zeta(2q, 1-x)] df,
+
+    the Hurwitz zeta (``scipy.special.zeta``) summing the images without
+    cancellation. (Equivalently sum_{m != 0} sinc^2(x+m) = 1 - sinc^2(x) and
+    sum_{m != 0} sinc^4(x+m) = (2 + cos 2 pi x)/3 - sinc^4(x).) For small x the
+    image is (pi x)^2/3 (hold) and (pi x)^4/45 (linear) of the power at x. The
+    integrals over the Doppler spectrum use f = f_D sin(phi), which turns the
+    classical spectrum's edge singularities into a constant, and
+    ``scipy.integrate.quad`` on ``DopplerSpectrum.psd``.
+    """
+    if between_updates not in BETWEEN_UPDATES:
+        raise ValueError(f"between_updates must be one of {BETWEEN_UPDATES}, got {between_updates!r}")
+    if not (update_rate_hz > 0 and math.isfinite(update_rate_hz)):
+        raise ValueError(f"update_rate_hz must be finite and > 0, got {update_rate_hz!r}")
+    if tap.largest_doppler_hz > update_rate_hz / 2:
+        raise ValueError(
+            f"tap {tap.index}: its largest frequency {tap.largest_doppler_hz:g} Hz is above "
+            f"half the update rate {update_rate_hz:g} Hz"
+        )
+    order = 1 if between_updates == "hold" else 2
+    power = tap.power_linear
+    if power <= 0:
+        return UpdateImages(1.0, 0.0)
+    direct = tap.direct_power_linear / power
+    los_x = (tap.los_doppler_hz or 0.0) / update_rate_hz
+    wanted = direct * _wanted_kernel(los_x, order)
+    image = direct * _image_kernel(los_x, order)
+    spectrum = tap.doppler_spectrum
+    if spectrum is not None and tap.diffuse_power_linear > 0:
+        diffuse = tap.diffuse_power_linear / power
+        wanted += diffuse * _spectrum_integral(spectrum, update_rate_hz, lambda x: _wanted_kernel(x, order))
+        image += diffuse * _spectrum_integral(spectrum, update_rate_hz, lambda x: _image_kernel(x, order))
+    return UpdateImages(float(wanted), float(image))
+
+
+def coefficient_quantisation(coefficient_powers, bits: int, headroom_db: float = DEFAULT_HEADROOM_DB) -> CoefficientQuantisation:
+    """SQNR of FIR coefficients quantised to ``bits`` per part, full scale set by ``headroom_db``.
+
+    Parameters
+    ----------
+    coefficient_powers : array_like
+        Mean power E|c_n|^2 of each coefficient (e.g. ``FirMap.coefficient_powers``).
+    bits : int
+        Bits of each of the real and imaginary parts: two's complement codes
+        -2^(b-1) ... 2^(b-1) - 1 times the step Delta = full_scale / 2^(b-1),
+        rounded to nearest.
+    headroom_db : float
+        full_scale = 10^(headroom/20) * sqrt(max power).
+
+    Notes
+    -----
+    Each part of a coefficient of power p is modelled as Gaussian with variance
+    s^2 = p/2 (exact for Rayleigh taps and sums of them; a direct part makes the
+    tail lighter at large headroom). Per part, with a = full_scale / s and
+    Q the Gaussian tail (``scipy.stats.norm.sf``):
+
+    - granular error Delta^2/12 where the part is not clipped [Bennett1948]_,
+      applied as min(Delta^2/12, s^2) so that a coefficient far below one step
+      (which the quantiser mostly sets to zero) costs its own power, not more
+      (common practice; the uniform-noise model needs s >> Delta [Widrow1961]_);
+    - clipping error E[(|x| - A)^2; |x| > A] = 2 [(s^2 + A^2) Q(a) - s A phi(a)].
+
+    The strongest coefficient's granular SQNR is 10 log10(1.5 4^b) - headroom
+    = 6.02 b + 1.76 - headroom dB, so headroom 0 dB is the full-scale-sine
+    reference of [Bennett1948]_ (each part of a unit-power complex exponential
+    is a sine of amplitude full_scale). The probability that one part of the
+    strongest coefficient clips is 2 Q(a) = erfc(10^(headroom/20)).
+    """
+    powers = np.asarray(coefficient_powers, dtype=float)
+    if not (isinstance(bits, (int, np.integer)) and 2 <= bits <= 32):
+        raise ValueError(f"bits must be an integer in 2..32, got {bits!r}")
+    if not (np.all(np.isfinite(powers)) and np.all(powers >= 0) and powers.max(initial=0.0) > 0):
+        raise ValueError("coefficient_powers must be finite, >= 0 and not all 0")
+    strongest = float(powers.max())
+    full_scale = 10.0 ** (headroom_db / 20.0) * math.sqrt(strongest)
+    step = full_scale / 2.0 ** (bits - 1)
+    noise = _quantisation_error_power(powers, full_scale, step)
+    index = int(np.argmax(powers))
+    s = math.sqrt(strongest / 2.0)
+    return CoefficientQuantisation(
+        bits=int(bits),
+        headroom_db=float(headroom_db),
+        full_scale=full_scale,
+        step=step,
+        sqnr_db=_db(powers.sum() / noise.sum()),
+        strongest_sqnr_db=_db(strongest / noise[index]),
+        granular_sqnr_db=granular_sqnr_db(bits, headroom_db),
+        clip_probability=float(2.0 * stats.norm.sf(full_scale / s)),
+    )
+
+
+def granular_sqnr_db(bits: int, headroom_db: float = 0.0) -> float:
+    """10 log10(1.5 * 4^bits) - headroom_db: the strongest coefficient's SQNR without clipping."""
+    return 10.0 * math.log10(1.5) + 20.0 * bits * math.log10(2.0) - headroom_db
+
+
+# -- helpers -------------------------------------------------------------------------
+
+
+def _sample_rate(target, sample_rate_hz):
+    if target.sample_rate_hz is not None and sample_rate_hz is not None:
+        if not math.isclose(target.sample_rate_hz, sample_rate_hz, rel_tol=1e-12):
+            raise InputError(
+                f"the sample rate {sample_rate_hz:g} Hz differs from the target's "
+                f"sample_rate_hz {target.sample_rate_hz:g} Hz",
+                hint="drop --sample-rate or make them agree",
+            )
+    rate = target.sample_rate_hz if target.sample_rate_hz is not None else sample_rate_hz
+    if rate is None:
+        raise InputError("fitting to a target needs a sample rate", hint="give --sample-rate or sample_rate_hz in the target")
+    if not (rate > 0 and math.isfinite(rate)):
+        raise InputError(f"the sample rate must be finite and > 0, got {rate!r}")
+    return float(rate)
+
+
+def _check_update_rate(target, taps, update_rate_hz):
+    largest = max(t.largest_doppler_hz for t in taps)
+    needed = 2.0 * largest
+    limit = target.max_update_rate_hz
+    if limit is not None and limit < needed:
+        raise InputError(
+            f"the target cannot hold this profile: its max_update_rate_hz {limit:g} Hz is below "
+            f"{needed:g} Hz, twice the largest Doppler {largest:g} Hz (Nyquist)"
+        )
+    if not (update_rate_hz > 0 and math.isfinite(update_rate_hz)):
+        raise InputError(f"the update rate must be finite and > 0, got {update_rate_hz!r}")
+    if update_rate_hz < needed:
+        raise InputError(
+            f"the update rate {update_rate_hz:g} Hz is below {needed:g} Hz, twice the largest "
+            f"Doppler {largest:g} Hz (Nyquist)"
+        )
+    if limit is not None and update_rate_hz > limit:
+        raise InputError(
+            f"the update rate {update_rate_hz:g} Hz exceeds the target's max_update_rate_hz {limit:g} Hz",
+            hint=f"use --update-rate between {needed:g} and {limit:g}",
+        )
+
+
+def _fit_sinc(target, delays, powers, rate, half_length, passband_fraction):
+    """The longest sinc window (<= half_length) that the target holds, or (None, [reason])."""
+    shortest = min(int(half_length), MIN_SINC_HALF_LENGTH)
+    for half in range(int(half_length), shortest - 1, -1):
+        candidate = fir_map(delays, powers, rate, mapping="sinc", half_length=half,
+                            passband_fraction=passband_fraction)
+        limits = []
+        if target.max_fir_coefficients is not None and candidate.n_fir > target.max_fir_coefficients:
+            limits.append(f"{candidate.n_fir} coefficients > max_fir_coefficients {target.max_fir_coefficients}")
+        if target.max_paths is not None and candidate.nonzero_columns.size > target.max_paths:
+            limits.append(f"{candidate.nonzero_columns.size} paths > max_paths {target.max_paths}")
+        if not limits:
+            notes = []
+            if half < half_length:
+                notes.append(
+                    f"sinc half-length shortened from {half_length} to {half} samples to fit the target; "
+                    f"passband error bound {candidate.passband_error_bound:.3g}"
+                )
+            return candidate, notes
+    return None, [f"sinc mapping does not fit the target even with half-length {shortest}: " + ", ".join(limits)]
+
+
+def _fit_nearest(target, taps, base):
+    """Merge taps sharing a grid point, drop the weakest paths beyond max_paths, check the length."""
+    columns = np.argmax(base.matrix != 0.0, axis=1)
+    powers = np.array([t.power_linear for t in taps])
+    occupied = sorted(set(columns.tolist()))
+    path_power = {c: float(powers[columns == c].sum()) for c in occupied}
+    dropped_columns = set()
+    if target.max_paths is not None and len(occupied) > target.max_paths:
+        # strongest first; at equal power the earlier path wins
+        ranked = sorted(occupied, key=lambda c: (-path_power[c], c))
+        dropped_columns = set(ranked[target.max_paths:])
+    dropped = tuple(int(i) for i in np.flatnonzero(np.isin(columns, list(dropped_columns))))
+    fitted = base.without_taps(dropped) if dropped else base
+    kept_columns = [c for c in occupied if c not in dropped_columns]
+    if target.max_fir_coefficients is not None:
+        step = base.delay_step_samples
+        needed = max(kept_columns) // step + 1
+        if needed > target.max_fir_coefficients:
+            reach_s = (target.max_fir_coefficients - 1) * step / base.sample_rate_hz
+            latest = max(kept_columns)
+            raise InputError(
+                f"the target cannot hold this profile: a kept path lies at "
+                f"{base.coefficient_delays_s[latest] * 1e9:.6g} ns (grid point {latest // step}), beyond the "
+                f"target's FIR of {target.max_fir_coefficients} coefficients every {step} samples "
+                f"(reach {reach_s * 1e9:.6g} ns)",
+                hint=f"needs max_fir_coefficients >= {needed}",
+            )
+    merged = tuple(
+        _merged_path(taps, [int(i) for i in np.flatnonzero(columns == c)], base.coefficient_delays_s[c])
+        for c in kept_columns
+        if np.count_nonzero(columns == c) > 1
+    )
+    return fitted, merged, dropped
+
+
+def _merged_path(taps, members, delay_s):
+    group = [taps[i] for i in members]
+    direct = sum(t.direct_power_linear for t in group)
+    diffuse = sum(t.diffuse_power_linear for t in group)
+    remarks = []
+    if direct == 0:
+        fading, k = "rayleigh", None
+    elif diffuse == 0:
+        fading, k = "static", None
+        remarks.append("static gains add coherently: the merged power depends on their phases")
+    else:
+        fading, k = "rician", direct / diffuse
+    shifts = {t.los_doppler_hz or 0.0 for t in group if t.direct_power_linear > 0}
+    if len(shifts) > 1:
+        remarks.append("direct parts with different Doppler shifts beat: the envelope is not Rician")
+    spectra = {(t.spectrum, t.max_doppler_hz, t.sigma_hz) for t in group if t.diffuse_power_linear > 0}
+    if len(spectra) > 1:
+        remarks.append("the diffuse parts' Doppler spectra differ: the sum has their power-weighted mixture")
+    return MergedPath(
+        delay_s=float(delay_s),
+        taps=tuple(members),
+        power_linear=float(direct + diffuse),
+        fading=fading,
+        k_linear=k,
+        remark="; ".join(remarks),
+    )
+
+
+def _costs(target, taps, fitted, merged, dropped, update_rate_hz, notes):
+    powers = np.array([t.power_linear for t in taps])
+    profile_spread = rms_delay_spread([t.delay_s for t in taps], powers)
+    fit_spread = fitted.rms_delay_spread_s
+    kept_energy = powers * fitted.energy_kept_per_tap
+    images = tuple(update_images(t, update_rate_hz, target.between_updates) for t in taps)
+    wanted = float(sum(e * i.wanted_fraction for e, i in zip(kept_energy, images)))
+    image = float(sum(e * i.image_fraction for e, i in zip(kept_energy, images)))
+    quantisation = None
+    if target.coefficient_bits is not None:
+        quantisation = coefficient_quantisation(fitted.coefficient_powers, target.coefficient_bits, target.headroom_db)
+    errors = fitted.delay_error_s
+    return FitCosts(
+        delay_mapping=fitted.delay_mapping,
+        sample_rate_hz=fitted.sample_rate_hz,
+        delay_step_samples=fitted.delay_step_samples,
+        half_length=fitted.half_length,
+        n_paths=int(fitted.nonzero_columns.size),
+        n_fir=fitted.n_fir,
+        n_coefficients=(fitted.n_fir - 1) // fitted.delay_step_samples + 1,
+        profile_rms_delay_spread_s=profile_spread,
+        fit_rms_delay_spread_s=fit_spread,
+        rms_delay_spread_change_s=fit_spread - profile_spread,
+        power_dropped_fraction=float(powers[list(dropped)].sum() / powers.sum()) if dropped else 0.0,
+        dropped_taps=tuple(dropped),
+        merged=merged,
+        max_abs_delay_error_s=float(np.nanmax(np.abs(errors), initial=0.0)),
+        energy_kept=fitted.energy_kept,
+        passband_error_bound=fitted.passband_error_bound,
+        update_rate_hz=float(update_rate_hz),
+        between_updates=target.between_updates,
+        image_to_wanted=image / wanted if wanted > 0 else math.nan,
+        droop_db=_db(wanted / kept_energy.sum()) if kept_energy.sum() > 0 else math.nan,
+        tap_images=images,
+        quantisation=quantisation,
+        profile_mean_delay_s=_mean_delay([t.delay_s for t in taps], powers),
+        fit_mean_delay_s=_mean_delay(fitted.coefficient_delays_s, fitted.coefficient_powers),
+        notes=notes,
+    )
+
+
+def _wanted_kernel(x, order):
+    return np.sinc(x) ** (2 * order)
+
+
+def _image_kernel(x, order):
+    """sum over m != 0 of sinc^{2q}(x + m) for |x| < 1, by the Hurwitz zeta function."""
+    x = np.asarray(x, dtype=float)
+    s = 2 * order
+    return (np.sin(np.pi * x) / np.pi) ** s * (special.zeta(s, 1.0 + x) + special.zeta(s, 1.0 - x))
+
+
+def _spectrum_integral(spectrum, update_rate_hz, kernel):
+    """integral of S(f) kernel(f / f_u) df over |f| < f_D, with f = f_D sin(phi)."""
+    fd = spectrum.band_edge_hz
+
+    def integrand(phi):
+        f = fd * math.sin(phi)
+        return float(spectrum.psd(f)) * fd * math.cos(phi) * float(kernel(f / update_rate_hz))
+
+    points = None
+    if spectrum.kind == "gaussian":
+        points = [0.0]  # the peak, narrow when sigma << f_D
+    value, _ = integrate.quad(integrand, -math.pi / 2, math.pi / 2, points=points, limit=200,
+                              epsabs=0.0, epsrel=1e-10)
+    return value
+
+
+def _quantisation_error_power(powers, full_scale, step):
+    """Mean |error|^2 per coefficient: two parts, each granular plus clipping (Gaussian parts)."""
+    variance = powers / 2.0
+    s = np.sqrt(variance)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a = np.where(s > 0, full_scale / s, np.inf)
+    tail = stats.norm.sf(a)
+    clip = 2.0 * ((variance + full_scale**2) * tail - s * full_scale * stats.norm.pdf(a))
+    clip = np.maximum(np.nan_to_num(clip, nan=0.0), 0.0)
+    granular = np.minimum(step * step / 12.0, variance) * (1.0 - 2.0 * tail)
+    return 2.0 * (granular + clip)
+
+
+def _schema_problem(error, schema, file, base_pointer):
+    path = [str(p) for p in error.absolute_path]
+    if error.validator == "additionalProperties":
+        known = sorted(schema["properties"])
+        extra = sorted(set(error.instance) - set(known))
+        key = extra[0] if extra else ""
+        close = difflib.get_close_matches(key, known, n=1)
+        hint = f"did you mean {close[0]!r}?" if close else "known keys: " + ", ".join(known)
+        message = "unknown key " + ", ".join(repr(k) for k in extra)
+        return Problem(file, _pointer(base_pointer, path + [key]), message, hint=hint)
+    if error.validator == "minProperties":
+        return Problem(file, _pointer(base_pointer, path), "the target is empty", hint="give at least one constraint")
+    return Problem(file, _pointer(base_pointer, path), error.message)
+
+
+def _semantic_problems(document, file, base_pointer):
+    problems = []
+    for key in ("sample_rate_hz", "max_update_rate_hz", "headroom_db"):
+        value = document.get(key)
+        if isinstance(value, float) and not math.isfinite(value):
+            problems.append(Problem(file, _pointer(base_pointer, [key]), f"{key} must be finite, got {value!r}"))
+    paths, length = document.get("max_paths"), document.get("max_fir_coefficients")
+    if _is_int(paths) and _is_int(length) and paths > length:
+        problems.append(Problem(
+            file, _pointer(base_pointer, ["max_paths"]),
+            f"max_paths {paths} exceeds max_fir_coefficients {length}: the path limit never applies",
+            severity="warning",
+        ))
+    bits = document.get("coefficient_bits")
+    headroom = document.get("headroom_db")
+    if headroom is not None and bits is None:
+        problems.append(Problem(
+            file, _pointer(base_pointer, ["headroom_db"]),
+            "headroom_db has no effect without coefficient_bits", severity="warning",
+        ))
+    if _is_int(bits) and isinstance(headroom, (int, float)) and not isinstance(headroom, bool) and math.isfinite(headroom):
+        if granular_sqnr_db(bits, headroom) <= 0:
+            problems.append(Problem(
+                file, _pointer(base_pointer, ["headroom_db"]),
+                f"headroom {headroom:g} dB leaves no resolution with {bits} bits "
+                f"(SQNR {granular_sqnr_db(bits, headroom):.1f} dB)",
+                hint=f"use less than {granular_sqnr_db(bits, 0.0):.1f} dB",
+            ))
+    return problems
+
+
+def _pointer(base, parts):
+    escaped = [p.replace("~", "~0").replace("/", "~1") for p in parts]
+    return base + "".join("/" + p for p in escaped)
+
+
+def _is_int(value):
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and float(value).is_integer()
+
+
+def _int_or_none(value):
+    return None if value is None else int(value)
+
+
+def _float_or_none(value):
+    return None if value is None else float(value)
+
+
+def _db(ratio):
+    ratio = float(ratio)
+    if ratio > 0:
+        return 10.0 * math.log10(ratio)
+    return -math.inf if ratio == 0 else math.nan
+
+
+def _mean_delay(delays_s, powers) -> float:
+    powers = np.asarray(powers, dtype=float)
+    total = powers.sum()
+    return float(np.dot(np.asarray(delays_s, dtype=float), powers) / total) if total > 0 else math.nan
+
+
+def _json_value(value):
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        return value if math.isfinite(value) else None
+    if isinstance(value, np.integer):
+        return int(value)
+    return value
+
+
+__all__ = [
+    "BETWEEN_UPDATES",
+    "DEFAULT_HEADROOM_DB",
+    "MIN_SINC_HALF_LENGTH",
+    "Target",
+    "TargetFit",
+    "FitCosts",
+    "MergedPath",
+    "UpdateImages",
+    "CoefficientQuantisation",
+    "target_schema",
+    "check_target",
+    "parse_target",
+    "check_target_file",
+    "load_target",
+    "fit_to_target",
+    "update_images",
+    "coefficient_quantisation",
+    "granular_sqnr_db",
+]
