@@ -1105,9 +1105,10 @@ def _check_label(check):
 def _fir_checks(manifest, matrix, root):
     """The FIR map against the profile: deterministic comparisons (no false alarm, not in Holm).
 
-    ``fir_map_rebuilt``: the map compile makes for this manifest's profile and
-    options (target fit included), rebuilt here, against ``fir_map.npy``
-    (catches a map edited with its hash regenerated). ``fir_power``: energy
+    ``fir_map_rebuilt``: the map the manifest describes, rebuilt from its
+    closed form and recorded parameters (:func:`_rebuilt_map`; no part of the
+    compile planner runs), against ``fir_map.npy`` (catches a map edited with
+    its hash regenerated). ``fir_power``: energy
     kept, sum_i P_i sum_n m_in^2 / sum_i P_i, against 1 with the map's own
     worst-case loss (1 - G/pi^2 of a half-sample sinc row; 0 for nearest)
     and the target fit's dropped power as tolerance. ``fir_rms_delay_spread``:
@@ -1119,7 +1120,6 @@ def _fir_checks(manifest, matrix, root):
     each fractional tap's energy spreads over its window, which has no such
     bound, so the figure is reported, not judged.
     """
-    from emucompile.compile.compiler import _replan
     from emucompile.models.grid import rms_delay_spread
 
     tol = _tolerance()
@@ -1131,7 +1131,7 @@ def _fir_checks(manifest, matrix, root):
     coefficient_delays = (np.arange(matrix.shape[1]) - fir["bulk_delay_samples"]) / rate
     checks = []
     try:
-        rebuilt = _replan(manifest, root).fir
+        rebuilt = _rebuilt_map(manifest, root)
     except Exception as error:  # noqa: BLE001 - a map we cannot rebuild is reported, not fatal
         rebuilt, why = None, f"could not rebuild the map from the manifest: {error}"
     if rebuilt is not None and rebuilt.matrix.shape == matrix.shape:
@@ -1163,6 +1163,25 @@ def _fir_checks(manifest, matrix, root):
                                      f"grid RMS delay spread vs {against}; sinc mapping: each fractional tap spreads "
                                      "over its window; no bound to judge against (reported only)", passed=None))
     return checks
+
+
+def _rebuilt_map(manifest, root):
+    """The FIR map the manifest records, from its closed form: the recorded profile's delays and powers,
+    the ``fir`` record's rate, mapping and parameters, the moving delay or the target fit as at compile."""
+    from emucompile.models.grid import fir_map_from_record
+    from emucompile.profile.model import profile_from_document
+    from emucompile.profile.target import fit_to_target, parse_target
+
+    profile = profile_from_document(manifest["profile"], source=f"{root}/manifest.json#/profile")
+    record, rate = manifest["fir"], float(manifest["update_rate_hz"])
+    moving = getattr(profile.conditions, "moving_propagation", None)
+    if moving is None and manifest.get("target"):
+        target = parse_target(manifest["target"]["constraints"], file=f"{root}/manifest.json",
+                              base_pointer="/target/constraints")
+        return fit_to_target(target, profile, update_rate_hz=rate, sample_rate_hz=record["sample_rate_hz"],
+                             delay_mapping=record["delay_mapping"]).fir_map
+    return fir_map_from_record(record, [t.delay_s for t in profile.taps], [t.power_linear for t in profile.taps],
+                               moving=moving, update_rate_hz=rate)
 
 
 def _merged_model(models, weights):
