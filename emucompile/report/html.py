@@ -33,6 +33,8 @@ from pathlib import Path
 
 from emucompile._version import __version__
 from emucompile.bundle.store import fsync_directory
+from emucompile.profile.blocks import correlation_text
+from emucompile.verify.describe import check_matrix, comparison
 
 #: The cautions printed in every report (common practice for lab test records).
 CAUTIONS = (
@@ -242,8 +244,6 @@ def _fit_per_tap(fit) -> dict | None:
 
 def _checks_section(verification, checks) -> str:
     """The per-tap checks as a taps x checks matrix, then the checks of no single tap."""
-    from emucompile.verify.run import check_matrix
-
     fit = getattr(verification, "fit", None)
     matrix = check_matrix(checks)
     out = ['<h2 id="checks">Checks</h2>', f'<p class="explain">{_e(_holm_explanation(verification))}</p>',
@@ -354,7 +354,8 @@ def _fit_section(fit, figure=None) -> str:
     ]
     coefficients = fit.get("coefficients")
     if coefficients:
-        rows.append(("coefficients", f"{coefficients['bits']} bits per part, headroom {_number(coefficients['headroom_db'])} dB; "
+        rows.append(("coefficients", f"{coefficients['bits']} bits per part, "
+                                     f"headroom {_number(coefficients['headroom_db'])} dB; "
                                      f"SQNR {_number(coefficients['sqnr_db_model'])} dB (model), "
                                      f"{_number(coefficients['sqnr_db_measured'])} dB measured; "
                                      f"{_number(coefficients['clipped_values'])} value(s) clipped"
@@ -396,10 +397,8 @@ def _mimo_text(verification) -> str:
     described = ""
     if setup is not None:
         try:
-            from emucompile.profile.blocks import correlation_text
-
             described = f"{setup.n_rx} rx x {setup.n_tx} tx, correlation {correlation_text(setup.correlation)}. "
-        except (ImportError, AttributeError):
+        except AttributeError:
             described = ""
     return (described + f"{len(mimo['links'])} links ({', '.join(mimo['links'])}). Left: the correlation the "
             "profile asks for; middle: the correlation achieved by one tap's links; right: the largest "
@@ -453,8 +452,6 @@ def _png_width(png) -> int:
 
 
 def _comparison(check, fit) -> dict:
-    from emucompile.verify.run import comparison
-
     return comparison(check, fit)
 
 

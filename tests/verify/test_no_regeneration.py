@@ -24,6 +24,7 @@ from emucompile.models import fading
 from emucompile.models.channel import ChannelPlan
 from emucompile.models.fading import _design, _plan
 from emucompile.profile.model import profile_from_document
+from emucompile.verify import checks_fir
 from emucompile.verify import run as verifier
 from emucompile.verify.components import open_components
 from profile_helpers import FIT_EXAMPLE
@@ -159,5 +160,5 @@ def test_the_recorded_direct_part_of_a_periodic_record_keeps_its_rounded_doppler
 @pytest.mark.parametrize("name", ["siso", "fit", "moving"])
 def test_the_map_rebuilt_from_the_manifest_is_the_stored_map(bundles, name):
     opened = open_bundle(bundles[name])
-    rebuilt = verifier._rebuilt_map(opened.manifest, bundles[name])
+    rebuilt = checks_fir.rebuilt_map(opened.manifest, bundles[name])
     assert np.array_equal(rebuilt.matrix, np.asarray(opened.fir_map))
