@@ -606,17 +606,40 @@ def _autocorrelation_lag_count(n, rate_hz, fd):
     return int(min(n // 2, math.ceil(AUTOCORRELATION_SPAN_PERIODS * rate_hz / fd) + 1))
 
 
-def _check_autocorrelation(ctx):
-    n_lags = _autocorrelation_lag_count(ctx.n, ctx.rate, ctx.fd)
-    rh = estimators.autocorrelation(ctx.diffuse, n_lags, periodic=ctx.periodic)
+def autocorrelation_curve(g, rate_hz, model: TapModel, *, periodic=False) -> dict:
+    """The numbers the ``autocorrelation`` check judges, for a figure to draw.
+
+    ``lag_s`` (lags 1 .. 3/f_D), ``measured`` (complex r_hat(k) of the diffuse
+    part, normalised), ``expected`` (the model's r(k)) and the standard
+    deviations ``sd_real`` and ``sd_imag`` of their parts (Bartlett, with the
+    exact r); the check's tolerance at a lag is its critical score times these.
+    """
+    g = estimators._record(g)
+    rate_hz, n = float(rate_hz), g.size
+    r = _lags(model.spectrum, rate_hz, n, bool(periodic))
+    k, rho, rk, sd_re, sd_im = _autocorrelation_numbers(_diffuse(g, rate_hz, model), rate_hz, model.spectrum, r,
+                                                        bool(periodic))
+    return {"lag_s": k / rate_hz, "measured": rho[k], "expected": rk, "sd_real": sd_re, "sd_imag": sd_im}
+
+
+def _autocorrelation_numbers(diffuse, rate, spectrum, r, periodic):
+    n = diffuse.size
+    n_lags = _autocorrelation_lag_count(n, rate, spectrum.band_edge_hz)
+    rh = estimators.autocorrelation(diffuse, n_lags, periodic=periodic)
     rho = rh / rh[0].real
     k = np.arange(1, n_lags)
-    s0, c1, c2 = _bartlett_sums(ctx.model.spectrum, ctx.rate, ctx.n, ctx.periodic, n_lags)
-    rk = ctx.r[k]
+    s0, c1, c2 = _bartlett_sums(spectrum, rate, n, periodic, n_lags)
+    rk = r[k]
     total = s0 * (1.0 + rk**2) - 2.0 * rk * c1[k]
     pseudo = c2[k] - 2.0 * rk * c1[k] + rk**2 * s0
-    sd_re = np.sqrt(np.maximum((total + pseudo) / (2.0 * ctx.n), 1e-300))
-    sd_im = np.sqrt(np.maximum((total - pseudo) / (2.0 * ctx.n), 1e-300))
+    sd_re = np.sqrt(np.maximum((total + pseudo) / (2.0 * n), 1e-300))
+    sd_im = np.sqrt(np.maximum((total - pseudo) / (2.0 * n), 1e-300))
+    return k, rho, rk, sd_re, sd_im
+
+
+def _check_autocorrelation(ctx):
+    k, rho, rk, sd_re, sd_im = _autocorrelation_numbers(ctx.diffuse, ctx.rate, ctx.model.spectrum, ctx.r, ctx.periodic)
+    n_lags = k.size + 1
     z_re = np.abs(rho[k].real - rk) / sd_re
     z_im = np.abs(rho[k].imag) / sd_im
     zk = np.maximum(z_re, z_im)
@@ -639,21 +662,43 @@ def _check_autocorrelation(ctx):
                       law="normal", z=float(zk[worst]), m=m, scale=part_sd)
 
 
+def psd_curve(g, rate_hz, model: TapModel) -> dict:
+    """The numbers the ``doppler_psd`` check judges, for a figure to draw.
+
+    ``frequency_hz``, ``measured`` (Welch PSD of the diffuse part over its
+    sample power, Hann at 50 %), ``expected`` (the exact spectrum through the
+    window), ``judged`` (the bins the check reads), ``segments`` and ``nu``
+    (the Gamma law's shape); ``enough`` is False when the record has fewer
+    than :data:`PSD_MIN_SEGMENTS` segments (the check does not apply; the
+    estimate is still given, for a figure to show unjudged).
+    """
+    g = estimators._record(g)
+    return _psd_numbers(_diffuse(g, float(rate_hz), model), float(rate_hz), model.spectrum)
+
+
+def _psd_numbers(s, rate, spectrum):
+    n, fd = s.size, spectrum.band_edge_hz
+    seg_s = min(1.0 / (PSD_RESOLUTION_DOPPLER * fd), n / rate / 10.0)
+    nperseg = max(16, int(round(seg_s * rate)))
+    n_seg = (n - nperseg) // (nperseg - nperseg // 2) + 1
+    out = {"segments": n_seg, "nperseg": nperseg, "nu": n_seg / (1.0 + 2.0 * _HANN_OVERLAP_CORRELATION**2),
+           "enough": n_seg >= PSD_MIN_SEGMENTS}
+    f, p_hat = estimators.welch_psd(s, rate, nperseg)
+    power = float(np.mean(s.real**2 + s.imag**2))
+    expected = _expected_welch(spectrum, rate, nperseg)
+    keep = (expected >= PSD_MIN_RELATIVE * expected.max()) & (np.abs(f) <= fd)
+    out.update(frequency_hz=f, measured=p_hat / power, expected=expected, judged=keep, psd=p_hat, power=power)
+    return out
+
+
 def _check_psd(ctx):
     name = "doppler_psd"
-    duration = ctx.n / ctx.rate
-    seg_s = min(1.0 / (PSD_RESOLUTION_DOPPLER * ctx.fd), duration / 10.0)
-    nperseg = max(16, int(round(seg_s * ctx.rate)))
-    n_seg = (ctx.n - nperseg) // (nperseg - nperseg // 2) + 1
-    if n_seg < PSD_MIN_SEGMENTS:
+    curve = _psd_numbers(ctx.diffuse, ctx.rate, ctx.model.spectrum)
+    n_seg, nperseg, nu = curve["segments"], curve["nperseg"], curve["nu"]
+    if not curve["enough"]:
         return _na(name, ctx.tap, f"not enough data: {n_seg} Welch segments < {PSD_MIN_SEGMENTS}", ctx.level)
-    s = ctx.diffuse
-    f, p_hat = estimators.welch_psd(s, ctx.rate, nperseg)
-    power = float(np.mean(s.real**2 + s.imag**2))
-    expected = _expected_welch(ctx.model.spectrum, ctx.rate, nperseg)
-    keep = (expected >= PSD_MIN_RELATIVE * expected.max()) & (np.abs(f) <= ctx.fd)
-    ratio = p_hat[keep] / (power * expected[keep])
-    nu = n_seg / (1.0 + 2.0 * _HANN_OVERLAP_CORRELATION**2)
+    f, keep = curve["frequency_hz"], curve["judged"]
+    ratio = curve["psd"][keep] / (curve["power"] * curve["expected"][keep])
     # Wilson-Hilferty: the cube root of a Gamma(nu, 1/nu) variable is nearly normal.
     z = np.abs((np.cbrt(ratio) - (1.0 - 1.0 / (9.0 * nu))) * math.sqrt(9.0 * nu))
     worst = int(np.argmax(z))
@@ -702,32 +747,18 @@ def _check_crossings(ctx):
     rho = levels / r_rms
     kw = dict(rms_doppler_hz=ctx.model.spectrum.rms_doppler_hz, k_linear=ctx.k,
               los_doppler_hz=ctx.model.los_doppler_hz)
-    up = int(max(1, math.ceil(CROSSING_RATE_DOPPLER * ctx.fd / ctx.rate)))
-    g = ctx.g
-    periodic = ctx.periodic
-    limit = int(MAX_CROSSING_PERIODS * ctx.rate / ctx.fd)
-    if g.size > limit:  # bounded memory: count on the first MAX_CROSSING_PERIODS periods
-        g, periodic = g[:limit], False
-    band = max(ctx.fd, abs(ctx.model.los_doppler_hz)) / ctx.rate
-    trim = 0 if periodic else max(int(math.ceil(4.0 * ctx.rate / ctx.fd)), estimators.interpolator_reach(up, band))
-    kept = g.size - 2 * trim
+    plan = _CrossingPlan(ctx.g, ctx.rate, ctx.model, ctx.periodic)
+    up, kept = plan.up, plan.kept
     n_exp = level_crossing_rate(rho, **kw) * kept / ctx.rate
     use = n_exp >= MIN_EXPECTED_CROSSINGS
     if not use.any():
         why = f"not enough data: fewer than {MIN_EXPECTED_CROSSINGS:g} expected crossings at every level"
         return [_na(n, ctx.tap, why, ctx.level) for n in names]
-    power = estimators.power_upsampled(g, up, band, periodic=periodic)  # |g|^2: compared with level^2
-    if periodic:
-        power = np.concatenate([power, power[:1]])  # the crossing across the wrap counts
-    else:
-        power = power[trim * up: power.size - trim * up]
+    power = plan.power()
     duration = kept / ctx.rate
     levels, rho, n_exp = levels[use], rho[use], n_exp[use]
-    counts, below = np.zeros(levels.size), np.zeros(levels.size)
-    for i, lv in enumerate(levels):  # one comparison pass per level for both counts
-        under = power < np.float32(lv * lv)
-        counts[i] = np.count_nonzero(under[:-1] & ~under[1:])  # upward crossings (estimators.level_crossings)
-        below[i] = np.count_nonzero(under[: kept * up]) / (kept * up)
+    counts = estimators.upward_crossing_counts(power, levels * levels)
+    below = np.array([np.count_nonzero(power[: kept * up] < np.float32(lv * lv)) / (kept * up) for lv in levels])
     rate_hat = counts / duration
     m = int(use.sum())
     common = {"levels_rho": rho.tolist(), "quantiles": [q for q, u in zip(CROSSING_QUANTILES, use) if u],
@@ -761,6 +792,40 @@ def _check_crossings(ctx):
                                source="AFD = P(R <= r)/N(r); " + _lcr_source(ctx)),
                           law="normal", z=float(zl[w]), m=m, scale=float(sd_log[w])))
     return out
+
+
+class _CrossingPlan:
+    """Where crossings are counted: |g|^2 interpolated to >= 64 f_D, the ends an aperiodic record's
+    interpolation cannot see dropped, at most MAX_CROSSING_PERIODS Doppler periods (bounded memory)."""
+
+    def __init__(self, g, rate, model, periodic):
+        fd = model.spectrum.band_edge_hz
+        self.up = int(max(1, math.ceil(CROSSING_RATE_DOPPLER * fd / rate)))
+        limit = int(MAX_CROSSING_PERIODS * rate / fd)
+        if g.size > limit:
+            g, periodic = g[:limit], False
+        self.g, self.periodic = g, periodic
+        self.band = max(fd, abs(model.los_doppler_hz)) / rate
+        self.trim = 0 if periodic else max(int(math.ceil(4.0 * rate / fd)),
+                                           estimators.interpolator_reach(self.up, self.band))
+        self.kept = g.size - 2 * self.trim
+        self.duration_s = self.kept / rate
+
+    def power(self):
+        """|g|^2 on the dense grid (float32), compared with level^2 by the counts."""
+        power = estimators.power_upsampled(self.g, self.up, self.band, periodic=self.periodic)
+        if self.periodic:
+            return np.concatenate([power, power[:1]])  # the crossing across the wrap counts
+        return power[self.trim * self.up: power.size - self.trim * self.up]
+
+
+def crossing_rates(g, rate_hz, model: TapModel, levels_rho, *, periodic=False):
+    """Upward crossings per second of |g| through ``levels_rho`` x the model's RMS envelope, counted as the
+    ``level_crossing_rate`` check counts them (same interpolation, same samples); and the counted duration (s)."""
+    g = estimators._record(g)
+    plan = _CrossingPlan(g, float(rate_hz), model, bool(periodic))
+    levels = np.asarray(levels_rho, dtype=float) * math.sqrt(model.mean_power)
+    return estimators.upward_crossing_counts(plan.power(), levels * levels) / plan.duration_s, plan.duration_s
 
 
 def _check_phase(ctx):
