@@ -18,6 +18,7 @@ from matplotlib import image as mpimage
 from emucompile.report import figures as plots
 
 from emucompile.report import html as report
+from emucompile.report import html_text
 from emucompile.verify import estimators, tolerance
 from verification_standin import StandInCheck, report_inputs, standin_verification
 
@@ -173,7 +174,7 @@ def test_report_states_the_rate_identity_note_cautions_and_signature(inputs, pag
     assert f"<td>{verification.identity['seed']}</td>" in page
     assert "estimator bias" in page  # the stand-in is marked foreign
     for caution in report.CAUTIONS:
-        assert report._e(caution) in page
+        assert html_text.e(caution) in page
     assert "Signature:" in page and "Date:" in page and "Name:" in page
     assert "157.3 ns" in page  # RMS delay spread of the port-crane demo (its expect: block)
 
