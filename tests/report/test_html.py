@@ -219,6 +219,25 @@ def test_the_crossing_figure_counts_as_its_check_counts():
     assert rates.tolist() == detail["measured_per_s"]
 
 
+def test_the_autocorrelation_and_spectrum_figures_draw_the_numbers_their_checks_judged():
+    verification = standin_verification(periods=400.0)
+    tap, standin = 0, verification.models[0]  # the crane's Rician tap: its direct part is removed first
+    model = tolerance.TapModel(standin.spectrum, standin.mean_power, standin.k_linear, standin.los_doppler_hz)
+    record, rate = verification.records[tap], verification.record_rate_hz
+    check = {c.name: c for c in tolerance.check_tap(record, rate, model, tap=tap)}
+    curve = tolerance.autocorrelation_curve(record, rate, model)
+    detail = check["autocorrelation"].detail
+    worst = int(np.argmin(np.abs(curve["lag_s"] - detail["worst_lag_s"])))
+    assert [curve["measured"][worst].real, curve["measured"][worst].imag] == detail["worst_estimate"]
+    assert curve["expected"][worst] == detail["worst_expected"]
+    psd = tolerance.psd_curve(record, rate, model)
+    ratio = psd["psd"][psd["judged"]] / (psd["power"] * psd["expected"][psd["judged"]])
+    nu = psd["nu"]
+    z = np.abs((np.cbrt(ratio) - (1.0 - 1.0 / (9.0 * nu))) * np.sqrt(9.0 * nu))
+    assert float(z.max()) == check["doppler_psd"].value
+    assert int(psd["judged"].sum()) == check["doppler_psd"].detail["bins"]
+
+
 def test_upward_crossing_counts_equal_the_level_by_level_count():
     x = np.random.default_rng(3).random(2000).astype(np.float32)
     levels = np.linspace(0.0, 1.0, 37)
