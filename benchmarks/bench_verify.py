@@ -46,6 +46,7 @@ def main(argv=None):
 
     from emucompile.verify import tolerance
 
+    from emucompile.report import outputs
     from emucompile.verify import run as verify
 
     n = int(args.samples)
@@ -71,7 +72,7 @@ def main(argv=None):
                     + f"), ratio verify/compile {verify_s / compile_s:.2f}")
             if args.plots:
                 began = time.perf_counter()
-                verify.write_outputs(result, directory=work / "report", plots=True)
+                outputs.write_outputs(result, directory=work / "report", plots=True)
                 line += f"; figures + report {time.perf_counter() - began:.2f} s more"
             print(line, flush=True)
     finally:

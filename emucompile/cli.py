@@ -440,6 +440,7 @@ def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_fil
         # verify's statistics are many short vector products: BLAS threads only contend
         # (measured: 1e6 x 12 taps, 8.7 s with OpenBLAS's default threads, 4.5 s with one)
         os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+    from emucompile.report import outputs
     from emucompile.verify import run as verifier
     from emucompile.errors import CheckFailed, InputError
 
@@ -461,8 +462,8 @@ def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_fil
             result = verifier.verify_bundle(outdir, false_alarm=false_alarm, delivered=delivered, progress=update)
         directory = verifier.default_output_directory(outdir)
     try:
-        written = verifier.write_outputs(result, directory=None if report_file else directory,
-                                         report_file=report_file, plots=not no_plots)
+        written = outputs.write_outputs(result, directory=None if report_file else directory,
+                                        report_file=report_file, plots=not no_plots)
     except OSError as error:
         if report_file:
             raise InputError(f"{report_file}: cannot write the report: {error.strerror or error}") from None

@@ -40,7 +40,12 @@ import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from emucompile._lazy import LazyModule
 from emucompile.errors import InputError
+from emucompile.profile.model import Profile, load_profile, profile_from_document
+
+store = LazyModule("emucompile.bundle.store")  # only for a bundle directory
+stats = LazyModule("emucompile.profile.stats")  # numpy: only when statistics are compared
 
 DEFAULT_TOLERANCES = {
     "delay_ns": 0.01,
@@ -66,7 +71,8 @@ STATISTICS = (
     ("rms_doppler_spread_hz", "RMS Doppler spread", "Hz", 1.0),
     ("coherence_time_rule_s", "coherence time (0.423/f_D rule)", "ms", 1e3),
 )
-"""The statistics shown side by side: key of :func:`emucompile.profile.stats.profile_statistics`, label, unit, factor."""
+"""The statistics shown side by side: key of :func:`emucompile.profile.stats.profile_statistics`, label, unit,
+factor."""
 
 BYTES_SETTINGS = ("resolved_profile_sha256", "seed", "method", "generator_version", "update_rate_hz",
                   "n_samples", "periodic", "fir.sample_rate_hz", "fir.delay_mapping", "formats", "target")
@@ -138,7 +144,7 @@ class DiffResult:
     def as_dict(self) -> dict:
         """The JSON form (``diff --json``; docs/json-output.md)."""
         rows = []
-        for key, label, unit, a, b in self.statistics:
+        for key, label, _, a, b in self.statistics:
             rows.append({"key": key, "label": label, "a": a, "b": b,
                          "difference": None if a is None or b is None else b - a})
         return {
@@ -228,15 +234,11 @@ def diff_profiles(a, b, *, tolerances: dict | None = None) -> DiffResult:
 
 
 def _side(source) -> Side:
-    from emucompile.profile.model import Profile, load_profile, profile_from_document
-
     if isinstance(source, Profile):
         return Side(source.source or f"<profile {source.name}>", source)
     path = Path(source)
     if path.is_dir():
-        from emucompile.bundle.store import open_bundle
-
-        manifest = open_bundle(path, verify=False).manifest
+        manifest = store.open_bundle(path, verify=False).manifest
         profile = profile_from_document(manifest["profile"], source=f"{path}/manifest.json#/profile")
         return Side(str(source), profile, manifest)
     return Side(str(source), load_profile(path))
@@ -398,9 +400,7 @@ def _neighbour_gap(delays, index):
 
 
 def _statistics(a, b) -> tuple:
-    from emucompile.profile.stats import profile_statistics
-
-    sa, sb = profile_statistics(a), profile_statistics(b)
+    sa, sb = stats.profile_statistics(a), stats.profile_statistics(b)
     return tuple((key, label, unit, sa.get(key), sb.get(key)) for key, label, unit, _ in STATISTICS)
 
 
@@ -429,7 +429,8 @@ def _bytes_differences(ma: dict, mb: dict) -> list[str]:
             x, y = ma.get(key), mb.get(key)
         if x != y:
             what = "resolved profile" if key == "resolved_profile_sha256" else key
-            shown = f"{str(x)[:12]}... -> {str(y)[:12]}..." if key == "resolved_profile_sha256" else f"{_short(x)} -> {_short(y)}"
+            shown = (f"{str(x)[:12]}... -> {str(y)[:12]}..." if key == "resolved_profile_sha256"
+                     else f"{_short(x)} -> {_short(y)}")
             found.append(f"{what} {shown}")
     if (ma.get("platform") or {}) != (mb.get("platform") or {}):
         found.append("made on different platforms or library versions (equal only within the stated tolerance)")

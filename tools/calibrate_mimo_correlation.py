@@ -62,6 +62,7 @@ sys.path.insert(0, str(ROOT))
 from calibrate_tolerances import order_statistic_bound  # the same fit as the per-tap checks' (tools/ is on sys.path)
 from emucompile.models import mimo
 from emucompile.verify import reference
+from emucompile.verify import nulls
 from emucompile.verify import tolerance
 from emucompile.models.theory import DopplerSpectrum
 
@@ -102,7 +103,7 @@ def run_one(task):
     streams = np.stack([reference.diffuse(spectrum, rate, n, rng, oversize=1 if cfg["periodic"] else 2)
                         for _ in range(links)], axis=1)
     correlated = mimo.correlate_links(streams, mimo.hermitian_sqrt(matrix))
-    g = tolerance._pair_sum(spectrum, spectrum, rate, n, cfg["periodic"]) / n
+    g = nulls.pair_sum(spectrum, spectrum, rate, n, cfg["periodic"]) / n
     # every pair's estimators.correlation_coefficient (sum a b* / sqrt(sum|a|^2 sum|b|^2)) from one Gram matrix
     gram = correlated.T @ correlated.conj()
     norm = np.sqrt(np.real(np.diag(gram)))
@@ -192,7 +193,7 @@ def main(argv=None):
         if done % 200 == 0:
             print(f"{done}/{len(tasks)} records, {time.time() - began:.0f} s", flush=True)
     runtime = time.time() - began
-    critical = tolerance._critical("exp", 1.0 - FIT_QUANTILE, 1)
+    critical = nulls.critical("exp", 1.0 - FIT_QUANTILE, 1)
     ratios = []
     for index, found in rows.items():
         z = [r[1] for r in found]

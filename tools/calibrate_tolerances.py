@@ -47,6 +47,7 @@ sys.path.insert(0, str(ROOT))
 
 from emucompile.verify import reference  # noqa: E402
 
+from emucompile.verify import nulls  # noqa: E402
 from emucompile.verify import tolerance  # noqa: E402
 from emucompile.models.theory import DopplerSpectrum  # noqa: E402
 
@@ -159,7 +160,7 @@ def main(argv=None):
             if FIT_QUANTILE ** len(z) > 1.0 - FIT_CONFIDENCE:
                 continue  # too few seeds for the bound to exist; still counted in the false alarms
             ub = order_statistic_bound(z, FIT_QUANTILE, FIT_CONFIDENCE)
-            ratios.append((ub / tolerance._critical(law, 1.0 - FIT_QUANTILE, m), index))
+            ratios.append((ub / nulls.critical(law, 1.0 - FIT_QUANTILE, m), index))
         c, worst = max(ratios)
         factors[name] = round(float(c), 4)
         # False alarms with the factor applied, pooled over configurations.
@@ -167,7 +168,7 @@ def main(argv=None):
         total = 0
         for index, rows in samples[name].items():
             for law, m, z in rows:
-                p = 0.0 if z is None else tolerance._pvalue(law, z / c, m)
+                p = 0.0 if z is None else nulls.pvalue(law, z / c, m)
                 total += 1
                 for lv in LEVELS:
                     counts[lv] += p <= lv

@@ -186,6 +186,7 @@ def run_case(case, directory: str, *, client=None) -> dict:
     that fails gives status ``failed``, an error status ``error`` with its message.
     """
     from emucompile.compile import compiler
+    from emucompile.report import outputs
     from emucompile.verify import run as verifier
     from emucompile.profile.model import profile_from_document
 
@@ -207,8 +208,8 @@ def run_case(case, directory: str, *, client=None) -> dict:
         else:
             compiler.compile_profile(profile, bundle_path, **options)
         verification = verifier.verify_bundle(bundle_path, false_alarm=case.false_alarm)
-        verifier.write_outputs(verification, directory=verifier.default_output_directory(bundle_path),
-                               plots=case.plots)
+        outputs.write_outputs(verification, directory=verifier.default_output_directory(bundle_path),
+                              plots=case.plots)
         record = _case_record(case, verification, time.perf_counter() - began)
     except EmucompileError as error:
         record = _error_record(case, str(error), time.perf_counter() - began)

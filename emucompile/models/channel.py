@@ -52,7 +52,9 @@ class ChannelPlan:
     ----------
     profile : emucompile.profile.model.Profile
     engine : emucompile.models.fading.FadingPlan
-        The engine planned for ``profile`` (same taps, rate, length, seed).
+        The engine planned for ``profile`` (same taps, rate, length, seed); or a
+        :class:`emucompile.models.fading.RecordedDirect` for the direct part
+        alone (:func:`recorded_channel`).
     """
 
     def __init__(self, profile, engine):
@@ -287,6 +289,31 @@ def stream_channel_gains(profile, update_rate_hz, n_samples, seed, *, chunk_size
     return channel.chunks(chunk_size or fading.DEFAULT_CHUNK)
 
 
+def recorded_channel(profile, taps, *, update_rate_hz, n_samples, seed, periodic) -> ChannelPlan:
+    """A compiled record's channel rebuilt from its manifest for its deterministic parts: no design, no draw.
+
+    The direct part (:meth:`ChannelPlan.direct_links`), the links' spatial
+    correlation and the shadowing's definition follow from the recorded
+    values alone: each tap's direct-part Doppler as used and phase as drawn
+    (:class:`emucompile.models.fading.RecordedDirect`), its power and K, the
+    MIMO and conditions blocks of the recorded profile. The direct part is the
+    same complex numbers as at compile, bit for bit. The diffuse part is not
+    regenerated (there is none: :meth:`ChannelPlan.block` and
+    :meth:`ChannelPlan.diffuse_links` are not available); it is the stored
+    gains minus the direct part.
+
+    Parameters
+    ----------
+    profile : emucompile.profile.model.Profile
+        The manifest's recorded (resolved) profile.
+    taps : sequence of dict
+        The manifest's ``taps``.
+    update_rate_hz, n_samples, seed, periodic
+        As the manifest records them.
+    """
+    return ChannelPlan(profile, fading.RecordedDirect(taps, update_rate_hz, n_samples, seed, periodic))
+
+
 def _plan_channel(profile, update_rate_hz, n_samples, seed, engine_options):
     return ChannelPlan(profile, fading.plan(profile, update_rate_hz, n_samples, seed, **engine_options))
 
@@ -300,4 +327,5 @@ def _amplitudes(tap):
     return math.sqrt(power * k / (k + 1.0)), math.sqrt(power / (k + 1.0))
 
 
-__all__ = ["ChannelPlan", "SHADOWING_FILE", "SHADOWING_ROLE", "generate_channel_gains", "stream_channel_gains"]
+__all__ = ["ChannelPlan", "SHADOWING_FILE", "SHADOWING_ROLE", "generate_channel_gains", "recorded_channel",
+           "stream_channel_gains"]

@@ -504,6 +504,38 @@ def moving_fir_map(delays_s, powers_linear, sample_rate_hz, moving, update_rate_
     return MovingFirMap(grid=grid, n_taps=len(delays), moving=moving, update_rate_hz=float(update_rate_hz))
 
 
+def fir_map_from_record(record: dict, delays_s, powers_linear, *, moving=None,
+                        update_rate_hz: float | None = None) -> FirMap | MovingFirMap:
+    """The map a manifest's ``fir`` record describes, rebuilt from its closed form and recorded parameters.
+
+    ``record`` is the manifest's ``fir`` object: its ``sample_rate_hz``,
+    ``delay_mapping`` and ``parameters`` (``half_length``, ``kaiser_beta``,
+    ``passband_fraction``, ``delay_step_samples``; a parameter not recorded
+    takes :func:`fir_map`'s default). With ``moving`` (the profile's moving
+    delay) the map is :func:`moving_fir_map`'s at ``update_rate_hz``. Same
+    arguments as at compile, so the same matrix, bit for bit. A map fitted to
+    a target (taps merged or dropped) is the target fit's
+    (:func:`emucompile.profile.target.fit_to_target`), not this.
+
+    Examples
+    --------
+    >>> m = fir_map([0.0, 100e-9], [1.0, 0.5], 30.72e6)
+    >>> record = dict(m.manifest_entry(), parameters=m.parameters())
+    >>> bool((fir_map_from_record(record, [0.0, 100e-9], [1.0, 0.5]).matrix == m.matrix).all())
+    True
+    """
+    parameters = record.get("parameters") or {}
+    mapping = record.get("delay_mapping") or "sinc"
+    options = {"delay_step_samples": int(parameters.get("delay_step_samples") or 1)}
+    for name in ("passband_fraction",) + (("half_length", "kaiser_beta") if mapping == "sinc" else ()):
+        if parameters.get(name) is not None:
+            options[name] = parameters[name]
+    rate = float(record["sample_rate_hz"])
+    if moving is not None:
+        return moving_fir_map(delays_s, powers_linear, rate, moving, update_rate_hz, **options)
+    return fir_map(delays_s, powers_linear, rate, mapping=mapping, **options)
+
+
 def default_kaiser_beta(half_length: int, passband_fraction: float = DEFAULT_PASSBAND_FRACTION) -> float:
     """Kaiser's beta for 2L coefficients and the transition band above ``passband_fraction``.
 
@@ -683,6 +715,7 @@ __all__ = [
     "DEFAULT_PASSBAND_FRACTION",
     "ON_SAMPLE_TOLERANCE",
     "FirMap",
+    "fir_map_from_record",
     "fir_map",
     "MovingFirMap",
     "moving_fir_map",

@@ -38,6 +38,9 @@ from pathlib import Path
 import numpy as np
 
 from emucompile._version import __version__
+from emucompile.profile.model import Profile, load_profile
+from emucompile.profile.stats import check_targets, format_statistics, frequency_correlation, profile_statistics
+from emucompile.report.html import write_text_atomic
 
 DPI = 100
 PANEL_COLUMNS = 3
@@ -50,8 +53,6 @@ MARK_COLOR = "#2ca02c"
 
 def card_figures(profile, statistics: dict | None = None) -> list[tuple[str, bytes]]:
     """The card's figures as ``(title, PNG bytes)`` in reading order."""
-    from emucompile.profile.stats import profile_statistics
-
     statistics = statistics if statistics is not None else profile_statistics(profile)
     figures = [("Power delay profile", _delay_profile(profile, statistics))]
     spectra = _doppler_spectra(profile)
@@ -67,8 +68,6 @@ def render_profile_card(profile, *, text: str | None = None, source_name: str | 
 
     ``text``: the profile file's text as written (shown, and hashed for the identity).
     """
-    from emucompile.profile.stats import check_targets, format_statistics, profile_statistics
-
     statistics = profile_statistics(profile)
     targets = check_targets(profile, statistics)
     figures = card_figures(profile, statistics) if figures is None else figures
@@ -115,8 +114,6 @@ def render_profile_card(profile, *, text: str | None = None, source_name: str | 
 
 def write_profile_card(profile, path) -> Path:
     """Write the card of ``profile`` (a Profile, or a profile file's path) to ``path`` atomically."""
-    from emucompile.profile.model import Profile, load_profile
-
     text = None
     if not isinstance(profile, Profile):
         source = Path(profile)
@@ -124,8 +121,6 @@ def write_profile_card(profile, path) -> Path:
         text = source.read_text(encoding="utf-8")
     elif profile.source and Path(profile.source).is_file():
         text = Path(profile.source).read_text(encoding="utf-8")
-    from emucompile.report.html import write_text_atomic
-
     return write_text_atomic(path, render_profile_card(profile, text=text))
 
 
@@ -176,7 +171,8 @@ def _delay_profile(profile, statistics) -> bytes:
     ax.set_ylim(floor, max(float(np.max(shown)), 0.0) + 3.0)
     ax.set_xlabel(f"delay ({unit})")
     ax.set_ylabel("tap power (dB)")
-    ax.set_title(f"Power delay profile: {len(profile.taps)} taps, total {10 * np.log10(sum(t.power_linear for t in profile.taps)):.3g} dB")
+    total_db = 10 * np.log10(sum(t.power_linear for t in profile.taps))
+    ax.set_title(f"Power delay profile: {len(profile.taps)} taps, total {total_db:.3g} dB")
     ax.grid(alpha=0.3)
     return _png(figure)
 
@@ -210,7 +206,7 @@ def _doppler_spectra(profile) -> bytes | None:
         note += f"{'; ' if note else ''}{len(groups) - MAX_SPECTRUM_PANELS} more spectra not drawn (see the taps table)"
     if note:
         figure.suptitle(note, fontsize=9)
-    for panel, (key, members) in enumerate(items):
+    for panel, (_, members) in enumerate(items):
         tap = profile.taps[members[0]]
         ax = figure.add_subplot(rows, columns, panel + 1)
         spectrum = tap.doppler_spectrum
@@ -241,8 +237,6 @@ def _doppler_spectra(profile) -> bytes | None:
 
 
 def _frequency_correlation(profile, statistics) -> bytes:
-    from emucompile.profile.stats import frequency_correlation
-
     delays = [t.delay_s for t in profile.taps]
     powers = [t.power_linear for t in profile.taps]
     b50, b90 = statistics.get("coherence_bandwidth_50_hz"), statistics.get("coherence_bandwidth_90_hz")
@@ -303,7 +297,8 @@ def _blocks(statistics) -> str:
 def _table(header, rows, *, cls="") -> str:
     head = "".join(f"<th>{_e(h)}</th>" for h in header) if any(header) else ""
     body = "".join("<tr>" + "".join(f"<td>{_e(c)}</td>" for c in row) + "</tr>" for row in rows)
-    return f'<table class="{cls}">' + (f"<thead><tr>{head}</tr></thead>" if head else "") + f"<tbody>{body}</tbody></table>"
+    thead = f"<thead><tr>{head}</tr></thead>" if head else ""
+    return f'<table class="{cls}">{thead}<tbody>{body}</tbody></table>'
 
 
 def _num(value) -> str:

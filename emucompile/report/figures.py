@@ -12,12 +12,24 @@ panel, one figure per statistic):
 * the power delay profile: the profile's tap powers as stems, the measured
   mean power of each record as crosses;
 * per tap, the envelope CDF P(R < r) on a logarithmic probability axis against
-  ``theory.envelope_distribution`` (``scipy.stats.rice`` / ``rayleigh``);
-* the real part of the normalised autocorrelation against
-  Re (K exp(j 2 pi f_los tau) + r(tau)) / (K + 1), r the spectrum's closed form;
-* the Doppler power spectrum (``scipy.signal.welch``, two-sided) against the
-  diffuse part's spectrum, the direct part drawn as a line at f_los;
-* the level crossing rate against Rice's formula (``theory.level_crossing_rate``);
+  ``theory.envelope_distribution`` (``scipy.stats.rice`` / ``rayleigh``), the
+  shaded band the ``envelope_ks`` check's tolerance (its largest allowed gap);
+* the real part of the normalised autocorrelation of the diffuse part against
+  the spectrum's closed form r(tau), over the lags the ``autocorrelation``
+  check reads, shaded: its tolerance at each lag;
+* the Doppler power spectrum of the diffuse part (the ``doppler_psd`` check's
+  Welch estimate) against the exact spectrum seen through the same window,
+  shaded: the check's tolerance over the bins it judges; the direct part
+  (removed before the check) marked at f_los;
+* the level crossing rate, counted as the ``level_crossing_rate`` check counts,
+  against Rice's formula (``theory.level_crossing_rate``); the check's levels
+  marked with its tolerance;
+
+Every measured curve comes from the estimator its check uses, with the same
+parameters (:mod:`emucompile.verify.estimators` through
+:func:`emucompile.verify.tolerance.autocorrelation_curve`, ``psd_curve`` and
+``crossing_rates``), and every band is the check's printed tolerance, so a
+figure shows the numbers its verdict used.
 * a stretch of the envelope in dB re RMS, the panel's taps stacked, each on its own 0 dB line;
 * with a FIR map, |H(f, t)| across the band, H(f, t) = sum_n FIR_n(t)
   exp(-j 2 pi f n / f_s), FIR(t) = gains(t) @ fir_map.
@@ -41,10 +53,9 @@ from matplotlib import colormaps
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.transforms import ScaledTranslation
-from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
-from scipy import signal
 
-from emucompile.models import theory
+from emucompile.report import tap_panels
+from emucompile.verify import estimators
 
 TAPS_PER_AXES = 4
 TAPS_PER_FIGURE = 4 * TAPS_PER_AXES * 3  # 3 columns x 4 rows of panels at most
@@ -52,17 +63,10 @@ DPI = 100
 MEASURED_COLOR = "#1f77b4"
 # One colour per tap of a panel (matplotlib's tab10 blue, red, green, purple): distinct in print too.
 TAP_COLORS = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd")
-MEASURED_STYLE = {"linewidth": 3.2, "alpha": 0.4, "solid_capstyle": "butt"}
-THEORY_STYLE = {"linestyle": "--", "linewidth": 1.2}
 
 _COLUMNS = 3
 _PANEL_SIZE_IN = (4.6, 4.2)  # one panel with its legend of up to four taps below
 _LEGEND_IN = 1.35  # room below each panel for the x label and the tap legend
-_ENVELOPE_OFFSET_DB = 60.0  # between stacked envelope traces
-_MAX_RECORD = 1 << 20  # samples per tap used for the CDF, autocorrelation and PSD
-_MAX_LCR_RECORD = 1 << 17  # record samples (before upsampling) for the crossing count
-_STRETCH_PERIODS = 20.0  # envelope stretch and |H(f, t)|: 20 / f_D
-_LCR_OVERSAMPLE_HZ = 32.0  # upsample so the record rate is >= 32 x the largest Doppler
 
 
 def make_figures(verification) -> list[tuple[str, bytes]]:
@@ -84,9 +88,9 @@ def make_figures(verification) -> list[tuple[str, bytes]]:
 
     Notes
     -----
-    Cost: one FFT of at most 2^21 points per tap (autocorrelation), a Welch
-    estimate, a histogram, and a polyphase upsampling of at most 2^17 samples
-    for the crossing count; making the axes and rendering their text
+    Cost: per tap, the estimates its checks made, once more (the null sums
+    are cached): an autocorrelation, a Welch estimate, a sort of |g|^2 and the
+    crossing count's interpolation; making the axes and rendering their text
     dominate (about 0.1 s per panel, 5 panels per 4 taps), see
     ``benchmarks/bench_plots.py``.
     """
@@ -97,11 +101,14 @@ def make_figures(verification) -> list[tuple[str, bytes]]:
     tasks = [("Power delay profile", lambda: _delay_profile_figure(profile, records))]
 
     fading = [key for key in records if _spectrum(models.get(key)) is not None and rate]
-    panels = [_TapData(key, _tap_label(key, profile), records[key], rate, models[key]) for key in fading]
-    for start in range(0, len(panels), TAPS_PER_FIGURE):
-        group = panels[start : start + TAPS_PER_FIGURE]
-        suffix = _group_suffix(group, len(panels))
-        for title, draw in _STATISTICS:
+    periodic = bool((getattr(verification, "identity", None) or {}).get("periodic"))
+    checks = tap_panels.first_source_checks(getattr(verification, "checks", None) or ())
+    taps = [tap_panels.TapData(key, _tap_label(key, profile), records[key], rate, models[key], periodic,
+                           checks.get(key, {})) for key in fading]
+    for start in range(0, len(taps), TAPS_PER_FIGURE):
+        group = taps[start : start + TAPS_PER_FIGURE]
+        suffix = _group_suffix(group, len(taps))
+        for title, draw in tap_panels.STATISTICS:
             tasks.append((f"{title}{suffix}",
                           lambda group=group, draw=draw, title=title + suffix: _grid_figure(group, draw, title)))
 
@@ -136,173 +143,6 @@ def _render(make):
     return None if figure is None else _png(figure)
 
 
-# -- per-tap data ------------------------------------------------------------------
-
-
-class _TapData:
-    """One tap's record and model, with the derived quantities the panels share."""
-
-    def __init__(self, key, label, record, rate_hz, model):
-        self.key = key
-        self.label = label
-        self.rate_hz = float(rate_hz)
-        x = np.asarray(record)[:_MAX_RECORD]
-        self.x = x.astype(np.complex128, copy=False)
-        self.spectrum = model.spectrum
-        self.k = float(model.k_linear or 0.0)
-        self.los_hz = float(model.los_doppler_hz or 0.0)
-        self.mean_power = float(model.mean_power)
-        self.rms = math.sqrt(self.mean_power)
-        self.edge_hz = max(self.spectrum.band_edge_hz, abs(self.los_hz))
-        self._fine = None
-
-    def fine(self):
-        """The first samples of g / R_rms, upsampled (band-limited), and their rate."""
-        if self._fine is None:
-            factor = max(1, min(8, math.ceil(_LCR_OVERSAMPLE_HZ * self.edge_hz / self.rate_hz)))
-            x = self.x[:_MAX_LCR_RECORD]
-            if factor > 1:
-                x = signal.resample_poly(x, factor, 1)
-            self._fine = (x / self.rms, self.rate_hz * factor)
-        return self._fine
-
-
-def _draw_cdf(ax, taps, colors):
-    levels_db = np.linspace(-40.0, 12.0, 261)
-    floor, low = 1e-5, -40.0
-    for tap, color in zip(taps, colors):
-        envelope_db = 20.0 * np.log10(np.maximum(np.abs(tap.x) / tap.rms, 1e-30))
-        counts, _ = np.histogram(envelope_db, bins=np.concatenate(([-np.inf], levels_db)))
-        measured = np.cumsum(counts) / len(envelope_db)
-        expected = theory.envelope_distribution(tap.k, 1.0).cdf(10.0 ** (levels_db / 20.0))
-        floor = max(floor, 1.0 / len(envelope_db))
-        shown = measured > 0
-        ax.plot(levels_db[shown], measured[shown], color=color, **MEASURED_STYLE, label=tap.label)
-        ax.plot(levels_db, np.maximum(expected, 1e-12), color=color, **THEORY_STYLE)
-        if np.any(expected > floor):
-            low = max(low, levels_db[np.argmax(expected > floor)] - 3.0)
-    ax.set_yscale("log")
-    ax.set_ylim(floor, 1.5)
-    _log_axis(ax)
-    low = min(low, -10.0)
-    ax.set_xlim(low, 10.0)
-    ax.set_xticks(np.arange(math.ceil(low / 10.0) * 10.0, 10.1, 10.0))
-    ax.set_xlabel("level r (dB re RMS)")
-    ax.set_ylabel("P(R < r)")
-    return "lower right"
-
-
-def _draw_autocorrelation(ax, taps, colors):
-    end_ms = 0.0
-    for tap, color in zip(taps, colors):
-        max_lag = max(1, min(len(tap.x) // 4, int(round(4.0 / tap.spectrum.band_edge_hz * tap.rate_hz))))
-        measured = _autocorrelation(tap.x, max_lag)
-        lag_s = np.arange(max_lag + 1) / tap.rate_hz
-        fine_s = np.linspace(0.0, lag_s[-1], 400)
-        expected = (tap.k * np.cos(2.0 * np.pi * tap.los_hz * fine_s)
-                    + tap.spectrum.autocorrelation(fine_s).real) / (tap.k + 1.0)
-        ax.plot(lag_s * 1e3, measured.real, color=color, **MEASURED_STYLE, label=tap.label)
-        ax.plot(fine_s * 1e3, expected, color=color, **THEORY_STYLE)
-        end_ms = max(end_ms, lag_s[-1] * 1e3)
-    ax.axhline(0.0, color="0.6", linewidth=0.8)
-    ax.set_xlim(0.0, end_ms)
-    ax.set_ylim(-1.05, 1.05)
-    ax.set_yticks([-1.0, -0.5, 0.0, 0.5, 1.0])
-    ax.set_xlabel("lag \u03c4 (ms)")
-    ax.set_ylabel("Re R(\u03c4) / R(0)")
-    return "upper right"
-
-
-def _draw_psd(ax, taps, colors):
-    top, span = -np.inf, 0.0
-    for tap, color in zip(taps, colors):
-        resolution_hz = tap.spectrum.band_edge_hz / 32.0
-        nperseg = int(min(len(tap.x), 2 ** math.ceil(math.log2(tap.rate_hz / resolution_hz))))
-        f, s = signal.welch(tap.x, fs=tap.rate_hz, window="hann", nperseg=nperseg,
-                            return_onesided=False, detrend=False, scaling="density")
-        order = np.argsort(f)
-        f, s = f[order], s[order] / tap.mean_power
-        measured_db = 10.0 * np.log10(np.maximum(s, 1e-30))
-        edge = tap.spectrum.band_edge_hz
-        inside = np.linspace(-edge, edge, 401)[1:-1]
-        expected_db = 10.0 * np.log10(np.maximum(tap.spectrum.psd(inside) / (tap.k + 1.0), 1e-30))
-        ax.plot(f, measured_db, color=color, **MEASURED_STYLE, label=tap.label)
-        ax.plot(inside, expected_db, color=color, **THEORY_STYLE)
-        if tap.k > 0:
-            ax.axvline(tap.los_hz, color=color, linewidth=1.4, linestyle=":")
-            ax.annotate("direct part\n%.0f %% of power" % (100.0 * tap.k / (tap.k + 1.0)),
-                        (tap.los_hz, 0.97), xycoords=("data", "axes fraction"), xytext=(3, 0),
-                        textcoords="offset points", va="top", fontsize=7, color=color)
-        top = max(top, np.percentile(measured_db, 99.5) + 8.0, np.median(expected_db) + 8.0)
-        span = max(span, min(f[-1], max(2.5 * edge, 1.5 * abs(tap.los_hz))))
-    ax.set_ylim(top - 60.0, top)
-    ax.set_xlim(-span, span)
-    ax.set_xlabel("Doppler frequency (Hz)")
-    ax.set_ylabel("PSD (dB re tap power / Hz)")
-    return "lower center"
-
-
-def _draw_level_crossings(ax, taps, colors):
-    levels_db = np.linspace(-30.0, 10.0, 161)
-    rho = 10.0 ** (levels_db / 20.0)
-    floor, peak = 0.0, 0.0
-    for tap, color in zip(taps, colors):
-        gains, fine_rate = tap.fine()
-        duration_s = len(gains) / fine_rate
-        measured = _upward_crossings(gains, rho) / duration_s
-        expected = theory.level_crossing_rate(rho, rms_doppler_hz=tap.spectrum.rms_doppler_hz,
-                                              k_linear=tap.k, los_doppler_hz=tap.los_hz)
-        floor = max(floor, 1.0 / duration_s)
-        shown = measured > 0
-        ax.plot(levels_db[shown], measured[shown], color=color, **MEASURED_STYLE, label=tap.label)
-        ax.plot(levels_db, np.maximum(expected, 1e-12), color=color, **THEORY_STYLE)
-        peak = max(peak, np.max(expected), np.max(measured))
-    ax.set_yscale("log")
-    ax.set_ylim(floor, 3.0 * peak)
-    _log_axis(ax)
-    ax.set_xlim(levels_db[0], levels_db[-1])
-    ax.set_xticks(np.arange(-30.0, 10.1, 10.0))
-    ax.set_xlabel("level r (dB re RMS)")
-    ax.set_ylabel("upward crossings per second")
-    return "lower center"
-
-
-def _draw_envelope(ax, taps, colors):
-    """The taps' envelopes stacked, each trace offset so its 0 dB sits on its own line."""
-    fastest = max(tap.edge_hz for tap in taps)
-    stretches = []
-    for tap in taps:
-        gains, fine_rate = tap.fine()
-        n = min(len(gains), max(2, int(_STRETCH_PERIODS / fastest * fine_rate)))
-        stretches.append((gains[:n], fine_rate))
-    end_s = min((len(g) - 1) / rate for g, rate in stretches)
-    scale, unit = _time_unit(end_s)
-    ticks, labels = [], []
-    for j, ((gains, fine_rate), tap, color) in enumerate(zip(stretches, taps, colors)):
-        offset = -_ENVELOPE_OFFSET_DB * j
-        level_db = np.clip(20.0 * np.log10(np.maximum(np.abs(gains), 1e-6)), -40.0, 12.0)
-        ax.plot(np.arange(len(gains)) * (scale / fine_rate), level_db + offset, color=color,
-                linewidth=0.9, label=tap.label)
-        ax.axhline(offset, color="0.6", linewidth=0.7)
-        ticks += [offset, offset - 20.0]
-        labels += ["0", "\u221220"]
-    ax.set_xlim(0.0, end_s * scale)
-    ax.set_ylim(-_ENVELOPE_OFFSET_DB * (len(taps) - 1) - 42.0, 14.0)
-    ax.set_yticks(ticks, labels, fontsize=7)
-    ax.set_xlabel(f"time ({unit})")
-    ax.set_ylabel("|g| (dB re RMS), one trace per tap")
-    return None
-
-
-_STATISTICS = (
-    ("Envelope CDF", _draw_cdf),
-    ("Autocorrelation", _draw_autocorrelation),
-    ("Doppler spectrum", _draw_psd),
-    ("Level crossing rate", _draw_level_crossings),
-    ("Envelope over time", _draw_envelope),
-)
-
-
 # -- figures -----------------------------------------------------------------------
 
 
@@ -323,7 +163,8 @@ def _grid_figure(group, draw, title):
     height_in = _PANEL_SIZE_IN[1] * rows + header_in
     figure = Figure(figsize=(width_in, height_in), dpi=DPI)
     figure.text(0.5 / width_in, 1.0 - 0.3 / height_in, title, fontsize=13, fontweight="bold", va="center")
-    key = ("measured: wide pale line; theory: dashed, in the tap's colour" if draw is not _draw_envelope
+    key = ("measured: wide pale line; theory: dashed; shaded: the check's tolerance"
+           if draw is not tap_panels.draw_envelope
            else "each tap's trace on its own 0 dB line")
     if columns > 1:
         figure.text(1.0 - 0.2 / width_in, 1.0 - 0.3 / height_in, key, fontsize=9, ha="right", va="center",
@@ -342,9 +183,9 @@ def _grid_figure(group, draw, title):
         draw(ax, taps, colors)
         # An explicit y turns off matplotlib's automatic title placement (a costly measurement).
         ax.set_title(_panel_title(taps), fontsize=10, y=1.0, pad=4.0)
-        if ax.get_yscale() == "linear" and draw is not _draw_envelope:
+        if ax.get_yscale() == "linear" and draw is not tap_panels.draw_envelope:
             ax.locator_params(axis="y", nbins=6)
-        if draw in (_draw_psd, _draw_autocorrelation, _draw_envelope):
+        if draw in (tap_panels.draw_psd, tap_panels.draw_autocorrelation, tap_panels.draw_envelope):
             ax.locator_params(axis="x", nbins=6)
         ax.grid(True, which="major", color="0.88", linewidth=0.7)
         _tap_key(figure, ax, taps, colors)
@@ -387,7 +228,7 @@ def _delay_profile_figure(profile, records):
     for key, record in records.items():
         index = _tap_index(key)
         if index is not None and index < len(delays) and len(record):
-            power = float(np.mean(np.abs(np.asarray(record, dtype=np.complex128)) ** 2))
+            power = estimators.mean_power(record)
             if power > 0:
                 measured.append((delays[index] * scale, 10.0 * math.log10(power)))
     if measured:
@@ -425,7 +266,7 @@ def _transfer_figure(profile, records, rate_hz, fir, sample_rate_hz, models):
              for m in models.values() if m is not None]
     edge = max(edges, default=0.0)
     length = min(len(c) for c in columns.values())
-    n = length if edge <= 0 else min(length, max(2, int(_STRETCH_PERIODS / edge * rate_hz)))
+    n = length if edge <= 0 else min(length, max(2, int(tap_panels.STRETCH_PERIODS / edge * rate_hz)))
     stride = max(1, n // 300)
     gains = np.zeros((len(range(0, n, stride)), n_taps), np.complex128)
     for index, record in columns.items():
@@ -437,7 +278,7 @@ def _transfer_figure(profile, records, rate_hz, fir, sample_rate_hz, models):
     top = float(np.max(magnitude_db))
     frequency_mhz = np.fft.fftshift(np.fft.fftfreq(n_fft, 1.0 / sample_rate_hz)) / 1e6
     t_s = np.arange(0, n, stride) / rate_hz
-    scale, unit = _time_unit(max(t_s[-1], 1.0 / rate_hz))
+    scale, unit = tap_panels.time_unit(max(t_s[-1], 1.0 / rate_hz))
     figure = Figure(figsize=(10.0, 4.6), dpi=DPI)
     figure.subplots_adjust(left=0.9 / 10.0, right=1.0 - 1.2 / 10.0, bottom=0.6 / 4.6, top=1.0 - 0.4 / 4.6)
     ax = figure.add_subplot(1, 1, 1)
@@ -537,7 +378,7 @@ def _conditions_figure(conditions):
     figure = Figure(figsize=(9.0, 2.4 * len(panels) + 0.4), dpi=DPI, layout="constrained")
     for k, (t, y, label, title) in enumerate(panels):
         ax = figure.add_subplot(len(panels), 1, k + 1)
-        scale, unit = _time_unit(max(float(np.max(t)), 1e-9))
+        scale, unit = tap_panels.time_unit(max(float(np.max(t)), 1e-9))
         ax.plot(np.asarray(t) * scale, y, color=MEASURED_COLOR, linewidth=1.2)
         ax.set_ylabel(label, fontsize=9)
         ax.set_xlabel(f"time ({unit})", fontsize=9)
@@ -554,51 +395,6 @@ def _png(figure) -> bytes:
     buffer = io.BytesIO()
     FigureCanvasAgg(figure).print_png(buffer)
     return buffer.getvalue()
-
-
-def _log_axis(ax):
-    """Decade ticks labelled as plain numbers (1e-3), no minor ticks.
-
-    The default minor ticks (eight per decade, each an artist) and mathtext
-    labels were most of a log panel's rendering time.
-    """
-    ax.yaxis.set_major_locator(LogLocator(base=10.0, numticks=12))
-    ax.yaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:.0e}".replace("e+00", "").replace("e-0", "e-")
-                                               .replace("e+0", "e")))
-    ax.yaxis.set_minor_locator(NullLocator())
-
-
-def _autocorrelation(x, max_lag):
-    """Unbiased normalised autocorrelation R[m] = mean(x[n+m] conj x[n]) / mean|x|^2, m <= max_lag."""
-    n = len(x)
-    size = 1 << math.ceil(math.log2(n + max_lag + 1))
-    spectrum = np.fft.fft(x, size)
-    r = np.fft.ifft(np.abs(spectrum) ** 2)[: max_lag + 1]
-    r = r / (n - np.arange(max_lag + 1))  # ifft(|X|^2)[m] = sum_n x[n+m] conj x[n]
-    return r / r[0].real
-
-
-def _upward_crossings(gains, levels):
-    """Upward crossings of |g| through each level, g joined by straight lines in the complex plane.
-
-    On a segment g(t) = a + t (b - a), t in [0, 1], |g(t)| is convex, so it
-    crosses a level r upwards at most once: exactly when its minimum m < r <= |b|.
-    Counting against the segment minimum (not only the end points) keeps the
-    short, deep fades that fall between samples. O(N log N) for all levels.
-    """
-    a, b = gains[:-1], gains[1:]
-    step = b - a
-    power = np.abs(step) ** 2
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = np.clip(-(np.conj(a) * step).real / power, 0.0, 1.0)
-    t = np.where(power > 0, t, 0.0)
-    lowest = np.abs(a + t * step)
-    end = np.abs(b)
-    rises = lowest < end
-    starts = np.sort(lowest[rises])
-    ends = np.sort(end[rises])
-    # count of segments with lowest < r <= end = #(lowest < r) - #(end < r)
-    return np.searchsorted(starts, levels, side="left") - np.searchsorted(ends, levels, side="left")
 
 
 def _spectrum(model):
@@ -648,11 +444,3 @@ def _panel_title(taps):
     if indices == list(range(indices[0], indices[-1] + 1)):
         return f"taps {indices[0]}-{indices[-1]}"
     return "taps " + ", ".join(map(str, indices))
-
-
-def _time_unit(span_s):
-    if span_s < 2e-3:
-        return 1e6, "\u00b5s"
-    if span_s < 2.0:
-        return 1e3, "ms"
-    return 1.0, "s"

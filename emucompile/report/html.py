@@ -25,14 +25,15 @@ from __future__ import annotations
 
 import base64
 import datetime as _dt
-import html
-import math
 import os
 import secrets
 from pathlib import Path
 
 from emucompile._version import __version__
 from emucompile.bundle.store import fsync_directory
+from emucompile.report import html_text as fmt
+from emucompile.profile.blocks import correlation_text
+from emucompile.verify.describe import check_matrix, comparison
 
 #: The cautions printed in every report (common practice for lab test records).
 CAUTIONS = (
@@ -105,15 +106,15 @@ def render_report(verification, figures=(), *, title: str | None = None,
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
-        f"<title>{_e(title)}</title>",
-        f"<style>{_CSS}</style></head><body>",
-        f"<h1>{_e(title)}</h1>",
-        f'<p class="meta">Written {_e(created)} by emucompile {_e(__version__)}.</p>',
+        f"<title>{fmt.e(title)}</title>",
+        f"<style>{fmt.CSS}</style></head><body>",
+        f"<h1>{fmt.e(title)}</h1>",
+        f'<p class="meta">Written {fmt.e(created)} by emucompile {fmt.e(__version__)}.</p>',
         _verdict_section(verification, checks),
         _failed_section(checks, fit),
     ]
     if getattr(verification, "foreign", False):
-        parts.append(f'<div class="note"><strong>Foreign data.</strong> {_e(FOREIGN_NOTE)}</div>')
+        parts.append(f'<div class="note"><strong>Foreign data.</strong> {fmt.e(FOREIGN_NOTE)}</div>')
     section_figures, figures = _take_figures(figures, ("MIMO correlation", "Time-varying conditions",
                                                        "Emulator fit"))
     parts += [
@@ -167,7 +168,7 @@ def write_text_atomic(path, text: str) -> Path:
 def _verdict_section(verification, checks) -> str:
     counts = {True: 0, False: 0, None: 0}
     for check in checks:
-        counts[_get(check, "passed")] = counts.get(_get(check, "passed"), 0) + 1
+        counts[fmt.get(check, "passed")] = counts.get(fmt.get(check, "passed"), 0) + 1
     passed = getattr(verification, "passed", None)
     if passed is True:
         banner, css = "PASSED: every applicable check passed", "pass"
@@ -177,8 +178,8 @@ def _verdict_section(verification, checks) -> str:
         banner, css = "NO VERDICT", "na"
     summary = (f"{len(checks)} checks: {counts[True]} passed, {counts[False]} failed, "
                f"{counts[None]} not applicable or without enough data.")
-    return (f'<div class="verdict {css}">{_e(banner)}</div>'
-            f'<p class="summary">{_e(summary)} {_e(_false_alarm_sentence(verification))}</p>')
+    return (f'<div class="verdict {css}">{fmt.e(banner)}</div>'
+            f'<p class="summary">{fmt.e(summary)} {fmt.e(fmt.false_alarm_sentence(verification))}</p>')
 
 
 def _profile_section(verification) -> str:
@@ -188,15 +189,15 @@ def _profile_section(verification) -> str:
     rows = [("profile", getattr(profile, "name", "")),
             ("description", getattr(profile, "description", "") or "")]
     update = getattr(verification, "update_rate_hz", None)
-    rows.append(("update rate of the tap gains", _si(update, "Hz")))
+    rows.append(("update rate of the tap gains", fmt.si(update, "Hz")))
     record_rate = getattr(verification, "record_rate_hz", None)
     records = getattr(verification, "records", None) or {}
     if records and record_rate:
         length = max(len(r) for r in records.values())
-        rows.append(("records checked", f"{len(records)} at {_si(record_rate, 'Hz')}, "
-                                        f"{_si(length / record_rate, 's')} each"))
+        rows.append(("records checked", f"{len(records)} at {fmt.si(record_rate, 'Hz')}, "
+                                        f"{fmt.si(length / record_rate, 's')} each"))
     sample_rate = getattr(verification, "sample_rate_hz", None)
-    rows.append(("signal sample rate (FIR grid)", _si(sample_rate, "Hz") if sample_rate else "none (no FIR map)"))
+    rows.append(("signal sample rate (FIR grid)", fmt.si(sample_rate, "Hz") if sample_rate else "none (no FIR map)"))
     for key, label, unit in _STATISTICS:
         if key not in stats:
             continue
@@ -208,10 +209,10 @@ def _profile_section(verification) -> str:
         elif unit == "dB":
             text = f"{value:.4g} dB"
         else:
-            text = _si(value, unit)
+            text = fmt.si(value, unit)
         rows.append((label, text))
     out = ["<h2>Profile</h2>", '<table class="kv">']
-    out += [f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in rows]
+    out += [f"<tr><th>{fmt.e(k)}</th><td>{fmt.e(v)}</td></tr>" for k, v in rows]
     out.append("</table>")
     taps = stats.get("taps") or []
     fit_notes = _fit_per_tap(getattr(verification, "fit", None))
@@ -220,10 +221,10 @@ def _profile_section(verification) -> str:
                    "<th>fading</th><th>K (dB)</th>" + ("" if fit_notes is None else "<th>emulator fit</th>") + "</tr>")
         for i, tap in enumerate(taps):
             k_db = tap.get("k_db")
-            note = "" if fit_notes is None else f"<td>{_e(fit_notes.get(i, 'kept'))}</td>"
-            out.append(f"<tr><td>{i}</td><td>{_e(_si(tap.get('delay_s'), 's'))}</td>"
-                       f"<td>{_e(_number(tap.get('power_db')))}</td><td>{_e(tap.get('fading', ''))}</td>"
-                       f"<td>{_e(_number(k_db)) if k_db is not None else '&ndash;'}</td>{note}</tr>")
+            note = "" if fit_notes is None else f"<td>{fmt.e(fit_notes.get(i, 'kept'))}</td>"
+            out.append(f"<tr><td>{i}</td><td>{fmt.e(fmt.si(tap.get('delay_s'), 's'))}</td>"
+                       f"<td>{fmt.e(fmt.number(tap.get('power_db')))}</td><td>{fmt.e(tap.get('fading', ''))}</td>"
+                       f"<td>{fmt.e(fmt.number(k_db)) if k_db is not None else '&ndash;'}</td>{note}</tr>")
         out.append("</table>")
     return "\n".join(out)
 
@@ -236,17 +237,15 @@ def _fit_per_tap(fit) -> dict | None:
     for merged in fit.get("taps_merged") or ():
         for tap in merged["taps"]:
             others = [str(t) for t in merged["taps"] if t != tap]
-            notes[tap] = f"merged with {', '.join(others)} at {_si(merged['delay_s'], 's')}"
+            notes[tap] = f"merged with {', '.join(others)} at {fmt.si(merged['delay_s'], 's')}"
     return notes
 
 
 def _checks_section(verification, checks) -> str:
     """The per-tap checks as a taps x checks matrix, then the checks of no single tap."""
-    from emucompile.verify.run import check_matrix
-
     fit = getattr(verification, "fit", None)
     matrix = check_matrix(checks)
-    out = ['<h2 id="checks">Checks</h2>', f'<p class="explain">{_e(_holm_explanation(verification))}</p>',
+    out = ['<h2 id="checks">Checks</h2>', f'<p class="explain">{fmt.e(fmt.holm_explanation(verification))}</p>',
            '<p class="explain">One mark per tap and check: \u2714 every link passed, \u2718 at least one failed, '
            "\u2013 not applicable or not enough data. Hover over a mark (or read verification.json, "
            "<code>check_matrix</code> and <code>checks</code>) for the numbers: value, expected, tolerance, "
@@ -255,7 +254,7 @@ def _checks_section(verification, checks) -> str:
     if matrix["rows"]:
         columns = matrix["columns"]
         out.append('<table class="grid matrix"><thead><tr><th>source</th><th>tap</th>'
-                   + "".join(f'<th class="rot"><span>{_e(_short(c))}</span></th>' for c in columns)
+                   + "".join(f'<th class="rot"><span>{fmt.e(_short(c))}</span></th>' for c in columns)
                    + "</tr></thead><tbody>")
         for row in matrix["rows"]:
             cells = []
@@ -269,9 +268,10 @@ def _checks_section(verification, checks) -> str:
                 mark, css = _mark(cell["passed"], [checks[i] for i in indices])
                 anchors = "".join(f'<span id="check-{i + 1}"></span>' for i in indices)
                 title = "\n".join(_check_line(checks[i], fit) for i in indices)
-                cells.append(f'<td class="{css}" title="{_e(title)}">{anchors}{mark}</td>')
+                cells.append(f'<td class="{css}" title="{fmt.e(title)}">{anchors}{mark}</td>')
             source = row["source"] or "gains as stored"
-            out.append(f'<tr class="row-{_row_css(row)}"><td>{_e(source)}</td><td>{_e(_tap_text(row["tap"]))}</td>'
+            out.append(f'<tr class="row-{_row_css(row)}"><td>{fmt.e(source)}</td>'
+                       f'<td>{fmt.e(fmt.tap_text(row["tap"]))}</td>'
                        + "".join(cells) + "</tr>")
         out.append("</tbody></table>")
     others = [i for i in range(len(checks)) if i not in placed]
@@ -279,18 +279,18 @@ def _checks_section(verification, checks) -> str:
         out.append('<h3>Checks of no single tap</h3>')
         groups = {}
         for i in others:
-            groups.setdefault(_base_name(_get(checks[i], "name") or ""), []).append(i)
+            groups.setdefault(_base_name(fmt.get(checks[i], "name") or ""), []).append(i)
         out.append('<table class="grid others"><tr><th>check</th><th>verdict</th><th>what was compared</th>'
                    "<th>result</th></tr>")
         for base, indices in groups.items():
             if len(indices) == 1:
                 check = checks[indices[0]]
-                mark, css = _mark(_get(check, "passed"), [check])
-                out.append(f'<tr id="check-{indices[0] + 1}"><td>{_e(base)}</td><td class="{css}">{mark}</td>'
-                           f"<td>{_e(_comparison(check, fit)['comparison'])}</td>"
-                           f"<td>{_e(_result_text(check))}</td></tr>")
+                mark, css = _mark(fmt.get(check, "passed"), [check])
+                out.append(f'<tr id="check-{indices[0] + 1}"><td>{fmt.e(base)}</td><td class="{css}">{mark}</td>'
+                           f"<td>{fmt.e(_comparison(check, fit)['comparison'])}</td>"
+                           f"<td>{fmt.e(_result_text(check))}</td></tr>")
                 continue
-            passed = [_get(checks[i], "passed") for i in indices]
+            passed = [fmt.get(checks[i], "passed") for i in indices]
             verdict = False if False in passed else True if True in passed else None
             mark, css = _mark(verdict, [checks[i] for i in indices])
             worst = _worst(checks, indices)
@@ -299,8 +299,9 @@ def _checks_section(verification, checks) -> str:
                        f"{passed.count(None)} not applicable"
                        + (f"; closest to its bound: {_check_line(checks[worst], words=False)}"
                           if worst is not None else ""))
-            out.append(f"<tr><td>{anchors}{_e(base)}</td><td class=\"{css}\">{mark}</td>"
-                       f"<td>{_e(_comparison(checks[indices[0]], fit)['comparison'])}</td><td>{_e(summary)}</td></tr>")
+            out.append(f"<tr><td>{anchors}{fmt.e(base)}</td><td class=\"{css}\">{mark}</td>"
+                       f"<td>{fmt.e(_comparison(checks[indices[0]], fit)['comparison'])}</td>"
+                       f"<td>{fmt.e(summary)}</td></tr>")
         out.append("</table>")
     if not checks:
         out.append("<p>No checks were run.</p>")
@@ -314,16 +315,16 @@ def _failed_section(checks, fit) -> str:
     if acceptance and not acceptance.get("within_tolerance"):
         spread = fit["rms_delay_spread_s"]
         out.append('<div class="note"><strong>Emulator fit beyond its tolerance.</strong> '
-                   + _e(f"The fit moves the RMS delay spread from {_si(spread['profile'], 's')} to "
-                        f"{_si(spread['fitted'], 's')} ({_number(spread['change_pct'])} %), beyond the "
-                        f"{_number(acceptance.get('tolerance_pct'))} % tolerance")
-                   + (_e("; accepted at compile with --accept-fit (recorded in the manifest).")
+                   + fmt.e(f"The fit moves the RMS delay spread from {fmt.si(spread['profile'], 's')} to "
+                        f"{fmt.si(spread['fitted'], 's')} ({fmt.number(spread['change_pct'])} %), beyond the "
+                        f"{fmt.number(acceptance.get('tolerance_pct'))} % tolerance")
+                   + (fmt.e("; accepted at compile with --accept-fit (recorded in the manifest).")
                       if acceptance.get("accepted") else ".")
                    + ' <a href="#fit">See the emulator fit.</a></div>')
-    failed = [(i, c) for i, c in enumerate(checks) if _get(c, "passed") is False]
+    failed = [(i, c) for i, c in enumerate(checks) if fmt.get(c, "passed") is False]
     if failed:
-        items = "".join(f'<li><a href="#check-{i + 1}">{_e(_check_label(c))}</a>: '
-                        f"{_e(_comparison(c, fit)['comparison'])}: {_e(_result_text(c))}</li>" for i, c in failed)
+        items = "".join(f'<li><a href="#check-{i + 1}">{fmt.e(_check_label(c))}</a>: '
+                        f"{fmt.e(_comparison(c, fit)['comparison'])}: {fmt.e(_result_text(c))}</li>" for i, c in failed)
         out.append(f'<div class="failed"><h2 id="failed">Failed checks ({len(failed)})</h2><ol>{items}</ol></div>')
     return "\n".join(out)
 
@@ -335,42 +336,43 @@ def _fit_section(fit, figure=None) -> str:
     images = fit["update_images"]
     rows = [
         ("delay mapping", f"{fit['delay_mapping']}, delay step {fit['delay_step_samples']} sample(s) at "
-                          f"{_si(fit['sample_rate_hz'], 'Hz')}; {fit['n_paths']} path(s)"),
-        ("RMS delay spread", f"profile {_si(spread['profile'], 's')} \u2192 fitted {_si(spread['fitted'], 's')}"
+                          f"{fmt.si(fit['sample_rate_hz'], 'Hz')}; {fit['n_paths']} path(s)"),
+        ("RMS delay spread", f"profile {fmt.si(spread['profile'], 's')} \u2192 fitted {fmt.si(spread['fitted'], 's')}"
                              + ("" if spread["change_pct"] is None else f" ({spread['change_pct']:+.1f} %)")
                              + ("" if spread.get("coefficient_powers") in (None, spread["fitted"]) else
-                                f"; coefficient powers {_si(spread['coefficient_powers'], 's')} (the sinc "
+                                f"; coefficient powers {fmt.si(spread['coefficient_powers'], 's')} (the sinc "
                                 "windows' interpolation tails included)")),
-        ("mean delay", f"profile {_si(mean['profile'], 's')} \u2192 fitted {_si(mean['fitted'], 's')}"),
-        ("taps merged", "; ".join(f"taps {', '.join(map(str, m['taps']))} at {_si(m['delay_s'], 's')}"
+        ("mean delay", f"profile {fmt.si(mean['profile'], 's')} \u2192 fitted {fmt.si(mean['fitted'], 's')}"),
+        ("taps merged", "; ".join(f"taps {', '.join(map(str, m['taps']))} at {fmt.si(m['delay_s'], 's')}"
                                   + (f" ({m['remark']})" if m.get("remark") else "")
                                   for m in fit["taps_merged"]) or "none"),
         ("taps dropped", ", ".join(map(str, fit["taps_dropped"])) or "none"),
-        ("power dropped", f"{_number(fit['power_dropped_db'])} dB"),
-        ("largest delay error", _si(fit["max_abs_delay_error_s"], "s")),
-        ("update images", f"{_number(images['image_to_wanted_db'])} dB of the wanted power "
-                          f"({images['between_updates']} at {_si(images['update_rate_hz'], 'Hz')}); droop "
-                          f"{_number(images['droop_db'])} dB"),
+        ("power dropped", f"{fmt.number(fit['power_dropped_db'])} dB"),
+        ("largest delay error", fmt.si(fit["max_abs_delay_error_s"], "s")),
+        ("update images", f"{fmt.number(images['image_to_wanted_db'])} dB of the wanted power "
+                          f"({images['between_updates']} at {fmt.si(images['update_rate_hz'], 'Hz')}); droop "
+                          f"{fmt.number(images['droop_db'])} dB"),
     ]
     coefficients = fit.get("coefficients")
     if coefficients:
-        rows.append(("coefficients", f"{coefficients['bits']} bits per part, headroom {_number(coefficients['headroom_db'])} dB; "
-                                     f"SQNR {_number(coefficients['sqnr_db_model'])} dB (model), "
-                                     f"{_number(coefficients['sqnr_db_measured'])} dB measured; "
-                                     f"{_number(coefficients['clipped_values'])} value(s) clipped"
+        rows.append(("coefficients", f"{coefficients['bits']} bits per part, "
+                                     f"headroom {fmt.number(coefficients['headroom_db'])} dB; "
+                                     f"SQNR {fmt.number(coefficients['sqnr_db_model'])} dB (model), "
+                                     f"{fmt.number(coefficients['sqnr_db_measured'])} dB measured; "
+                                     f"{fmt.number(coefficients['clipped_values'])} value(s) clipped"
                                      + (f" (file {coefficients['file']})" if coefficients.get("file") else "")))
     acceptance = fit.get("acceptance")
     if acceptance:
         verdict = ("within" if acceptance["within_tolerance"] else
                    "beyond it, accepted with --accept-fit" if acceptance["accepted"] else "beyond it")
-        rows.append(("fit tolerance", f"{_number(acceptance['tolerance_pct'])} % of the profile's RMS delay "
+        rows.append(("fit tolerance", f"{fmt.number(acceptance['tolerance_pct'])} % of the profile's RMS delay "
                                       f"spread: {verdict}"))
     rows += [("note", note) for note in fit.get("notes") or ()]
     out = ['<h2 id="fit">Emulator fit</h2>',
            '<p class="explain">What fitting the profile to the emulator target changed. Checks on the tap gains '
            "compare with the profile; checks on the FIR (its grid, the delivered coefficients) compare with the "
            "fitted channel, and say so.</p>", '<table class="kv">']
-    out += [f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in rows]
+    out += [f"<tr><th>{fmt.e(k)}</th><td>{fmt.e(v)}</td></tr>" for k, v in rows]
     out.append("</table>")
     if figure is not None:
         out.append(_figure_html(*figure))
@@ -380,9 +382,9 @@ def _fit_section(fit, figure=None) -> str:
 def _figure_section(heading, anchor, figure, text) -> str:
     if figure is None and not text:
         return ""
-    out = [f'<div class="keep"><h2 id="{anchor}">{_e(heading)}</h2>']
+    out = [f'<div class="keep"><h2 id="{anchor}">{fmt.e(heading)}</h2>']
     if text:
-        out.append(f'<p class="explain">{_e(text)}</p>')
+        out.append(f'<p class="explain">{fmt.e(text)}</p>')
     if figure is not None:
         out.append(_figure_html(*figure))
     return "\n".join(out) + "</div>"
@@ -396,10 +398,8 @@ def _mimo_text(verification) -> str:
     described = ""
     if setup is not None:
         try:
-            from emucompile.profile.blocks import correlation_text
-
             described = f"{setup.n_rx} rx x {setup.n_tx} tx, correlation {correlation_text(setup.correlation)}. "
-        except (ImportError, AttributeError):
+        except AttributeError:
             described = ""
     return (described + f"{len(mimo['links'])} links ({', '.join(mimo['links'])}). Left: the correlation the "
             "profile asks for; middle: the correlation achieved by one tap's links; right: the largest "
@@ -420,7 +420,7 @@ def _conditions_text(verification) -> str:
     if "shadowing" in conditions:
         shadowing = conditions["shadowing"]
         parts.append(f"log-normal shadowing: the gain as written ({shadowing.get('source')}), sigma "
-                     f"{_number(shadowing.get('sigma_db'))} dB, hold {shadowing.get('hold')}")
+                     f"{fmt.number(shadowing.get('sigma_db'))} dB, hold {shadowing.get('hold')}")
     text = "; ".join(parts)
     return text[:1].upper() + text[1:] + "."
 
@@ -441,8 +441,8 @@ def _figure_html(title, png) -> str:
     data = base64.b64encode(png).decode("ascii")
     # a narrow figure (one panel) prints two to a page rather than one page each
     narrow = ' class="narrow"' if _png_width(png) < 700 else ""
-    return (f'<figure{narrow}><img src="data:image/png;base64,{data}" alt="{_e(title)}">'
-            f"<figcaption>{_e(title)}</figcaption></figure>")
+    return (f'<figure{narrow}><img src="data:image/png;base64,{data}" alt="{fmt.e(title)}">'
+            f"<figcaption>{fmt.e(title)}</figcaption></figure>")
 
 
 def _png_width(png) -> int:
@@ -453,14 +453,12 @@ def _png_width(png) -> int:
 
 
 def _comparison(check, fit) -> dict:
-    from emucompile.verify.run import comparison
-
     return comparison(check, fit)
 
 
 def _check_line(check, fit=None, *, words=True) -> str:
     """One check in words: label, verdict, the numbers and (``words``) what was compared with what."""
-    passed = _get(check, "passed")
+    passed = fmt.get(check, "passed")
     verdict = "pass" if passed is True else "FAIL" if passed is False else "not applicable"
     line = f"{_check_label(check)}: {verdict}; {_result_text(check)}"
     if not words:
@@ -471,28 +469,28 @@ def _check_line(check, fit=None, *, words=True) -> str:
 
 def _result_text(check) -> str:
     """Value against expected and tolerance in words; a deviation (expected 0) as a deviation."""
-    value, expected = _get(check, "value"), _get(check, "expected")
-    tolerance, unit = _get(check, "tolerance"), _get(check, "unit") or ""
-    reason = _get(check, "reason") or ""
+    value, expected = fmt.get(check, "value"), fmt.get(check, "expected")
+    tolerance, unit = fmt.get(check, "tolerance"), fmt.get(check, "unit") or ""
+    reason = fmt.get(check, "reason") or ""
     unit_text = f" {unit}" if unit else ""
     if value is None:
         return reason or "no value"
     if _is_deviation(check):
-        text = f"deviation {_number(value)}{unit_text}, allowed up to {_number(tolerance)}{unit_text}"
+        text = f"deviation {fmt.number(value)}{unit_text}, allowed up to {fmt.number(tolerance)}{unit_text}"
     elif expected is None:
-        text = f"value {_number(value)}{unit_text}" + (f", allowed up to {_number(tolerance)}{unit_text}"
+        text = f"value {fmt.number(value)}{unit_text}" + (f", allowed up to {fmt.number(tolerance)}{unit_text}"
                                                        if tolerance is not None else "")
     else:
-        text = (f"measured {_number(value)}{unit_text} against {_number(expected)}{unit_text}"
-                + (f" \u00b1 {_number(tolerance)}" if tolerance is not None else " (not judged)"))
-    p_value, level = _get(check, "p_value"), _get(check, "level")
+        text = (f"measured {fmt.number(value)}{unit_text} against {fmt.number(expected)}{unit_text}"
+                + (f" \u00b1 {fmt.number(tolerance)}" if tolerance is not None else " (not judged)"))
+    p_value, level = fmt.get(check, "p_value"), fmt.get(check, "level")
     if p_value is not None:
-        text += f"; p = {_number(p_value)} tested at {_number(level)}"
+        text += f"; p = {fmt.number(p_value)} tested at {fmt.number(level)}"
     return text + (f" ({reason})" if reason else "")
 
 
 def _is_deviation(check) -> bool:
-    expected = _get(check, "expected")
+    expected = fmt.get(check, "expected")
     return isinstance(expected, (int, float)) and not isinstance(expected, bool) and expected == 0
 
 
@@ -501,7 +499,7 @@ def _mark(passed, checks):
         return "\u2714", "pass"
     if passed is False:
         return "\u2718", "fail"
-    reasons = " ".join((_get(c, "reason") or "") for c in checks).lower()
+    reasons = " ".join((fmt.get(c, "reason") or "") for c in checks).lower()
     return ("\u2013", "na") if "not enough data" not in reasons else ("\u2026", "na")
 
 
@@ -514,7 +512,7 @@ def _worst(checks, indices):
     """The check of ``indices`` closest to its bound (|value - expected| / tolerance), or None."""
     best, worst = -1.0, None
     for i in indices:
-        value, expected, tolerance = (_get(checks[i], k) for k in ("value", "expected", "tolerance"))
+        value, expected, tolerance = (fmt.get(checks[i], k) for k in ("value", "expected", "tolerance"))
         if not all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in (value, expected, tolerance)):
             continue
         if tolerance > 0 and abs(value - expected) / tolerance > best:
@@ -537,8 +535,8 @@ def _short(name: str) -> str:
 
 
 def _check_label(check) -> str:
-    tap = _get(check, "tap")
-    return (_get(check, "name") or "") + ("" if tap is None else f" (tap {_tap_text(tap)})")
+    tap = fmt.get(check, "tap")
+    return (fmt.get(check, "name") or "") + ("" if tap is None else f" (tap {fmt.tap_text(tap)})")
 
 
 def _figures_section(figures) -> str:
@@ -555,33 +553,29 @@ def _figures_section(figures) -> str:
 def _identity_section(identity) -> str:
     """Scalars and nested dicts as key/value rows; a list of records (the files) as its own table."""
     out = ["<h2>Identity of the checked data</h2>", '<table class="kv mono">']
-    tables = {k: v for k, v in identity.items() if _is_records(v)}
-    rows = list(_flatten({k: v for k, v in identity.items() if k not in tables}))
+    tables = {k: v for k, v in identity.items() if fmt.is_records(v)}
+    rows = list(fmt.flatten({k: v for k, v in identity.items() if k not in tables}))
     if not rows and not tables:
         rows = [("identity", "not recorded")]
-    out += [f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in rows]
+    out += [f"<tr><th>{fmt.e(k)}</th><td>{fmt.e(v)}</td></tr>" for k, v in rows]
     out.append("</table>")
     for key, records in tables.items():
         columns = list(dict.fromkeys(c for record in records for c in record))
-        out.append(f"<h3>{_e(key)}</h3><table class=\"grid mono\"><tr>"
-                   + "".join(f"<th>{_e(c)}</th>" for c in columns) + "</tr>")
+        out.append(f"<h3>{fmt.e(key)}</h3><table class=\"grid mono\"><tr>"
+                   + "".join(f"<th>{fmt.e(c)}</th>" for c in columns) + "</tr>")
         for record in records:
-            out.append("<tr>" + "".join(f"<td>{_e(_plain(record.get(c)))}</td>" for c in columns) + "</tr>")
+            out.append("<tr>" + "".join(f"<td>{fmt.e(fmt.plain(record.get(c)))}</td>" for c in columns) + "</tr>")
         out.append("</table>")
     return "\n".join(out)
-
-
-def _is_records(value) -> bool:
-    return isinstance(value, (list, tuple)) and bool(value) and all(isinstance(v, dict) for v in value)
 
 
 def _cautions_section(run_cautions) -> str:
     out = ["<h2>Cautions</h2>"]
     if run_cautions:
-        items = "".join(f"<li>{_e(c)}</li>" for c in run_cautions)
+        items = "".join(f"<li>{fmt.e(c)}</li>" for c in run_cautions)
         out.append(f'<h3>From this verification</h3><ul class="cautions run">{items}</ul>')
         out.append("<h3>Always</h3>")
-    out.append('<ul class="cautions">' + "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS) + "</ul>")
+    out.append('<ul class="cautions">' + "".join(f"<li>{fmt.e(c)}</li>" for c in CAUTIONS) + "</ul>")
     return "".join(out)
 
 
@@ -591,163 +585,3 @@ def _signature_section() -> str:
             "<p>I have reviewed this report and the data it identifies.</p>"
             f"<p>Name: {line}</p><p>Role: {line}</p><p>Date: {line}</p><p>Signature: {line}</p>"
             "</div>")
-
-
-# -- text --------------------------------------------------------------------------
-
-
-def _false_alarm_sentence(verification) -> str:
-    rate = getattr(verification, "false_alarm", None)
-    if rate is None:
-        return ""
-    return f"Family-wise false-alarm rate: {_percent(rate)} (Holm)."
-
-
-def _holm_explanation(verification) -> str:
-    rate = getattr(verification, "false_alarm", None)
-    rate_text = _percent(rate) if rate is not None else "the stated rate"
-    return (
-        f"The checks are combined so that the family-wise false-alarm rate is {rate_text}: if the "
-        "data follow the profile exactly, the chance that any check in this table fails is at most "
-        f"{rate_text}. Holm's step-down method (Holm 1979): the m p-values are sorted from the "
-        "smallest; the i-th smallest is compared with the rate divided by (m - i + 1), and testing "
-        "stops at the first that is not below its level; every check from there on passes. "
-        "\"Tested at\" is the level a check's p-value was compared with. \"Smallest detectable\" "
-        "is the deviation this record length can reveal. Checks that cannot be meaningful are "
-        "marked not applicable or not enough data, never pass."
-    )
-
-
-def _tap_text(tap) -> str:
-    """A check's tap: "all", "3", or "0, 1" for a pair (cross-correlation); a pair of one tap (MIMO) is "3"."""
-    if tap is None:
-        return "all"
-    if isinstance(tap, (list, tuple)):
-        return str(tap[0]) if len(tap) == 2 and tap[0] == tap[1] else ", ".join(str(t) for t in tap)
-    return str(tap)
-
-
-def _e(value) -> str:
-    return html.escape(str(value), quote=True)
-
-
-def _get(check, name):
-    if isinstance(check, dict):
-        return check.get(name)
-    return getattr(check, name, None)
-
-
-def _number(value, *, plus_minus: bool = False) -> str:
-    if value is None:
-        return "\u2013"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, int):
-        return str(value)
-    if isinstance(value, (list, tuple)):
-        return ", ".join(_number(v) for v in value)
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        return str(value)
-    if math.isnan(x):
-        return "undefined"
-    if math.isinf(x):
-        return "\u221e" if x > 0 else "-\u221e"
-    text = f"{x:.4g}"
-    return f"\u00b1{text}" if plus_minus and x >= 0 else text
-
-
-def _percent(rate) -> str:
-    return f"{100.0 * float(rate):.3g} %"
-
-
-_PREFIXES = ((1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "\u00b5"), (1e-9, "n"),
-             (1e-12, "p"))
-
-
-def _si(value, unit: str) -> str:
-    """4 significant digits with an SI prefix: 157.3 ns, 3.47 MHz; an en dash for None."""
-    if value is None:
-        return "\u2013"
-    value = float(value)
-    if value == 0 or not math.isfinite(value):
-        return f"{_number(value)} {unit}"
-    for scale, prefix in _PREFIXES:
-        if abs(value) >= scale * 0.9995:
-            return f"{value / scale:.4g} {prefix}{unit}"
-    return f"{value:.4g} {unit}"
-
-
-def _flatten(value, prefix=""):
-    """(dotted key, text) pairs of a nested dict, in its order."""
-    if isinstance(value, dict):
-        for key, item in value.items():
-            yield from _flatten(item, f"{prefix}.{key}" if prefix else str(key))
-    elif _is_records(value):
-        for i, item in enumerate(value):
-            yield from _flatten(item, f"{prefix}[{i}]")
-    else:
-        yield prefix, _plain(value)
-
-
-def _plain(value) -> str:
-    if value is None:
-        return "\u2013"
-    if isinstance(value, (list, tuple)):
-        return ", ".join(map(str, value)) if value else "none"
-    return str(value)
-
-
-
-
-_CSS = """
-body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",sans-serif;max-width:1180px;
-margin:1.5em auto;padding:0 1em;color:#1a1a1a;line-height:1.45;background:#fff}
-h1{font-size:1.6em;margin-bottom:.2em}h2{border-bottom:2px solid #ccd;padding-bottom:.15em;margin-top:1.6em}
-.meta{color:#555;margin-top:0}
-.verdict{font-size:1.35em;font-weight:bold;padding:.5em .8em;border-radius:6px;margin:.8em 0}
-.verdict.pass{background:#e3f4e6;color:#125c24;border:2px solid #2e9e4a}
-.verdict.fail{background:#fbe4e4;color:#8b1111;border:2px solid #d03030}
-.verdict.na{background:#eee;color:#444;border:2px solid #999}
-.failed{border:2px solid #d03030;border-radius:6px;padding:.2em 1em;margin:.8em 0;background:#fff8f8}
-.failed h2{border:none;margin:.4em 0;font-size:1.15em;color:#8b1111}
-.failed li{margin:.2em 0;overflow-wrap:anywhere}
-.note{background:#fff6dc;border-left:5px solid #e0a800;padding:.6em .9em;margin:1em 0}
-table{border-collapse:collapse;margin:.6em 0;font-size:.92em}
-th,td{border:1px solid #c9cbd3;padding:.28em .55em;text-align:left;vertical-align:top}
-th{background:#eef0f5}
-table.kv{max-width:100%}table.kv th{width:16em;font-weight:600}table.kv td{overflow-wrap:anywhere}
-table.mono td{font-family:ui-monospace,"DejaVu Sans Mono",monospace;word-break:break-all}
-table.matrix{font-size:.85em}
-table.matrix td{text-align:center;padding:.15em .35em;min-width:1.6em}
-table.matrix td:first-child,table.matrix td:nth-child(2){text-align:left;white-space:nowrap}
-table.matrix th.rot{vertical-align:bottom;padding:.3em .2em;height:9.5em}
-table.matrix th.rot span{writing-mode:vertical-rl;transform:rotate(180deg);white-space:nowrap;display:inline-block}
-table.matrix td.empty{background:#f6f6f8}
-table.others{width:100%;table-layout:fixed}
-table.others th:first-child{width:13em}table.others th:nth-child(2){width:4.5em}
-table.others td{overflow-wrap:anywhere}
-td.pass{color:#125c24;font-weight:bold}
-td.fail{color:#fff;background:#c62828;font-weight:bold}
-td.na{color:#666}
-tr.row-fail td:first-child{background:#fdecec}
-.explain{color:#333;max-width:70em}
-figure{margin:1.2em 0;break-inside:avoid;page-break-inside:avoid}
-figure img{max-width:100%;height:auto;border:1px solid #ddd}
-figcaption{color:#444;font-size:.92em;margin-top:.2em}
-.cautions li{margin:.3em 0}
-.signature{border:1px solid #999;padding:.6em 1em;max-width:44em;margin-top:.6em;break-inside:avoid}
-.signature p{margin:1.1em 0}
-.line{display:inline-block;width:26em;max-width:70%;border-bottom:1px solid #333;height:1em;vertical-align:bottom}
-@page{size:A4;margin:14mm 12mm}
-@media print{
-body{max-width:none;margin:0;padding:0;font-size:10pt}
-h2{break-after:avoid;page-break-after:avoid}h3{break-after:avoid}
-.verdict,.note,.keep{break-inside:avoid}
-tr{break-inside:avoid}thead{display:table-header-group}
-figure img{max-height:245mm;width:auto;max-width:100%}figure.narrow img{max-height:112mm}
-a{color:inherit;text-decoration:none}
-table.mono td{font-size:8pt}
-}
-""".strip()

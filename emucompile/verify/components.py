@@ -2,10 +2,12 @@
 
 For ``verify``: the large-scale checks (shadowing) and the small-scale ones
 (envelope, K-factor, Doppler, spatial correlation) see separate processes.
-:func:`open_components` re-plans the bundle from its manifest exactly as
-``compile`` planned it (:func:`emucompile.compile.compiler._replan`); the diffuse
-part is never regenerated: it is the stored gains with the shadowing
-divided out, minus the deterministic direct part recomputed from the plan.
+:func:`open_components` runs no part of the compile planner and regenerates
+nothing random: the deterministic direct part follows from the manifest's
+record (each tap's power, K, direct-part Doppler as used and phase as drawn,
+the recorded profile's MIMO and conditions blocks) through
+:func:`emucompile.models.channel.recorded_channel`; the diffuse part is the
+stored gains with the shadowing divided out, minus that direct part.
 
 All methods take sample ranges [start, stop) of the record; shapes are in the
 bundle's axes (m, n_rx, n_tx, n_taps) unless stated, complex128.
@@ -24,9 +26,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from emucompile.models import mimo
 from emucompile.bundle.store import open_bundle
-from emucompile.models.channel import SHADOWING_ROLE
+from emucompile.models import mimo
+from emucompile.models.channel import SHADOWING_ROLE, recorded_channel
+from emucompile.profile.model import profile_from_document
 
 
 class Components:
@@ -121,12 +124,13 @@ class Components:
 
 
 def open_components(path) -> Components:
-    """The :class:`Components` of the bundle directory ``path`` (re-planned from its manifest)."""
-    from emucompile.compile.compiler import _replan
-
+    """The :class:`Components` of the bundle directory ``path`` (its direct part from the manifest's record)."""
     bundle = open_bundle(path)
-    plan = _replan(bundle.manifest, path)
-    return Components(bundle, plan.channel)
+    manifest = bundle.manifest
+    profile = profile_from_document(manifest["profile"], source=f"{path}/manifest.json#/profile")
+    channel = recorded_channel(profile, manifest["taps"], update_rate_hz=manifest["update_rate_hz"],
+                               n_samples=manifest["n_samples"], seed=manifest["seed"], periodic=manifest["periodic"])
+    return Components(bundle, channel)
 
 
 __all__ = ["Components", "open_components"]

@@ -305,6 +305,29 @@ def level_crossings(envelope, level: float) -> int:
     return int(np.count_nonzero(below[:-1] & ~below[1:]))
 
 
+def upward_crossing_counts(samples, levels) -> np.ndarray:
+    """Upward crossings of each level by a sampled sequence: #{i : x[i] < level <= x[i+1]}, for every level at once.
+
+    The same counts as :func:`level_crossings` level by level (levels are
+    compared in the sequence's dtype), from one sort of the rising steps: a
+    rising step crosses exactly the levels in (x[i], x[i+1]], so the count is
+    #(starts < level) - #(ends < level). O((N + L) log N) for L levels.
+    """
+    x = np.asarray(samples)
+    levels = np.asarray(levels, dtype=x.dtype)
+    a, b = x[:-1], x[1:]
+    rising = a < b
+    starts, ends = np.sort(a[rising]), np.sort(b[rising])
+    return (np.searchsorted(starts, levels, side="left") - np.searchsorted(ends, levels, side="left")).astype(float)
+
+
+def envelope_cdf(g, levels) -> np.ndarray:
+    """Empirical P(|g| < level) at each level (the distribution :func:`envelope_ks_distance` measures)."""
+    g = _record(g)
+    power = np.sort(g.real**2 + g.imag**2)
+    return np.searchsorted(power, np.square(np.asarray(levels, dtype=float)), side="left") / power.size
+
+
 def crossing_statistics(envelope, rate_hz: float, levels):
     """Level-crossing rate (1/s) and average fade duration (s) at each level [Rice1944]_.
 

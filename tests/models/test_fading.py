@@ -21,7 +21,7 @@ from scipy import optimize, signal, special, stats
 
 from emucompile.models import fading
 
-from emucompile.verify import tolerance
+from emucompile.verify import nulls
 from emucompile.errors import InputError
 from emucompile.models.fading import _design, _sos, _streams
 from emucompile.models.fading._synthesis import DopplerFilterSource
@@ -399,7 +399,7 @@ def test_sum_of_sinusoids_taps_and_links_correlate_only_as_independent_processes
     fd, rate = 10.0, 40.0
     n = int(5e4 / fd * rate)
     spectrum = DopplerSpectrum("classical", fd)
-    g = tolerance._pair_sum(spectrum, spectrum, rate, n) / n
+    g = nulls.pair_sum(spectrum, spectrum, rate, n) / n
 
     def profile(n_taps):
         return Profile(name="r", taps=tuple(Tap(j * 1e-7, 1.0, max_doppler_hz=fd) for j in range(n_taps)))

@@ -18,6 +18,8 @@ from matplotlib import image as mpimage
 from emucompile.report import figures as plots
 
 from emucompile.report import html as report
+from emucompile.report import html_text
+from emucompile.verify import estimators, tolerance
 from verification_standin import StandInCheck, report_inputs, standin_verification
 
 DATA_URI = re.compile(r"data:image/png;base64,([A-Za-z0-9+/=]+)")
@@ -172,7 +174,7 @@ def test_report_states_the_rate_identity_note_cautions_and_signature(inputs, pag
     assert f"<td>{verification.identity['seed']}</td>" in page
     assert "estimator bias" in page  # the stand-in is marked foreign
     for caution in report.CAUTIONS:
-        assert report._e(caution) in page
+        assert html_text.e(caution) in page
     assert "Signature:" in page and "Date:" in page and "Name:" in page
     assert "157.3 ns" in page  # RMS delay spread of the port-crane demo (its expect: block)
 
@@ -205,12 +207,44 @@ def test_write_report_is_atomic(tmp_path, inputs, monkeypatch):
 # -- the numerics behind the figures -----------------------------------------------------
 
 
-def test_upward_crossings_count_a_fade_between_two_samples():
-    # One straight segment passing 0.1 from the origin: both ends above 0.5, the middle below.
-    gains = np.array([-1.0 - 0.1j, 1.0 - 0.1j])
-    assert plots._upward_crossings(gains, np.array([0.05, 0.5, 2.0])).tolist() == [0, 1, 0]
-    # End points alone: a rise from 0.2 to 0.8 crosses 0.5 once, a fall never upwards.
-    assert plots._upward_crossings(np.array([0.2, 0.8, 0.2]), np.array([0.5])).tolist() == [1]
+def test_the_crossing_figure_counts_as_its_check_counts():
+    # One estimator per quantity: the figure's rates at the check's own levels are the check's rates.
+    verification = standin_verification(periods=400.0)
+    tap, standin = 1, verification.models[1]
+    model = tolerance.TapModel(standin.spectrum, standin.mean_power, standin.k_linear, standin.los_doppler_hz)
+    record = verification.records[tap]
+    check = {c.name: c for c in tolerance.check_tap(record, verification.record_rate_hz, model, tap=tap)}
+    detail = check["level_crossing_rate"].detail
+    rates, _ = tolerance.crossing_rates(record, verification.record_rate_hz, model, detail["levels_rho"])
+    assert rates.tolist() == detail["measured_per_s"]
+
+
+def test_the_autocorrelation_and_spectrum_figures_draw_the_numbers_their_checks_judged():
+    verification = standin_verification(periods=400.0)
+    tap, standin = 0, verification.models[0]  # the crane's Rician tap: its direct part is removed first
+    model = tolerance.TapModel(standin.spectrum, standin.mean_power, standin.k_linear, standin.los_doppler_hz)
+    record, rate = verification.records[tap], verification.record_rate_hz
+    check = {c.name: c for c in tolerance.check_tap(record, rate, model, tap=tap)}
+    curve = tolerance.autocorrelation_curve(record, rate, model)
+    detail = check["autocorrelation"].detail
+    worst = int(np.argmin(np.abs(curve["lag_s"] - detail["worst_lag_s"])))
+    assert [curve["measured"][worst].real, curve["measured"][worst].imag] == detail["worst_estimate"]
+    assert curve["expected"][worst] == detail["worst_expected"]
+    psd = tolerance.psd_curve(record, rate, model)
+    ratio = psd["psd"][psd["judged"]] / (psd["power"] * psd["expected"][psd["judged"]])
+    nu = psd["nu"]
+    z = np.abs((np.cbrt(ratio) - (1.0 - 1.0 / (9.0 * nu))) * np.sqrt(9.0 * nu))
+    assert float(z.max()) == check["doppler_psd"].value
+    assert int(psd["judged"].sum()) == check["doppler_psd"].detail["bins"]
+
+
+def test_upward_crossing_counts_equal_the_level_by_level_count():
+    x = np.random.default_rng(3).random(2000).astype(np.float32)
+    levels = np.linspace(0.0, 1.0, 37)
+    assert estimators.upward_crossing_counts(x, levels).tolist() == [
+        estimators.level_crossings(x, np.float32(level)) for level in levels]
+    # a rise from 0.2 to 0.8 crosses 0.5 once, a fall never upwards
+    assert estimators.upward_crossing_counts(np.array([0.2, 0.8, 0.2]), [0.5]).tolist() == [1]
 
 
 def test_autocorrelation_sign_convention_matches_theory():
@@ -218,8 +252,8 @@ def test_autocorrelation_sign_convention_matches_theory():
     # (K exp(j 2 pi f_los tau) + r(tau)) / (K + 1) does for a direct part alone.
     w = 0.3
     x = np.exp(1j * w * np.arange(4096))
-    r = plots._autocorrelation(x, 10)
-    np.testing.assert_allclose(r, np.exp(1j * w * np.arange(11)), atol=1e-9)
+    r = estimators.autocorrelation(x, 11)
+    np.testing.assert_allclose(r / r[0].real, np.exp(1j * w * np.arange(11)), atol=1e-9)
 
 
 # -- with a real verification ------------------------------------------------------------

@@ -12,7 +12,7 @@ from emucompile.verify import estimators
 
 from emucompile.verify import reference
 
-from emucompile.verify import tolerance
+from emucompile.verify import nulls
 from emucompile.models.theory import DopplerSpectrum
 
 RNG = np.random.default_rng(20261202)
@@ -92,16 +92,16 @@ def test_envelope_ks_equals_kstest():
 
 
 def test_k_factor_moment_estimate_on_iid_rician():
-    """Greenstein et al. 1999: consistent estimate; sd from the delta method (tolerance._k_sd)."""
+    """Greenstein et al. 1999: consistent estimate; sd from the delta method (nulls.k_sd)."""
     k, n = 3.0, 400_000
     a = math.sqrt(k / (k + 1.0))
     x = a * np.exp(1j * 0.3) + cn(n) * math.sqrt(1.0 / (k + 1.0))
     k_hat = estimators.k_factor_moments(x)
-    sd = tolerance._k_sd(k, 1.0) / math.sqrt(n)
+    sd = nulls.k_sd(k, 1.0) / math.sqrt(n)
     assert abs(k_hat - k) < 5 * sd
     # and the delta-method sd itself against a small Monte Carlo (common practice check)
     hats = [estimators.k_factor_moments(a + cn(4000) * math.sqrt(1 / (k + 1))) for _ in range(300)]
-    assert 0.8 < np.std(hats) / (tolerance._k_sd(k, 1.0) / math.sqrt(4000)) < 1.25
+    assert 0.8 < np.std(hats) / (nulls.k_sd(k, 1.0) / math.sqrt(4000)) < 1.25
 
 
 def test_k_factor_rayleigh_is_near_zero():

@@ -22,6 +22,8 @@ import pytest
 from click.testing import CliRunner
 
 from emucompile.compile import compiler
+from emucompile.report import outputs
+from emucompile.verify import decimate
 from emucompile.verify import run as verifier
 from profile_helpers import FIT_EXAMPLE
 from emucompile.cli import cli
@@ -80,16 +82,16 @@ def _copy(bundle, tmp_path, name="copy"):
 def test_decimated_copy_is_the_centred_filter_written_out(periodic):
     """y[m] = sum_k h[k] x[m q + D - k] computed directly, against the chunked polyphase decimator."""
     n, rate, band = 3000, 1000.0, 10.0
-    decimator = verifier._Decimator(rate, band, n, periodic)
+    decimator = decimate.Decimator(rate, band, n, periodic)
     assert decimator.q == 12 and decimator.record_rate_hz == pytest.approx(rate / 12)
     rng = np.random.default_rng(3)
     x = (rng.standard_normal((n, 1, 1, 2)) + 1j * rng.standard_normal((n, 1, 1, 2))).astype(np.complex64)
-    old = verifier.CHUNK_SAMPLES
-    verifier.CHUNK_SAMPLES = 240  # several chunks
+    old = decimate.CHUNK_SAMPLES
+    decimate.CHUNK_SAMPLES = 240  # several chunks
     try:
-        y = decimator.run(verifier._MappedSource(x), 1, 2, None)
+        y = decimator.run(decimate.MappedSource(x), 1, 2, None)
     finally:
-        verifier.CHUNK_SAMPLES = old
+        decimate.CHUNK_SAMPLES = old
     h, half, q = decimator.h, decimator.half, decimator.q
     m = np.arange(decimator.first, decimator.first + decimator.n_out)
     index = m[:, None] * q + half - np.arange(h.size)[None, :]
@@ -106,12 +108,12 @@ def test_decimated_copy_is_the_centred_filter_written_out(periodic):
 def test_decimator_passes_the_band_and_stops_what_would_alias():
     """A tone at f_b keeps its amplitude (Kaiser ripple 70 dB: 3e-4); one at F_out - f_b is gone."""
     rate, band, n = 2000.0, 60.0, 40000
-    decimator = verifier._Decimator(rate, band, n, True)
+    decimator = decimate.Decimator(rate, band, n, True)
     k = np.arange(n)
     for frequency, gain in ((band, 1.0), (decimator.record_rate_hz - band, 0.0)):
         f = round(frequency * n / rate) * rate / n  # on the record's grid: periodic
         x = np.exp(2j * np.pi * f * k / rate).astype(np.complex64)[:, None, None, None]
-        y = decimator.run(verifier._MappedSource(x), 1, 1, None)[0, 0, :]
+        y = decimator.run(decimate.MappedSource(x), 1, 1, None)[0, 0, :]
         assert np.max(np.abs(np.abs(y) - gain)) < 10 ** (-70 / 20)  # designed for 80 dB; Kaiser's formula is approximate
 
 
@@ -247,7 +249,7 @@ def test_a_periodic_bundle_verifies_across_the_wrap(tmp_path):
     result = verifier.verify_bundle(out)
     assert result.passed, [c.to_dict() for c in result.failed]
     assert result.identity["periodic"] is True
-    assert verifier._Decimator(result.update_rate_hz, 60.23, result.identity["n_samples"], True).n_out \
+    assert decimate.Decimator(result.update_rate_hz, 60.23, result.identity["n_samples"], True).n_out \
         == len(result.records[0])
 
 
@@ -422,7 +424,7 @@ def test_an_unwritable_report_directory_warns_and_keeps_the_verdict(crane, monke
     def refuse(*args, **kwargs):
         raise PermissionError(13, "Permission denied")
 
-    monkeypatch.setattr(verifier, "write_outputs", refuse)
+    monkeypatch.setattr(outputs, "write_outputs", refuse)
     result = _run("verify", crane, "--no-plots")
     assert result.exit_code == 0 and "report not written" in result.stderr
     assert _run("verify", crane, "--no-plots", "--report", "/x/r.html").exit_code == 2

@@ -19,6 +19,7 @@ from emucompile.verify import estimators
 
 from emucompile.verify import reference
 
+from emucompile.verify import nulls, verdicts
 from emucompile.verify import tolerance
 from emucompile.profile.model import Tap
 from emucompile.models.theory import DopplerSpectrum
@@ -145,8 +146,8 @@ def test_correlation_matrix_is_the_pairwise_estimate():
     rho = tolerance.correlation_matrix(records, RATE, models)
     for i in range(3):
         for j in range(3):
-            pairwise = estimators.correlation_coefficient(tolerance._diffuse(records[i], RATE, models[i]),
-                                                          tolerance._diffuse(records[j], RATE, models[j]))
+            pairwise = estimators.correlation_coefficient(verdicts.diffuse(records[i], RATE, models[i]),
+                                                          verdicts.diffuse(records[j], RATE, models[j]))
             assert abs(rho[i, j] - pairwise) < 1e-12
     assert abs(rho[2, 0]) > 0.3 and abs(rho[1, 0]) < 0.1
     given = tolerance.check_cross_correlation(records[2], records[0], RATE, models[2], models[0], estimate=rho[2, 0])
@@ -220,10 +221,10 @@ def test_bartlett_sums_equal_their_definition(periodic, n_lags, block_bytes, mon
         monkeypatch.setattr(estimators, "_LAG_BLOCK_BYTES", block_bytes)
     n = 400
     spectrum = DopplerSpectrum("classical", FD)
-    tolerance._bartlett_sums.cache_clear()
-    s0, c1, c2 = tolerance._bartlett_sums(spectrum, RATE, n, periodic, n_lags)
-    r = tolerance._lags(spectrum, RATE, n, periodic)
-    w = tolerance._weights(n, periodic)
+    nulls.bartlett_sums.cache_clear()
+    s0, c1, c2 = nulls.bartlett_sums(spectrum, RATE, n, periodic, n_lags)
+    r = nulls.lags(spectrum, RATE, n, periodic)
+    w = nulls.weights(n, periodic)
     np.testing.assert_allclose(s0, np.sum(w * r * r), rtol=1e-12)
     if periodic:
         want = [np.sum(r * np.roll(r, -k)) for k in range(2 * n_lags)]
@@ -242,12 +243,12 @@ def test_phase_variances_series_equals_hyp2f1(periodic):
     """The 2F1 series used at small r equals scipy.special.hyp2f1 everywhere (both regimes are present)."""
     n = 20000
     spectrum = DopplerSpectrum("classical", FD)
-    tolerance._phase_variances.cache_clear()
-    v1, v2 = tolerance._phase_variances(spectrum, RATE, n, periodic)
-    r = np.clip(tolerance._lags(spectrum, RATE, n, periodic), -1.0, 1.0)
+    nulls.phase_variances.cache_clear()
+    v1, v2 = nulls.phase_variances(spectrum, RATE, n, periodic)
+    r = np.clip(nulls.lags(spectrum, RATE, n, periodic), -1.0, 1.0)
     r2 = r * r
-    assert (r2 < tolerance._PHASE_SERIES_X).mean() > 0.5 and (r2 >= tolerance._PHASE_SERIES_X).any()
-    w = tolerance._weights(n, periodic)
+    assert (r2 < nulls.PHASE_SERIES_X).mean() > 0.5 and (r2 >= nulls.PHASE_SERIES_X).any()
+    w = nulls.weights(n, periodic)
     e1 = (np.pi / 4) * r * special.hyp2f1(0.5, 0.5, 2.0, r2)
     e2 = 0.5 * r2 * special.hyp2f1(1.0, 1.0, 3.0, np.minimum(r2, 1 - 1e-15))
     e2[r2 >= 1 - 1e-15] = 1.0
@@ -268,8 +269,8 @@ def test_null_sum_tasks_fill_every_cache_check_tap_reads(periodic, k, los):
     assert len(tasks) == (3 if k == 0 else 2)
     for task in tasks:
         task()
-    cached = (tolerance._lags, tolerance._weights, tolerance._bartlett_sums, tolerance._phase_variances,
-              tolerance._power_covariance_sum)
+    cached = (nulls.lags, nulls.weights, nulls.bartlett_sums, nulls.phase_variances,
+              nulls.power_covariance_sum)
     misses = [c.cache_info().misses for c in cached]
     tolerance.check_tap(g, RATE, model, periodic=periodic)
     assert [c.cache_info().misses for c in cached] == misses
@@ -282,7 +283,7 @@ def test_pvalue_and_critical_agree_with_scipy_stats(law):
     z = np.array([0.3, 1.0, 2.5, 4.0])
     ref = {"normal": 2 * stats.norm.sf(z), "exp": np.exp(-z * z), "kolmogorov": stats.kstwobign.sf(z),
            "gamma2": stats.gamma.sf(z * z, 2)}[law]
-    np.testing.assert_allclose([tolerance._pvalue(law, float(x), 1) for x in z], ref, rtol=1e-12)
+    np.testing.assert_allclose([nulls.pvalue(law, float(x), 1) for x in z], ref, rtol=1e-12)
     for level, m in [(1e-3, 1), (1e-2, 7), (0.2, 3)]:
-        zc = tolerance._critical(law, level, m)
-        assert abs(tolerance._pvalue(law, zc, m) - level) < 1e-9 * level
+        zc = nulls.critical(law, level, m)
+        assert abs(nulls.pvalue(law, zc, m) - level) < 1e-9 * level

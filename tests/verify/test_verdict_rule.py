@@ -20,6 +20,7 @@ from emucompile.compile import compiler
 
 from emucompile.models import fading
 
+from emucompile.verify import nulls
 from emucompile.verify import tolerance
 from emucompile.verify import run as verifier
 from emucompile.profile.model import load_profile_text
@@ -162,7 +163,7 @@ def test_no_contradiction_on_a_mimo_bundle_and_with_one_link_decorrelated(mimo_b
 
 def _synthetic(p, name="mean_power"):
     """A check whose value sits at the normal law's z for p (scale 1, no calibration)."""
-    z = tolerance._critical("normal", p, 1)
+    z = nulls.critical("normal", p, 1)
     null = {"law": "normal", "m": 1, "z": z, "scale": 1.0, "calibration_factor": 1.0}
     return tolerance.CheckResult(name, 0, z, 0.0, None, p, True, None, 1e-3, None, "", {"null": null})
 
@@ -207,4 +208,4 @@ def test_holm_levels_written_out():
     # whose first is rejected at 0.01/4 and 0.004 > 0.01/3 stops, so each is judged at 0.01/3;
     # for 0.004 the rest (0.001, 0.002, 0.5) has two rejected, so 0.01/2; the accepted one at 0.01/1
     assert [r.level for r in out] == pytest.approx([0.01 / 3, 0.01 / 3, 0.005, 0.01])
-    assert all(math.isclose(r.tolerance, tolerance._critical("normal", r.level, 1)) for r in out)
+    assert all(math.isclose(r.tolerance, nulls.critical("normal", r.level, 1)) for r in out)

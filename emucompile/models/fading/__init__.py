@@ -66,6 +66,7 @@ from emucompile.models.fading._plan import (
     SOS_EVALUATIONS,
     FadingPlan,
 )
+from emucompile.models.fading._direct import RecordedDirect, direct_phase
 from emucompile.models.fading._streams import BIT_GENERATOR
 
 #: Changes only when the numbers a seed produces change. 2: sum-of-sinusoids uses
@@ -239,6 +240,8 @@ __all__ = [
     "GAUSSIAN_SINUSOIDS",
     "SOS_EVALUATIONS",
     "FadingPlan",
+    "RecordedDirect",
+    "direct_phase",
     "plan",
     "generate",
     "stream",

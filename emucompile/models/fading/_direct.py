@@ -85,3 +85,77 @@ class ConstantDopplerPhase:
         start_cycles = float((self.rate * (index * DIRECT_BLOCK)) % 1) + self.phase0_cycles
         start_cycles = math.fmod(start_cycles, 1.0)
         return (np.exp(2j * np.pi * start_cycles) * self._table).astype(np.complex64)
+
+
+def direct_phase(doppler_hz: float, phase_deg: float, update_rate_hz: float, n_samples: int,
+                 periodic: bool) -> tuple[ConstantDopplerPhase, float]:
+    """The phase of a direct part turning at ``doppler_hz`` from ``phase_deg``, and the Doppler it uses.
+
+    Periodic records round the Doppler to whole turns per period (k / N
+    cycles per sample, exact); otherwise the rate is the float64 ratio
+    f / F_u. Applied to the Doppler a manifest records (already rounded), it
+    gives the same rate again, so a record's direct part follows from its
+    manifest alone.
+    """
+    if periodic:
+        turns = round(doppler_hz * n_samples / update_rate_hz)
+        rate = Fraction(turns, n_samples)
+        used = turns * update_rate_hz / n_samples
+    else:
+        rate = Fraction(doppler_hz / update_rate_hz)
+        used = doppler_hz
+    return ConstantDopplerPhase(rate, phase_deg / 360.0), used
+
+
+class RecordedDirect:
+    """The direct phasors of a compiled record, from its manifest's per-tap record: no design, no draw.
+
+    Stands in for :class:`emucompile.models.fading.FadingPlan` where only the
+    deterministic direct part is wanted (``verify``): :meth:`direct` gives the
+    same complex64 as the plan that made the record, bit for bit, from each
+    tap's recorded ``los_doppler_hz`` (as used) and ``los_phase_deg`` (as
+    drawn or given). It has no diffuse part.
+
+    Parameters
+    ----------
+    taps : sequence of dict
+        A manifest's ``taps`` (``fading``, ``los_doppler_hz``, ``los_phase_deg``).
+    update_rate_hz, n_samples, seed, periodic
+        As recorded in the manifest.
+    """
+
+    def __init__(self, taps, update_rate_hz: float, n_samples: int, seed: int, periodic: bool):
+        self.update_rate_hz = float(update_rate_hz)
+        self.n_samples = int(n_samples)
+        self.seed = int(seed)
+        self.periodic = bool(periodic)
+        self._info, self._phases = [], []
+        for tap in taps:
+            if tap["fading"] in ("rician", "static"):
+                doppler = float(tap.get("los_doppler_hz") or 0.0)  # None: a trajectory (its phase is the channel's)
+                phase_deg = float(tap.get("los_phase_deg") or 0.0)
+                self._phases.append(direct_phase(doppler, phase_deg, self.update_rate_hz, self.n_samples,
+                                                 self.periodic)[0])
+                self._info.append({"los_doppler_hz": doppler, "los_phase_deg": phase_deg})
+            else:
+                self._phases.append(None)
+                self._info.append({})
+
+    @property
+    def n_taps(self) -> int:
+        return len(self._phases)
+
+    def tap_info(self) -> list[dict]:
+        return [dict(info) for info in self._info]
+
+    def direct(self, start: int, stop: int) -> np.ndarray:
+        """Unit-modulus direct phasors at samples [start, stop) of the record, complex64 (m, n_taps)."""
+        if not 0 <= start <= stop <= self.n_samples:
+            raise ValueError(f"need 0 <= start <= stop <= {self.n_samples}, got [{start}, {stop})")
+        rows = np.empty((self.n_taps, stop - start), np.complex64)
+        for j, phase in enumerate(self._phases):
+            if phase is None:
+                rows[j] = 1.0
+            else:
+                phase.write(start, stop, rows[j], 1.0, add=False)
+        return np.ascontiguousarray(rows.T)

@@ -4,14 +4,13 @@ from __future__ import annotations
 
 import math
 from concurrent.futures import ThreadPoolExecutor
-from fractions import Fraction
 from functools import lru_cache
 
 import numpy as np
 
 from emucompile.errors import InputError
 from emucompile.models.fading import _design
-from emucompile.models.fading._direct import ConstantDopplerPhase
+from emucompile.models.fading._direct import ConstantDopplerPhase, direct_phase
 from emucompile.models.fading._sos import SumOfSinusoidsSource
 from emucompile.models.fading._streams import DIRECT_PHASE, generator
 from emucompile.models.fading._synthesis import DopplerFilterSource
@@ -236,19 +235,13 @@ class FadingPlan:
                 f"{where}: direct-part Doppler {requested:g} Hz must be below half the update "
                 f"rate ({self.update_rate_hz / 2.0:g} Hz)"
             )
-        if self.periodic:
-            turns = round(requested * self.n_samples / self.update_rate_hz)
-            rate = Fraction(turns, self.n_samples)
-            used = turns * self.update_rate_hz / self.n_samples
-        else:
-            rate = Fraction(requested / self.update_rate_hz)
-            used = requested
         if tap.los_phase_deg is None:
             phase_deg = float(generator(self.seed, DIRECT_PHASE, j).uniform(0.0, 360.0))
             source = "drawn from the seed"
         else:
             phase_deg = float(tap.los_phase_deg)
             source = "profile"
+        phase, used = direct_phase(requested, phase_deg, self.update_rate_hz, self.n_samples, self.periodic)
         info.update({
             "los_doppler_requested_hz": requested,
             "los_doppler_hz": used,
@@ -256,7 +249,7 @@ class FadingPlan:
             "los_phase_deg": phase_deg,
             "los_phase_source": source,
         })
-        return ConstantDopplerPhase(rate, phase_deg / 360.0)
+        return phase
 
     def _design_info(self, t) -> dict:
         source = t["source"]
