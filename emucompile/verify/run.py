@@ -112,6 +112,7 @@ from pathlib import Path
 import numpy as np
 
 from emucompile._version import __version__
+from emucompile.bundle import atomic
 from emucompile.bundle.store import VERIFICATION_DIRECTORY
 from emucompile.errors import InputError, Problem
 
@@ -1459,9 +1460,7 @@ def _platform():
 
 
 def _write_atomic(path: Path, data: bytes) -> None:
-    temporary = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    temporary.write_bytes(data)
-    os.replace(temporary, path)
+    atomic.write_bytes_atomic(path, data)
 
 
 def _strict(value):
