@@ -152,12 +152,25 @@ class TimeVaryingFir:
     Overlap-save and FFT convolution: [OppenheimSchafer]_ section 8.7.
     """
 
-    def __init__(self, tap_gains, fir_matrix, *, update_rate_hz: float, sample_rate_hz: float,
-                 start_s: float = 0.0, loop: bool = False, periodic: bool = False,
-                 between_updates: str = "linear", engine: str = "auto", dtype=np.complex64):
+    def __init__(
+        self,
+        tap_gains,
+        fir_matrix,
+        *,
+        update_rate_hz: float,
+        sample_rate_hz: float,
+        start_s: float = 0.0,
+        loop: bool = False,
+        periodic: bool = False,
+        between_updates: str = "linear",
+        engine: str = "auto",
+        dtype=np.complex64,
+    ):
         gains = tap_gains
         if getattr(gains, "ndim", None) != 4 or gains.shape[0] < 1:
-            raise ValueError(f"tap_gains must have shape (n_samples, n_rx, n_tx, n_taps), got {getattr(gains, 'shape', None)}")
+            raise ValueError(
+                f"tap_gains must have shape (n_samples, n_rx, n_tx, n_taps), got {getattr(gains, 'shape', None)}"
+            )
         matrix = np.asarray(fir_matrix)
         if matrix.dtype.kind == "c" and not np.any(matrix.imag):
             matrix = matrix.real
@@ -248,7 +261,7 @@ class TimeVaryingFir:
         else:
             y = self._per_tap_engine(span, k - first, theta, gains)
         if self.n_fir > 1:
-            self._history = span[:, span.shape[1] - (self.n_fir - 1):].copy()
+            self._history = span[:, span.shape[1] - (self.n_fir - 1) :].copy()
         self.samples_done += m
         return np.ascontiguousarray(y.T)
 
@@ -277,16 +290,18 @@ class TimeVaryingFir:
         done = 0
         per_group = max(1, _INTERVAL_ELEMENTS // (size * self.n_tx * self.n_rx))
         for g0 in range(0, starts.size, per_group):
-            first, stop = starts[g0:g0 + per_group], ends[g0:g0 + per_group]
+            first, stop = starts[g0 : g0 + per_group], ends[g0 : g0 + per_group]
             rows = local_k[first]
-            transformed = scipy.fft.fft(windows[:, first], size, axis=-1).transpose(1, 0, 2)[:, None]  # (p, 1, n_tx, size)
+            transformed = scipy.fft.fft(windows[:, first], size, axis=-1).transpose(1, 0, 2)[
+                :, None
+            ]  # (p, 1, n_tx, size)
             # the pieces tile the block in order: their valid outputs, concatenated, are y's samples
             keep = np.arange(longest)[None, :] < (stop - first)[:, None]
             count = int(stop[-1] - first[0])
             part = _filtered(transformed, spectra[rows], lead, longest)[:, keep]
             if steps is not None:
-                part += theta[done:done + count] * _filtered(transformed, steps[rows], lead, longest)[:, keep]
-            y[:, done:done + count] = part
+                part += theta[done : done + count] * _filtered(transformed, steps[rows], lead, longest)[:, keep]
+            y[:, done : done + count] = part
             done += count
         return y
 
@@ -299,10 +314,10 @@ class TimeVaryingFir:
         per_pass = max(_SUB_BLOCK_SAMPLES, _PER_TAP_ELEMENTS // (self.n_tx * self.n_taps))
         for first in range(0, m, per_pass):
             last = min(m, first + per_pass)
-            streams = self._tap_streams(span[:, first:last + self.n_fir - 1], last - first)
+            streams = self._tap_streams(span[:, first : last + self.n_fir - 1], last - first)
             for s in range(first, last, _SUB_BLOCK_SAMPLES):
                 e = min(last, s + _SUB_BLOCK_SAMPLES)
-                z = streams[:, :, s - first:e - first].transpose(2, 0, 1)[:, None]  # (b, 1, n_tx, n_taps)
+                z = streams[:, :, s - first : e - first].transpose(2, 0, 1)[:, None]  # (b, 1, n_tx, n_taps)
                 rows = local_k[s:e]
                 g = gains[rows]  # (b, n_rx, n_tx, n_taps): g(t_n) = g[k] + theta (g[k+1] - g[k])
                 if steps is not None:
@@ -316,12 +331,12 @@ class TimeVaryingFir:
         lead = self.n_fir - 1
         streams = np.empty((self.n_tx, self.n_taps, m), dtype=self.dtype)
         for i, column, value in self._shift_rows:
-            streams[:, i] = value * span[:, lead - column:lead - column + m]
+            streams[:, i] = value * span[:, lead - column : lead - column + m]
         if self._fft_rows.size:
             size = scipy.fft.next_fast_len(span.shape[1], real=False)
             transformed = scipy.fft.fft(span, size, axis=-1)
             filtered = scipy.fft.ifft(transformed[:, None, :] * self._spectra(size)[self._fft_rows][None], axis=-1)
-            streams[:, self._fft_rows] = filtered[:, :, lead:lead + m]
+            streams[:, self._fft_rows] = filtered[:, :, lead : lead + m]
         return streams
 
     def _spectra(self, size: int) -> np.ndarray:
@@ -344,10 +359,20 @@ class TimeVaryingFir:
         return np.asarray(self.tap_gains[index], dtype=np.complex128)
 
 
-def apply_channel(x, tap_gains, fir_matrix, *, update_rate_hz: float, sample_rate_hz: float,
-                  start_s: float = 0.0, loop: bool = False, periodic: bool = False,
-                  between_updates: str = "linear", engine: str = "auto",
-                  block_samples: int = BLOCK_SAMPLES) -> np.ndarray:
+def apply_channel(
+    x,
+    tap_gains,
+    fir_matrix,
+    *,
+    update_rate_hz: float,
+    sample_rate_hz: float,
+    start_s: float = 0.0,
+    loop: bool = False,
+    periodic: bool = False,
+    between_updates: str = "linear",
+    engine: str = "auto",
+    block_samples: int = BLOCK_SAMPLES,
+) -> np.ndarray:
     """Pass a whole array through the time-varying FIR channel (no noise).
 
     Parameters
@@ -377,12 +402,21 @@ def apply_channel(x, tap_gains, fir_matrix, *, update_rate_hz: float, sample_rat
     one_dimensional = array.ndim == 1
     array = array[:, None] if one_dimensional else array
     dtype = np.complex128 if array.dtype in (np.complex128, np.float64) else np.complex64
-    channel = TimeVaryingFir(tap_gains, fir_matrix, update_rate_hz=update_rate_hz, sample_rate_hz=sample_rate_hz,
-                             start_s=start_s, loop=loop, periodic=periodic, between_updates=between_updates,
-                             engine=engine, dtype=dtype)
+    channel = TimeVaryingFir(
+        tap_gains,
+        fir_matrix,
+        update_rate_hz=update_rate_hz,
+        sample_rate_hz=sample_rate_hz,
+        start_s=start_s,
+        loop=loop,
+        periodic=periodic,
+        between_updates=between_updates,
+        engine=engine,
+        dtype=dtype,
+    )
     out = np.empty((array.shape[0], channel.n_rx), dtype=dtype)
     for first in range(0, array.shape[0], block_samples):
-        out[first:first + block_samples] = channel.process(array[first:first + block_samples])
+        out[first : first + block_samples] = channel.process(array[first : first + block_samples])
     return out[:, 0] if one_dimensional and channel.n_rx == 1 else out
 
 
@@ -422,7 +456,7 @@ class WhiteNoise:
             n = start + done
             frame, offset = divmod(n, NOISE_FRAME_SAMPLES)
             take = min(count - done, NOISE_FRAME_SAMPLES - offset)
-            out[done:done + take] = self._draw(frame)[offset:offset + take]
+            out[done : done + take] = self._draw(frame)[offset : offset + take]
             done += take
         return out
 
@@ -434,11 +468,12 @@ class WhiteNoise:
             self._frame = (frame, noise)
         return self._frame[1]
 
+
 def _filtered(transformed, spectra, lead: int, count: int) -> np.ndarray:
     """Overlap-save: the ``count`` valid outputs of each piece, summed over tx: (n_rx, pieces, count)."""
     product = transformed * spectra  # (pieces, n_rx, n_tx, size)
     combined = product[:, :, 0] if product.shape[2] == 1 else product.sum(axis=2)
-    return scipy.fft.ifft(combined, axis=-1, overwrite_x=True)[..., lead:lead + count].transpose(1, 0, 2)
+    return scipy.fft.ifft(combined, axis=-1, overwrite_x=True)[..., lead : lead + count].transpose(1, 0, 2)
 
 
 def _pieces(local_k: np.ndarray, longest: int):
@@ -468,8 +503,14 @@ def _classify_rows(matrix: np.ndarray):
     return shifts, np.asarray(filtered, dtype=np.intp)
 
 
-
 __all__ = [
-    "BETWEEN_UPDATES", "ENGINES", "INTERVAL_ENGINE_MIN_SAMPLES", "NOISE_FRAME_SAMPLES", "BLOCK_SAMPLES",
-    "TimeVaryingFir", "apply_channel", "channel_mean_power", "WhiteNoise",
+    "BETWEEN_UPDATES",
+    "ENGINES",
+    "INTERVAL_ENGINE_MIN_SAMPLES",
+    "NOISE_FRAME_SAMPLES",
+    "BLOCK_SAMPLES",
+    "TimeVaryingFir",
+    "apply_channel",
+    "channel_mean_power",
+    "WhiteNoise",
 ]

@@ -148,25 +148,42 @@ def _read_npy(path: Path) -> Recording:
         raise InputError(f"{path}: empty (shape {samples.shape}, no samples)")
     one_dimensional = samples.ndim == 1
     name = "complex64" if samples.dtype.itemsize == 8 else "complex128"
-    return Recording(path, "npy", name, samples[:, None] if one_dimensional else samples,
-                     one_dimensional=one_dimensional, data_path=path)
+    return Recording(
+        path,
+        "npy",
+        name,
+        samples[:, None] if one_dimensional else samples,
+        one_dimensional=one_dimensional,
+        data_path=path,
+    )
 
 
 def _read_sigmf(path: Path) -> Recording:
     opened = readers.open_sigmf(path, rate_limit_hz=RATE_LIMIT_HZ)
-    return Recording(opened.meta_path, "sigmf", opened.datatype, opened.samples, opened.sample_rate_hz,
-                     opened.metadata, data_path=opened.data_path)
+    return Recording(
+        opened.meta_path,
+        "sigmf",
+        opened.datatype,
+        opened.samples,
+        opened.sample_rate_hz,
+        opened.metadata,
+        data_path=opened.data_path,
+    )
 
 
 def _check_recording(recording: Recording, manifest: dict) -> None:
     n_tx = manifest["n_tx"]
     if recording.n_channels != n_tx:
         where = {"npy": "columns", "sigmf": "channels (core:num_channels)", "cf32": "channels"}[recording.format]
-        hint = "shape (n_samples, n_tx) is expected; transpose it" if (
-            recording.format == "npy" and recording.samples.shape[0] == n_tx) else None
+        hint = (
+            "shape (n_samples, n_tx) is expected; transpose it"
+            if (recording.format == "npy" and recording.samples.shape[0] == n_tx)
+            else None
+        )
         raise InputError(
             f"{recording.path}: {recording.n_channels} {where}, one per transmit antenna, "
-            f"but the bundle has n_tx = {n_tx}", hint=hint,
+            f"but the bundle has n_tx = {n_tx}",
+            hint=hint,
         )
 
 
@@ -223,8 +240,10 @@ def _refuse_inside(paths: list[Path], bundle_path) -> None:
     for path in paths:
         where = path.parent.resolve() / path.name
         if where == bundle or bundle in where.parents:
-            raise InputError(f"{path}: is inside the bundle {bundle_path}; apply never writes into the bundle it reads",
-                             hint="choose an OUTPUT outside the bundle directory")
+            raise InputError(
+                f"{path}: is inside the bundle {bundle_path}; apply never writes into the bundle it reads",
+                hint="choose an OUTPUT outside the bundle directory",
+            )
 
 
 class _OutputWriter:
@@ -238,7 +257,13 @@ class _OutputWriter:
         self._temps = [atomic.temporary_sibling(p) for p in paths]
         self._data = None
         self._shape = (recording.n_samples,) if recording.one_dimensional and n_rx == 1 else (recording.n_samples, n_rx)
-        self._disk_dtype = {"complex64": "<c8", "complex128": "<c16", "cf32_le": "<c8", "cf64_le": "<c16", "ci16_le": "<i2"}[recording.datatype]
+        self._disk_dtype = {
+            "complex64": "<c8",
+            "complex128": "<c16",
+            "cf32_le": "<c8",
+            "cf64_le": "<c16",
+            "ci16_le": "<i2",
+        }[recording.datatype]
 
     def __enter__(self):
         try:  # an interrupt here (the file made, the header not yet written) reaches no __exit__
@@ -314,15 +339,36 @@ def _place(temp: Path, path: Path, force: bool) -> None:
 def _sigmf_output_metadata(recording: Recording, record: dict, n_rx: int, sha512: str) -> dict:
     """The output's .sigmf-meta: the input's global fields and captures, our record in the extension."""
     source = recording.metadata or {}
-    kept = {k: v for k, v in (source.get("global") or {}).items() if k not in (
-        "core:sha512", "core:dataset", "core:trailing_bytes", "core:metadata_only", "core:num_channels",
-        "core:sample_rate", "core:datatype", "core:version", "core:recorder", "core:extensions",
-    )}
-    extensions = [e for e in (source.get("global") or {}).get("core:extensions") or []
-                  if isinstance(e, dict) and e.get("name") != writers.SIGMF_EXTENSION_NAME]
-    extensions.append({"name": writers.SIGMF_EXTENSION_NAME, "version": writers.SIGMF_EXTENSION_VERSION, "optional": True})
-    captures = [{k: v for k, v in c.items() if k != "core:header_bytes"}
-                for c in source.get("captures") or [] if isinstance(c, dict)] or [{"core:sample_start": 0}]
+    kept = {
+        k: v
+        for k, v in (source.get("global") or {}).items()
+        if k
+        not in (
+            "core:sha512",
+            "core:dataset",
+            "core:trailing_bytes",
+            "core:metadata_only",
+            "core:num_channels",
+            "core:sample_rate",
+            "core:datatype",
+            "core:version",
+            "core:recorder",
+            "core:extensions",
+        )
+    }
+    extensions = [
+        e
+        for e in (source.get("global") or {}).get("core:extensions") or []
+        if isinstance(e, dict) and e.get("name") != writers.SIGMF_EXTENSION_NAME
+    ]
+    extensions.append(
+        {"name": writers.SIGMF_EXTENSION_NAME, "version": writers.SIGMF_EXTENSION_VERSION, "optional": True}
+    )
+    captures = [
+        {k: v for k, v in c.items() if k != "core:header_bytes"}
+        for c in source.get("captures") or []
+        if isinstance(c, dict)
+    ] or [{"core:sample_start": 0}]
     noise = record["noise"]
     what = f"through the bundle {record['bundle']['path']}" + (f", SNR {noise['snr_db']:g} dB" if noise else "")
     description = kept.pop("core:description", None)
@@ -342,7 +388,6 @@ def _sigmf_output_metadata(recording: Recording, record: dict, n_rx: int, sha512
         "captures": captures,
         "annotations": [],
     }
-
 
 
 __all__ = ["RAW_SUFFIXES", "SIGMF_DATATYPES", "Recording", "read_recording"]

@@ -28,8 +28,22 @@ from emucompile.apply.recordings import RAW_SUFFIXES, SIGMF_DATATYPES, Recording
 from emucompile.apply.run import MAX_ABS_SNR_DB, SIDECAR_FORMAT, SIDECAR_VERSION, ApplyResult, apply_bundle
 
 __all__ = [
-    "BETWEEN_UPDATES", "ENGINES", "INTERVAL_ENGINE_MIN_SAMPLES", "NOISE_FRAME_SAMPLES", "BLOCK_SAMPLES",
-    "RAW_SUFFIXES", "SIGMF_DATATYPES", "MAX_ABS_SNR_DB", "SIDECAR_FORMAT", "SIDECAR_VERSION",
-    "TimeVaryingFir", "apply_channel", "channel_mean_power", "WhiteNoise",
-    "Recording", "read_recording", "ApplyResult", "apply_bundle",
+    "BETWEEN_UPDATES",
+    "ENGINES",
+    "INTERVAL_ENGINE_MIN_SAMPLES",
+    "NOISE_FRAME_SAMPLES",
+    "BLOCK_SAMPLES",
+    "RAW_SUFFIXES",
+    "SIGMF_DATATYPES",
+    "MAX_ABS_SNR_DB",
+    "SIDECAR_FORMAT",
+    "SIDECAR_VERSION",
+    "TimeVaryingFir",
+    "apply_channel",
+    "channel_mean_power",
+    "WhiteNoise",
+    "Recording",
+    "read_recording",
+    "ApplyResult",
+    "apply_bundle",
 ]

@@ -21,10 +21,21 @@ import numpy as np
 
 from emucompile._version import __version__
 from emucompile.apply.channel import (
-    BETWEEN_UPDATES, BLOCK_SAMPLES, NOISE_FRAME_SAMPLES, TimeVaryingFir, WhiteNoise, channel_mean_power,
+    BETWEEN_UPDATES,
+    BLOCK_SAMPLES,
+    NOISE_FRAME_SAMPLES,
+    TimeVaryingFir,
+    WhiteNoise,
+    channel_mean_power,
 )
 from emucompile.apply.recordings import (
-    Recording, _OutputWriter, _check_recording, _output_paths, _refuse_inside, _scan, read_recording,
+    Recording,
+    _OutputWriter,
+    _check_recording,
+    _output_paths,
+    _refuse_inside,
+    _scan,
+    read_recording,
 )
 from emucompile.bundle import atomic
 from emucompile.bundle import store as bd
@@ -68,11 +79,24 @@ class ApplyResult:
     record: dict = field(repr=False)
 
 
-def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None = None, seed: int | None = None,
-                 loop: bool = False, sample_rate_hz: float | None = None, start_s: float = 0.0,
-                 between_updates: str | None = None, delay_mapping: str = "sinc", force: bool = False,
-                 progress=None, engine: str = "auto", block_samples: int = BLOCK_SAMPLES,
-                 hash_check: bool = True) -> ApplyResult:
+def apply_bundle(
+    bundle_path,
+    input_path,
+    output_path,
+    *,
+    snr_db: float | None = None,
+    seed: int | None = None,
+    loop: bool = False,
+    sample_rate_hz: float | None = None,
+    start_s: float = 0.0,
+    between_updates: str | None = None,
+    delay_mapping: str = "sinc",
+    force: bool = False,
+    progress=None,
+    engine: str = "auto",
+    block_samples: int = BLOCK_SAMPLES,
+    hash_check: bool = True,
+) -> ApplyResult:
     """Pass an IQ recording through a bundle's channel and write the output beside its metadata.
 
     Parameters
@@ -128,14 +152,35 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
     rate_hz = _resolve_sample_rate(recording, sample_rate_hz, bundle.manifest, bundle_path)
     _check_noise_options(snr_db, seed)
     channel, fir, fir_record, tap_powers = _build_channel(
-        bundle, recording, rate_hz, bundle_path, start_s=start_s, loop=loop, engine=engine,
-        between_updates=between_updates, delay_mapping=delay_mapping)
+        bundle,
+        recording,
+        rate_hz,
+        bundle_path,
+        start_s=start_s,
+        loop=loop,
+        engine=engine,
+        between_updates=between_updates,
+        delay_mapping=delay_mapping,
+    )
     paths = _output_paths(Path(output_path), recording, force)
     _refuse_inside(paths, bundle_path)
-    powers, mean_power, nominal, seed, variances = _plan_noise(recording, channel, fir, tap_powers, snr_db, seed,
-                                                               block_samples)
-    record = _record(bundle, recording, paths, rate_hz, fir_record, channel, powers, mean_power, nominal,
-                     snr_db, seed if snr_db is not None else None, variances)
+    powers, mean_power, nominal, seed, variances = _plan_noise(
+        recording, channel, fir, tap_powers, snr_db, seed, block_samples
+    )
+    record = _record(
+        bundle,
+        recording,
+        paths,
+        rate_hz,
+        fir_record,
+        channel,
+        powers,
+        mean_power,
+        nominal,
+        snr_db,
+        seed if snr_db is not None else None,
+        variances,
+    )
     noise = WhiteNoise(seed, variances, recording.dtype) if variances is not None else None
     with atomic.guarded_write(paths[0]), _OutputWriter(paths, recording, channel.n_rx, force=force) as writer:
         clipped = _stream(channel, recording, noise, writer, progress, block_samples)
@@ -143,8 +188,14 @@ def apply_bundle(bundle_path, input_path, output_path, *, snr_db: float | None =
             record["output"]["clipped_values"] = clipped
         writer.finish(record)
     return ApplyResult(
-        files=list(paths), n_samples=recording.n_samples, n_rx=channel.n_rx, sample_rate_hz=rate_hz,
-        channel_mean_power=mean_power, noise_variance=variances, clipped_values=clipped, record=record,
+        files=list(paths),
+        n_samples=recording.n_samples,
+        n_rx=channel.n_rx,
+        sample_rate_hz=rate_hz,
+        channel_mean_power=mean_power,
+        noise_variance=variances,
+        clipped_values=clipped,
+        record=record,
     )
 
 
@@ -164,14 +215,15 @@ def _open_inputs(bundle_path, input_path, hash_check: bool):
 
 def _check_noise_options(snr_db, seed) -> None:
     if snr_db is not None and not (math.isfinite(snr_db) and abs(snr_db) <= MAX_ABS_SNR_DB):
-        raise InputError(f"--snr-db must be a finite number from -{MAX_ABS_SNR_DB:g} to {MAX_ABS_SNR_DB:g} dB, "
-                         f"got {snr_db!r}", hint="beyond that the noise power leaves the range of float32 samples")
+        raise InputError(
+            f"--snr-db must be a finite number from -{MAX_ABS_SNR_DB:g} to {MAX_ABS_SNR_DB:g} dB, got {snr_db!r}",
+            hint="beyond that the noise power leaves the range of float32 samples",
+        )
     if seed is not None and (isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0):
         raise InputError(f"--seed must be an integer >= 0, got {seed!r}")
 
 
-def _build_channel(bundle, recording, rate_hz, bundle_path, *, start_s, loop, engine, between_updates,
-                   delay_mapping):
+def _build_channel(bundle, recording, rate_hz, bundle_path, *, start_s, loop, engine, between_updates, delay_mapping):
     """``(channel, fir_map, fir_record, tap_powers)``: the time-varying FIR the recording goes through.
 
     A moving delay's bundle replays its time-varying FIR (fir.npy) through the identity map.
@@ -191,9 +243,16 @@ def _build_channel(bundle, recording, rate_hz, bundle_path, *, start_s, loop, en
         gains, fir = bundle.fir, np.eye(fir.shape[1])
         fir_record["replayed"] = "fir.npy (time-varying FIR of a moving delay) through the identity map"
     channel = TimeVaryingFir(
-        gains, fir, update_rate_hz=manifest["update_rate_hz"], sample_rate_hz=rate_hz,
-        start_s=start_s, loop=loop, periodic=manifest["periodic"], between_updates=between_updates,
-        engine=engine, dtype=recording.dtype,
+        gains,
+        fir,
+        update_rate_hz=manifest["update_rate_hz"],
+        sample_rate_hz=rate_hz,
+        start_s=start_s,
+        loop=loop,
+        periodic=manifest["periodic"],
+        between_updates=between_updates,
+        engine=engine,
+        dtype=recording.dtype,
     )
     _check_length(channel, recording, duration_s, start_s)
     return channel, fir, fir_record, tap_powers
@@ -210,8 +269,9 @@ def _plan_noise(recording, channel, fir, tap_powers, snr_db, seed, block_samples
     if snr_db is None:
         return powers, mean_power, nominal, seed, None
     if not nominal[0] > 0:
-        raise InputError(f"{recording.path}: the nominal output power is 0 (silent input or channel); "
-                         "an SNR is undefined")
+        raise InputError(
+            f"{recording.path}: the nominal output power is 0 (silent input or channel); an SNR is undefined"
+        )
     seed = int(np.random.SeedSequence().entropy) if seed is None else int(seed)
     return powers, mean_power, nominal, seed, [p / 10.0 ** (snr_db / 10.0) for p in nominal]
 
@@ -278,8 +338,14 @@ def _resolve_fir_map(bundle, rate_hz: float, delay_mapping: str, bundle_path, in
     try:
         built = grid.fir_map(delays, powers if any(powers) else [1.0] * len(taps), rate_hz, mapping=delay_mapping)
     except ValueError as error:
-        raise InputError(f"{bundle_path}: cannot map the taps onto the {rate_hz:g} Hz grid of {input_path}: {error}") from None
-    return built.matrix, {"source": "built for the recording's sample rate", **built.manifest_entry(), **built.parameters()}
+        raise InputError(
+            f"{bundle_path}: cannot map the taps onto the {rate_hz:g} Hz grid of {input_path}: {error}"
+        ) from None
+    return built.matrix, {
+        "source": "built for the recording's sample rate",
+        **built.manifest_entry(),
+        **built.parameters(),
+    }
 
 
 def _target_between_updates(manifest: dict) -> str | None:
@@ -300,8 +366,9 @@ def _check_length(channel: TimeVaryingFir, recording: Recording, duration_s: flo
         )
 
 
-def _record(bundle, recording, paths, rate_hz, fir_record, channel, powers, mean_power, nominal,
-            snr_db, seed, variances) -> dict:
+def _record(
+    bundle, recording, paths, rate_hz, fir_record, channel, powers, mean_power, nominal, snr_db, seed, variances
+) -> dict:
     """The metadata of the output: bundle, offsets, channel power, noise (strict JSON)."""
     manifest = bundle.manifest
     manifest_bytes = (Path(bundle.path) / bd.MANIFEST_NAME).read_bytes()
@@ -314,9 +381,12 @@ def _record(bundle, recording, paths, rate_hz, fir_record, channel, powers, mean
     elif manifest["periodic"]:
         join = "seamless: the bundle is periodic (its sample n_samples is its sample 0)"
     else:
-        join = ("the bundle is not periodic: its last gain sample is joined to its first by one straight "
-                "line over 1/update_rate_hz" if channel.between_updates == "linear" else
-                "the bundle is not periodic: its last gain sample is held, then its first follows")
+        join = (
+            "the bundle is not periodic: its last gain sample is joined to its first by one straight "
+            "line over 1/update_rate_hz"
+            if channel.between_updates == "linear"
+            else "the bundle is not periodic: its last gain sample is held, then its first follows"
+        )
     record = {
         "format": SIDECAR_FORMAT,
         "format_version": SIDECAR_VERSION,
@@ -334,7 +404,9 @@ def _record(bundle, recording, paths, rate_hz, fir_record, channel, powers, mean
             "update_rate_hz": manifest["update_rate_hz"],
             "n_samples": manifest["n_samples"],
             "periodic": manifest["periodic"],
-            "n_rx": manifest["n_rx"], "n_tx": manifest["n_tx"], "n_taps": manifest["n_taps"],
+            "n_rx": manifest["n_rx"],
+            "n_tx": manifest["n_tx"],
+            "n_taps": manifest["n_taps"],
         },
         "fir_map": fir_record,
         "offsets": {
@@ -352,13 +424,21 @@ def _record(bundle, recording, paths, rate_hz, fir_record, channel, powers, mean
         "bundle_wraps": wraps,
         "join": join,
         "input": {
-            "path": os.path.abspath(recording.path), "format": recording.format, "datatype": recording.datatype,
-            "n_samples": n, "n_tx": recording.n_channels, "sample_rate_hz": rate_hz,
+            "path": os.path.abspath(recording.path),
+            "format": recording.format,
+            "datatype": recording.datatype,
+            "n_samples": n,
+            "n_tx": recording.n_channels,
+            "sample_rate_hz": rate_hz,
             "power_linear_per_tx": powers,
         },
         "output": {
-            "files": [os.path.abspath(p) for p in paths], "format": recording.format, "datatype": recording.datatype,
-            "n_samples": n, "n_rx": channel.n_rx, "sample_rate_hz": rate_hz,
+            "files": [os.path.abspath(p) for p in paths],
+            "format": recording.format,
+            "datatype": recording.datatype,
+            "n_samples": n,
+            "n_rx": channel.n_rx,
+            "sample_rate_hz": rate_hz,
             "axes": ["sample", "rx"] if not (recording.one_dimensional and channel.n_rx == 1) else ["sample"],
         },
         "channel": {
@@ -388,7 +468,6 @@ def _record(bundle, recording, paths, rate_hz, fir_record, channel, powers, mean
             ),
         }
     return json.loads(json.dumps(record, allow_nan=False))
-
 
 
 __all__ = ["ApplyResult", "apply_bundle", "MAX_ABS_SNR_DB"]

@@ -244,11 +244,15 @@ def write_failure(error: BaseException, shown) -> EmucompileError | None:
     if isinstance(error, OSError):
         where = _shown_name(error.filename) if error.filename else "the output"
         if error.errno in (errno.ENOSPC, errno.EDQUOT):
-            return InputError(f"{shown}: no space left on the device while writing {where}; {REMOVED}",
-                              hint="free some space or choose another output")
+            return InputError(
+                f"{shown}: no space left on the device while writing {where}; {REMOVED}",
+                hint="free some space or choose another output",
+            )
         if error.errno == errno.EFBIG:
-            return InputError(f"{shown}: file size limit reached while writing {where} (ulimit -f); {REMOVED}",
-                              hint="raise the limit or write less")
+            return InputError(
+                f"{shown}: file size limit reached while writing {where} (ulimit -f); {REMOVED}",
+                hint="raise the limit or write less",
+            )
         return InputError(f"{shown}: cannot write {where}: {error.strerror or error}; {REMOVED}")
     return None
 
@@ -275,12 +279,25 @@ def _shown_name(filename) -> str:
     """A file's name as the user knows it: a temporary sibling is named by its destination."""
     name = os.path.basename(os.fspath(filename))
     if name.startswith(".") and TEMP_MARKER in name:
-        name = name[1:name.index(TEMP_MARKER)]
+        name = name[1 : name.index(TEMP_MARKER)]
     return name
 
 
 __all__ = [
-    "TEMP_MARKER", "WriteInterrupted", "Terminated", "raise_terminated", "temporary_sibling", "fsync_directory",
-    "place", "write_bytes_atomic", "write_text_atomic", "rename_no_replace", "replace_directory",
-    "held_interrupts", "install_write_signals", "restore_signals", "write_failure", "guarded_write",
+    "TEMP_MARKER",
+    "WriteInterrupted",
+    "Terminated",
+    "raise_terminated",
+    "temporary_sibling",
+    "fsync_directory",
+    "place",
+    "write_bytes_atomic",
+    "write_text_atomic",
+    "rename_no_replace",
+    "replace_directory",
+    "held_interrupts",
+    "install_write_signals",
+    "restore_signals",
+    "write_failure",
+    "guarded_write",
 ]

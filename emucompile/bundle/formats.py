@@ -114,7 +114,7 @@ def _csv_check(layout) -> None:
         raise InputError(
             f"csv: {layout.n_samples} rows is above the limit of {layout.csv_max_rows} rows",
             hint=f"shorten the record, lower the update rate, choose cf32/sigmf, or lift the limit with "
-                 f"{CSV_ROW_LIMIT_OPTION}",
+            f"{CSV_ROW_LIMIT_OPTION}",
         )
 
 
@@ -145,9 +145,15 @@ def _read_sigmf(root, entries, shape):
         metadata = members.member_json(root, meta_name, max_bytes=readers.SIGMF_META_MAX_BYTES)
         datatype = (metadata.get("global") or {}).get("core:datatype") if isinstance(metadata, dict) else None
         if datatype != "cf32_le":
-            raise members.BundleError([members.Problem(
-                f"{root}/{meta_name}", "/global/core:datatype",
-                f"{members.short_repr(datatype)}; a bundle's SigMF data are cf32_le")])
+            raise members.BundleError(
+                [
+                    members.Problem(
+                        f"{root}/{meta_name}",
+                        "/global/core:datatype",
+                        f"{members.short_repr(datatype)}; a bundle's SigMF data are cf32_le",
+                    )
+                ]
+            )
         out[:, entry["rx"], entry["tx"], entry["tap"]] = members.member_raw(root, entry, "<c8", shape[:1])
     return out
 
@@ -155,42 +161,76 @@ def _read_sigmf(root, entries, shape):
 def _gains_writer(name, role, header):
     def make(layout):
         return writers.ArrayWriter(name, role, "complex64", layout.gains_shape, writers.GAIN_AXES, header=header)
+
     return make
 
 
-FORMATS: dict[str, OutputFormat] = {f.name: f for f in (
-    OutputFormat(
-        "npy", "tap_gains", "tap_gains.npy", "complex64 tap gains with an npy header (always written)",
-        writer=_gains_writer("tap_gains.npy", "tap_gains", True),
-        reader=lambda root, entries, shape: members.member_npy(root, entries[0]),
-        always=True),
-    OutputFormat(
-        "cf32", "tap_gains_cf32", "tap_gains.cf32", "the same complex64 gains without a header",
-        writer=_gains_writer("tap_gains.cf32", "tap_gains_cf32", False),
-        reader=lambda root, entries, shape: members.member_raw(root, entries[0], "<c8", shape),
-        copy_factor=1.0),
-    OutputFormat(
-        "ci16", "tap_gains_ci16", "tap_gains.ci16", "int16 I/Q codes, scale chosen before the data",
-        writer=lambda layout: quantised.Ci16Writer(layout.ci16_scaling, *layout.gains_shape, layout.tap_power_linear),
-        reader=lambda root, entries, shape: members.member_raw(root, entries[0], "<i2", (*shape, 2)),
-        dequantise=lambda codes, entry: quantised.dequantise_ci16(codes, entry["quantisation"]["scale_factor"]),
-        check=_ci16_check, copy_factor=0.5),
-    OutputFormat(
-        "csv", "tap_gains_csv", "tap_gains.csv", f"text, one row per sample (at most {DEFAULT_CSV_MAX_ROWS:,} rows)",
-        writer=lambda layout: writers.CsvWriter(*layout.gains_shape, layout.update_rate_hz),
-        reader=_read_csv, check=_csv_check, copy_factor=1.0),
-    OutputFormat(
-        "sigmf", "sigmf_data", "sigmf/tapK_rxR_txT.sigmf-data and .sigmf-meta",
-        "one SigMF recording per tap and link",
-        writer=lambda layout: writers.SigmfWriter(*layout.gains_shape, layout.update_rate_hz),
-        reader=_read_sigmf, copy_factor=1.0),
-    OutputFormat(
-        "fir", "fir", "fir.npy", "the FIR coefficients over time, tap_gains @ fir_map (needs a sample rate)",
-        writer=lambda layout: writers.FirWriter(layout.fir_map, layout.n_samples, layout.n_rx, layout.n_tx,
-                                                maps=layout.fir_maps),
-        reader=lambda root, entries, shape: members.member_npy(root, entries[0]),
-        check=_fir_check),
-)}
+FORMATS: dict[str, OutputFormat] = {
+    f.name: f
+    for f in (
+        OutputFormat(
+            "npy",
+            "tap_gains",
+            "tap_gains.npy",
+            "complex64 tap gains with an npy header (always written)",
+            writer=_gains_writer("tap_gains.npy", "tap_gains", True),
+            reader=lambda root, entries, shape: members.member_npy(root, entries[0]),
+            always=True,
+        ),
+        OutputFormat(
+            "cf32",
+            "tap_gains_cf32",
+            "tap_gains.cf32",
+            "the same complex64 gains without a header",
+            writer=_gains_writer("tap_gains.cf32", "tap_gains_cf32", False),
+            reader=lambda root, entries, shape: members.member_raw(root, entries[0], "<c8", shape),
+            copy_factor=1.0,
+        ),
+        OutputFormat(
+            "ci16",
+            "tap_gains_ci16",
+            "tap_gains.ci16",
+            "int16 I/Q codes, scale chosen before the data",
+            writer=lambda layout: quantised.Ci16Writer(
+                layout.ci16_scaling, *layout.gains_shape, layout.tap_power_linear
+            ),
+            reader=lambda root, entries, shape: members.member_raw(root, entries[0], "<i2", (*shape, 2)),
+            dequantise=lambda codes, entry: quantised.dequantise_ci16(codes, entry["quantisation"]["scale_factor"]),
+            check=_ci16_check,
+            copy_factor=0.5,
+        ),
+        OutputFormat(
+            "csv",
+            "tap_gains_csv",
+            "tap_gains.csv",
+            f"text, one row per sample (at most {DEFAULT_CSV_MAX_ROWS:,} rows)",
+            writer=lambda layout: writers.CsvWriter(*layout.gains_shape, layout.update_rate_hz),
+            reader=_read_csv,
+            check=_csv_check,
+            copy_factor=1.0,
+        ),
+        OutputFormat(
+            "sigmf",
+            "sigmf_data",
+            "sigmf/tapK_rxR_txT.sigmf-data and .sigmf-meta",
+            "one SigMF recording per tap and link",
+            writer=lambda layout: writers.SigmfWriter(*layout.gains_shape, layout.update_rate_hz),
+            reader=_read_sigmf,
+            copy_factor=1.0,
+        ),
+        OutputFormat(
+            "fir",
+            "fir",
+            "fir.npy",
+            "the FIR coefficients over time, tap_gains @ fir_map (needs a sample rate)",
+            writer=lambda layout: writers.FirWriter(
+                layout.fir_map, layout.n_samples, layout.n_rx, layout.n_tx, maps=layout.fir_maps
+            ),
+            reader=lambda root, entries, shape: members.member_npy(root, entries[0]),
+            check=_fir_check,
+        ),
+    )
+}
 """Every output format, in the canonical order (the order of ``formats`` in a manifest)."""
 
 EXTRA_FORMATS = tuple(name for name, f in FORMATS.items() if not f.always)
@@ -239,5 +279,13 @@ def __getattr__(name):
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
-__all__ = ["OutputFormat", "FORMATS", "EXTRA_FORMATS", "DEFAULT_CSV_MAX_ROWS", "CSV_ROW_LIMIT_OPTION", "get",
-           "parse_formats", "help_text"]
+__all__ = [
+    "OutputFormat",
+    "FORMATS",
+    "EXTRA_FORMATS",
+    "DEFAULT_CSV_MAX_ROWS",
+    "CSV_ROW_LIMIT_OPTION",
+    "get",
+    "parse_formats",
+    "help_text",
+]

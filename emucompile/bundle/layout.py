@@ -45,16 +45,47 @@ MAX_UPDATE_TO_DOPPLER = 1e6
 verify's decimation and reproduce's design grow with it)."""
 SCHEMA_RESOURCE = "bundle-manifest-v1.schema.json"
 WRITER_FIELDS = (
-    "format", "format_version", "tool_version", "created_utc", "update_rate_hz",
-    "n_samples", "n_taps", "n_rx", "n_tx", "platform", "formats", "files",
+    "format",
+    "format_version",
+    "tool_version",
+    "created_utc",
+    "update_rate_hz",
+    "n_samples",
+    "n_taps",
+    "n_rx",
+    "n_tx",
+    "platform",
+    "formats",
+    "files",
 )
 _MANIFEST_ORDER = (
-    "format", "format_version", "tool_version", "generator_version", "created_utc",
-    "profile_sha256", "resolved_profile_sha256", "seed", "method", "generator",
-    "update_rate_hz", "n_samples", "duration_s", "n_taps", "n_rx", "n_tx", "periodic",
-    "taps", "mimo", "conditions", "fir", "target", "platform", "formats", "files", "profile",
+    "format",
+    "format_version",
+    "tool_version",
+    "generator_version",
+    "created_utc",
+    "profile_sha256",
+    "resolved_profile_sha256",
+    "seed",
+    "method",
+    "generator",
+    "update_rate_hz",
+    "n_samples",
+    "duration_s",
+    "n_taps",
+    "n_rx",
+    "n_tx",
+    "periodic",
+    "taps",
+    "mimo",
+    "conditions",
+    "fir",
+    "target",
+    "platform",
+    "formats",
+    "files",
+    "profile",
 )
-
 
 
 @dataclass(frozen=True)
@@ -192,12 +223,19 @@ class BundleLayout:
 
     def _stream_writers(self) -> list:
         """Fresh writers of the chunked files, in manifest order (tap_gains.npy first)."""
-        streams = [registry.FORMATS[name].writer(self) for name in registry.FORMATS
-                   if registry.FORMATS[name].always or name in self.formats]
+        streams = [
+            registry.FORMATS[name].writer(self)
+            for name in registry.FORMATS
+            if registry.FORMATS[name].always or name in self.formats
+        ]
         if self.fir_codes is not None:
-            streams.append(quantised.FirCodesWriter(self.fir_map, n_samples=self.n_samples, n_rx=self.n_rx,
-                                                    n_tx=self.n_tx, **self.fir_codes))
+            streams.append(
+                quantised.FirCodesWriter(
+                    self.fir_map, n_samples=self.n_samples, n_rx=self.n_rx, n_tx=self.n_tx, **self.fir_codes
+                )
+            )
         return streams
+
 
 def validate_manifest(manifest, *, source: str = MANIFEST_NAME) -> list[Problem]:
     """Schema errors (each with its JSON pointer) and cross-field inconsistencies of a manifest."""
@@ -234,7 +272,6 @@ def platform_info() -> dict:
     }
 
 
-
 _SCHEMA = None
 
 
@@ -257,16 +294,20 @@ def _consistency_problems(manifest: dict, source: str) -> list[Problem]:
         problem("/taps", f"lists {len(manifest['taps'])} taps, n_taps is {taps}")
     rate = manifest["update_rate_hz"]
     low, high = RATE_RANGE_HZ
-    rates = [("/update_rate_hz", rate)] + ([("/fir/sample_rate_hz", manifest["fir"]["sample_rate_hz"])]
-                                            if manifest["fir"] is not None else [])
+    rates = [("/update_rate_hz", rate)] + (
+        [("/fir/sample_rate_hz", manifest["fir"]["sample_rate_hz"])] if manifest["fir"] is not None else []
+    )
     for pointer, value in rates:
         if not low <= value <= high:
             problem(pointer, f"{value:g} Hz lies outside {low:g} to {high:g} Hz (no bundle is made so)")
     edges = [t.get("max_doppler_hz") for t in manifest["taps"] if isinstance(t, dict) and t.get("fading") != "static"]
     edges = [e for e in edges if isinstance(e, (int, float)) and not isinstance(e, bool) and e > 0]
     if edges and rate / min(edges) > MAX_UPDATE_TO_DOPPLER:
-        problem("/update_rate_hz", f"{rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
-                f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x (no bundle is made so)")
+        problem(
+            "/update_rate_hz",
+            f"{rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
+            f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x (no bundle is made so)",
+        )
     if problems:
         return problems
     if abs(manifest["duration_s"] - n / rate) > 1.0 / rate * (1 + 1e-9):
@@ -294,7 +335,10 @@ def _consistency_problems(manifest: dict, source: str) -> list[Problem]:
             continue
         index, entry = found[0]
         if entry["shape"] != shape or (dtype and entry["dtype"] != dtype):
-            problem(f"/files/{index}", f"{name}: {entry['dtype']} {entry['shape']}, expected {dtype or 'a float/complex'} {shape}")
+            problem(
+                f"/files/{index}",
+                f"{name}: {entry['dtype']} {entry['shape']}, expected {dtype or 'a float/complex'} {shape}",
+            )
     for index, entry in enumerate(files):
         message = _layout_problem(entry)
         if message:
@@ -315,16 +359,25 @@ def _fir_codes_problems(manifest: dict, found: list, source: str) -> list[Proble
         return []
     bits = (((manifest.get("target") or {}).get("constraints")) or {}).get("coefficient_bits")
     if len(found) > 1 or manifest["fir"] is None or bits is None:
-        return [Problem(source, "/files", "integer FIR coefficients need one file, a FIR map and a target's "
-                                          "coefficient_bits")]
+        return [
+            Problem(
+                source, "/files", "integer FIR coefficients need one file, a FIR map and a target's coefficient_bits"
+            )
+        ]
     index, entry = found[0]
     codes = entry.get("coefficient_codes") or {}
     n, rx, tx = (manifest[k] for k in ("n_samples", "n_rx", "n_tx"))
     shape = [n, rx, tx, len(codes.get("columns") or []), 2]
     dtype = "int16" if bits <= 16 else "int32"
     if entry["shape"] != shape or entry["dtype"] != dtype or codes.get("bits") != bits:
-        return [Problem(source, f"/files/{index}", f"{entry['name']}: {entry['dtype']} {entry['shape']} on "
-                                                   f"{codes.get('bits')} bits, expected {dtype} {shape} on {bits} bits")]
+        return [
+            Problem(
+                source,
+                f"/files/{index}",
+                f"{entry['name']}: {entry['dtype']} {entry['shape']} on "
+                f"{codes.get('bits')} bits, expected {dtype} {shape} on {bits} bits",
+            )
+        ]
     if any(not 0 <= c < manifest["fir"]["n_fir"] for c in codes["columns"]):
         return [Problem(source, f"/files/{index}", f"{entry['name']}: a path column lies outside the FIR")]
     return []
@@ -341,13 +394,15 @@ def _layout_problem(entry: dict) -> str | None:
         dtype = np.dtype(entry.get("dtype"))
     except TypeError:
         return None  # text, json: no fixed element size
-    if dtype.kind not in "iufc" or not isinstance(shape, list) or not all(
-            isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape):
+    if (
+        dtype.kind not in "iufc"
+        or not isinstance(shape, list)
+        or not all(isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape)
+    ):
         return None
     data = math.prod(shape) * dtype.itemsize
     if offset + data != size:
-        return (f"{entry['name']}: data_offset {offset} + {data} bytes of {dtype.name} {shape} "
-                f"!= size_bytes {size}")
+        return f"{entry['name']}: data_offset {offset} + {data} bytes of {dtype.name} {shape} != size_bytes {size}"
     return None
 
 
@@ -366,7 +421,6 @@ def _json_default(value):
     raise TypeError(f"a manifest value of type {type(value).__name__} is not JSON")
 
 
-
 def _size_text(n_bytes: int) -> str:
     for unit, size in (("TiB", 1024**4), ("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
         if n_bytes >= size:
@@ -374,9 +428,18 @@ def _size_text(n_bytes: int) -> str:
     return f"{n_bytes} bytes"
 
 
-
 __all__ = [
-    "FORMAT_NAME", "FORMAT_VERSION", "MANIFEST_NAME", "DEFAULT_MAX_SIZE_BYTES", "VERIFICATION_DIRECTORY",
-    "MANIFEST_MAX_BYTES", "RATE_RANGE_HZ", "MAX_UPDATE_TO_DOPPLER", "WRITER_FIELDS", "BundleLayout",
-    "validate_manifest", "manifest_schema", "platform_info",
+    "FORMAT_NAME",
+    "FORMAT_VERSION",
+    "MANIFEST_NAME",
+    "DEFAULT_MAX_SIZE_BYTES",
+    "VERIFICATION_DIRECTORY",
+    "MANIFEST_MAX_BYTES",
+    "RATE_RANGE_HZ",
+    "MAX_UPDATE_TO_DOPPLER",
+    "WRITER_FIELDS",
+    "BundleLayout",
+    "validate_manifest",
+    "manifest_schema",
+    "platform_info",
 ]

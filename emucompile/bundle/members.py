@@ -29,11 +29,9 @@ class BundleError(InputError):
         super().__init__("\n".join(p.format() for p in self.problems) or "not a bundle")
 
 
-
 def _short_repr(value, limit: int = 40) -> str:
     text = repr(value) if not isinstance(value, (dict, list)) else type(value).__name__
     return text if len(text) <= limit else text[: limit - 3] + "..."
-
 
 
 _O_NOFOLLOW = getattr(os, "O_NOFOLLOW", 0)
@@ -106,7 +104,9 @@ def _open_below(root, parts, shown) -> int:
         return fd
     except OSError as error:
         if error.errno in (errno.ELOOP, errno.EMLINK):
-            raise MemberError(shown, "is a symbolic link; a bundle's files must be regular files inside it (not followed)") from None
+            raise MemberError(
+                shown, "is a symbolic link; a bundle's files must be regular files inside it (not followed)"
+            ) from None
         raise
     finally:
         if directory >= 0:
@@ -141,9 +141,17 @@ def _refuse_kind(mode: int, shown, *, folder: bool) -> None:
     if folder and not stat.S_ISDIR(mode):
         raise MemberError(shown, "is not a directory; not read")
     if not folder and not stat.S_ISREG(mode):
-        kind = ("a FIFO" if stat.S_ISFIFO(mode) else "a directory" if stat.S_ISDIR(mode)
-                else "a socket" if stat.S_ISSOCK(mode) else "a device" if stat.S_ISCHR(mode) or stat.S_ISBLK(mode)
-                else "not a regular file")
+        kind = (
+            "a FIFO"
+            if stat.S_ISFIFO(mode)
+            else "a directory"
+            if stat.S_ISDIR(mode)
+            else "a socket"
+            if stat.S_ISSOCK(mode)
+            else "a device"
+            if stat.S_ISCHR(mode) or stat.S_ISBLK(mode)
+            else "not a regular file"
+        )
         raise MemberError(shown, f"is {kind}, not a regular file; not read")
 
 
@@ -156,8 +164,15 @@ def member_npy(root, entry: dict, *, mmap: bool = True):
         if problem:
             raise BundleError([Problem(str(shown), "", f"corrupted or edited after compiling ({problem})")])
         if offset + int(np.prod(shape, dtype=object)) * dtype.itemsize != size:
-            raise BundleError([Problem(str(shown), "", f"corrupted or edited after compiling ({size} bytes "
-                                       f"do not hold {dtype.name} {list(shape)})")])
+            raise BundleError(
+                [
+                    Problem(
+                        str(shown),
+                        "",
+                        f"corrupted or edited after compiling ({size} bytes do not hold {dtype.name} {list(shape)})",
+                    )
+                ]
+            )
         if not mmap or size == offset:
             handle.seek(offset)
             return np.frombuffer(handle.read(), dtype=dtype).reshape(shape).copy()
@@ -171,8 +186,16 @@ def member_raw(root, entry: dict, dtype, shape):
         size = os.fstat(handle.fileno()).st_size
         offset = entry.get("data_offset", 0)
         if offset + int(np.prod(shape, dtype=object)) * dtype.itemsize != size:
-            raise BundleError([Problem(str(Path(root) / entry["name"]), "", f"corrupted or edited after compiling "
-                                       f"({size} bytes, data from byte {offset} hold no {list(shape)} {dtype.name})")])
+            raise BundleError(
+                [
+                    Problem(
+                        str(Path(root) / entry["name"]),
+                        "",
+                        f"corrupted or edited after compiling "
+                        f"({size} bytes, data from byte {offset} hold no {list(shape)} {dtype.name})",
+                    )
+                ]
+            )
         return np.memmap(handle, dtype=dtype, mode="r", offset=offset, shape=tuple(shape))
 
 
@@ -188,8 +211,11 @@ def member_json(root, name: str, *, max_bytes: int):
 
 def _is_safe_entry(entry) -> bool:
     name = entry.get("name") if isinstance(entry, dict) else None
-    return isinstance(name, str) and name != "" and not name.startswith("/") and all(
-        part not in ("", ".", "..") for part in name.split("/")
+    return (
+        isinstance(name, str)
+        and name != ""
+        and not name.startswith("/")
+        and all(part not in ("", ".", "..") for part in name.split("/"))
     )
 
 
@@ -203,15 +229,26 @@ def _npy_header(handle, entry: dict):
     except (OSError, ValueError, TypeError, SyntaxError) as error:
         return f"npy header unreadable: {_short_repr(str(error), 120)}", None, None, None
     if list(shape) != entry.get("shape") or dtype.name != entry.get("dtype") or fortran or dtype.hasobject:
-        return (f"npy header says {dtype.name} {list(shape)}, the manifest {entry.get('dtype')} {entry.get('shape')}",
-                dtype, shape, offset)
+        return (
+            f"npy header says {dtype.name} {list(shape)}, the manifest {entry.get('dtype')} {entry.get('shape')}",
+            dtype,
+            shape,
+            offset,
+        )
     if offset != entry.get("data_offset"):
         return f"npy data start at byte {offset}, the manifest says {entry.get('data_offset')}", dtype, shape, offset
     return None, dtype, shape, offset
 
 
-
 short_repr = _short_repr
 
-__all__ = ["BundleError", "MemberError", "Problem", "open_member", "member_npy", "member_raw", "member_json",
-           "short_repr"]
+__all__ = [
+    "BundleError",
+    "MemberError",
+    "Problem",
+    "open_member",
+    "member_npy",
+    "member_raw",
+    "member_json",
+    "short_repr",
+]

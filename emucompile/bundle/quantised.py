@@ -101,7 +101,9 @@ def ci16_scaling(tap_power_linear, tap_k_linear, *, clip_probability=DEFAULT_CLI
             levels.append(math.sqrt(power))
         else:
             sigma = math.sqrt(power / (2.0 * (k + 1.0)))
-            levels.append(float(stats.rice.isf(clip_probability, math.sqrt(2.0 * k), scale=sigma)) if power > 0 else 0.0)
+            levels.append(
+                float(stats.rice.isf(clip_probability, math.sqrt(2.0 * k), scale=sigma)) if power > 0 else 0.0
+            )
     strongest = int(np.argmax(levels))
     clip_level = levels[strongest]
     if not clip_level > 0.0:
@@ -142,7 +144,14 @@ class Ci16Writer(ArrayWriter):
     """
 
     def __init__(self, scaling: Ci16Scaling, n_samples, n_rx, n_tx, n_taps, tap_power_linear):
-        super().__init__("tap_gains.ci16", "tap_gains_ci16", np.int16, (n_samples, n_rx, n_tx, n_taps, 2), (*GAIN_AXES, "iq"), header=False)
+        super().__init__(
+            "tap_gains.ci16",
+            "tap_gains_ci16",
+            np.int16,
+            (n_samples, n_rx, n_tx, n_taps, 2),
+            (*GAIN_AXES, "iq"),
+            header=False,
+        )
         self.scaling = scaling
         self.tap_power_linear = [float(p) for p in tap_power_linear]
         self._signal = np.zeros(n_taps)
@@ -227,8 +236,20 @@ class FirCodesWriter(ArrayWriter):
 
     _block_elements = 1 << 20
 
-    def __init__(self, fir_map, columns, bits, step, n_samples, n_rx, n_tx, *, headroom_db=None,
-                 sample_rate_hz=None, bulk_delay_samples=0):
+    def __init__(
+        self,
+        fir_map,
+        columns,
+        bits,
+        step,
+        n_samples,
+        n_rx,
+        n_tx,
+        *,
+        headroom_db=None,
+        sample_rate_hz=None,
+        bulk_delay_samples=0,
+    ):
         self.fir_map = np.asarray(fir_map, dtype=float)
         self.columns = [int(c) for c in columns]
         self.bits = int(bits)
@@ -242,8 +263,14 @@ class FirCodesWriter(ArrayWriter):
         self.bulk_delay_samples = int(bulk_delay_samples)
         self.low, self.high = -(2 ** (self.bits - 1)), 2 ** (self.bits - 1) - 1
         dtype, suffix = (np.int16, "ci16") if self.bits <= 16 else (np.int32, "ci32")
-        super().__init__(f"fir_coefficients.{suffix}", FIR_CODES_ROLE, dtype,
-                         (n_samples, n_rx, n_tx, len(self.columns), 2), FIR_CODES_AXES, header=False)
+        super().__init__(
+            f"fir_coefficients.{suffix}",
+            FIR_CODES_ROLE,
+            dtype,
+            (n_samples, n_rx, n_tx, len(self.columns), 2),
+            FIR_CODES_AXES,
+            header=False,
+        )
         n_paths = len(self.columns)
         self._signal = np.zeros(n_paths)
         self._error = np.zeros(n_paths)
@@ -268,8 +295,10 @@ class FirCodesWriter(ArrayWriter):
     def close(self, **context) -> list[dict]:
         entries = super().close()
         entry = entries[0]
-        entry["element"] = (f"int{self.dtype.itemsize * 8} I then Q, two's complement on {self.bits} bits; "
-                            "coefficient = (I + jQ) * step")
+        entry["element"] = (
+            f"int{self.dtype.itemsize * 8} I then Q, two's complement on {self.bits} bits; "
+            "coefficient = (I + jQ) * step"
+        )
         entry["coefficient_codes"] = {
             "bits": self.bits,
             "step": self.step,
@@ -280,18 +309,21 @@ class FirCodesWriter(ArrayWriter):
             "columns": list(self.columns),
             "sample_rate_hz": self.sample_rate_hz,
             "bulk_delay_samples": self.bulk_delay_samples,
-            "delays_s": [(c - self.bulk_delay_samples) / self.sample_rate_hz if self.sample_rate_hz else None
-                         for c in self.columns],
+            "delays_s": [
+                (c - self.bulk_delay_samples) / self.sample_rate_hz if self.sample_rate_hz else None
+                for c in self.columns
+            ],
             "clipped_values": int(self._clipped.sum()),
             "clipped_values_per_path": [int(c) for c in self._clipped],
             "sqnr_db_per_path": [_db_ratio(s, e) for s, e in zip(self._signal, self._error)],
             "sqnr_db": _db_ratio(float(self._signal.sum()), float(self._error.sum())),
-            "note": ("path p is FIR column columns[p] of tap_gains @ fir_map (delay (column - bulk_delay_samples) "
-                     "/ sample_rate_hz); columns no tap reaches are 0 and not stored; sqnr measured over every "
-                     "sample and link, clipping included (null when undefined)"),
+            "note": (
+                "path p is FIR column columns[p] of tap_gains @ fir_map (delay (column - bulk_delay_samples) "
+                "/ sample_rate_hz); columns no tap reaches are 0 and not stored; sqnr measured over every "
+                "sample and link, clipping included (null when undefined)"
+            ),
         }
         return entries
-
 
 
 def _per_tap_sum(values):
@@ -301,6 +333,14 @@ def _per_tap_sum(values):
 
 
 __all__ = [
-    "CI16_FULL_SCALE", "DEFAULT_CLIP_PROBABILITY", "Ci16Scaling", "ci16_scaling", "read_ci16", "dequantise_ci16",
-    "Ci16Writer", "FIR_CODES_ROLE", "FIR_CODES_AXES", "FirCodesWriter",
+    "CI16_FULL_SCALE",
+    "DEFAULT_CLIP_PROBABILITY",
+    "Ci16Scaling",
+    "ci16_scaling",
+    "read_ci16",
+    "dequantise_ci16",
+    "Ci16Writer",
+    "FIR_CODES_ROLE",
+    "FIR_CODES_AXES",
+    "FirCodesWriter",
 ]

@@ -76,7 +76,9 @@ class Bundle:
 
     def _present(self, value, name):
         if value is None or (isinstance(value, list) and not value):
-            raise InputError(f"{self.path}: the bundle holds no {name} data", hint=f"compile again with --format {name}")
+            raise InputError(
+                f"{self.path}: the bundle holds no {name} data", hint=f"compile again with --format {name}"
+            )
         return value
 
     def _mapped_npy(self, role, *, mmap=True):
@@ -84,7 +86,9 @@ class Bundle:
         try:
             return member_npy(self.path, entry, mmap=mmap)
         except OSError as error:
-            raise BundleError([Problem(str(self.path / entry["name"]), "", f"cannot be read: {error.strerror or error}")]) from None
+            raise BundleError(
+                [Problem(str(self.path / entry["name"]), "", f"cannot be read: {error.strerror or error}")]
+            ) from None
 
     def member(self, role: str, *, mmap: bool = True):
         """The npy file of a role (e.g. ``shadowing_db``), opened safely; None when the bundle has none."""
@@ -155,14 +159,20 @@ def _member_problem(root: Path, entry: dict, hashes: bool) -> Problem | None:
         with open_member(root, entry["name"]) as handle:
             size = os.fstat(handle.fileno()).st_size
             if isinstance(entry.get("size_bytes"), int) and size != entry["size_bytes"]:
-                return Problem(str(file), "", f"corrupted or edited after compiling ({size} bytes, the manifest says {entry['size_bytes']})")
+                return Problem(
+                    str(file),
+                    "",
+                    f"corrupted or edited after compiling ({size} bytes, the manifest says {entry['size_bytes']})",
+                )
             header_problem = _npy_header(handle, entry)[0] if entry["name"].endswith(".npy") else None
             if header_problem:
                 return Problem(str(file), "", f"corrupted or edited after compiling ({header_problem})")
             if hashes:
                 handle.seek(0)
                 if readers.sha256_file(handle) != entry.get("sha256"):
-                    return Problem(str(file), "", "corrupted or edited after compiling (SHA-256 differs from the manifest)")
+                    return Problem(
+                        str(file), "", "corrupted or edited after compiling (SHA-256 differs from the manifest)"
+                    )
     except BundleError as error:
         return error.problems[0]
     except OSError as error:
@@ -180,7 +190,6 @@ def verify_members(path, manifest: dict, roles, *, hashes: bool = True) -> list[
             if problem is not None:
                 problems.append(Problem(problem.file, f"/files/{index}", problem.message))
     return problems
-
 
 
 def _read_manifest(directory: Path):
@@ -204,13 +213,27 @@ def _read_manifest(directory: Path):
     if not isinstance(manifest, dict):
         return None, [Problem(str(file), "", "not an emucompile manifest (not a JSON object)")]
     if manifest.get("format") != FORMAT_NAME:
-        return None, [Problem(str(file), "/format", f"not an emucompile bundle manifest (format {_short_repr(manifest.get('format'))})")]
+        return None, [
+            Problem(
+                str(file),
+                "/format",
+                f"not an emucompile bundle manifest (format {_short_repr(manifest.get('format'))})",
+            )
+        ]
     version = manifest.get("format_version")
     if version != FORMAT_VERSION:
-        hint = "written by a newer emucompile; upgrade" if isinstance(version, int) and version > FORMAT_VERSION else None
-        return None, [Problem(str(file), "/format_version", f"format_version {_short_repr(version)} is not supported (this is {FORMAT_VERSION})", hint=hint)]
+        hint = (
+            "written by a newer emucompile; upgrade" if isinstance(version, int) and version > FORMAT_VERSION else None
+        )
+        return None, [
+            Problem(
+                str(file),
+                "/format_version",
+                f"format_version {_short_repr(version)} is not supported (this is {FORMAT_VERSION})",
+                hint=hint,
+            )
+        ]
     return manifest, []
-
 
 
 __all__ = ["Bundle", "open_bundle", "verify_integrity", "verify_members"]

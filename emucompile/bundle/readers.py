@@ -69,8 +69,9 @@ def strict_json(data: bytes, *, max_bytes: int, max_depth: int = MAX_JSON_DEPTH)
     if depth > max_depth:
         raise ValueError(f"nested deeper than {max_depth} levels")
     try:
-        return json.loads(text, object_pairs_hook=_unique_pairs, parse_constant=_refuse_constant,
-                          parse_int=_bounded_int)
+        return json.loads(
+            text, object_pairs_hook=_unique_pairs, parse_constant=_refuse_constant, parse_int=_bounded_int
+        )
     except json.JSONDecodeError as error:
         raise ValueError(f"not valid JSON: {error.msg} (line {error.lineno}, column {error.colno})") from None
     except RecursionError:  # unreachable after the depth check; kept as a last guard
@@ -110,7 +111,6 @@ def _bounded_int(digits: str) -> int:
     return int(digits)
 
 
-
 def read_npy(path, *, mmap: bool = True):
     """Read an npy file, memory-mapped read-only by default."""
     return np.load(path, mmap_mode="r" if mmap else None, allow_pickle=False)
@@ -128,7 +128,7 @@ def read_csv(path):
     the file's (rx, tx, tap) order; ``column_names`` are the complex columns'
     names without the ``_re``/``_im`` suffix.
     """
-    with (open(path, encoding="ascii", newline="") if isinstance(path, (str, os.PathLike)) else path) as handle:
+    with open(path, encoding="ascii", newline="") if isinstance(path, (str, os.PathLike)) else path as handle:
         header = handle.readline().rstrip("\n").split(",")
         values = np.loadtxt(handle, delimiter=",", dtype=np.float64, ndmin=2)
     if header[0] != "time_s" or len(header) % 2 != 1:
@@ -137,7 +137,6 @@ def read_csv(path):
     if values.shape[1] != len(header):
         raise ValueError(f"{path}: {values.shape[1]} columns of numbers, {len(header)} in the header")
     return values[:, 0], values[:, 1::2] + 1j * values[:, 2::2], names
-
 
 
 SIGMF_DATATYPES = {"cf32_le": np.dtype("<c8"), "cf64_le": np.dtype("<c16"), "ci16_le": np.dtype("<i2")}
@@ -188,14 +187,18 @@ def open_sigmf(path, *, datatypes=tuple(SIGMF_DATATYPES), rate_limit_hz: float =
     except FileNotFoundError:
         raise InputError(f"{meta_path}: no such file (a SigMF recording needs its .sigmf-meta)") from None
     except (OSError, ValueError) as error:
-        raise InputError(f"{meta_path}: not readable SigMF metadata ({getattr(error, 'strerror', None) or error})") from None
+        raise InputError(
+            f"{meta_path}: not readable SigMF metadata ({getattr(error, 'strerror', None) or error})"
+        ) from None
     top = metadata.get("global") if isinstance(metadata, dict) else None
     if not isinstance(top, dict):
         raise InputError(f"{meta_path}: /global: missing; not SigMF metadata")
     datatype = top.get("core:datatype")
     if datatype not in datatypes:
-        raise InputError(f"{meta_path}: /global/core:datatype: {datatype!r} is not read here",
-                         hint=f"use one of {', '.join(datatypes)}")
+        raise InputError(
+            f"{meta_path}: /global/core:datatype: {datatype!r} is not read here",
+            hint=f"use one of {', '.join(datatypes)}",
+        )
     channels = top.get("core:num_channels", 1)
     if isinstance(channels, bool) or not isinstance(channels, int) or channels < 1:
         raise InputError(f"{meta_path}: /global/core:num_channels: {channels!r} is not a count >= 1")
@@ -209,16 +212,23 @@ def open_sigmf(path, *, datatypes=tuple(SIGMF_DATATYPES), rate_limit_hz: float =
     captures = metadata.get("captures") or []
     header = captures[0].get("core:header_bytes", 0) if captures and isinstance(captures[0], dict) else 0
     if any(isinstance(c, dict) and c.get("core:header_bytes") for c in captures[1:]):
-        raise InputError(f"{meta_path}: /captures: header bytes inside the data are supported before the first capture only")
+        raise InputError(
+            f"{meta_path}: /captures: header bytes inside the data are supported before the first capture only"
+        )
     trailing = top.get("core:trailing_bytes", 0)
     if not data_path.is_file():
         raise InputError(f"{data_path}: no such file (the samples of {meta_path.name})")
     item = SIGMF_DATATYPES[datatype]
     parts = 2 if datatype == "ci16_le" else 1
-    samples = open_raw(data_path, item, (channels, 2) if parts == 2 else (channels,), offset=header,
-                       trailing=trailing, what=f"{datatype} for {channels} channel(s)")
-    return SigmfRecording(meta_path, data_path, metadata, datatype, samples,
-                          float(rate) if rate is not None else None)
+    samples = open_raw(
+        data_path,
+        item,
+        (channels, 2) if parts == 2 else (channels,),
+        offset=header,
+        trailing=trailing,
+        what=f"{datatype} for {channels} channel(s)",
+    )
+    return SigmfRecording(meta_path, data_path, metadata, datatype, samples, float(rate) if rate is not None else None)
 
 
 def open_raw(path, dtype, frame_shape, *, offset: int = 0, trailing: int = 0, what: str = ""):
@@ -235,8 +245,11 @@ def open_raw(path, dtype, frame_shape, *, offset: int = 0, trailing: int = 0, wh
     if size <= 0:
         raise InputError(f"{path}: empty (no samples)")
     if size % frame:
-        raise InputError(f"{path}: {size} bytes of samples is not a whole number of samples ({frame} bytes each"
-                         + (f": {what}" if what else "") + "); the file is truncated")
+        raise InputError(
+            f"{path}: {size} bytes of samples is not a whole number of samples ({frame} bytes each"
+            + (f": {what}" if what else "")
+            + "); the file is truncated"
+        )
     return np.memmap(path, dtype=dtype, mode="r", offset=offset, shape=(size // frame, *frame_shape))
 
 
@@ -263,7 +276,9 @@ def read_sigmf(meta_path):
 def sha256_file(path, *, block_bytes: int = HASH_BLOCK_BYTES) -> str:
     """SHA-256 of a file's bytes, read in blocks (bounded memory)."""
     digest = hashlib.sha256()
-    with (open(path, "rb", buffering=0) if isinstance(path, (str, os.PathLike)) else contextlib.nullcontext(path)) as handle:
+    with (
+        open(path, "rb", buffering=0) if isinstance(path, (str, os.PathLike)) else contextlib.nullcontext(path)
+    ) as handle:
         block = bytearray(block_bytes)
         view = memoryview(block)
         while True:
@@ -274,9 +289,20 @@ def sha256_file(path, *, block_bytes: int = HASH_BLOCK_BYTES) -> str:
     return digest.hexdigest()
 
 
-
 __all__ = [
-    "HASH_BLOCK_BYTES", "SIGMF_META_MAX_BYTES", "SIGMF_DATATYPES", "read_capped", "strict_json", "read_npy",
-    "read_cf32", "read_csv", "SigmfRecording", "sigmf_paths", "open_sigmf", "open_raw", "open_npy", "read_sigmf",
+    "HASH_BLOCK_BYTES",
+    "SIGMF_META_MAX_BYTES",
+    "SIGMF_DATATYPES",
+    "read_capped",
+    "strict_json",
+    "read_npy",
+    "read_cf32",
+    "read_csv",
+    "SigmfRecording",
+    "sigmf_paths",
+    "open_sigmf",
+    "open_raw",
+    "open_npy",
+    "read_sigmf",
     "sha256_file",
 ]

@@ -46,8 +46,19 @@ from emucompile._version import __version__
 from emucompile.bundle import atomic, writers
 from emucompile.bundle.atomic import TEMP_MARKER, WriteInterrupted
 from emucompile.bundle.layout import (
-    DEFAULT_MAX_SIZE_BYTES, FORMAT_NAME, FORMAT_VERSION, MANIFEST_MAX_BYTES, MANIFEST_NAME, VERIFICATION_DIRECTORY,
-    WRITER_FIELDS, _MANIFEST_ORDER, BundleLayout, _plain_json, _size_text, platform_info, validate_manifest,
+    DEFAULT_MAX_SIZE_BYTES,
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    MANIFEST_MAX_BYTES,
+    MANIFEST_NAME,
+    VERIFICATION_DIRECTORY,
+    WRITER_FIELDS,
+    _MANIFEST_ORDER,
+    BundleLayout,
+    _plain_json,
+    _size_text,
+    platform_info,
+    validate_manifest,
 )
 from emucompile.bundle.reader import _read_manifest
 from emucompile.errors import InputError
@@ -90,9 +101,17 @@ class BundleWriter:
     :meth:`write_chunk` is copied when ``threaded``, so the caller may reuse its buffer.
     """
 
-    def __init__(self, outdir, layout: BundleLayout, *, force: bool = False,
-                 max_size_bytes: int | None = DEFAULT_MAX_SIZE_BYTES, progress=None,
-                 threaded: bool = True, queue_chunks: int = 2):
+    def __init__(
+        self,
+        outdir,
+        layout: BundleLayout,
+        *,
+        force: bool = False,
+        max_size_bytes: int | None = DEFAULT_MAX_SIZE_BYTES,
+        progress=None,
+        threaded: bool = True,
+        queue_chunks: int = 2,
+    ):
         self.layout = layout
         self.outdir = Path(outdir)
         self.force = bool(force)
@@ -106,7 +125,8 @@ class BundleWriter:
         size = layout.estimated_size_bytes
         if max_size_bytes is not None and size > max_size_bytes:
             raise InputError(
-                f"{outdir}: the bundle would take about {_size_text(size)}, above the limit of {_size_text(max_size_bytes)}",
+                f"{outdir}: the bundle would take about {_size_text(size)}, "
+                f"above the limit of {_size_text(max_size_bytes)}",
                 hint="raise it with --max-size, or shorten the record / drop formats",
             )
         manifest_bound = dict(layout.planned_files())[MANIFEST_NAME]
@@ -118,7 +138,9 @@ class BundleWriter:
             )
         free = shutil.disk_usage(_existing_ancestor(self._target.parent)).free
         if size > free:
-            raise InputError(f"{outdir}: the bundle needs about {_size_text(size)}, only {_size_text(free)} free on that disk")
+            raise InputError(
+                f"{outdir}: the bundle needs about {_size_text(size)}, only {_size_text(free)} free on that disk"
+            )
         self._queue = queue.Queue(maxsize=max(1, int(queue_chunks)))
         self._state = "new"  # new -> open -> committed | aborted
         self._failure = None
@@ -171,9 +193,13 @@ class BundleWriter:
                 writer.open(self._temp)
             self._fir_map_entry = None
             if self.layout.fir_map is not None:
-                self._fir_map_entry = writers.write_npy_file(self._temp, "fir_map.npy", "fir_map", self.layout.fir_map, ("tap", "fir_coefficient"))
-            self._extra_writers = [writers.ArrayWriter(name, role, dtype, shape, axes, header=True)
-                                   for name, role, dtype, shape, _make, axes in self.layout.extra_arrays]
+                self._fir_map_entry = writers.write_npy_file(
+                    self._temp, "fir_map.npy", "fir_map", self.layout.fir_map, ("tap", "fir_coefficient")
+                )
+            self._extra_writers = [
+                writers.ArrayWriter(name, role, dtype, shape, axes, header=True)
+                for name, role, dtype, shape, _make, axes in self.layout.extra_arrays
+            ]
             for writer in self._extra_writers:
                 writer.open(self._temp)
             if self.threaded:
@@ -218,11 +244,14 @@ class BundleWriter:
         plain = [w for w in self._writers if type(w) is writers.ArrayWriter]
         if len(plain) != len(self._writers):
             others = ", ".join(w.name for w in self._writers if w not in plain)
-            raise InputError(f"{others}: written in sample order only, not placed by several workers",
-                             hint="leave out the formats other than npy and cf32, or compile on one process")
+            raise InputError(
+                f"{others}: written in sample order only, not placed by several workers",
+                hint="leave out the formats other than npy and cf32, or compile on one process",
+            )
         row_bytes = math.prod(self.layout.gains_shape[1:]) * np.dtype(np.complex64).itemsize
-        return [{"path": str(self._temp / w.name), "data_offset": len(w._header), "row_bytes": row_bytes}
-                for w in plain]
+        return [
+            {"path": str(self._temp / w.name), "data_offset": len(w._header), "row_bytes": row_bytes} for w in plain
+        ]
 
     def adopt_placed(self) -> None:
         """Count every sample as written: the placed files are hashed as they stand on disk."""
@@ -273,7 +302,8 @@ class BundleWriter:
             context = {
                 "taps": fields.get("taps"),
                 "recorder": f"emucompile {__version__}",
-                "description": f"emucompile bundle of profile {(fields.get('profile') or {}).get('name', '?')}, seed {fields.get('seed')}",
+                "description": f"emucompile bundle of profile {(fields.get('profile') or {}).get('name', '?')}, "
+                f"seed {fields.get('seed')}",
             }
             for writer in self._writers[1:]:
                 entries += writer.close(**context)
@@ -330,7 +360,9 @@ class BundleWriter:
 
     def _checked_chunk(self, start, gains, owned=False):
         if not isinstance(gains, np.ndarray) or gains.dtype != np.complex64:
-            raise TypeError(f"a chunk must be a complex64 numpy array, got {type(gains).__name__} {getattr(gains, 'dtype', '')}")
+            raise TypeError(
+                f"a chunk must be a complex64 numpy array, got {type(gains).__name__} {getattr(gains, 'dtype', '')}"
+            )
         expected = self.layout.gains_shape[1:]
         if gains.ndim != 4 or gains.shape[1:] != expected or gains.shape[0] < 1:
             raise ValueError(f"a chunk must have shape (m >= 1, {', '.join(map(str, expected))}), got {gains.shape}")
@@ -352,8 +384,9 @@ class BundleWriter:
         for _writer, (name, _role, dtype, shape, make, _axes) in zip(self._extra_writers, self.layout.extra_arrays):
             array = np.asarray(make(start, stop), dtype=dtype)
             if array.shape != (stop - start, *tuple(shape)[1:]):
-                raise ValueError(f"{name}: rows of shape {array.shape} for samples [{start}, {stop}), "
-                                 f"planned {tuple(shape)}")
+                raise ValueError(
+                    f"{name}: rows of shape {array.shape} for samples [{start}, {stop}), planned {tuple(shape)}"
+                )
             rows.append(array)
         return rows
 
@@ -469,7 +502,6 @@ def write_bundle(outdir, layout: BundleLayout, chunks, manifest_fields, **option
         return writer.finish(manifest_fields() if callable(manifest_fields) else manifest_fields)
 
 
-
 def _check_destination(shown: Path, target: Path, *, force: bool) -> bool:
     """Refuse an OUTDIR we may not write; return True when an old bundle will be replaced."""
     if not os.path.lexists(target):
@@ -481,7 +513,9 @@ def _check_destination(shown: Path, target: Path, *, force: bool) -> bool:
     manifest = _bundle_manifest(target)
     if not force:
         what = "an emucompile bundle" if manifest is not None else "not a bundle"
-        raise InputError(f"{shown}: already exists ({what})", hint="use --force to replace a bundle, or choose another OUTDIR")
+        raise InputError(
+            f"{shown}: already exists ({what})", hint="use --force to replace a bundle, or choose another OUTDIR"
+        )
     if manifest is None:
         raise InputError(
             f"{shown}: exists and is not an emucompile bundle (no valid manifest.json); --force replaces only bundles",
@@ -514,7 +548,6 @@ def _unlisted_files(directory: Path, manifest: dict) -> list[str]:
             if relative not in listed and not relative.startswith(VERIFICATION_DIRECTORY + "/"):
                 extra.append(relative)
     return sorted(extra)
-
 
 
 def _existing_ancestor(path: Path) -> Path:
@@ -595,7 +628,6 @@ def _process_alive(pid: int) -> bool:
     except PermissionError:
         return True
     return True
-
 
 
 __all__ = ["BundleWriter", "write_bundle", "WriteInterrupted"]

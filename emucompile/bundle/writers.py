@@ -130,7 +130,11 @@ class HashedFile:
 def npy_header(dtype, shape) -> bytes:
     """The bytes of an npy format 1.0 header for a C-ordered array [NEP1]_."""
     buffer = io.BytesIO()
-    header = {"descr": np.lib.format.dtype_to_descr(np.dtype(dtype)), "fortran_order": False, "shape": tuple(int(s) for s in shape)}
+    header = {
+        "descr": np.lib.format.dtype_to_descr(np.dtype(dtype)),
+        "fortran_order": False,
+        "shape": tuple(int(s) for s in shape),
+    }
     np.lib.format.write_array_header_1_0(buffer, header)
     return buffer.getvalue()
 
@@ -206,7 +210,7 @@ class ArrayWriter(StreamWriter):
             return
         rows = max(1, self._block_elements // max(1, math.prod(self.shape[1:])))
         for first in range(0, chunk.shape[0], rows):
-            self.write_encoded(self.encode(chunk[first:first + rows]))
+            self.write_encoded(self.encode(chunk[first : first + rows]))
 
     def encode(self, chunk):
         return chunk
@@ -222,7 +226,16 @@ class ArrayWriter(StreamWriter):
         expected = self.size_bytes
         if self._file.size != expected:
             raise ValueError(f"{self.name}: wrote {self._file.size} bytes, the shape needs {expected}")
-        entry = _entry(self.name, self.role, _dtype_name(self.dtype), list(self.shape), "little", len(self._header), self._file.size, sha256)
+        entry = _entry(
+            self.name,
+            self.role,
+            _dtype_name(self.dtype),
+            list(self.shape),
+            "little",
+            len(self._header),
+            self._file.size,
+            sha256,
+        )
         entry["axes"] = list(self.axes)
         if self.dtype.kind == "c":
             entry["element"] = "complex: real (I) then imaginary (Q) part"
@@ -249,10 +262,18 @@ class FirWriter(ArrayWriter):
         n_fir = self.fir_map.shape[1]
         note = "tap_gains @ fir_map, accumulated in complex128 in tap order, rounded to complex64"
         if maps is not None:
-            note = ("sum_k tap_gains[n, ..., k] * moving_map(n)[k] (the map at each update's delay offset), "
-                    "accumulated in complex128 in tap order, rounded to complex64")
+            note = (
+                "sum_k tap_gains[n, ..., k] * moving_map(n)[k] (the map at each update's delay offset), "
+                "accumulated in complex128 in tap order, rounded to complex64"
+            )
         super().__init__(
-            "fir.npy", "fir", np.complex64, (n_samples, n_rx, n_tx, n_fir), FIR_AXES, header=True, note=note,
+            "fir.npy",
+            "fir",
+            np.complex64,
+            (n_samples, n_rx, n_tx, n_fir),
+            FIR_AXES,
+            header=True,
+            note=note,
         )
 
     def encode(self, chunk):
@@ -271,7 +292,6 @@ class FirWriter(ArrayWriter):
         for k in range(chunk.shape[3]):
             accumulator += chunk[..., k, None].astype(np.complex128) * self.fir_map[k]
         return accumulator.astype(np.complex64)
-
 
     @staticmethod
     def _add_sparse(accumulator, chunk, index, values):
@@ -318,7 +338,7 @@ class CsvWriter(StreamWriter):
     def write(self, chunk) -> None:
         m = chunk.shape[0]
         for first in range(0, m, self._ROWS_PER_WRITE):
-            block = chunk[first:first + self._ROWS_PER_WRITE]
+            block = chunk[first : first + self._ROWS_PER_WRITE]
             rows = np.empty((block.shape[0], len(self.columns)))
             rows[:, 0] = (self._rows + np.arange(block.shape[0])) / self.update_rate_hz
             rows[:, 1:] = np.ascontiguousarray(block).reshape(block.shape[0], -1).view(np.float32)
@@ -328,7 +348,16 @@ class CsvWriter(StreamWriter):
 
     def close(self, **context) -> list[dict]:
         sha256 = self._file.close()
-        entry = _entry(self.name, "tap_gains_csv", "text", [self.n_samples, len(self.columns)], None, len(self._header), self._file.size, sha256)
+        entry = _entry(
+            self.name,
+            "tap_gains_csv",
+            "text",
+            [self.n_samples, len(self.columns)],
+            None,
+            len(self._header),
+            self._file.size,
+            sha256,
+        )
         entry["axes"] = ["sample", "column"]
         entry["element"] = (
             f"header row, then time_s and re/im per (rx, tx, tap) in that order; {CSV_FLOAT_FORMAT}, "
@@ -354,7 +383,9 @@ class SigmfWriter:
         digits = len(str(n_taps - 1))
         self.recordings = [
             (r, t, k, f"{self.directory}/tap{k:0{digits}d}_rx{r}_tx{t}")
-            for r in range(n_rx) for t in range(n_tx) for k in range(n_taps)
+            for r in range(n_rx)
+            for t in range(n_tx)
+            for k in range(n_taps)
         ]
         self._files = {}
         self._root = None
@@ -372,7 +403,7 @@ class SigmfWriter:
     def open(self, directory) -> None:
         self._root = directory
         os.mkdir(os.path.join(directory, self.directory))
-        for r, t, k, base in self.recordings:
+        for _r, _t, _k, base in self.recordings:
             self._files[base] = HashedFile(os.path.join(directory, base + ".sigmf-data"), sha512=True)
 
     def write(self, chunk) -> None:
@@ -389,20 +420,29 @@ class SigmfWriter:
         for r, t, k, base in self.recordings:
             data = self._files[base]
             sha256 = data.close()
-            entry = _entry(base + ".sigmf-data", "sigmf_data", "complex64", [self.n_samples], "little", 0, data.size, sha256)
+            entry = _entry(
+                base + ".sigmf-data", "sigmf_data", "complex64", [self.n_samples], "little", 0, data.size, sha256
+            )
             entry.update(axes=["sample"], element="cf32_le: float32 I then Q", tap=k, rx=r, tx=t)
             entries.append(entry)
             meta = self._metadata(r, t, k, data.sha512, (taps or [None] * (k + 1))[k], recorder, description)
             text = (json.dumps(meta, indent=2, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
             meta_file = HashedFile(os.path.join(self._root, base + ".sigmf-meta"))
             meta_file.write(text)
-            entries.append(_entry(base + ".sigmf-meta", "sigmf_meta", "json", None, None, 0, meta_file.size, meta_file.close()))
+            entries.append(
+                _entry(base + ".sigmf-meta", "sigmf_meta", "json", None, None, 0, meta_file.size, meta_file.close())
+            )
         return entries
 
     def _metadata(self, r, t, k, sha512, tap, recorder, description):
         ns = SIGMF_EXTENSION_NAME
         what = f"complex gain of tap {k} on the link rx {r} / tx {t}"
-        fields = {f"{ns}:quantity": "tap gain (complex amplitude, linear)", f"{ns}:tap_index": k, f"{ns}:rx_index": r, f"{ns}:tx_index": t}
+        fields = {
+            f"{ns}:quantity": "tap gain (complex amplitude, linear)",
+            f"{ns}:tap_index": k,
+            f"{ns}:rx_index": r,
+            f"{ns}:tx_index": t,
+        }
         if tap is not None:
             for key in ("delay_s", "power_db", "fading", "k_db", "max_doppler_hz", "los_doppler_hz", "spectrum"):
                 if key in tap:
@@ -419,13 +459,19 @@ class SigmfWriter:
                 **fields,
             },
             "captures": [{"core:sample_start": 0}],
-            "annotations": [{"core:sample_start": 0, "core:sample_count": self.n_samples, "core:label": f"tap{k} rx{r} tx{t}", "core:comment": what}],
+            "annotations": [
+                {
+                    "core:sample_start": 0,
+                    "core:sample_count": self.n_samples,
+                    "core:label": f"tap{k} rx{r} tx{t}",
+                    "core:comment": what,
+                }
+            ],
         }
 
     def discard(self) -> None:
         for handle in self._files.values():
             handle.discard()
-
 
 
 # -- helpers ---------------------------------------------------------------------------
@@ -438,8 +484,14 @@ def _open_new_file(path: str) -> int:
 
 def _entry(name, role, dtype, shape, byte_order, data_offset, size_bytes, sha256) -> dict:
     return {
-        "name": name, "role": role, "dtype": dtype, "shape": shape, "byte_order": byte_order,
-        "data_offset": int(data_offset), "size_bytes": int(size_bytes), "sha256": sha256,
+        "name": name,
+        "role": role,
+        "dtype": dtype,
+        "shape": shape,
+        "byte_order": byte_order,
+        "data_offset": int(data_offset),
+        "size_bytes": int(size_bytes),
+        "sha256": sha256,
     }
 
 
@@ -459,9 +511,19 @@ def _rounded(value: float) -> float:
     return round(float(value), 3)
 
 
-
 __all__ = [
-    "SIGMF_VERSION", "SIGMF_EXTENSION_NAME", "SIGMF_EXTENSION_VERSION", "CSV_FLOAT_FORMAT", "GAIN_AXES",
-    "FIR_AXES", "HashedFile", "npy_header", "write_npy_file", "StreamWriter", "ArrayWriter", "FirWriter",
-    "CsvWriter", "SigmfWriter",
+    "SIGMF_VERSION",
+    "SIGMF_EXTENSION_NAME",
+    "SIGMF_EXTENSION_VERSION",
+    "CSV_FLOAT_FORMAT",
+    "GAIN_AXES",
+    "FIR_AXES",
+    "HashedFile",
+    "npy_header",
+    "write_npy_file",
+    "StreamWriter",
+    "ArrayWriter",
+    "FirWriter",
+    "CsvWriter",
+    "SigmfWriter",
 ]

@@ -20,7 +20,6 @@ CHUNK_SAMPLES = 1 << 16
 """Samples per chunk the engine hands to the bundle writer."""
 
 
-
 def __getattr__(name):
     # MIN_UPDATE_FACTOR: below this multiple of the largest Doppler the gains cannot carry the
     # spectrum (Nyquist, 2x, with the engine's 10 % guard band); the engine's own constant,
@@ -30,5 +29,10 @@ def __getattr__(name):
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
-__all__ = ["DEFAULT_UPDATE_FACTOR", "MIN_UPDATE_FACTOR", "WARN_UPDATE_FACTOR", "DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ",
-           "DEFAULT_DURATION_S", "CHUNK_SAMPLES"]
+__all__ = [
+    "DEFAULT_UPDATE_FACTOR",
+    "WARN_UPDATE_FACTOR",
+    "DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ",
+    "DEFAULT_DURATION_S",
+    "CHUNK_SAMPLES",
+]

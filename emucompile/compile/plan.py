@@ -164,23 +164,57 @@ def plan_compile(
     sources: dict = {}
     target_obj = _target(target, profile, sources)
     choices, findings, warnings = _resolve_choices(
-        profile, target_obj, sources, expect, duration_s=duration_s, update_rate_hz=update_rate_hz, seed=seed,
-        sample_rate_hz=sample_rate_hz, delay_mapping=delay_mapping, periodic=periodic, method=method)
+        profile,
+        target_obj,
+        sources,
+        expect,
+        duration_s=duration_s,
+        update_rate_hz=update_rate_hz,
+        seed=seed,
+        sample_rate_hz=sample_rate_hz,
+        delay_mapping=delay_mapping,
+        periodic=periodic,
+        method=method,
+    )
     seed_value = _seed(choices.seed, sources)
     requested = parse_formats(formats or ())
-    _refuse_oversized(profile, choices.update_rate_hz, choices.n_samples, requested, choices.sample_rate_hz,
-                      target_obj, max_size_bytes)
+    _refuse_oversized(
+        profile,
+        choices.update_rate_hz,
+        choices.n_samples,
+        requested,
+        choices.sample_rate_hz,
+        target_obj,
+        max_size_bytes,
+    )
     fir = _choose_fir_map(profile, choices, target_obj, requested, sources, fit_tolerance_pct, accept_fit)
-    engine = fading.plan(profile, choices.update_rate_hz, choices.n_samples, seed_value, method=choices.method,
-                         periodic=choices.periodic)
+    engine = fading.plan(
+        profile, choices.update_rate_hz, choices.n_samples, seed_value, method=choices.method, periodic=choices.periodic
+    )
     channel = ChannelPlan(profile, engine)
     layout = _lay_out(profile, choices.update_rate_hz, engine, channel, fir, csv_any_size, max_size_bytes)
     return CompilePlan(
-        profile=profile, profile_sha256=profile_sha256, outdir=Path(outdir), update_rate_hz=choices.update_rate_hz,
-        n_samples=engine.n_samples, seed=seed_value, method=choices.method, periodic=choices.periodic,
-        formats=fir.formats, fir=fir.grid_map, target_fit=fir.fit, fit_acceptance=fir.acceptance, layout=layout,
-        force=force, max_size_bytes=max_size_bytes, sources=sources, warnings=tuple(warnings),
-        findings=tuple(findings), expect=expect, engine=engine, channel=channel,
+        profile=profile,
+        profile_sha256=profile_sha256,
+        outdir=Path(outdir),
+        update_rate_hz=choices.update_rate_hz,
+        n_samples=engine.n_samples,
+        seed=seed_value,
+        method=choices.method,
+        periodic=choices.periodic,
+        formats=fir.formats,
+        fir=fir.grid_map,
+        target_fit=fir.fit,
+        fit_acceptance=fir.acceptance,
+        layout=layout,
+        force=force,
+        max_size_bytes=max_size_bytes,
+        sources=sources,
+        warnings=tuple(warnings),
+        findings=tuple(findings),
+        expect=expect,
+        engine=engine,
+        channel=channel,
     )
 
 
@@ -194,8 +228,10 @@ def _resolve_choices(profile, target, sources, expect, **given):
         raise CompileRefused(findings)
     warnings = [f.text() for f in findings if f.severity == "warning"]
     if expect and expect["missed"]:
-        warnings.append(f"compiled although {len(expect['missed'])} expect: target(s) are missed "
-                        f"(--accept-missed-targets): {', '.join(expect['missed'])}")
+        warnings.append(
+            f"compiled although {len(expect['missed'])} expect: target(s) are missed "
+            f"(--accept-missed-targets): {', '.join(expect['missed'])}"
+        )
     return choices, findings, warnings
 
 
@@ -222,8 +258,9 @@ def _choose_fir_map(profile, choices, target, formats, sources, tolerance_pct, a
             sources["formats"] = "fir added: a moving delay's FIR varies in time"
         return _FirChoice(moving_fir_map(delays, powers, rate_fs, moving, rate), formats=formats)
     if target is not None:
-        fit = target_module.fit_to_target(target, profile, update_rate_hz=rate, sample_rate_hz=rate_fs,
-                                          delay_mapping=mapping)
+        fit = target_module.fit_to_target(
+            target, profile, update_rate_hz=rate, sample_rate_hz=rate_fs, delay_mapping=mapping
+        )
         return _FirChoice(fit.fir_map, fit, _judge_fit(fit, tolerance_pct, accept_fit), formats)
     if rate_fs is not None:
         return _FirChoice(fir_map(delays, powers, rate_fs, mapping=mapping or "sinc"), formats=formats)
@@ -234,15 +271,19 @@ def _lay_out(profile, rate, engine, channel, fir: _FirChoice, csv_any_size: bool
     """The bundle's layout (files, shapes, formats), refused above ``max_size_bytes``."""
     extra = ()
     if channel.shadowing is not None:
-        extra = ((SHADOWING_FILE, SHADOWING_ROLE, np.float64, (engine.n_samples,), channel.shadowing_db,
-                  ("sample",)),)
+        extra = ((SHADOWING_FILE, SHADOWING_ROLE, np.float64, (engine.n_samples,), channel.shadowing_db, ("sample",)),)
     moving = getattr(profile.conditions, "moving_propagation", None)
     grid_map = fir.grid_map
     layout = BundleLayout.from_profile(
-        profile, n_samples=engine.n_samples, update_rate_hz=rate, n_rx=profile.n_rx, n_tx=profile.n_tx,
+        profile,
+        n_samples=engine.n_samples,
+        update_rate_hz=rate,
+        n_rx=profile.n_rx,
+        n_tx=profile.n_tx,
         formats=fir.formats,
         fir_map=None if grid_map is None else grid_map.matrix,
-        fir_maps=grid_map.sparse if moving is not None else None, extra_arrays=extra,
+        fir_maps=grid_map.sparse if moving is not None else None,
+        extra_arrays=extra,
         fir_codes=None if fir.fit is None else _fir_codes(fir.fit),
         csv_max_rows=None if csv_any_size else bundle_formats.DEFAULT_CSV_MAX_ROWS,
     )
@@ -268,12 +309,18 @@ def expect_record(profile: Profile, accept_missed: bool = False) -> dict | None:
     missed = [t.quantity for t in results if not t.met]
     if missed and not accept_missed:
         detail = "; ".join(_missed_text(t) for t in results if not t.met)
-        raise CheckFailed(f"{profile.source or profile.name}: {len(missed)} of {len(results)} expect: target(s) "
-                          f"missed, nothing compiled: {detail}",
-                          hint="fix the profile or its targets, which emucompile stats shows, "
-                               "or compile anyway with --accept-missed-targets")
-    return {"checked": len(results), "missed": missed, "accepted_missed": bool(missed),
-            "targets": [t.to_dict() for t in results]}
+        raise CheckFailed(
+            f"{profile.source or profile.name}: {len(missed)} of {len(results)} expect: target(s) "
+            f"missed, nothing compiled: {detail}",
+            hint="fix the profile or its targets, which emucompile stats shows, "
+            "or compile anyway with --accept-missed-targets",
+        )
+    return {
+        "checked": len(results),
+        "missed": missed,
+        "accepted_missed": bool(missed),
+        "targets": [t.to_dict() for t in results],
+    }
 
 
 def _missed_text(t) -> str:
@@ -303,8 +350,14 @@ def compile_findings(profile, *, target=None, max_size_bytes=None) -> list[Findi
     # Only checked, never generated: the profile's seed, else 0 (no entropy drawn for nothing).
     seed = None if profile.compile.seed is not None else 0
     try:
-        plan = plan_compile(profile, "validate-only", target=target, seed=seed,
-                            max_size_bytes=max_size_bytes, accept_missed_targets=True)
+        plan = plan_compile(
+            profile,
+            "validate-only",
+            target=target,
+            seed=seed,
+            max_size_bytes=max_size_bytes,
+            accept_missed_targets=True,
+        )
     except CompileRefused as refused:
         return found + refused.findings
     except InputError as error:  # the FIR map, the target fit, the engine, the size
@@ -342,14 +395,17 @@ def _refuse_oversized(profile, rate, n_samples, formats, rate_fs, target, max_si
     sample rate; the bundle at least by its tap gains, each extra format's copy and
     the FIR map (lower bounds: the exact estimate follows once the map exists).
     """
-    edges = [t.max_doppler_hz for t in profile.taps
-             if t.fading != "static" and t.max_doppler_hz is not None and t.max_doppler_hz > 0]
+    edges = [
+        t.max_doppler_hz
+        for t in profile.taps
+        if t.fading != "static" and t.max_doppler_hz is not None and t.max_doppler_hz > 0
+    ]
     if edges and rate / min(edges) > MAX_UPDATE_TO_DOPPLER:
         raise InputError(
             f"update rate {rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
             f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x of the interpolation design",
             hint=f"use --update-rate {MAX_UPDATE_TO_DOPPLER * min(edges):g} or less; an emulator "
-                 "interpolates between updates",
+            "interpolates between updates",
         )
     n_fir = 0
     if rate_fs is not None and target is None:  # its length is checked by emucompile.compile.rules
@@ -382,9 +438,14 @@ def _fir_codes(fit) -> dict | None:
     if quantisation is None:
         return None
     grid = fit.fir_map
-    return {"columns": [int(c) for c in grid.nonzero_columns], "bits": quantisation.bits,
-            "step": quantisation.step, "headroom_db": quantisation.headroom_db,
-            "sample_rate_hz": grid.sample_rate_hz, "bulk_delay_samples": grid.bulk_delay_samples}
+    return {
+        "columns": [int(c) for c in grid.nonzero_columns],
+        "bits": quantisation.bits,
+        "step": quantisation.step,
+        "headroom_db": quantisation.headroom_db,
+        "sample_rate_hz": grid.sample_rate_hz,
+        "bulk_delay_samples": grid.bulk_delay_samples,
+    }
 
 
 def _size_text(n_bytes: int) -> str:

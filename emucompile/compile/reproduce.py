@@ -57,8 +57,13 @@ class FileComparison:
     on_disk_sha256: str | None
 
     def to_dict(self) -> dict:
-        return {"name": self.name, "status": self.status, "recorded_sha256": self.recorded_sha256,
-                "regenerated_sha256": self.regenerated_sha256, "on_disk_sha256": self.on_disk_sha256}
+        return {
+            "name": self.name,
+            "status": self.status,
+            "recorded_sha256": self.recorded_sha256,
+            "regenerated_sha256": self.regenerated_sha256,
+            "on_disk_sha256": self.on_disk_sha256,
+        }
 
 
 @dataclass(frozen=True)
@@ -93,11 +98,16 @@ class ReproduceResult:
 
     def to_dict(self) -> dict:
         """The JSON form (``reproduce --json``; docs/json-output.md)."""
-        return {"status": self.status, "ok": self.ok, "message": self.message,
-                "files": [f.to_dict() for f in self.files], "differing": list(self.differing),
-                "max_relative_error": self.max_relative_error if math.isfinite(self.max_relative_error) else None,
-                "tolerance": self.tolerance,
-                "platform_differences": list(self.platform_differences)}
+        return {
+            "status": self.status,
+            "ok": self.ok,
+            "message": self.message,
+            "files": [f.to_dict() for f in self.files],
+            "differing": list(self.differing),
+            "max_relative_error": self.max_relative_error if math.isfinite(self.max_relative_error) else None,
+            "tolerance": self.tolerance,
+            "platform_differences": list(self.platform_differences),
+        }
 
 
 def reproduce_bundle(path, *, progress=None) -> ReproduceResult:
@@ -134,12 +144,13 @@ def reproduce_bundle(path, *, progress=None) -> ReproduceResult:
                 writer.write_chunk(start, block)
                 stop = min(start + len(block), stored.shape[0])
                 if stop > start and stored.shape[1:] == block.shape[1:]:
-                    difference = np.abs(block[:stop - start] - stored[start:stop]).max(axis=(0, 1, 2))
+                    difference = np.abs(block[: stop - start] - stored[start:stop]).max(axis=(0, 1, 2))
                     worst = max(worst, float((difference / rms).max()))
                 if progress is not None:
                     progress(start + len(block), engine.n_samples)
-            regenerated = {e["name"]: e["sha256"] for e in
-                           open_bundle(writer.finish(manifest_fields(plan))).manifest["files"]}
+            regenerated = {
+                e["name"]: e["sha256"] for e in open_bundle(writer.finish(manifest_fields(plan))).manifest["files"]
+            }
     finally:
         shutil.rmtree(scratch, ignore_errors=True)
     if stored.shape != plan.layout.gains_shape:
@@ -148,9 +159,14 @@ def reproduce_bundle(path, *, progress=None) -> ReproduceResult:
     platform_differences = _platform_differences(manifest.get("platform") or {})
     tolerance = fading.CROSS_PLATFORM_TOLERANCE
     status, message = _reproduce_verdict(files, worst, tolerance, platform_differences)
-    return ReproduceResult(status=status, files=files, max_relative_error=worst,
-                           tolerance=tolerance, platform_differences=tuple(platform_differences),
-                           message=message)
+    return ReproduceResult(
+        status=status,
+        files=files,
+        max_relative_error=worst,
+        tolerance=tolerance,
+        platform_differences=tuple(platform_differences),
+        message=message,
+    )
 
 
 def _scratch_directory(bundle_path: Path, tempfile) -> Path:
@@ -200,16 +216,18 @@ def _reproduce_verdict(files, worst, tolerance, platform_differences):
         by_status.setdefault(f.status, []).append(f.name)
     if set(by_status) == {SAME_BYTES}:
         return IDENTICAL, f"identical: {compared}; every one has the same bytes"
-    detail = "; ".join(f"{status}: {', '.join(names)}" for status, names in by_status.items()
-                       if status != SAME_BYTES)
+    detail = "; ".join(f"{status}: {', '.join(names)}" for status, names in by_status.items() if status != SAME_BYTES)
     only_numbers = set(by_status) <= {SAME_BYTES, BYTES_DIFFER}
     if only_numbers and worst <= tolerance and platform_differences:
         return WITHIN_TOLERANCE, (
             f"within tolerance: {compared}; {detail}; largest gain difference {worst:.2e} x RMS gain "
-            f"<= {tolerance:g}, on a different platform or library version ({'; '.join(platform_differences)})")
+            f"<= {tolerance:g}, on a different platform or library version ({'; '.join(platform_differences)})"
+        )
     why = "" if platform_differences else " on the same platform and library versions"
-    return DIFFERENT, (f"different: {compared}; {detail}; largest gain difference {worst:.2e} x RMS gain "
-                       f"between the regenerated gains and tap_gains.npy{why}")
+    return DIFFERENT, (
+        f"different: {compared}; {detail}; largest gain difference {worst:.2e} x RMS gain "
+        f"between the regenerated gains and tap_gains.npy{why}"
+    )
 
 
 def _replan(manifest: dict, path) -> CompilePlan:
@@ -218,8 +236,9 @@ def _replan(manifest: dict, path) -> CompilePlan:
     fir = manifest.get("fir") or {}
     target = None
     if manifest.get("target"):
-        target = parse_target(manifest["target"]["constraints"], file=f"{path}/manifest.json",
-                              base_pointer="/target/constraints")
+        target = parse_target(
+            manifest["target"]["constraints"], file=f"{path}/manifest.json", base_pointer="/target/constraints"
+        )
     acceptance = (manifest.get("target") or {}).get("fit_acceptance") or {}
     return plan_compile(
         profile,
@@ -243,9 +262,9 @@ def _replan(manifest: dict, path) -> CompilePlan:
 
 def _platform_differences(recorded: dict) -> list[str]:
     here = platform_info()
-    return [f"{key}: {recorded.get(key)} -> {here.get(key)}" for key in sorted(here)
-            if recorded.get(key) != here.get(key)]
-
+    return [
+        f"{key}: {recorded.get(key)} -> {here.get(key)}" for key in sorted(here) if recorded.get(key) != here.get(key)
+    ]
 
 
 __all__ = ["IDENTICAL", "WITHIN_TOLERANCE", "DIFFERENT", "FileComparison", "ReproduceResult", "reproduce_bundle"]

@@ -50,17 +50,27 @@ class CompileResult:
         ]
         mimo_setup = plan.profile.mimo
         if mimo_setup is not None:
-            lines.append(f"links       {mimo_setup.n_rx} rx x {mimo_setup.n_tx} tx, correlation "
-                         + correlation_text(mimo_setup.correlation))
+            lines.append(
+                f"links       {mimo_setup.n_rx} rx x {mimo_setup.n_tx} tx, correlation "
+                + correlation_text(mimo_setup.correlation)
+            )
         conditions = {name: entry for name, entry in (manifest.get("conditions") or {}).items() if entry}
         if conditions:
-            lines.append("conditions  " + ", ".join(name.replace("_", " ") for name in conditions)
-                         + " (trajectories in manifest.json)")
+            lines.append(
+                "conditions  "
+                + ", ".join(name.replace("_", " ") for name in conditions)
+                + " (trajectories in manifest.json)"
+            )
         expect = manifest.get("expect")
         if expect:
-            lines.append(f"expect      {expect['checked'] - len(expect['missed'])} of {expect['checked']} target(s) met"
-                         + (f"; missed, accepted with --accept-missed-targets: {', '.join(expect['missed'])}"
-                            if expect["missed"] else ""))
+            lines.append(
+                f"expect      {expect['checked'] - len(expect['missed'])} of {expect['checked']} target(s) met"
+                + (
+                    f"; missed, accepted with --accept-missed-targets: {', '.join(expect['missed'])}"
+                    if expect["missed"]
+                    else ""
+                )
+            )
         fir = manifest.get("fir")
         if fir:
             lines.append(
@@ -84,16 +94,29 @@ class CompileResult:
         plan, manifest = self.plan, self.manifest
         target = manifest.get("target") or {}
         return {
-            "bundle": str(self.path), "profile": plan.profile.name, "profile_sha256": plan.profile_sha256,
-            "resolved_profile_sha256": manifest["resolved_profile_sha256"], "n_taps": plan.profile.n_taps,
-            "n_rx": manifest["n_rx"], "n_tx": manifest["n_tx"], "n_samples": plan.n_samples,
-            "update_rate_hz": plan.update_rate_hz, "duration_s": plan.duration_s, "periodic": plan.periodic,
-            "method": plan.method, "generator_version": manifest["generator_version"], "seed": plan.seed,
-            "sources": dict(plan.sources), "warnings": list(plan.warnings), "expect": manifest.get("expect"),
-            "fir": manifest.get("fir"), "target_costs": target.get("costs"),
+            "bundle": str(self.path),
+            "profile": plan.profile.name,
+            "profile_sha256": plan.profile_sha256,
+            "resolved_profile_sha256": manifest["resolved_profile_sha256"],
+            "n_taps": plan.profile.n_taps,
+            "n_rx": manifest["n_rx"],
+            "n_tx": manifest["n_tx"],
+            "n_samples": plan.n_samples,
+            "update_rate_hz": plan.update_rate_hz,
+            "duration_s": plan.duration_s,
+            "periodic": plan.periodic,
+            "method": plan.method,
+            "generator_version": manifest["generator_version"],
+            "seed": plan.seed,
+            "sources": dict(plan.sources),
+            "warnings": list(plan.warnings),
+            "expect": manifest.get("expect"),
+            "fir": manifest.get("fir"),
+            "target_costs": target.get("costs"),
             "fit_acceptance": target.get("fit_acceptance"),
-            "files": [{"name": e["name"], "size_bytes": e["size_bytes"], "sha256": e["sha256"]}
-                      for e in manifest["files"]],
+            "files": [
+                {"name": e["name"], "size_bytes": e["size_bytes"], "sha256": e["sha256"]} for e in manifest["files"]
+            ],
             "elapsed_s": self.elapsed_s,
         }
 
@@ -196,11 +219,23 @@ def compile_profile(
     ...                                     "out/robot", duration_s=5, seed=7)  # doctest: +SKIP
     >>> bundle = emucompile.open_bundle(result.path)                            # doctest: +SKIP
     """
-    choices = dict(duration_s=duration_s, update_rate_hz=update_rate_hz, seed=seed,
-                   sample_rate_hz=sample_rate_hz, delay_mapping=delay_mapping, target=target,
-                   formats=formats, periodic=periodic, method=method, force=force,
-                   max_size_bytes=max_size_bytes, fit_tolerance_pct=fit_tolerance_pct,
-                   accept_fit=accept_fit, accept_missed_targets=accept_missed_targets, csv_any_size=csv_any_size)
+    choices = dict(
+        duration_s=duration_s,
+        update_rate_hz=update_rate_hz,
+        seed=seed,
+        sample_rate_hz=sample_rate_hz,
+        delay_mapping=delay_mapping,
+        target=target,
+        formats=formats,
+        periodic=periodic,
+        method=method,
+        force=force,
+        max_size_bytes=max_size_bytes,
+        fit_tolerance_pct=fit_tolerance_pct,
+        accept_fit=accept_fit,
+        accept_missed_targets=accept_missed_targets,
+        csv_any_size=csv_any_size,
+    )
     if plan is None:
         plan = plan_compile(profile, outdir, **choices)
     else:
@@ -214,14 +249,14 @@ def compile_profile(
 def run_plan(plan: CompilePlan, *, progress=None) -> CompileResult:
     """Generate and write the bundle a :class:`CompilePlan` describes."""
     began = time.perf_counter()
-    with BundleWriter(plan.outdir, plan.layout, force=plan.force,
-                      max_size_bytes=plan.max_size_bytes, progress=progress) as writer:
+    with BundleWriter(
+        plan.outdir, plan.layout, force=plan.force, max_size_bytes=plan.max_size_bytes, progress=progress
+    ) as writer:
         for start, gains in plan.channel.chunks(CHUNK_SAMPLES):
             writer.write_chunk(start, gains, owned=True)  # fresh engine arrays, finite by construction
         path = writer.finish(manifest_fields(plan))
     manifest = open_bundle(path).manifest
-    return CompileResult(path=Path(path), manifest=manifest, plan=plan,
-                         elapsed_s=time.perf_counter() - began)
+    return CompileResult(path=Path(path), manifest=manifest, plan=plan, elapsed_s=time.perf_counter() - began)
 
 
 def manifest_fields(plan: CompilePlan) -> dict:
@@ -286,7 +321,6 @@ def _fir_entry(grid_map: FirMap) -> dict:
 
 def _target_entry(fit) -> dict:
     return {"constraints": fit.target.to_dict(), "costs": fit.costs.to_dict()}
-
 
 
 __all__ = ["CompileResult", "compile_profile", "run_plan", "manifest_fields"]

@@ -886,10 +886,10 @@ class _Ci16Source(_MappedSource):
         self.scale = scale
 
     def read(self, start, stop):
+        from emucompile.bundle import formats
         from emucompile.models.mimo import links_from_gains
 
-        codes = np.asarray(self.array[start:stop], dtype=np.float32)
-        block = (codes[..., 0] + 1j * codes[..., 1]) / self.scale
+        block = formats.dequantise_ci16(np.asarray(self.array[start:stop]), self.scale)  # the one dequantiser
         if self.divide_by is not None:
             block = block / self.divide_by(start, stop)[:, None, None, None]
         return links_from_gains(block)
@@ -1016,9 +1016,9 @@ def _components_or_none(root, cautions):
 
 
 def _ci16_source(root, entry, shape, shadowing):
-    from emucompile.bundle import store as bd
+    from emucompile.bundle import formats
 
-    codes = bd.member_raw(root, entry, "<i2", (*shape, 2))
+    codes = formats.get("ci16").reader(root, [entry], shape)  # the registry's reader: the stored int16 codes
     divide = None if shadowing is None else shadowing.shadowing_amplitude
     return _Ci16Source(codes, float(entry["quantisation"]["scale_factor"]), divide)
 
