@@ -50,7 +50,8 @@ from emucompile.bundle.layout import (
 )
 from emucompile.bundle.members import BundleError, MemberError, member_json, member_npy, member_raw, open_member
 from emucompile.bundle.reader import Bundle, open_bundle, verify_integrity, verify_members
-from emucompile.bundle.writer import BundleWriter, _unlisted_files, write_bundle  # noqa: F401
+from emucompile.bundle.destination import _unlisted_files  # noqa: F401 (tests read it here)
+from emucompile.bundle.writer import BundleWriter, write_bundle
 from emucompile.errors import EmucompileError, InputError, Problem  # noqa: F401 (as before the split)
 
 __all__ = [
