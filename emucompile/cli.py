@@ -17,6 +17,7 @@ import sys
 import click
 
 from emucompile._version import __version__
+from emucompile.bundle import formats as bundle_formats
 from emucompile.errors import EXIT_BAD_INPUT, EmucompileError
 
 EXIT_INTERNAL = 3
@@ -249,10 +250,12 @@ def _write_card(profile, html_file, as_json):
 @click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ", help="Emulator signal sample rate: adds the FIR map.")
 @click.option("--delay-mapping", type=click.Choice(["sinc", "nearest"]), help="How tap delays map onto the FIR grid.")
 @click.option("--target", "target_file", metavar="FILE", help="Emulator constraints to fit the profile to.")
-@click.option("--format", "formats", metavar="LIST", help="Extra formats, comma-separated: cf32,ci16,csv,sigmf,fir.")
+@click.option("--format", "formats", metavar="LIST", help=bundle_formats.help_text())
 @click.option("--periodic", is_flag=True, default=None, help="Make the record loop seamlessly (period = record length).")
 @click.option("--method", type=click.Choice(["doppler-filter", "sum-of-sinusoids"]), help="Tap-gain generator.")
 @click.option("--force", is_flag=True, help="Replace OUTDIR if it is an existing bundle.")
+@click.option(bundle_formats.CSV_ROW_LIMIT_OPTION, "csv_any_size", is_flag=True,
+              help=f"Write the csv format above its limit of {bundle_formats.DEFAULT_CSV_MAX_ROWS:,} rows.")
 @click.option("--max-size", type=ByteSize(), metavar="SIZE", help="Refuse to write more than this (default 8GiB).")
 @click.option("--fit-tolerance-pct", type=float, metavar="PCT",
               help="How far a target fit may move the RMS delay spread, in % of the profile's (default 10).")
@@ -304,26 +307,9 @@ def _compile_command(profile, outdir, quiet, max_size, target_file, options):
 
             result = compile_spread(plan=plan, scheduler=scheduler, workers=workers, progress=update)
     if as_json:
-        click.echo(json.dumps(_compile_record(result), indent=2, allow_nan=False))
+        click.echo(json.dumps(result.to_dict(), indent=2, allow_nan=False))
     elif not quiet:
-        click.echo(_compile_summary(result))
-
-
-def _compile_record(result) -> dict:
-    """``compile --json``: the summary's facts (docs/json-output.md)."""
-    plan, manifest = result.plan, result.manifest
-    return {
-        "bundle": str(result.path), "profile": plan.profile.name, "profile_sha256": plan.profile_sha256,
-        "resolved_profile_sha256": manifest["resolved_profile_sha256"], "n_taps": plan.profile.n_taps,
-        "n_rx": manifest["n_rx"], "n_tx": manifest["n_tx"], "n_samples": plan.n_samples,
-        "update_rate_hz": plan.update_rate_hz, "duration_s": plan.duration_s, "periodic": plan.periodic,
-        "method": plan.method, "generator_version": manifest["generator_version"], "seed": plan.seed,
-        "sources": dict(plan.sources), "warnings": list(plan.warnings), "expect": manifest.get("expect"),
-        "fir": manifest.get("fir"), "target_costs": (manifest.get("target") or {}).get("costs"),
-        "fit_acceptance": (manifest.get("target") or {}).get("fit_acceptance"),
-        "files": [{"name": e["name"], "size_bytes": e["size_bytes"], "sha256": e["sha256"]} for e in manifest["files"]],
-        "elapsed_s": result.elapsed_s,
-    }
+        click.echo(result.summary())
 
 
 @cli.command(epilog="\b\nExamples:\n  emucompile reproduce out/robot\n  emucompile reproduce out/robot --json")
@@ -810,59 +796,6 @@ def _size_text(n_bytes: int) -> str:
         if n_bytes >= size:
             return f"{n_bytes / size:.1f} {unit}"
     return f"{n_bytes} B"
-
-
-def _compile_summary(result) -> str:
-    plan, manifest = result.plan, result.manifest
-    seed_note = " (drawn; repeat with --seed)" if plan.sources.get("seed") == "drawn" else ""
-    lines = [
-        f"bundle      {result.path}",
-        f"profile     {plan.profile.name}  ({plan.profile.n_taps} taps, sha256 {plan.profile_sha256[:16]}...)",
-        f"samples     {plan.n_samples} per tap at {plan.update_rate_hz:g} Hz = {plan.duration_s:g} s"
-        + ("  (periodic)" if plan.periodic else ""),
-        f"method      {plan.method}, generator version {manifest['generator_version']}",
-        f"seed        {plan.seed}{seed_note}",
-    ]
-    mimo_setup = plan.profile.mimo
-    if mimo_setup is not None:
-        from emucompile.profile.blocks import correlation_text
-
-        lines.append(f"links       {mimo_setup.n_rx} rx x {mimo_setup.n_tx} tx, correlation "
-                     + correlation_text(mimo_setup.correlation))
-    conditions = {name: entry for name, entry in (manifest.get("conditions") or {}).items() if entry}
-    if conditions:
-        lines.append("conditions  " + ", ".join(name.replace("_", " ") for name in conditions)
-                     + " (trajectories in manifest.json)")
-    expect = manifest.get("expect")
-    if expect:
-        lines.append(f"expect      {expect['checked'] - len(expect['missed'])} of {expect['checked']} target(s) met"
-                     + (f"; missed, accepted with --accept-missed-targets: {', '.join(expect['missed'])}"
-                        if expect["missed"] else ""))
-    fir = manifest.get("fir")
-    if fir:
-        lines.append(
-            f"FIR         {fir['n_fir']} coefficients at {fir['sample_rate_hz']:g} Hz, {fir['delay_mapping']} "
-            f"mapping, bulk delay {fir['bulk_delay_samples']} samples, energy kept {fir['energy_kept']:.4f}, "
-            f"RMS delay spread {fir['rms_delay_spread_s'] * 1e9:.1f} ns"
-        )
-    fit = _fit_summary_lines(manifest)
-    if fit:
-        lines.append("emulator fit  " + "\n              ".join(fit))
-    total = sum(entry["size_bytes"] for entry in manifest["files"])
-    lines.append(f"files       {len(manifest['files'])} ({_size_text(total)}):")
-    lines += [f"              {entry['name']}  {_size_text(entry['size_bytes'])}" for entry in manifest["files"][:12]]
-    if len(manifest["files"]) > 12:
-        lines.append(f"              ... and {len(manifest['files']) - 12} more (see manifest.json)")
-    lines.append(f"time        {result.elapsed_s:.1f} s")
-    return "\n".join(lines)
-
-
-def _fit_summary_lines(manifest: dict) -> list[str]:
-    """The "emulator fit" section of compile's summary (empty without a target)."""
-    from emucompile.profile.target import fit_lines, fit_record
-
-    record = fit_record(manifest)
-    return [] if record is None else fit_lines(record)
 
 
 def main(argv=None):

@@ -14,6 +14,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 from emucompile._version import __version__
+from emucompile.bundle import atomic
 
 INDEX_NAME = "index.html"
 JSON_NAME = "campaign.json"
@@ -116,12 +117,10 @@ def render_index(document: dict) -> str:
 
 
 def write_atomic(path: Path, text: str) -> None:
-    """Write ``text`` to ``path`` (parents made) as the report is written: fsync-ed sibling, rename."""
-    from emucompile.report.html import write_text_atomic
-
+    """Write ``text`` to ``path`` (parents made) atomically (:func:`emucompile.bundle.atomic.write_text_atomic`)."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    write_text_atomic(path, text)
+    atomic.write_text_atomic(path, text)
 
 
 def _value_text(value) -> str:

@@ -21,7 +21,15 @@ import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from emucompile.errors import InputError, Problem
+from emucompile._lazy import LazyModule
+from emucompile.errors import EmucompileError, InputError, Problem
+
+compiler = LazyModule("emucompile.compile.compiler")
+fading = LazyModule("emucompile.models.fading")
+model = LazyModule("emucompile.profile.model")
+reader = LazyModule("emucompile.profile.reader")
+target_module = LazyModule("emucompile.profile.target")
+jsonschema = LazyModule("jsonschema")
 
 SCHEMA_RESOURCE = "schemas/campaign-plan-v1.schema.json"
 AXES = ("delay_spread_ns", "max_doppler_hz", "speed_kmh", "correlation", "target", "duration_s", "formats", "seed")
@@ -136,9 +144,7 @@ def expand_plan(source) -> Plan:
 
 def check_plan(source):
     """``(plan_or_None, problems)`` of a plan file, never raising for bad input."""
-    from emucompile.profile.reader import read_document
-
-    document = read_document(source)
+    document = reader.read_document(source)
     problems = list(document.problems)
     if not document.readable:
         return None, problems
@@ -153,7 +159,7 @@ def check_plan(source):
         pointer = f"/profiles/{index}"
         found, made = _entry_cases(document, entry, pointer, value.get("axes", {}), settings, base)
         problems += found
-        for case, axes_pointer in made:
+        for case, _axes_pointer in made:
             axes_used |= {k for k, v in case.axes.items() if v is not None}
             if case.name in seen or case.name in RESERVED_NAMES:
                 problems.append(document.problem(
@@ -203,14 +209,11 @@ CHANNEL_AXES = ("delay_spread_ns", "max_doppler_hz", "speed_kmh", "correlation")
 
 def _entry_cases(document, entry, pointer, plan_axes, settings, base):
     """``(problems, [(case, axes_pointer)])`` for one entry of ``profiles``."""
-    from emucompile.profile.model import check_document
-    from emucompile.profile.reader import read_document
-
     problems = []
     if "file" in entry:
         path = base / entry["file"]
-        read = read_document(path)
-        profile, found = check_document(read)
+        read = reader.read_document(path)
+        profile, found = model.check_document(read)
         if profile is None:
             # The file's own problems, at their place in the file, and where the plan names it.
             problems += found
@@ -247,11 +250,6 @@ def _entry_cases(document, entry, pointer, plan_axes, settings, base):
 
 def _make_case(document, name, label, source, base_document, chosen, settings, entry, pointer, axis_pointers,
                base, targets):
-    from emucompile.compile import compiler
-    from emucompile.models import fading
-    from emucompile.errors import EmucompileError
-    from emucompile.profile.model import profile_from_document
-
     where = pointer  # a case's problem is placed at its entry; the case's name says its axes
     profile_document = copy.deepcopy(base_document)
     profile_document["name"] = name
@@ -263,7 +261,7 @@ def _make_case(document, name, label, source, base_document, chosen, settings, e
         # channel makes them another channel's (compile would refuse the case as a missed target).
         profile_document.pop("expect", None)
     try:
-        profile = profile_from_document(profile_document, source=f"case {name}")
+        profile = model.profile_from_document(profile_document, source=f"case {name}")
     except EmucompileError as error:
         lines = [p.format() for p in getattr(error, "problems", [])] or [str(error)]
         return None, [document.problem(where, f"case {name}: {line}") for line in lines[:5]]
@@ -341,10 +339,8 @@ def _apply_axes(document, profile_document, chosen, axis_pointers, name) -> list
 
 def _target(document, name, pointer, base, cache):
     """``(Target, None)`` or ``(None, problems)`` for a target file named in the plan."""
-    from emucompile.profile.target import check_target_file
-
     if name not in cache:
-        target, found = check_target_file(base / name)
+        target, found = target_module.check_target_file(base / name)
         if target is None:
             found = list(found) + [document.problem(pointer, f"target file {name!r} is not valid (its problems above)")]
         cache[name] = (target, None if target is not None else found)
@@ -370,8 +366,6 @@ def plan_schema() -> dict:
 
 @functools.lru_cache(maxsize=1)
 def _validator():
-    import jsonschema
-
     schema = plan_schema()
     jsonschema.Draft202012Validator.check_schema(schema)
     return jsonschema.Draft202012Validator(schema)
@@ -379,12 +373,9 @@ def _validator():
 
 def _schema_problems(document) -> list[Problem]:
     """The schema's errors, worded as the profile checker words them."""
-    from emucompile.profile.model import _describe_schema_error
-    from emucompile.profile.reader import pointer_join
-
     problems, seen = [], set()
     for error in _validator().iter_errors(document.value):
-        pointer = "".join(pointer_join("", t) for t in error.absolute_path)
+        pointer = "".join(reader.pointer_join("", t) for t in error.absolute_path)
         if pointer in document.replaced:
             continue
         if error.validator == "oneOf" and isinstance(error.instance, dict):
@@ -393,7 +384,7 @@ def _schema_problems(document) -> list[Problem]:
                        else "give file (a profile) or preset (a standard model)")
             described = [document.problem(pointer, message)]
         else:
-            described = _describe_schema_error(document, error, pointer)
+            described = model._describe_schema_error(document, error, pointer)
         for problem in described:
             if (problem.pointer, problem.message) not in seen:
                 seen.add((problem.pointer, problem.message))

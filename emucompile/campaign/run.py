@@ -32,7 +32,19 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
+from emucompile._lazy import LazyModule
+from emucompile.bundle import atomic
+from emucompile.campaign import cluster, index
+from emucompile.campaign.plan import Plan, expand_plan
 from emucompile.errors import EmucompileError, InputError
+
+compiler = LazyModule("emucompile.compile.compiler")
+verifier = LazyModule("emucompile.verify.run")
+model = LazyModule("emucompile.profile.model")
+target_module = LazyModule("emucompile.profile.target")
+store = LazyModule("emucompile.bundle.store")
+spread_module = LazyModule("emucompile.campaign.spread")
+outputs = LazyModule("emucompile.report.outputs")
 
 CASES_DIRECTORY = "cases"
 RECORD_FORMAT = "emucompile-campaign-case"
@@ -104,8 +116,6 @@ def run_campaign(plan, directory, *, scheduler: str | None = None, workers: int 
     >>> result = run_campaign("profiles_demo/tdl-matrix-campaign.yml", "out/matrix", workers=2)  # doctest: +SKIP
     >>> result.passed, result.counts()                                                          # doctest: +SKIP
     """
-    from emucompile.campaign.plan import Plan, expand_plan
-
     began = time.perf_counter()
     plan = plan if isinstance(plan, Plan) else expand_plan(plan)
     root = Path(directory)
@@ -123,17 +133,13 @@ def run_campaign(plan, directory, *, scheduler: str | None = None, workers: int 
     finally:
         # after an interruption, cases the workers finished but did not report yet count too
         ordered = tuple(records[c.name] or _done_record(c, root, recheck=False) or _not_run(c) for c in plan.cases)
-        from emucompile.campaign.index import write_index
-
-        index_html, campaign_json = write_index(plan, root, ordered)
+        index_html, campaign_json = index.write_index(plan, root, ordered)
     return CampaignResult(plan=plan, directory=root, records=ordered, ran=len(todo), skipped=skipped,
                           elapsed_s=time.perf_counter() - began, index_html=index_html,
                           campaign_json=campaign_json)
 
 
 def _run_cases(todo, root, records, *, scheduler, workers, client, emit, total, skipped):
-    from emucompile.campaign import cluster
-
     if client is None:
         with cluster.open_client(scheduler, workers) as opened:
             return _run_cases(todo, root, records, scheduler=scheduler, workers=workers, client=opened,
@@ -185,26 +191,17 @@ def run_case(case, directory: str, *, client=None) -> dict:
     are spread over the workers). Never raises for a failing case: a check
     that fails gives status ``failed``, an error status ``error`` with its message.
     """
-    from emucompile.compile import compiler
-    from emucompile.report import outputs
-    from emucompile.verify import run as verifier
-    from emucompile.profile.model import profile_from_document
-
     root = Path(directory)
     bundle_path = root / case.name
     began = time.perf_counter()
     try:
-        profile = profile_from_document(case.document, source=f"case {case.name}")
+        profile = model.profile_from_document(case.document, source=f"case {case.name}")
         target = None
         if case.target is not None:
-            from emucompile.profile.target import parse_target
-
-            target = parse_target(case.target, file=f"case {case.name} target")
+            target = target_module.parse_target(case.target, file=f"case {case.name} target")
         options = dict(case.compile_options, target=target, force=True)
         if client is not None:
-            from emucompile.campaign.spread import compile_spread
-
-            compile_spread(profile, bundle_path, client=client, **options)
+            spread_module.compile_spread(profile, bundle_path, client=client, **options)
         else:
             compiler.compile_profile(profile, bundle_path, **options)
         verification = verifier.verify_bundle(bundle_path, false_alarm=case.false_alarm)
@@ -275,33 +272,25 @@ def _failed_text(record) -> str:
 
 
 def _write_record(root: Path, record: dict) -> None:
-    from emucompile.campaign.index import write_atomic
-
-    write_atomic(root / CASES_DIRECTORY / f"{record['name']}.json",
+    index.write_atomic(root / CASES_DIRECTORY / f"{record['name']}.json",
                  json.dumps(record, indent=2, allow_nan=False) + "\n")
 
 
 def _done_record(case, root: Path, *, recheck: bool) -> dict | None:
     """The case's record when the case is done and whole (see the module notes), else None."""
-    from emucompile.bundle.store import (
-        MANIFEST_NAME,
-        VERIFICATION_DIRECTORY,
-        verify_integrity,
-    )
-
     try:
         record = json.loads((root / CASES_DIRECTORY / f"{case.name}.json").read_text("utf-8"))
         if record.get("key") != case.key or record.get("status") not in (PASSED, FAILED):
             return None
         bundle = root / case.name
-        manifest_sha = hashlib.sha256((bundle / MANIFEST_NAME).read_bytes()).hexdigest()
-        verification = json.loads((bundle / VERIFICATION_DIRECTORY / "verification.json").read_text("utf-8"))
+        manifest_sha = hashlib.sha256((bundle / store.MANIFEST_NAME).read_bytes()).hexdigest()
+        verification = json.loads((bundle / store.VERIFICATION_DIRECTORY / "verification.json").read_text("utf-8"))
         verified_sha = verification["identity"]["manifest_sha256"]
     except (OSError, ValueError, KeyError, TypeError):
         return None
     if not (manifest_sha == record.get("manifest_sha256") == verified_sha):
         return None
-    if verify_integrity(bundle, hashes=recheck):
+    if store.verify_integrity(bundle, hashes=recheck):
         return None
     return record
 
@@ -309,12 +298,10 @@ def _done_record(case, root: Path, *, recheck: bool) -> dict | None:
 @contextlib.contextmanager
 def _terminate_as_interrupt():
     """SIGTERM raises KeyboardInterrupt here (main thread only), so the cluster is closed and the index written."""
-    from emucompile.bundle.store import raise_terminated
-
     if threading.current_thread() is not threading.main_thread() or signal.getsignal(signal.SIGTERM) != signal.SIG_DFL:
         yield
         return
-    signal.signal(signal.SIGTERM, raise_terminated)
+    signal.signal(signal.SIGTERM, atomic.raise_terminated)
     try:
         yield
     finally:

@@ -25,7 +25,14 @@ import time
 
 import numpy as np
 
+from emucompile._lazy import LazyModule
+from emucompile.campaign import cluster
 from emucompile.errors import InputError
+
+compiler = LazyModule("emucompile.compile.compiler")
+store = LazyModule("emucompile.bundle.store")
+model = LazyModule("emucompile.profile.model")
+target_module = LazyModule("emucompile.profile.target")
 
 TASKS_PER_SLOT = 4
 """Ranges per worker thread (a few, so a slow worker does not hold the end back)."""
@@ -60,21 +67,17 @@ def compile_spread(profile=None, outdir=None, *, plan=None, client=None, schedul
         A format that cannot be placed (ci16, csv, sigmf, fir), or OUTDIR not
         reachable from every worker at the same path.
     """
-    from emucompile.compile import compiler
-    from emucompile.campaign import cluster
-
     if plan is None:
         plan = compiler.plan_compile(profile, outdir, **options)
     if client is None:
         with cluster.open_client(scheduler, workers) as opened:
             return compile_spread(plan=plan, client=opened, progress=progress)
     distributed = cluster.dask_distributed()
-    from emucompile.bundle.store import BundleWriter, open_bundle
 
     began = time.perf_counter()
     spec = _spec(plan)
     ranges = _ranges(plan.n_samples, compiler.CHUNK_SAMPLES, cluster.worker_slots(client))
-    with BundleWriter(plan.outdir, plan.layout, force=plan.force, max_size_bytes=plan.max_size_bytes,
+    with store.BundleWriter(plan.outdir, plan.layout, force=plan.force, max_size_bytes=plan.max_size_bytes,
                       threaded=False) as writer:
         files = writer.placed_files()
         cluster.check_reachable(client, writer.temporary_path)
@@ -90,14 +93,12 @@ def compile_spread(profile=None, outdir=None, *, plan=None, client=None, schedul
             raise
         writer.adopt_placed()
         path = writer.finish(compiler.manifest_fields(plan))
-    return compiler.CompileResult(path=path, manifest=open_bundle(path).manifest, plan=plan,
+    return compiler.CompileResult(path=path, manifest=store.open_bundle(path).manifest, plan=plan,
                                   elapsed_s=time.perf_counter() - began)
 
 
 def place_range(spec: dict, start: int, stop: int, files: list) -> int:
     """On a worker: generate samples [start, stop) and write them into every placed file; return their count."""
-    from emucompile.compile import compiler
-
     plan = _worker_plan(spec)
     for first in range(start, stop, compiler.CHUNK_SAMPLES):
         last = min(first + compiler.CHUNK_SAMPLES, stop)
@@ -146,15 +147,10 @@ def _worker_plan(spec: dict):
     plan = _WORKER_PLANS.get(spec["key"])
     if plan is not None:
         return plan
-    from emucompile.compile import compiler
-    from emucompile.profile.model import profile_from_document
-
-    profile = profile_from_document(spec["profile"], source="spread compile")
+    profile = model.profile_from_document(spec["profile"], source="spread compile")
     target = None
     if spec["target"] is not None:
-        from emucompile.profile.target import parse_target
-
-        target = parse_target(spec["target"], file="spread compile target")
+        target = target_module.parse_target(spec["target"], file="spread compile target")
     plan = compiler.plan_compile(profile, "spread-worker", duration_s=spec["duration_s"],
                                  update_rate_hz=spec["update_rate_hz"], seed=spec["seed"], method=spec["method"],
                                  periodic=spec["periodic"], target=target, sample_rate_hz=spec["sample_rate_hz"],

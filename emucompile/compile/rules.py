@@ -2,7 +2,7 @@
 
 :func:`settle_choices` picks every choice of a compile run (command line
 first, then the profile's ``compile:`` block, then the defaults of
-:mod:`emucompile.compile.compiler`) and checks it against the profile: the update
+:mod:`emucompile.compile.defaults`) and checks it against the profile: the update
 rate against the largest Doppler of any tap gain (band edges, direct-part
 shifts, the high-speed train's peak and a moving delay's carrier drift, see
 :attr:`emucompile.profile.model.Profile.largest_doppler_hz`), the duration, the
@@ -11,10 +11,10 @@ the combinations not supported yet. Every finding is returned, errors and
 warnings, each naming the choice it concerns, so that ``validate`` can point
 at the key in the file and ``compile`` can refuse before anything is built.
 
-:func:`compile_findings` is what ``validate`` calls: these rules, then the
-rest of :func:`emucompile.compile.compiler.plan_compile` (the FIR map, the target
-fit, the engine's plan, the size of the bundle) run without writing, so a
-profile that validates is one that compiles with the same choices.
+:func:`emucompile.compile.plan.compile_findings` is what ``validate`` calls: these
+rules, then the rest of :func:`emucompile.compile.plan.plan_compile` (the FIR map,
+the target fit, the engine's plan, the size of the bundle) run without writing, so
+a profile that validates is one that compiles with the same choices.
 """
 
 from __future__ import annotations
@@ -93,7 +93,7 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
     caller draws it). ``choices`` is None when an error leaves a choice unknown.
     """
     from emucompile.models import fading
-    from emucompile.compile.compiler import (
+    from emucompile.compile.defaults import (
         DEFAULT_DURATION_S,
         DEFAULT_UPDATE_FACTOR,
         DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ,
@@ -187,40 +187,6 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
                    sample_rate_hz=rate_fs, sources=sources), findings
 
 
-def compile_findings(profile, *, target=None, max_size_bytes=None) -> list[Finding]:
-    """Every finding ``compile`` would make for this profile with no options (``validate``'s check).
-
-    The rules of :func:`settle_choices`, then the rest of the plan (FIR map,
-    target fit, engine, bundle size) made without writing anything; an error
-    there becomes one finding. ``target``: a Target or a target file's path
-    (judged with the profile, as ``compile --target FILE`` would).
-    """
-    from emucompile.compile import compiler
-
-    if max_size_bytes is None:
-        from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES
-
-        max_size_bytes = DEFAULT_MAX_SIZE_BYTES
-    from emucompile.errors import CheckFailed
-
-    # A missed expect: target stops compile with exit 1; for a file's validity it is a warning.
-    found = []
-    try:
-        compiler.expect_record(profile)
-    except CheckFailed as missed:
-        found.append(Finding("expect", f"compile will stop here: {missed.message}", missed.hint, "warning", "profile"))
-    # Only checked, never generated: the profile's seed, else 0 (no entropy drawn for nothing).
-    seed = None if profile.compile.seed is not None else 0
-    try:
-        plan = compiler.plan_compile(profile, "validate-only", target=target, seed=seed,
-                                     max_size_bytes=max_size_bytes, accept_missed_targets=True)
-    except CompileRefused as refused:
-        return found + refused.findings
-    except InputError as error:  # the FIR map, the target fit, the engine, the size
-        return [*found, Finding(None, error.message, error.hint)]
-    return found + list(plan.findings)
-
-
 MAX_SEED = 2**64 - 1
 """Largest seed (as the profile's compile.seed): numpy's SeedSequence takes any size, a file need not."""
 
@@ -304,4 +270,4 @@ def _positive(find, key, what, value, unit):
     return number
 
 
-__all__ = ["CHOICES", "Finding", "CompileRefused", "Choices", "settle_choices", "compile_findings"]
+__all__ = ["CHOICES", "Finding", "CompileRefused", "Choices", "settle_choices"]

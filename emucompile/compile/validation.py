@@ -5,7 +5,7 @@ A file is a *target file* when its content says so: a mapping with no
 ``max_paths``, ``coefficient_bits``, ...); everything else is read as a
 profile. A profile is checked by :func:`emucompile.profile.model.check_document`
 and then by every rule ``compile`` applies to its choices
-(:func:`emucompile.compile.rules.compile_findings`, the same code), each finding
+(:func:`emucompile.compile.plan.compile_findings`, the same code), each finding
 placed at the ``compile:`` key it concerns. With ``target`` (``validate
 --target FILE``) each profile is judged together with that target, as
 ``compile --target FILE`` would judge the pair.
@@ -93,7 +93,7 @@ def validate_file(source, *, target=None, target_name: str | None = None) -> Fil
 
 def compile_problems(profile, document, *, target=None) -> list[Problem]:
     """Compile's findings for this profile as problems placed in ``document`` (``/compile/KEY``)."""
-    from emucompile.compile.rules import compile_findings
+    from emucompile.compile.plan import compile_findings
 
     found = []
     for finding in compile_findings(profile, target=target):

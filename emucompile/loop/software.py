@@ -13,6 +13,8 @@ import math
 
 import numpy as np
 
+from emucompile.apply.replay import apply_channel
+from emucompile.bundle.store import open_bundle
 
 SET_UP_GAIN = 0.5 * np.exp(0.7j)
 """-6.02 dB at 40.1 degrees: the set-up's gain the tests give the emulator's path."""
@@ -21,9 +23,6 @@ SET_UP_GAIN = 0.5 * np.exp(0.7j)
 def play(design, bundle, *, gains=None, fir_matrix=None, between="linear", snr_db=30.0, bulk=3, cfo_hz=3.0,
          gain=SET_UP_GAIN, seed=5) -> np.ndarray:
     """The capture, (n, n_rx) complex64; ``gains`` or ``fir_matrix`` replace the bundle's to play a fault."""
-    from emucompile.apply.replay import apply_channel
-    from emucompile.bundle.store import open_bundle
-
     opened = open_bundle(bundle)
     rate = design.sample_rate_hz
     g = opened.tap_gains if gains is None else gains

@@ -25,14 +25,12 @@ from __future__ import annotations
 
 import base64
 import datetime as _dt
-import os
-import secrets
 from pathlib import Path
 
 from emucompile._version import __version__
-from emucompile.bundle.store import fsync_directory
-from emucompile.report import html_text as fmt
+from emucompile.bundle import atomic
 from emucompile.profile.blocks import correlation_text
+from emucompile.report import html_text as fmt
 from emucompile.verify.describe import check_matrix, comparison
 
 #: The cautions printed in every report (common practice for lab test records).
@@ -146,20 +144,8 @@ def write_report(verification, figures, path, **options) -> Path:
 
 
 def write_text_atomic(path, text: str) -> Path:
-    """Write ``text`` (UTF-8) to ``path`` through a fsync-ed temporary sibling and a rename; return the path."""
-    path = Path(path)
-    temporary = path.with_name(f".{path.name}.emucompile-tmp-{os.getpid()}-{secrets.token_hex(4)}")
-    try:
-        with open(temporary, "w", encoding="utf-8", newline="\n") as stream:
-            stream.write(text)
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.replace(temporary, path)
-    except BaseException:
-        temporary.unlink(missing_ok=True)
-        raise
-    fsync_directory(path.parent)
-    return path
+    """Write ``text`` (UTF-8) to ``path`` atomically; return the path (:func:`emucompile.bundle.atomic.write_text_atomic`)."""
+    return atomic.write_text_atomic(path, text)
 
 
 # -- sections ----------------------------------------------------------------------

@@ -9,10 +9,10 @@ go" in :mod:`emucompile.verify.run`). Verify itself writes nothing.
 from __future__ import annotations
 
 import json
-import os
 from pathlib import Path
 
 from emucompile._lazy import LazyModule
+from emucompile.bundle import atomic
 from emucompile.errors import InputError
 from emucompile.report.html import write_report
 from emucompile.verify.run import default_output_directory
@@ -73,9 +73,7 @@ def write_outputs(verification, *, directory=None, report_file=None, plots: bool
 
 
 def _write_atomic(path: Path, data: bytes) -> None:
-    temporary = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    temporary.write_bytes(data)
-    os.replace(temporary, path)
+    atomic.write_bytes_atomic(path, data)
 
 
 __all__ = ["write_outputs", "default_output_directory", "JSON_NAME", "REPORT_NAME"]

@@ -16,6 +16,7 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 from scipy import fft, signal
 
+from emucompile.bundle import quantised
 from emucompile.models.mimo import links_from_gains
 
 RECORD_RATE_FACTOR = 8.0
@@ -196,8 +197,7 @@ class Ci16Source(MappedSource):
         self.scale = scale
 
     def read(self, start, stop):
-        codes = np.asarray(self.array[start:stop], dtype=np.float32)
-        block = (codes[..., 0] + 1j * codes[..., 1]) / self.scale
+        block = quantised.dequantise_ci16(np.asarray(self.array[start:stop]), self.scale)  # the one dequantiser
         if self.divide_by is not None:
             block = block / self.divide_by(start, stop)[:, None, None, None]
         return links_from_gains(block)

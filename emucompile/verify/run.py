@@ -114,6 +114,7 @@ import numpy as np
 
 from emucompile._version import __version__
 from emucompile.bundle import store as bd
+from emucompile.bundle import formats
 from emucompile.bundle.formats import sha256_file
 from emucompile.errors import InputError, Problem
 from emucompile.profile.model import Profile, load_profile, profile_from_document
@@ -449,7 +450,7 @@ def _has_shadowing(manifest):
 
 
 def _ci16_source(root, entry, shape, shadowing):
-    codes = bd.member_raw(root, entry, "<i2", (*shape, 2))
+    codes = formats.get("ci16").reader(root, [entry], shape)  # the registry's reader: the stored int16 codes
     divide = None if shadowing is None else shadowing.shadowing_amplitude
     return decimate.Ci16Source(codes, float(entry["quantisation"]["scale_factor"]), divide)
 

@@ -15,12 +15,14 @@ import hashlib
 import json
 import math
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import stats
 
 from emucompile.bundle import formats as fmt
+from emucompile.bundle import store
 
 
 def _gains(seed, shape, powers):
@@ -358,3 +360,38 @@ def test_ci16_codes_follow_the_float64_rule_at_exact_halves_clipping_and_block_e
     expected = [fmt._db_ratio(s, e) for s, e in zip(np.square(components / 2.0).sum(axis=(0, 1, 2, 4)),
                                                     np.square(error).sum(axis=(0, 1, 2, 4)))]
     assert entry["quantisation"]["sqnr_db_per_tap"] == pytest.approx(expected, abs=2e-3)  # rounded to 1e-3 dB
+
+
+# -- the registry ----------------------------------------------------------------------------
+
+
+def test_the_registry_names_what_the_manifest_schema_allows():
+    schema = json.loads((Path(__file__).resolve().parents[2] / "schemas" / "bundle-manifest-v1.schema.json")
+                        .read_text("utf-8"))
+    assert list(fmt.EXTRA_FORMATS) == schema["properties"]["formats"]["items"]["enum"]
+    roles = set(schema["$defs"]["file"]["properties"]["role"]["enum"])
+    # every format's role is a role; the others are the bundle's own files (map, shadowing, SigMF metadata, codes)
+    assert {f.role for f in fmt.FORMATS.values()} <= roles
+    own = {"fir_map", "sigmf_meta", "shadowing_db", fmt.FIR_CODES_ROLE}
+    assert roles - {f.role for f in fmt.FORMATS.values()} == own
+
+
+def test_every_format_reads_back_what_it_wrote(tmp_path):
+    gains = (np.random.default_rng(4).standard_normal((300, 1, 1, 2, 2)) * 0.3).view(np.complex128)[..., 0]
+    gains = gains.astype(np.complex64)
+    layout = store.BundleLayout(n_samples=300, n_taps=2, update_rate_hz=100.0, formats=fmt.EXTRA_FORMATS,
+                                fir_map=np.eye(2), tap_power_linear=(1.0, 0.5), tap_k_linear=(0.0, 0.0))
+    fields = {"generator_version": 1, "profile_sha256": "0" * 64, "resolved_profile_sha256": "0" * 64,
+              "profile": {"name": "x"}, "seed": 1, "method": "doppler-filter", "generator": {}, "duration_s": 3.0,
+              "periodic": False, "mimo": None, "conditions": None,
+              "taps": [{"delay_s": 0.0, "power_db": 0.0, "fading": "rayleigh", "k_db": None, "max_doppler_hz": 1.0,
+                        "los_doppler_hz": None, "los_phase_deg": None, "spectrum": "classical"}] * 2,
+              "fir": {"sample_rate_hz": 1e6, "n_fir": 2, "delay_mapping": "nearest", "bulk_delay_samples": 0,
+                      "energy_kept": 1.0, "rms_delay_spread_s": 0.0}}
+    bundle = store.open_bundle(store.write_bundle(tmp_path / "b", layout, [gains], fields))
+    for name in fmt.FORMATS:
+        back = np.asarray(bundle.read_format(name))
+        # ci16 is quantised (|error| <= half a step per component); csv keeps 10 significant digits
+        step = 1.0 / bundle.entry("tap_gains_ci16")["quantisation"]["scale_factor"]
+        tolerance = step if name == "ci16" else 1e-6
+        assert back.shape == gains.shape and np.abs(back - gains).max() <= tolerance, name

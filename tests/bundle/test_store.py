@@ -26,7 +26,9 @@ import numpy as np
 import pytest
 
 from emucompile.bundle import store as bd
+from emucompile.bundle import atomic
 from emucompile.bundle import formats as fmt
+from emucompile.bundle import writers
 from emucompile.errors import EXIT_BAD_INPUT, EmucompileError, InputError
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -382,7 +384,7 @@ def test_force_replaces_a_bundle_and_leaves_no_trace_of_the_old_one(tmp_path):
 
 def test_force_replaces_without_the_atomic_exchange_too(tmp_path, monkeypatch):
     out = build(tmp_path / "b")
-    monkeypatch.setattr(bd, "_renameat2", lambda *args: False)  # as on a system without renameat2
+    monkeypatch.setattr(atomic, "_renameat2", lambda *args: False)  # as on a system without renameat2
     build(out, seed=2, force=True)
     np.testing.assert_array_equal(np.load(out / "tap_gains.npy"), expected_gains(layout(), seed=2))
     assert leftovers(tmp_path) == []
@@ -505,14 +507,14 @@ def test_temporary_names_are_ignored_by_git():
 @pytest.mark.parametrize("threaded", [True, False])
 def test_a_full_disk_removes_the_partial_directory(tmp_path, monkeypatch, threaded):
     # /dev/full answers every write with ENOSPC, exactly as a full filesystem does.
-    real_open = fmt._open_new_file
+    real_open = writers._open_new_file
 
     def open_some_on_a_full_disk(path):
         if path.endswith("tap_gains.cf32"):
             return os.open("/dev/full", os.O_WRONLY)
         return real_open(path)
 
-    monkeypatch.setattr(fmt, "_open_new_file", open_some_on_a_full_disk)
+    monkeypatch.setattr(writers, "_open_new_file", open_some_on_a_full_disk)
     with pytest.raises(InputError, match=r"no space left on the device while writing tap_gains\.cf32; nothing was written") as caught:
         build(tmp_path / "b", layout(formats="cf32"), threaded=threaded)
     assert isinstance(caught.value.__cause__, OSError) and caught.value.__cause__.errno == errno.ENOSPC
@@ -522,7 +524,7 @@ def test_a_full_disk_removes_the_partial_directory(tmp_path, monkeypatch, thread
 def test_a_full_disk_during_force_keeps_the_old_bundle(tmp_path, monkeypatch):
     out = build(tmp_path / "b")
     before = {p.name: p.read_bytes() for p in out.iterdir()}
-    monkeypatch.setattr(fmt, "_open_new_file", lambda path: os.open("/dev/full", os.O_WRONLY))
+    monkeypatch.setattr(writers, "_open_new_file", lambda path: os.open("/dev/full", os.O_WRONLY))
     with pytest.raises(InputError, match="no space left"):
         build(out, seed=2, force=True)
     assert {p.name: p.read_bytes() for p in out.iterdir()} == before and leftovers(tmp_path) == []
@@ -548,13 +550,13 @@ def test_ctrl_c_in_process_leaves_nothing(tmp_path):
 def test_ctrl_c_during_the_final_rename_completes_the_bundle_then_stops(tmp_path, monkeypatch):
     # An interrupt arriving while the directory is moved into place is held until
     # the move is done: the bundle is then complete and valid, and the caller still stops.
-    real_rename = bd._rename_no_replace
+    real_rename = atomic.rename_no_replace
 
     def rename_while_interrupted(*args):
         signal.raise_signal(signal.SIGINT)
         real_rename(*args)
 
-    monkeypatch.setattr(bd, "_rename_no_replace", rename_while_interrupted)
+    monkeypatch.setattr(atomic, "rename_no_replace", rename_while_interrupted)
     with pytest.raises(KeyboardInterrupt) as caught:
         build(tmp_path / "b")
     assert not isinstance(caught.value, bd.WriteInterrupted)

@@ -560,3 +560,22 @@ def test_reproduce_names_the_edited_gains_file_as_edited_not_as_same_bytes(profi
     statuses = {f.name: f.status for f in result.files}
     assert statuses == {"tap_gains.npy": compiler.EDITED, "tap_gains.cf32": compiler.SAME_BYTES}
     assert result.status == compiler.DIFFERENT and result.max_relative_error > 0.5
+
+
+def test_force_does_not_lift_the_csv_row_limit_its_own_option_does(profile_file, tmp_path):
+    # 600 s at 2000 Hz is 1.2 million rows, above the csv limit of 1,000,000: planned only, nothing written.
+    long = dict(duration_s=600, update_rate_hz=2000, seed=1, formats="csv")
+    with pytest.raises(InputError, match="rows is above the limit") as refused:
+        compiler.plan_compile(profile_file, tmp_path / "b", force=True, **long)
+    assert "--csv-any-size" in refused.value.hint
+    plan = compiler.plan_compile(profile_file, tmp_path / "b", csv_any_size=True, **long)
+    assert plan.layout.csv_max_rows is None and "csv" in plan.formats
+
+
+def test_the_summary_the_command_prints_comes_from_the_result(profile_file, tmp_path):
+    result = compiler.compile_profile(profile_file, tmp_path / "b", duration_s=2, seed=3)
+    printed = CliRunner().invoke(cli, ["compile", str(profile_file), "-o", str(tmp_path / "c"), "--duration", "2",
+                                       "--seed", "3"])
+    assert printed.exit_code == 0, printed.output
+    assert result.summary().splitlines()[1:4] == printed.stdout.splitlines()[1:4]  # profile, samples, method
+    assert result.to_dict()["seed"] == 3 and result.to_dict()["bundle"] == str(tmp_path / "b")

@@ -197,7 +197,7 @@ def test_write_report_is_atomic(tmp_path, inputs, monkeypatch):
     def failing_replace(source, destination):
         raise OSError("disk went away")
 
-    monkeypatch.setattr(report.os, "replace", failing_replace)
+    monkeypatch.setattr(os, "replace", failing_replace)
     with pytest.raises(OSError, match="disk went away"):
         report.write_report(verification, figures[:1], target)
     assert target.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")  # the previous one, whole
