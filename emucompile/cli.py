@@ -18,7 +18,26 @@ import click
 
 from emucompile._version import __version__
 from emucompile.bundle import formats as bundle_formats
-from emucompile.errors import EXIT_BAD_INPUT, EmucompileError
+from emucompile._lazy import LazyModule
+from emucompile.errors import EXIT_BAD_INPUT, CheckFailed, EmucompileError, InputError, ProfileError
+
+# The library, loaded when a command first uses it: `--version` and `validate` start fast
+# (tests/test_startup.py).
+card = LazyModule("emucompile.report.card")
+compiler = LazyModule("emucompile.compile.compiler")
+differ = LazyModule("emucompile.diff")
+measuring = LazyModule("emucompile.loop.measure")
+outputs = LazyModule("emucompile.report.outputs")
+plans = LazyModule("emucompile.campaign")
+preset_library = LazyModule("emucompile.profile.presets")
+probes = LazyModule("emucompile.loop.probe")
+profile_model = LazyModule("emucompile.profile.model")
+reader = LazyModule("emucompile.profile.reader")
+replay = LazyModule("emucompile.apply.replay")
+profile_stats = LazyModule("emucompile.profile.stats")
+store = LazyModule("emucompile.bundle.store")
+validation = LazyModule("emucompile.compile.validation")
+verifier = LazyModule("emucompile.verify.run")
 
 EXIT_INTERNAL = 3
 EXIT_BROKEN_PIPE = 141  # 128 + SIGPIPE, what a shell shows for a tool that stopped on a closed pipe
@@ -125,7 +144,6 @@ class ByteSize(click.ParamType):
 
 
 def _not_built(what: str):
-    from emucompile.errors import InputError
 
     raise InputError(f"'{what}' is not supported yet in emucompile {__version__}")
 
@@ -173,9 +191,7 @@ def validate(profiles, target_file, as_json):
 def _validate_command(profiles, target_file, as_json):
     import json
 
-    from emucompile.compile.validation import validate_files
-
-    verdicts = validate_files(profiles, target_file=target_file)
+    verdicts = validation.validate_files(profiles, target_file=target_file)
     if as_json:
         click.echo(json.dumps({"valid": all(v.valid for v in verdicts), "files": [v.to_dict() for v in verdicts]},
                               indent=2, allow_nan=False))
@@ -203,22 +219,18 @@ def stats(profile, as_json, html_file):
     """
     import json
 
-    from emucompile.errors import CheckFailed, ProfileError
-    from emucompile.profile.model import check_profile
-    from emucompile.profile.stats import check_targets, format_statistics, profile_statistics
-
-    loaded, problems = check_profile(profile)
+    loaded, problems = profile_model.check_profile(profile)
     if loaded is None:
         raise ProfileError(problems)
     for problem in problems:
         click.echo(problem.format(), err=True)
-    statistics = profile_statistics(loaded)
-    targets = check_targets(loaded, statistics)
+    statistics = profile_stats.profile_statistics(loaded)
+    targets = profile_stats.check_targets(loaded, statistics)
     if as_json:
         document = dict(statistics, source=profile, expect=[t.to_dict() for t in targets])
         click.echo(json.dumps(document, indent=2, allow_nan=False))
     else:
-        click.echo(format_statistics(statistics, targets))
+        click.echo(profile_stats.format_statistics(statistics, targets))
     if html_file:
         _write_card(loaded, html_file, as_json)
     missed = [t.quantity for t in targets if not t.met]
@@ -228,11 +240,9 @@ def stats(profile, as_json, html_file):
 
 
 def _write_card(profile, html_file, as_json):
-    from emucompile.report.card import write_profile_card
-    from emucompile.errors import InputError
 
     try:
-        written = write_profile_card(profile, html_file)
+        written = card.write_profile_card(profile, html_file)
     except OSError as error:
         raise InputError(f"{html_file}: cannot write the profile card: {error.strerror or error}") from None
     click.echo(f"wrote the profile card {written}", err=as_json)
@@ -284,15 +294,12 @@ def compile_command(profile, outdir, quiet, max_size, target_file, **options):
 def _compile_command(profile, outdir, quiet, max_size, target_file, options):
     import json
 
-    from emucompile.compile import compiler
-    from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES
-
     as_json = options.pop("as_json")
     scheduler, workers = options.pop("scheduler"), options.pop("workers")
     quiet = quiet or as_json
     plan = compiler.plan_compile(
         profile, outdir, target=target_file,
-        max_size_bytes=DEFAULT_MAX_SIZE_BYTES if max_size is None else max_size, **options,
+        max_size_bytes=store.DEFAULT_MAX_SIZE_BYTES if max_size is None else max_size, **options,
     )
     for warning in plan.warnings:
         click.echo(f"emucompile: warning: {warning}", err=True)
@@ -303,9 +310,8 @@ def _compile_command(profile, outdir, quiet, max_size, target_file, options):
         if scheduler is None and workers is None:
             result = compiler.run_plan(plan, progress=update)
         else:
-            from emucompile.campaign import compile_spread
 
-            result = compile_spread(plan=plan, scheduler=scheduler, workers=workers, progress=update)
+            result = plans.compile_spread(plan=plan, scheduler=scheduler, workers=workers, progress=update)
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2, allow_nan=False))
     elif not quiet:
@@ -329,9 +335,6 @@ def reproduce(outdir, as_json):
 
 def _reproduce_command(outdir, as_json):
     import json
-
-    from emucompile.compile import compiler
-    from emucompile.errors import CheckFailed
 
     with _progress(None, "regenerating", as_json) as update:
         result = compiler.reproduce_bundle(outdir, progress=update)
@@ -374,9 +377,6 @@ def diff(a, b, tolerances, as_json):
 def _diff_command(a, b, tolerances, as_json):
     import json
 
-    from emucompile.diff import diff_profiles
-    from emucompile.errors import CheckFailed, InputError
-
     overrides = {}
     for item in tolerances:
         name, _, value = item.partition("=")
@@ -384,7 +384,7 @@ def _diff_command(a, b, tolerances, as_json):
             overrides[name.strip()] = float(value)
         except ValueError:
             raise InputError(f"--tolerance {item!r}: give NAME=VALUE, e.g. power_db=0.1") from None
-    result = diff_profiles(a, b, tolerances=overrides)
+    result = differ.diff_profiles(a, b, tolerances=overrides)
     if as_json:
         click.echo(json.dumps(result.as_dict(), indent=2, allow_nan=False))
     else:
@@ -426,9 +426,6 @@ def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_fil
         # verify's statistics are many short vector products: BLAS threads only contend
         # (measured: 1e6 x 12 taps, 8.7 s with OpenBLAS's default threads, 4.5 s with one)
         os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
-    from emucompile.report import outputs
-    from emucompile.verify import run as verifier
-    from emucompile.errors import CheckFailed, InputError
 
     if (outdir is None) == (gains_file is None):
         raise InputError("give either OUTDIR (a bundle) or --gains FILE --profile PROFILE --update-rate HZ")
@@ -492,9 +489,7 @@ def presets_list(as_json):
     """
     import json
 
-    from emucompile.profile.presets import list_presets
-
-    records = list_presets()
+    records = preset_library.list_presets()
     if as_json:
         click.echo(json.dumps([r.to_dict() for r in records], indent=2, allow_nan=False))
         return
@@ -521,18 +516,15 @@ def presets_show(name, delay_spread_ns, output_format):
     """
     import json
 
-    from emucompile.profile.presets import load_preset, preset_document
-    from emucompile.profile.reader import dump_yaml
-
-    document = preset_document(name, delay_spread_ns=delay_spread_ns)
+    document = preset_library.preset_document(name, delay_spread_ns=delay_spread_ns)
     if output_format == "json":
         click.echo(json.dumps(document, indent=2, allow_nan=False, ensure_ascii=False))
         return
     command = f"emucompile presets show {name}" + (
         f" --delay-spread-ns {delay_spread_ns:g}" if delay_spread_ns is not None else "")
-    click.echo(dump_yaml(document, comment=f"{command}\n{document['preset']['source']}; "
+    click.echo(reader.dump_yaml(document, comment=f"{command}\n{document['preset']['source']}; "
                          f"preset data version {document['preset']['data_version']}\n"
-                         f"against the standard's text: {load_preset(name).check_state}"), nl=False)
+                         f"against the standard's text: {preset_library.load_preset(name).check_state}"), nl=False)
 
 
 # -- apply -------------------------------------------------------------------------
@@ -568,11 +560,10 @@ def presets_show(name, delay_spread_ns, output_format):
 def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet,
           as_json, no_hash_check):
     """Pass an IQ recording through a bundle's time-varying channel."""
-    from emucompile.apply.replay import apply_bundle
 
     quiet = quiet or as_json
     with _ProgressBar("applying", quiet) as bar:
-        result = apply_bundle(
+        result = replay.apply_bundle(
             outdir, input_file, output_file, snr_db=snr_db, seed=seed, loop=loop, sample_rate_hz=sample_rate_hz,
             start_s=start_s, between_updates=between_updates, force=force, progress=bar.update,
             hash_check=not no_hash_check,
@@ -631,9 +622,8 @@ def probe(output, sample_rate_hz, bundle, profile, duration_s, output_format, ba
     Refuses (exit 2) a channel that cannot be sounded: tau_max 2 nu_max >= 1,
     or a period the delays need that repeats too slowly for the Doppler.
     """
-    from emucompile.loop.probe import write_probe
 
-    files = write_probe(output, sample_rate_hz, bundle=bundle, profile=profile, duration_s=duration_s,
+    files = probes.write_probe(output, sample_rate_hz, bundle=bundle, profile=profile, duration_s=duration_s,
                         output_format=output_format, bandwidth_hz=bandwidth_hz, n_tx=n_tx, force=force)
     d = files.design
     click.echo(f"wrote {', '.join(str(p) for p in files.data_paths)} and {files.description_path}")
@@ -668,11 +658,9 @@ def measure(capture, probe_file, bundle, profile, outdir, report_file, as_json, 
 
     if "numpy" not in sys.modules:  # as for verify: many small products; BLAS threads only contend
         os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
-    from emucompile.errors import CheckFailed, InputError
-    from emucompile.loop.measure import measure_capture
 
     with _progress(None, "measuring", as_json) as update:
-        result = measure_capture(list(capture), probe_file, bundle=bundle, profile=profile, outdir=outdir,
+        result = measuring.measure_capture(list(capture), probe_file, bundle=bundle, profile=profile, outdir=outdir,
                                  report_file=report_file, sample_rate_hz=sample_rate_hz, cfo_hz=cfo_hz,
                                  between_updates=between_updates, limit_db=limit_db, false_alarm=false_alarm,
                                  force=force, progress=update)
@@ -737,9 +725,6 @@ def campaign(plan_file, outdir, list_only, scheduler, workers, recheck, as_json,
     run), 2 when the plan is bad.
     """
     import json
-
-    from emucompile import campaign as plans
-    from emucompile.errors import CheckFailed, InputError
 
     plan = plans.expand_plan(plan_file)
     if list_only:
