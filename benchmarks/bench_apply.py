@@ -125,7 +125,7 @@ def main():
         for per_update in (2, 4, 8, 16, 32, 64, 128, 512, 2048, 15360):
             rate = SAMPLE_RATE_HZ / per_update
             g = gains_for(n, rate)
-            times = [best_of(lambda e=e: channel(e, rate, g), 1) / baseline for e in ("interval", "per-tap")]
+            times = [best_of(lambda e=e, rate=rate, g=g: channel(e, rate, g), 1) / baseline for e in ("interval", "per-tap")]
             print(f"  {per_update:>14}  {times[0]:9.2f}  {times[1]:9.2f}")
 
 

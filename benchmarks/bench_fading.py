@@ -117,7 +117,7 @@ def _work(job: dict) -> dict:
     p = fading.plan(_profile(), RATE_HZ, n, 20261202, method=job["method"], threads=threads)
     plan_s = time.perf_counter() - t0
     t0, c0 = time.perf_counter(), time.process_time()
-    for _, gains in p.chunks(CHUNK):
+    for _ in p.chunks(CHUNK):
         pass
     ours_s, ours_cpu = time.perf_counter() - t0, time.process_time() - c0
     if job["case"] == "memory":

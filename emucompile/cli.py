@@ -251,17 +251,22 @@ def _write_card(profile, html_file, as_json):
 # -- compile / reproduce -------------------------------------------------------
 
 
-@cli.command("compile", epilog="\b\nExample: emucompile compile profiles_demo/warehouse-robot.yaml -o out/robot --duration 30 --seed 7")
+@cli.command("compile",
+             epilog="\b\nExample: emucompile compile profiles_demo/warehouse-robot.yaml -o out/robot"
+                    " --duration 30 --seed 7")
 @click.argument("profile", metavar="PROFILE")
 @click.option("-o", "--output", "outdir", required=True, metavar="OUTDIR", help="Bundle directory to create.")
 @click.option("--duration", "duration_s", type=float, metavar="SECONDS", help="Length of the record.")
 @click.option("--update-rate", "update_rate_hz", type=float, metavar="HZ", help="Rate of the tap-gain samples.")
-@click.option("--seed", type=click.IntRange(0, 2**64 - 1), help="Seed of the random streams, 0 to 2**64 - 1 (recorded in the manifest).")
-@click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ", help="Emulator signal sample rate: adds the FIR map.")
+@click.option("--seed", type=click.IntRange(0, 2**64 - 1),
+              help="Seed of the random streams, 0 to 2**64 - 1 (recorded in the manifest).")
+@click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ",
+              help="Emulator signal sample rate: adds the FIR map.")
 @click.option("--delay-mapping", type=click.Choice(["sinc", "nearest"]), help="How tap delays map onto the FIR grid.")
 @click.option("--target", "target_file", metavar="FILE", help="Emulator constraints to fit the profile to.")
 @click.option("--format", "formats", metavar="LIST", help=bundle_formats.help_text())
-@click.option("--periodic", is_flag=True, default=None, help="Make the record loop seamlessly (period = record length).")
+@click.option("--periodic", is_flag=True, default=None,
+              help="Make the record loop seamlessly (period = record length).")
 @click.option("--method", type=click.Choice(["doppler-filter", "sum-of-sinusoids"]), help="Tap-gain generator.")
 @click.option("--force", is_flag=True, help="Replace OUTDIR if it is an existing bundle.")
 @click.option(bundle_formats.CSV_ROW_LIMIT_OPTION, "csv_any_size", is_flag=True,
@@ -269,13 +274,15 @@ def _write_card(profile, html_file, as_json):
 @click.option("--max-size", type=ByteSize(), metavar="SIZE", help="Refuse to write more than this (default 8GiB).")
 @click.option("--fit-tolerance-pct", type=float, metavar="PCT",
               help="How far a target fit may move the RMS delay spread, in % of the profile's (default 10).")
-@click.option("--accept-fit", is_flag=True, help="Accept a target fit beyond that tolerance (recorded in the manifest).")
+@click.option("--accept-fit", is_flag=True,
+              help="Accept a target fit beyond that tolerance (recorded in the manifest).")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
 @click.option("--accept-missed-targets", is_flag=True, help="Compile although an expect: target is missed (recorded).")
 @click.option("--json", "as_json", is_flag=True, help="Print the summary as strict JSON (no progress bar).")
 @click.option("--scheduler", metavar="ADDRESS", help="Generate the blocks on the Dask cluster at tcp://HOST:PORT "
               "(OUTDIR on storage its workers share; formats npy and cf32).")
-@click.option("--workers", type=click.IntRange(min=1), help="Generate the blocks on a local Dask cluster of N processes.")
+@click.option("--workers", type=click.IntRange(min=1),
+              help="Generate the blocks on a local Dask cluster of N processes.")
 def compile_command(profile, outdir, quiet, max_size, target_file, **options):
     """Compile a profile into a bundle of tap gains (and FIR map) in OUTDIR.
 
@@ -405,8 +412,10 @@ def _diff_command(a, b, tolerances, as_json):
 @click.option("--json", "as_json", is_flag=True, help="Print the verdicts as strict JSON.")
 @click.option("--report", "report_file", metavar="FILE", help="Write the HTML report here.")
 @click.option("--no-plots", is_flag=True, help="Skip the figures (faster).")
-@click.option("--false-alarm", type=float, default=0.01, show_default=True, metavar="P", help="Family-wise false-alarm rate of the verdict.")
-@click.option("--delivered", is_flag=True, help="Also check what the emulator receives: the ci16 data, the (target-fitted) fir.npy.")
+@click.option("--false-alarm", type=float, default=0.01, show_default=True, metavar="P",
+              help="Family-wise false-alarm rate of the verdict.")
+@click.option("--delivered", is_flag=True,
+              help="Also check what the emulator receives: the ci16 data, the (target-fitted) fir.npy.")
 def verify(outdir, gains_file, profile_file, update_rate_hz, as_json, report_file, no_plots, false_alarm, delivered):
     """Check a bundle's integrity and its statistics against theory. Exit 1 if a check fails.
 
@@ -543,7 +552,8 @@ def presets_show(name, delay_spread_ns, output_format):
              "the hashes of a very long bundle); OUTPUT may not lie inside the bundle.")
 @click.argument("outdir", metavar="OUTDIR")
 @click.argument("input_file", metavar="INPUT")
-@click.option("-o", "--output", "output_file", required=True, metavar="OUTPUT", help="Output recording (the input's format).")
+@click.option("-o", "--output", "output_file", required=True, metavar="OUTPUT",
+              help="Output recording (the input's format).")
 @click.option("--snr-db", type=float, help="Add white Gaussian noise at this SNR.")
 @click.option("--seed", type=click.IntRange(0, 2**128 - 1), help="Seed of the noise (drawn and recorded when absent).")
 @click.option("--loop", is_flag=True, help="Loop the bundle when the input is longer.")
@@ -555,7 +565,8 @@ def presets_show(name, delay_spread_ns, output_format):
               help="Gains between update instants (default: the bundle target's, else linear).")
 @click.option("--force", is_flag=True, help="Replace existing output files.")
 @click.option("--quiet", is_flag=True, help="No progress bar and no summary.")
-@click.option("--no-hash-check", is_flag=True, help="Skip the SHA-256 of the bundle files used (sizes and headers are still checked).")
+@click.option("--no-hash-check", is_flag=True,
+              help="Skip the SHA-256 of the bundle files used (sizes and headers are still checked).")
 @click.option("--json", "as_json", is_flag=True, help="Print the summary and the written metadata as strict JSON.")
 def apply(outdir, input_file, output_file, snr_db, seed, loop, sample_rate_hz, start_s, between_updates, force, quiet,
           as_json, no_hash_check):
@@ -607,13 +618,17 @@ def _apply_json(result):
 
 @cli.command(epilog="\b\nExamples:\n  emucompile probe -o lab/probe --sample-rate 30.72e6 --bundle out/robot\n"
              "  emucompile probe -o lab/probe --sample-rate 30.72e6 --profile p.yaml --format ci16 --duration 20")
-@click.option("-o", "--output", required=True, metavar="PROBE", help="Base name: PROBE.probe.json and the data file(s).")
-@click.option("--sample-rate", "sample_rate_hz", required=True, type=float, metavar="HZ", help="The generator's sample rate.")
+@click.option("-o", "--output", required=True, metavar="PROBE",
+              help="Base name: PROBE.probe.json and the data file(s).")
+@click.option("--sample-rate", "sample_rate_hz", required=True, type=float, metavar="HZ",
+              help="The generator's sample rate.")
 @click.option("--bundle", metavar="B", help="The bundle the emulator will run.")
 @click.option("--profile", metavar="P", help="Or the profile it follows.")
 @click.option("--duration", "duration_s", type=float, metavar="S", help="Default: the bundle's length, or 200 / f_D.")
-@click.option("--format", "output_format", type=click.Choice(["sigmf", "cf32", "ci16"]), default="sigmf", show_default=True)
-@click.option("--bandwidth", "bandwidth_hz", type=float, metavar="HZ", help="Occupied bandwidth (default 0.8 x the rate).")
+@click.option("--format", "output_format", type=click.Choice(["sigmf", "cf32", "ci16"]), default="sigmf",
+              show_default=True)
+@click.option("--bandwidth", "bandwidth_hz", type=float, metavar="HZ",
+              help="Occupied bandwidth (default 0.8 x the rate).")
 @click.option("--transmitters", "n_tx", type=int, metavar="N", help="Transmit antennas (default: the profile's).")
 @click.option("--force", is_flag=True, help="Replace existing files.")
 def probe(output, sample_rate_hz, bundle, profile, duration_s, output_format, bandwidth_hz, n_tx, force):
@@ -632,16 +647,21 @@ def probe(output, sample_rate_hz, bundle, profile, duration_s, output_format, ba
                f"{d.occupied_bins} bins ({d.bandwidth_hz / 1e6:g} MHz); {d.n_tx} transmitter(s)")
 
 
-@cli.command(epilog="\b\nExamples:\n  emucompile measure cap.sigmf-meta --probe lab/probe --bundle out/robot -o out/m1\n"
-             "  emucompile measure rx0.cf32 rx1.cf32 --probe lab/probe --profile p.yaml --sample-rate 30.72e6 --json")
+@cli.command(epilog="\b\nExamples:\n"
+             "  emucompile measure cap.sigmf-meta --probe lab/probe --bundle out/robot -o out/m1\n"
+             "  emucompile measure rx0.cf32 rx1.cf32 --probe lab/probe --profile p.yaml"
+             " --sample-rate 30.72e6 --json")
 @click.argument("capture", nargs=-1, required=True, metavar="CAPTURE...")
-@click.option("--probe", "probe_file", required=True, metavar="PROBE", help="The probe's description (PROBE.probe.json).")
+@click.option("--probe", "probe_file", required=True, metavar="PROBE",
+              help="The probe's description (PROBE.probe.json).")
 @click.option("--bundle", metavar="B", help="Judge against the loaded bundle (and its profile).")
 @click.option("--profile", metavar="P", help="Or against a profile only.")
-@click.option("-o", "--output", "outdir", metavar="OUTDIR", help="Write gains.npy, measurement.json and report.html here.")
+@click.option("-o", "--output", "outdir", metavar="OUTDIR",
+              help="Write gains.npy, measurement.json and report.html here.")
 @click.option("--report", "report_file", metavar="FILE", help="Write the HTML report here.")
 @click.option("--json", "as_json", is_flag=True, help="Print the measurement as strict JSON.")
-@click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ", help="Rate of a raw capture (must be the probe's).")
+@click.option("--sample-rate", "sample_rate_hz", type=float, metavar="HZ",
+              help="Rate of a raw capture (must be the probe's).")
 @click.option("--cfo-hz", type=float, metavar="HZ", help="A known frequency offset to remove.")
 @click.option("--between-updates", type=click.Choice(["linear", "hold"]), help="The emulator's gains between updates.")
 @click.option("--limit-db", type=float, metavar="DB", help="Error the lab allows beyond the noise (default -30 dB).")

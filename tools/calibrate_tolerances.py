@@ -152,7 +152,7 @@ def main(argv=None):
         if name == "out_of_band_power" or name not in samples:
             continue
         ratios = []
-        for index, rows in samples[name].items():
+        for rows in samples[name].values():
             law, m = rows[0][0], rows[0][1]
             z = [math.inf if r[2] is None else r[2] for r in rows]
             ms = {r[1] for r in rows}
@@ -166,7 +166,7 @@ def main(argv=None):
         # False alarms with the factor applied, pooled over configurations.
         counts = {lv: 0 for lv in LEVELS}
         total = 0
-        for index, rows in samples[name].items():
+        for rows in samples[name].values():
             for law, m, z in rows:
                 p = 0.0 if z is None else nulls.pvalue(law, z / c, m)
                 total += 1

@@ -92,7 +92,8 @@ class Case:
         """The case as listed by ``campaign --list --json`` (no profile document)."""
         return {
             "name": self.name, "profile": self.label, "source": self.source, "axes": dict(self.axes),
-            "compile": dict(self.compile_options), "target": None if self.target is None else self.target.get("name", "given"),
+            "compile": dict(self.compile_options),
+            "target": None if self.target is None else self.target.get("name", "given"),
             "false_alarm": self.false_alarm, "plots": self.plots, "spread_blocks": self.spread_blocks,
             "key": self.key, "resolved_profile_sha256": self.resolved_sha256, "n_samples": self.n_samples,
             "update_rate_hz": self.update_rate_hz, "estimated_size_bytes": self.estimated_size_bytes,

@@ -268,7 +268,9 @@ def _not_run(case) -> dict:
 
 def _failed_text(record) -> str:
     names = record.get("failed_checks") or []
-    return (f"{len(names)} check(s) failed: " + ", ".join(names[:6]) + (" ..." if len(names) > 6 else "")) if names else ""
+    if not names:
+        return ""
+    return f"{len(names)} check(s) failed: " + ", ".join(names[:6]) + (" ..." if len(names) > 6 else "")
 
 
 def _write_record(root: Path, record: dict) -> None:

@@ -144,7 +144,10 @@ def write_report(verification, figures, path, **options) -> Path:
 
 
 def write_text_atomic(path, text: str) -> Path:
-    """Write ``text`` (UTF-8) to ``path`` atomically; return the path (:func:`emucompile.bundle.atomic.write_text_atomic`)."""
+    """Write ``text`` (UTF-8) to ``path`` atomically; return the path.
+
+    The same as :func:`emucompile.bundle.atomic.write_text_atomic`, kept here for the report's callers.
+    """
     return atomic.write_text_atomic(path, text)
 
 

@@ -21,7 +21,6 @@ import errno
 import hashlib
 import json
 import math
-import os
 import signal
 import subprocess
 import sys
@@ -536,7 +535,7 @@ def test_memory_stays_bounded_whatever_the_length_and_progress_is_reported(tmp_p
         calls = []
         tracemalloc.start()
         ap.apply_bundle(tmp_path / "b", tmp_path / f"x{n}.npy", tmp_path / f"y{n}.npy", snr_db=30.0, seed=1, sample_rate_hz=FS,
-                        progress=lambda done, total: calls.append((done, total)))
+                        progress=lambda done, total, calls=calls: calls.append((done, total)))
         peaks.append(tracemalloc.get_traced_memory()[1])
         tracemalloc.stop()
         assert calls[0] == (0, n) and calls[-1] == (n, n)
