@@ -10,6 +10,19 @@ and ``campaign.json``), one bundle's blocks generated on several workers
 may import compile, verify and report (and what they stand on); nothing in
 the package imports it except the command line. Dask itself is imported only
 when a cluster is opened.
+
+Notes
+-----
+A case task (``run.run_case``) compiles with ``force=True`` into ``DIR/NAME``,
+verifies, writes the report, then its record ``DIR/cases/NAME.json`` (atomic)
+last; it never raises for a failing case. Its key: SHA-256 of the resolved
+profile, compile options, target, verify options and generator version; a case is
+reused only when record, manifest and ``verification.json`` agree (sizes checked;
+``recheck`` hashes). The cluster: ``LocalCluster(n_workers,
+threads_per_worker=1, processes=True)``; processes because compile and verify
+hold the GIL for much of their work. The spread compile: workers ``pwrite``
+ranges of the plain array files on the compile chunk grid and fsync; the writer
+then hashes each file as it stands and writes the manifest last as usual.
 """
 
 from __future__ import annotations

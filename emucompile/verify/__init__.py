@@ -36,4 +36,46 @@ judged and ``report/tap_panels.py`` draws them with the check's tolerance.
 A check of no single tap (MIMO links, the FIR map, the fit) is a function in
 ``checks_mimo.py`` or ``checks_fir.py``, called from ``checks.Session.run`` or
 ``run._verify_intact``, with items 4 to 6.
+
+Notes
+-----
+Order: ``bundle.verify_integrity`` (schema, sizes, npy headers, SHA-256; any
+problem is an ``IntegrityError``, exit 2, naming the file), then one pass over the
+gains (``decimate``): a Kaiser low-pass (80 dB by design, >= 70 dB tested;
+passband to the largest frequency f_b of the gains, stopband from F_out - f_b so
+nothing aliases into the band) keeps every q-th sample, q = floor(F_u / (8 f_b)),
+in polyphase form: one float32 matrix product per segment of ~256 KiB over every
+link and tap, then a shifted sum per phase; the full-rate power is summed in
+float64. Records are centred on input sample m q; periodic bundles wrap (q
+divides n), so every check looks across the wrap. Static taps are divided by the
+filter's exact response at their tone.
+
+Checks: ``tolerance.check_tap`` per tap and link, ``check_cross_correlation`` for
+every pair of fading taps (expected 0) and, for MIMO, for every pair of links of a
+tap on the diffuse parts (direct part from the manifest, shadowing divided out
+first). Holm (``tolerance.holm``) over everything with a p-value at the
+false-alarm rate. Bounds outside Holm (no false alarm): ``power_beyond_record_band``
+(images and noise up to the update rate's Nyquist, which the record's PSD cannot
+see), ``fir_map_rebuilt`` (the map rebuilt from the manifest's record equals
+``fir_map.npy`` to 1e-12), ``fir_power``, ``fir_rms_delay_spread``. ``delivered``
+repeats the per-tap checks on the ci16 codes and on the (fitted) FIR file.
+
+Printed-tolerance rule (``docs/verdicts.md``): ``passed`` is
+|value - expected| <= tolerance (value <= tolerance without an expected value),
+the tolerance at the level that decides the check after Holm. Values are on the
+scale their statistic is symmetric on (ratio, log ratio, standard score,
+Mahalanobis distance), which changes no statistic: the calibration stands.
+
+MIMO correlation: the Mahalanobis distance of rho_hat - rho with radial variance
+g (1 - |rho|^2)^2 / 2 and tangential g (1 - |rho|^2) / 2 (Isserlis' theorem, the
+delta method); one spread for |rho_hat - rho| failed 2x4 medium bundles at
+|rho| ~ 0.9-0.99 on every seed. Its factor comes from
+``tools/calibrate_mimo_correlation.py``.
+
+Not judged, and said so: T f_D < 50, K of Rayleigh taps, envelope checks of
+static taps, a direct part on a Doppler trajectory, the shadowing trajectory
+itself (divided out), MIMO correlation of foreign gains. The command sets
+``OPENBLAS_NUM_THREADS=1`` when numpy is not loaded yet: BLAS threads only contend
+on the many short products. Measured false-alarm rates and speed:
+``benchmarks/README.md``.
 """
