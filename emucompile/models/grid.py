@@ -46,6 +46,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from emucompile._lazy import LazyModule
+from emucompile.models.delays import delay_statistics
 
 # Imported on first use: reading a profile with a target: block does not design filters.
 integrate = LazyModule("scipy.integrate")
@@ -591,9 +592,7 @@ def sinc_energy_deficit(half_length: int, kaiser_beta: float) -> float:
 
 
 def rms_delay_spread(delays_s, powers_linear) -> float:
-    """Power-weighted RMS delay spread (:func:`emucompile.profile.stats.delay_statistics`); NaN when all powers are 0."""
-    from emucompile.profile.stats import delay_statistics
-
+    """Power-weighted RMS delay spread (:func:`emucompile.models.delays.delay_statistics`); NaN when all powers are 0."""
     if not np.asarray(powers_linear, dtype=float).sum() > 0:
         return math.nan
     return delay_statistics(delays_s, powers_linear)["rms_delay_spread_s"]

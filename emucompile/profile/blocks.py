@@ -45,6 +45,7 @@ from emucompile.models.conditions import (
     MovingPropagation,
 )
 from emucompile.errors import InputError
+from emucompile.profile.presets import PRESET_NAMES, load_preset
 
 # numpy imported on first use (start-up): checking a block without matrices does not need it.
 np = LazyModule("numpy")
@@ -265,8 +266,6 @@ def correlation_text(correlation: mimo.SpatialCorrelation) -> str:
 
 def parse_preset_info(block: dict, report) -> PresetInfo:
     """The ``preset:`` provenance block; warns when it names data this version does not hold."""
-    from emucompile.profile.presets import PRESET_NAMES, load_preset
-
     info = PresetInfo(**{f.name: block.get(f.name) for f in dataclasses.fields(PresetInfo)})
     if info.name not in PRESET_NAMES:
         report("/preset/name", f"preset {info.name!r} is not among this version's presets",

@@ -34,9 +34,16 @@ if TYPE_CHECKING:  # the blocks' modules load only when a profile has the block
     from emucompile.profile.blocks import Conditions, MimoSetup, PresetInfo
     from emucompile.profile.target import Target
 
+from emucompile._lazy import LazyModule
 from emucompile.errors import Problem, ProfileError
+from emucompile.profile.slips import slip_warnings
 from emucompile.profile.reader import Document, parse_text, pointer_join, pointer_tokens, read_document
 from emucompile.models.theory import SPECTRUM_KINDS, DopplerSpectrum, doppler_from_speed
+
+# Loaded when a profile has the block: a plain list of taps needs neither, and a target needs numpy.
+blocks = LazyModule("emucompile.profile.blocks")
+presets = LazyModule("emucompile.profile.presets")
+target_module = LazyModule("emucompile.profile.target")
 
 FORMAT_VERSION = 1
 FADING_KINDS = ("rayleigh", "rician", "static")
@@ -420,8 +427,6 @@ def _resolve_extends(document: Document):
     The keys resolution reads are checked against the schema first; when they
     are in error, the document's own problems are all that is reported.
     """
-    from emucompile.profile.presets import resolve_extends
-
     root = document.value
     flagged = set(document.replaced)
     problems = _non_finite_problems(document, root, "", flagged)
@@ -436,7 +441,7 @@ def _resolve_extends(document: Document):
     if touched & set(_EXTENDS_INPUTS):
         return None, problems, None
     try:
-        resolved = resolve_extends(root, source=document.filename)
+        resolved = presets.resolve_extends(root, source=document.filename)
     except ProfileError as error:
         return None, [document.problem(p.pointer, p.message, p.hint, key=p.message.startswith("unknown"))
                       for p in error.problems], None
@@ -738,16 +743,12 @@ class _Checker:
 
     def _conditions(self, raw_taps, speed_mps):
         if "conditions" in self.root:
-            from emucompile.profile.blocks import high_speed_train_taps
-
             # Known even when the block is broken: spares its taps a misleading "needs los_*".
-            self.trajectory_taps = high_speed_train_taps(self.root["conditions"], raw_taps)
+            self.trajectory_taps = blocks.high_speed_train_taps(self.root["conditions"], raw_taps)
         block = self._block("conditions", needs_taps=True)
         if block is None:
             return None
-        from emucompile.profile.blocks import parse_conditions
-
-        conditions = parse_conditions(block, self.report, taps=raw_taps, speed_mps=speed_mps,
+        conditions = blocks.parse_conditions(block, self.report, taps=raw_taps, speed_mps=speed_mps,
                                       carrier_hz=_number(self.root, "carrier_hz"))
         if conditions is not None:
             self.trajectory_taps = set(conditions.high_speed_train_taps)
@@ -757,19 +758,15 @@ class _Checker:
         block = self._block("mimo", needs_taps=True)
         if block is None:
             return None
-        from emucompile.profile.blocks import DIRECT_FADINGS, parse_mimo
-
         direct = [i for i, tap in enumerate(raw_taps)
-                  if isinstance(tap, dict) and tap.get("fading") in DIRECT_FADINGS]
-        return parse_mimo(block, self.report, direct_taps=direct)
+                  if isinstance(tap, dict) and tap.get("fading") in blocks.DIRECT_FADINGS]
+        return blocks.parse_mimo(block, self.report, direct_taps=direct)
 
     def _target(self):
         block = self._block("target")
         if block is None:
             return None
-        from emucompile.profile.target import check_target, parse_target
-
-        found = [p for p in check_target(block, file=self.document.filename, base_pointer="/target")
+        found = [p for p in target_module.check_target(block, file=self.document.filename, base_pointer="/target")
                  if p.pointer not in self.flagged]
         for problem in found:
             self.report(problem.pointer, problem.message, problem.hint, severity=problem.severity, key=True)
@@ -778,15 +775,13 @@ class _Checker:
                          key=True)
         if any(p.severity == "error" for p in found):
             return None
-        return parse_target(block, file=self.document.filename, base_pointer="/target")
+        return target_module.parse_target(block, file=self.document.filename, base_pointer="/target")
 
     def _preset(self):
         block = self._block("preset")
         if block is None:
             return None
-        from emucompile.profile.blocks import parse_preset_info
-
-        return parse_preset_info(block, self.report)
+        return blocks.parse_preset_info(block, self.report)
 
     # -- Doppler -----------------------------------------------------------------
     def _global_doppler(self):
@@ -987,8 +982,6 @@ class _Checker:
                                  "check the power; a tap this weak barely changes the channel")
 
     def _slip_warnings(self, taps):
-        from emucompile.profile.slips import slip_warnings
-
         for pointer, message, hint in slip_warnings(self.root, self._taps_without_errors(taps), self.standard_keys):
             if pointer.split("/")[1] not in self.broken_blocks:
                 self.warning(pointer, message, hint)

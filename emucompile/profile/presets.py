@@ -79,7 +79,11 @@ from dataclasses import dataclass
 from importlib import resources
 from typing import Any, Mapping
 
+from emucompile._lazy import LazyModule
 from emucompile.errors import InputError, Problem, ProfileError
+
+# numpy on first use: reading a preset's table needs none, its statistics do.
+delays_module = LazyModule("emucompile.models.delays")
 
 PRESET_NAMES = (
     "tdl-a",
@@ -722,10 +726,8 @@ def _positive_number(value) -> bool:
 
 
 def _rms_delay_spread(delays, powers_linear) -> float:
-    """The second central moment of the PDP (:func:`emucompile.profile.stats.delay_statistics`)."""
-    from emucompile.profile.stats import delay_statistics
-
-    return delay_statistics(delays, powers_linear)["rms_delay_spread_s"]
+    """The second central moment of the PDP (:func:`emucompile.models.delays.delay_statistics`)."""
+    return delays_module.delay_statistics(delays, powers_linear)["rms_delay_spread_s"]
 
 
 @functools.lru_cache(maxsize=None)

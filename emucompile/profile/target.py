@@ -74,6 +74,7 @@ import numpy as np
 
 from emucompile._lazy import LazyModule
 from emucompile.errors import CheckFailed, InputError, Problem, ProfileError
+from emucompile.profile.reader import read_document
 from emucompile.models.grid import (
     DEFAULT_HALF_LENGTH,
     DEFAULT_PASSBAND_FRACTION,
@@ -616,8 +617,6 @@ def check_target_file(source, *, format: str | None = None):
     The file is read by :func:`emucompile.profile.reader.read_document` (YAML 1.2 or
     JSON, safely, with positions), so every problem carries its line and column.
     """
-    from emucompile.profile.reader import read_document
-
     document = read_document(source, format=format)
     problems = list(document.problems)
     if not document.readable:

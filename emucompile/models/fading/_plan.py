@@ -13,7 +13,7 @@ from emucompile.errors import InputError
 from emucompile.models.fading import _design
 from emucompile.models.fading._direct import ConstantDopplerPhase
 from emucompile.models.fading._sos import SumOfSinusoidsSource
-from emucompile.models.fading._streams import DIRECT_PHASE, generator
+from emucompile.models.fading._streams import DIRECT_PHASE, GENERATOR_VERSION, generator
 from emucompile.models.fading._synthesis import DopplerFilterSource
 
 METHODS = ("doppler-filter", "sum-of-sinusoids")
@@ -130,7 +130,7 @@ class FadingPlan:
         """The method's parameters, for the manifest (JSON-ready)."""
         out = {
             "method": self.method,
-            "generator_version": _generator_version(),
+            "generator_version": GENERATOR_VERSION,
             "periodic": self.periodic,
             "update_rate_hz": self.update_rate_hz,
             "n_samples": self.n_samples,
@@ -358,12 +358,6 @@ def _doppler_design(spectrum, rates):
 @lru_cache(maxsize=4)
 def _executor(threads: int) -> ThreadPoolExecutor:
     return ThreadPoolExecutor(max_workers=threads, thread_name_prefix="emucompile-fading")
-
-
-def _generator_version():
-    from emucompile.models.fading import GENERATOR_VERSION
-
-    return GENERATOR_VERSION
 
 
 def _positive_float(value, name):
