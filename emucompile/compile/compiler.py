@@ -42,7 +42,6 @@ import numpy as np
 from emucompile.models import fading
 from emucompile.bundle.store import (
     DEFAULT_MAX_SIZE_BYTES,
-    MAX_UPDATE_TO_DOPPLER,
     BundleLayout,
     BundleWriter,
     open_bundle,
@@ -53,15 +52,20 @@ from emucompile.errors import InputError
 from emucompile.models.grid import FirMap, fir_map, moving_fir_map
 from emucompile.profile.model import Profile, load_profile, profile_from_document
 
-DEFAULT_UPDATE_FACTOR = 64
-"""Default update rate as a multiple of the largest Doppler (contract: >= 32)."""
-MIN_UPDATE_FACTOR = fading.MIN_UPDATE_RATIO
-"""Below this multiple of the largest Doppler the gains cannot carry the spectrum
-(Nyquist, 2x, with the engine's 10 % guard band)."""
-WARN_UPDATE_FACTOR = 16
-"""Below this multiple, emulators that hold or linearly interpolate coefficients add images."""
-DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ = 1000.0
-DEFAULT_DURATION_S = 10.0
+from emucompile.compile.rules import (  # noqa: F401  (the defaults are the rules' own)
+    DEFAULT_DURATION_S,
+    DEFAULT_UPDATE_FACTOR,
+    DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ,
+    MIN_UPDATE_FACTOR,
+    WARN_UPDATE_FACTOR,
+    CompileRefused,
+    expect_record,
+    fit_target,
+    refuse_oversized,
+    resolve_target,
+    settle_choices,
+)
+from emucompile.compile.rules import size_text as _size_text
 CHUNK_SAMPLES = 1 << 16
 
 
@@ -176,12 +180,10 @@ def plan_compile(
         (exit 1) The fit moves the RMS delay spread beyond the tolerance and
         ``accept_fit`` is False; nothing is written.
     """
-    from emucompile.compile.rules import CompileRefused, settle_choices
-
     profile, profile_sha256 = _profile_and_hash(profile)
     expect = expect_record(profile, accept_missed_targets)
     sources: dict = {}
-    target_obj = _target(target, profile, sources)
+    target_obj = resolve_target(target, profile, sources)
     choices, findings = settle_choices(
         profile, duration_s=duration_s, update_rate_hz=update_rate_hz, seed=seed, sample_rate_hz=sample_rate_hz,
         delay_mapping=delay_mapping, periodic=periodic, method=method, target=target_obj, sources=sources)
@@ -201,7 +203,7 @@ def plan_compile(
     formats_value = parse_formats(formats or ())
     mapping, rate_fs = choices.delay_mapping, choices.sample_rate_hz
 
-    _refuse_oversized(profile, rate, n_samples, formats_value, rate_fs, target_obj, max_size_bytes)
+    refuse_oversized(profile, rate, n_samples, formats_value, rate_fs, target_obj, max_size_bytes)
     fit = None
     acceptance = None
     grid_map = None
@@ -215,12 +217,8 @@ def plan_compile(
             formats_value = formats_value + ("fir",)
             sources["formats"] = "fir added: a moving delay's FIR varies in time"
     elif target_obj is not None:
-        from emucompile.profile.target import fit_to_target
-
-        fit = fit_to_target(target_obj, profile, update_rate_hz=rate, sample_rate_hz=rate_fs,
-                            delay_mapping=mapping)
+        fit, acceptance = fit_target(profile, target_obj, choices, fit_tolerance_pct, accept_fit)
         grid_map = fit.fir_map
-        acceptance = _judge_fit(fit, fit_tolerance_pct, accept_fit)
     elif rate_fs is not None:
         grid_map = fir_map([t.delay_s for t in profile.taps], [t.power_linear for t in profile.taps],
                            rate_fs, mapping=mapping or "sinc")
@@ -427,37 +425,6 @@ def manifest_fields(plan: CompilePlan) -> dict:
     if plan.expect is not None:
         fields["expect"] = plan.expect
     return fields
-
-
-def expect_record(profile: Profile, accept_missed: bool = False) -> dict | None:
-    """The profile's ``expect:`` targets checked as ``stats`` checks them (None without targets).
-
-    Raises :class:`~emucompile.errors.CheckFailed` (exit 1) when one is missed
-    and ``accept_missed`` is false: a bundle is not made from a profile that
-    fails its own targets unless that is asked for, and then it is recorded.
-    """
-    if not profile.expect:
-        return None
-    from emucompile.errors import CheckFailed
-    from emucompile.profile.stats import check_targets
-
-    results = check_targets(profile)
-    missed = [t.quantity for t in results if not t.met]
-    if missed and not accept_missed:
-        detail = "; ".join(_missed_text(t) for t in results if not t.met)
-        raise CheckFailed(f"{profile.source or profile.name}: {len(missed)} of {len(results)} expect: target(s) "
-                          f"missed, nothing compiled: {detail}",
-                          hint="fix the profile or its targets, which emucompile stats shows, "
-                               "or compile anyway with --accept-missed-targets")
-    return {"checked": len(results), "missed": missed, "accepted_missed": bool(missed),
-            "targets": [t.to_dict() for t in results]}
-
-
-def _missed_text(t) -> str:
-    value = "undefined" if t.value is None else f"{t.value:.6g}"
-    low = "-inf" if t.low is None else f"{t.low:.6g}"
-    high = "inf" if t.high is None else f"{t.high:.6g}"
-    return f"{t.quantity} = {value}, wanted [{low}, {high}]"
 
 
 # -- reproduce -----------------------------------------------------------------------
@@ -692,52 +659,6 @@ def _profile_and_hash(profile):
     return loaded, hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def _target(target, profile, sources):
-    if target is None:
-        found = getattr(profile, "target", None)
-        if found is not None:
-            sources["target"] = "profile"
-        return found
-    sources["target"] = "option"
-    if isinstance(target, (str, Path)):
-        from emucompile.profile import target as target_module
-
-        return target_module.load_target(target)
-    return target
-
-
-def _refuse_oversized(profile, rate, n_samples, formats, rate_fs, target, max_size_bytes) -> None:
-    """Closed-form sizes, checked before anything is designed or allocated (refused, never clamped).
-
-    The rate plan grows with update rate / Doppler; the FIR map with delay span x
-    sample rate; the bundle at least by its tap gains, each extra format's copy and
-    the FIR map (lower bounds: the exact estimate follows once the map exists).
-    """
-    edges = [t.max_doppler_hz for t in profile.taps
-             if t.fading != "static" and t.max_doppler_hz is not None and t.max_doppler_hz > 0]
-    if edges and rate / min(edges) > MAX_UPDATE_TO_DOPPLER:
-        raise InputError(
-            f"update rate {rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
-            f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x of the interpolation design",
-            hint=f"use --update-rate {MAX_UPDATE_TO_DOPPLER * min(edges):g} or less; an emulator "
-                 "interpolates between updates",
-        )
-    n_fir = 0
-    if rate_fs is not None and target is None:  # its length is checked by emucompile.compile.rules
-        delays = [t.delay_s for t in profile.taps]
-        n_fir = math.floor((max(delays) - min(delays)) * rate_fs) + 1
-    gains = n_samples * profile.n_rx * profile.n_tx * profile.n_taps * 8
-    copies = {"cf32": 1.0, "ci16": 0.5, "csv": 1.0, "sigmf": 1.0}
-    least = gains * (1 + sum(copies.get(name, 0.0) for name in formats)) + profile.n_taps * n_fir * 8
-    if "fir" in formats:
-        least += n_samples * profile.n_rx * profile.n_tx * n_fir * 8
-    if max_size_bytes is not None and least > max_size_bytes:
-        raise InputError(
-            f"the bundle would take at least {_size_text(int(least))}, above the limit of {_size_text(max_size_bytes)}",
-            hint="shorten --duration, lower --update-rate, drop formats, or raise --max-size",
-        )
-
-
 def _manifest_taps(profile, info):
     taps = []
     for tap, used in zip(profile.taps, info):
@@ -768,17 +689,6 @@ def _fir_entry(grid_map: FirMap) -> dict:
     return entry
 
 
-def _judge_fit(fit, tolerance_pct, accept_fit):
-    """The fit's delay-spread judgement; raise TargetMissed (exit 1) when missed and not accepted."""
-    from emucompile.profile import target as target_module
-
-    tolerance = target_module.DEFAULT_FIT_TOLERANCE_PCT if tolerance_pct is None else tolerance_pct
-    acceptance = target_module.judge_fit(fit.costs, tolerance, accepted=accept_fit)
-    if acceptance.missed:
-        raise target_module.missed_target_error(fit.costs, acceptance)
-    return acceptance
-
-
 def _fir_codes(fit) -> dict | None:
     """What the integer FIR coefficients' writer needs, when the target states a bit width."""
     quantisation = fit.costs.quantisation
@@ -800,13 +710,6 @@ def _platform_differences(recorded: dict) -> list[str]:
     here = platform_info()
     return [f"{key}: {recorded.get(key)} -> {here.get(key)}" for key in sorted(here)
             if recorded.get(key) != here.get(key)]
-
-
-def _size_text(n_bytes: int) -> str:
-    for unit, size in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
-        if n_bytes >= size:
-            return f"{n_bytes / size:.1f} {unit}"
-    return f"{n_bytes} B"
 
 
 __all__ = [

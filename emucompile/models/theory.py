@@ -123,12 +123,18 @@ class DopplerSpectrum:
         s = self.sigma_hz
         a = fd / s
         # Variance of a normal law truncated to [-a sigma, a sigma].
-        return s * s * (1.0 - 2.0 * a * stats.norm.pdf(a) / self._gaussian_kept_fraction())
+        density = math.exp(-0.5 * a * a) / math.sqrt(2.0 * math.pi)  # the standard normal density at a
+        return s * s * (1.0 - 2.0 * a * density / self._gaussian_kept_fraction())
 
     @property
     def rms_doppler_hz(self) -> float:
         """RMS Doppler spread sqrt(second moment); f_D/sqrt(2) for the classical spectrum."""
         return math.sqrt(self.second_moment_hz2)
+
+    @property
+    def feature_width_hz(self) -> float | None:
+        """The width of the spectrum's narrowest feature where it has one beyond f_D (the Gaussian's sigma)."""
+        return self.sigma_hz if self.kind == "gaussian" else None
 
     @property
     def band_edge_hz(self) -> float:

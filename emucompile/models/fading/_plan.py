@@ -15,9 +15,8 @@ from emucompile.models.fading._direct import ConstantDopplerPhase
 from emucompile.models.fading._sos import SumOfSinusoidsSource
 from emucompile.models.fading._streams import DIRECT_PHASE, GENERATOR_VERSION, generator
 from emucompile.models.fading._synthesis import DopplerFilterSource
+from emucompile.models.rates import DEFAULT_METHOD, METHODS, MIN_UPDATE_RATIO
 
-METHODS = ("doppler-filter", "sum-of-sinusoids")
-DEFAULT_METHOD = "doppler-filter"
 SOS_EVALUATIONS = ("interpolated", "exact")
 DEFAULT_SINUSOIDS = 256
 #: Sinusoids per quadrature for a Gaussian spectrum: its thin tails need more lines
@@ -25,7 +24,6 @@ DEFAULT_SINUSOIDS = 256
 #: PSD check fails records of T f_D = 5e4, at 1024 it passes).
 GAUSSIAN_SINUSOIDS = 1024
 DEFAULT_CHUNK = 65536
-MIN_UPDATE_RATIO = 2.2  # update rate / f_D: Nyquist with a 10 % guard band
 _PARALLEL_MIN_WORK = 1 << 15  # samples x taps below which threads do not pay
 # One thread by default: on the 2-core development machine two threads gave
 # the same wall time for 1.5x the CPU (the per-sample passes are bound by
