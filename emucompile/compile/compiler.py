@@ -39,7 +39,7 @@ from pathlib import Path
 
 import numpy as np
 
-from emucompile.models import fading
+from emucompile.models import fading, spectra
 from emucompile.bundle.store import (
     DEFAULT_MAX_SIZE_BYTES,
     BundleLayout,
@@ -671,8 +671,7 @@ def _manifest_taps(profile, info):
             "max_doppler_hz": tap.max_doppler_hz if tap.fading != "static" else None,
             "los_doppler_hz": used.get("los_doppler_hz", tap.los_doppler_hz),
             "los_phase_deg": used.get("los_phase_deg", tap.los_phase_deg),
-            "spectrum": tap.spectrum if tap.fading != "static" else None,
-            "sigma_hz": tap.sigma_hz,
+            **spectra.record(tap.spectrum if tap.fading != "static" else None, spectra.parameters_of(tap)),
         }
         if tap.los_trajectory is not None:
             entry["los_doppler_hz"] = None

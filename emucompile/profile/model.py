@@ -38,7 +38,8 @@ from emucompile._lazy import LazyModule
 from emucompile.errors import Problem, ProfileError
 from emucompile.profile.slips import slip_warnings
 from emucompile.profile.reader import Document, parse_text, pointer_join, pointer_tokens, read_document
-from emucompile.models.theory import SPECTRUM_KINDS, DopplerSpectrum, doppler_from_speed
+from emucompile.models import spectra
+from emucompile.models.theory import DopplerSpectrum, doppler_from_speed
 
 # Loaded when a profile has the block: a plain list of taps needs neither, and a target needs numpy.
 blocks = LazyModule("emucompile.profile.blocks")
@@ -62,8 +63,9 @@ class Tap:
     fading : {"rayleigh", "rician", "static"}
     k_linear : float or None
         Rician K = direct power / diffuse power (linear); None unless Rician.
-    spectrum : {"classical", "flat", "gaussian"}
-        Doppler spectrum of the diffuse part (ignored for static taps).
+    spectrum : str
+        Doppler spectrum of the diffuse part, a kind of :data:`emucompile.models.spectra.KINDS`
+        (ignored for static taps).
     max_doppler_hz : float or None
         This tap's maximum Doppler f_D (its own override, else the profile's);
         None only for a static tap when the profile gives no Doppler.
@@ -88,6 +90,9 @@ class Tap:
     drift_doppler_hz : float
         Largest |frequency shift| of the whole gain from a moving delay whose
         carrier phase follows it (0 otherwise).
+    spectrum_parameters : tuple
+        (name, value) pairs of the spectrum's parameters other than ``sigma_hz``
+        (see :mod:`emucompile.models.spectra`); empty for the built-in kinds.
     """
 
     delay_s: float
@@ -104,6 +109,7 @@ class Tap:
     los_trajectory: str | None = None
     los_peak_doppler_hz: float | None = None
     drift_doppler_hz: float = 0.0
+    spectrum_parameters: tuple = ()
 
     @property
     def power_db(self) -> float:
@@ -134,7 +140,7 @@ class Tap:
         """The diffuse part's Doppler spectrum; None for a static tap."""
         if self.fading == "static":
             return None
-        return DopplerSpectrum(self.spectrum, self.max_doppler_hz, self.sigma_hz)
+        return DopplerSpectrum(self.spectrum, self.max_doppler_hz, self.sigma_hz, **dict(self.spectrum_parameters))
 
     @property
     def largest_doppler_hz(self) -> float:
@@ -848,7 +854,9 @@ class _Checker:
             "fading": fading, "max_doppler_hz": max_doppler_hz,
             "k_db": _number(tap, "k_db"), "los_angle_deg": _number(tap, "los_angle_deg"),
             "los_phase_deg": _number(tap, "los_phase_deg"), "los_doppler_hz": None,
-            "spectrum": tap.get("spectrum", "classical"), "sigma_hz": _number(tap, "sigma_hz"),
+            "spectrum": tap.get("spectrum", spectra.DEFAULT_KIND), "sigma_hz": _number(tap, "sigma_hz"),
+            "spectrum_parameters": tuple((k, _number(tap, k)) for k in spectra.PARAMETER_NAMES
+                                         if k != "sigma_hz" and k in tap),
         }
         if fading is None:
             return resolved
@@ -913,34 +921,18 @@ class _Checker:
         return doppler
 
     def _tap_spectrum(self, here, tap, fading, max_doppler_hz):
-        spectrum = tap.get("spectrum", "classical")
+        spectrum = tap.get("spectrum", spectra.DEFAULT_KIND)
         if fading == "static":
-            for key in ("spectrum", "sigma_hz"):
+            for key in ("spectrum", *spectra.PARAMETER_NAMES):
                 if key in tap:
                     self.warning(f"{here}/{key}", f"{key} is ignored: a static tap has no diffuse "
                                  "part and so no Doppler spectrum")
             return
-        if spectrum not in SPECTRUM_KINDS:
+        if spectrum not in spectra.KINDS:
             return  # the schema has reported it
-        sigma = _number(tap, "sigma_hz")
-        if spectrum == "gaussian" and "sigma_hz" not in tap:
-            self.error(here, "a gaussian spectrum needs sigma_hz (its standard deviation in Hz)")
-        if spectrum != "gaussian" and "sigma_hz" in tap:
-            self.error(f"{here}/sigma_hz", f"sigma_hz applies to the gaussian spectrum only, "
-                       f"not {spectrum}", "remove sigma_hz, or set spectrum: gaussian", key=True)
-        if spectrum != "gaussian" or sigma is None or max_doppler_hz is None:
-            return
-        if sigma > max_doppler_hz:
-            self.error(f"{here}/sigma_hz", f"sigma_hz {_fmt(sigma, 'Hz')} exceeds the tap's maximum "
-                       f"Doppler {_fmt(max_doppler_hz, 'Hz')}",
-                       "the Gaussian spectrum is truncated at f_D; keep sigma_hz <= f_D")
-        elif max_doppler_hz < 3.0 * sigma:
-            removed = 1.0 - math.erf(max_doppler_hz / (sigma * math.sqrt(2.0)))
-            self.warning(f"{here}/sigma_hz",
-                         f"the Gaussian spectrum (sigma {_fmt(sigma, 'Hz')}) is truncated at "
-                         f"f_D = {_fmt(max_doppler_hz, 'Hz')} = {max_doppler_hz / sigma:.3g} sigma, "
-                         f"which removes {removed * 100:.3g} % of its power",
-                         "the truncated spectrum is used as is, renormalised to unit power")
+        given = {key: _number(tap, key) for key in spectra.PARAMETER_NAMES if key in tap}
+        for key, severity, message, hint, at_key in spectra.check_parameters(spectrum, max_doppler_hz, given, _fmt):
+            self.report(here if key is None else f"{here}/{key}", message, hint, severity=severity, key=at_key)
 
     # -- across taps -------------------------------------------------------------
     def _taps_without_errors(self, taps):
@@ -1063,6 +1055,7 @@ class _Checker:
                 spectrum=tap["spectrum"] if fading != "static" else "classical",
                 max_doppler_hz=tap["max_doppler_hz"],
                 sigma_hz=tap["sigma_hz"] if fading != "static" else None,
+                spectrum_parameters=tap["spectrum_parameters"] if fading != "static" else (),
                 los_doppler_hz=tap["los_doppler_hz"],
                 los_angle_deg=tap["los_angle_deg"],
                 los_phase_deg=tap["los_phase_deg"],
@@ -1112,7 +1105,7 @@ def _resolved_document(root: dict) -> dict:
     for tap in document["taps"]:
         tap.setdefault("fading", "rayleigh")
         if tap["fading"] != "static":
-            tap.setdefault("spectrum", "classical")
+            tap.setdefault("spectrum", spectra.DEFAULT_KIND)
     return document
 
 

@@ -81,6 +81,7 @@ from typing import Any, Mapping
 
 from emucompile._lazy import LazyModule
 from emucompile.errors import InputError, Problem, ProfileError
+from emucompile.models import spectra
 
 # numpy on first use: reading a preset's table needs none, its statistics do.
 delays_module = LazyModule("emucompile.models.delays")
@@ -114,7 +115,7 @@ TAP_OVERRIDE_KEYS = (
     "los_doppler_hz",
     "los_phase_deg",
     "spectrum",
-    "sigma_hz",
+    *spectra.PARAMETER_NAMES,
     "max_doppler_hz",
 )
 EXTENDS_KEYS = ("preset", "delay_spread_ns", "direct_part", "taps")
@@ -629,7 +630,7 @@ def _delay_ns(delay, scale_ns, normalised):
 # Keys that belong to one fading kind only; dropped when an override changes the kind.
 _FADING_ONLY_KEYS = {
     "rayleigh": ("k_db", "los_angle_deg", "los_doppler_hz", "los_phase_deg"),
-    "static": ("k_db", "spectrum", "sigma_hz"),
+    "static": ("k_db", "spectrum", *spectra.PARAMETER_NAMES),
     "rician": (),
 }
 
@@ -660,19 +661,24 @@ def _apply_overrides(taps, overrides, problems, pointers):
             tap.pop("los_doppler_hz", None)
         if "los_doppler_hz" in changes:
             tap.pop("los_angle_deg", None)
-        if changes.get("spectrum", "gaussian") != "gaussian" and "sigma_hz" not in changes:
-            tap.pop("sigma_hz", None)
+        if "spectrum" in changes:  # drop the parameters the new kind does not take
+            kind = spectra.SPECTRA.get(changes["spectrum"])
+            for key in spectra.PARAMETER_NAMES:
+                if key not in changes and (kind is None or key not in kind.parameter_names):
+                    tap.pop(key, None)
         tap.update(copy.deepcopy(dict(changes)))
         if tap.get("fading") == "rician":
             if "k_db" not in tap:
                 problems.append((base, f"tap {index} is Rician but has no k_db", "add k_db to the override"))
             if "los_angle_deg" not in tap and "los_doppler_hz" not in tap:
                 problems.append((base, f"tap {index} is Rician but has neither los_angle_deg nor los_doppler_hz", None))
-            tap.setdefault("spectrum", "classical")
+            tap.setdefault("spectrum", spectra.DEFAULT_KIND)
         elif tap.get("fading") == "rayleigh":
-            tap.setdefault("spectrum", "classical")
-        if tap.get("spectrum") == "gaussian" and "sigma_hz" not in tap:
-            problems.append((base, f"tap {index} has a gaussian spectrum but no sigma_hz", None))
+            tap.setdefault("spectrum", spectra.DEFAULT_KIND)
+        kind = spectra.SPECTRA.get(tap.get("spectrum"))
+        for key in kind.parameter_names if kind is not None and tap.get("fading") != "static" else ():
+            if key not in tap:
+                problems.append((base, f"tap {index} has a {kind.name} spectrum but no {key}", None))
         taps[index] = tap
     return taps
 

@@ -36,6 +36,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
+from emucompile.models import spectra
 from emucompile.models.delays import (  # noqa: F401  (re-exported: the statistics of a power delay profile)
     DELAY_RESOLUTION_S,
     TANGENCY_TOLERANCE,
@@ -304,8 +305,7 @@ def _tap_row(tap) -> dict:
         "k_linear": tap.k_linear,
         "direct_power_linear": tap.direct_power_linear,
         "scattered_power_linear": tap.diffuse_power_linear,
-        "spectrum": tap.spectrum if tap.fading != "static" else None,
-        "sigma_hz": tap.sigma_hz,
+        **spectra.record(tap.spectrum if tap.fading != "static" else None, spectra.parameters_of(tap)),
         "max_doppler_hz": tap.max_doppler_hz,
         "los_doppler_hz": tap.los_doppler_hz,
         "los_phase_deg": tap.los_phase_deg,

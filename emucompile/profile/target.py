@@ -74,6 +74,7 @@ import numpy as np
 
 from emucompile._lazy import LazyModule
 from emucompile.errors import CheckFailed, InputError, Problem, ProfileError
+from emucompile.models import spectra
 from emucompile.profile.reader import read_document
 from emucompile.models.grid import (
     DEFAULT_HALF_LENGTH,
@@ -972,8 +973,9 @@ def _merged_path(taps, members, delay_s):
     shifts = {t.los_doppler_hz or 0.0 for t in group if t.direct_power_linear > 0}
     if len(shifts) > 1:
         remarks.append("direct parts with different Doppler shifts beat: the envelope is not Rician")
-    spectra = {(t.spectrum, t.max_doppler_hz, t.sigma_hz) for t in group if t.diffuse_power_linear > 0}
-    if len(spectra) > 1:
+    kinds = {(t.spectrum, t.max_doppler_hz, tuple(sorted(spectra.parameters_of(t).items())))
+             for t in group if t.diffuse_power_linear > 0}
+    if len(kinds) > 1:
         remarks.append("the diffuse parts' Doppler spectra differ: the sum has their power-weighted mixture")
     return MergedPath(
         delay_s=float(delay_s),
@@ -1046,8 +1048,8 @@ def _spectrum_integral(spectrum, update_rate_hz, kernel):
         return float(spectrum.psd(f)) * fd * math.cos(phi) * float(kernel(f / update_rate_hz))
 
     points = None
-    if spectrum.kind == "gaussian":
-        points = [0.0]  # the peak, narrow when sigma << f_D
+    if spectrum.feature_width_hz is not None:
+        points = [0.0]  # the peak, narrow when its width << f_D
     value, _ = integrate.quad(integrand, -math.pi / 2, math.pi / 2, points=points, limit=200,
                               epsabs=0.0, epsrel=1e-10)
     return value

@@ -177,9 +177,7 @@ class TapModel:
         los = float(tap.los_doppler_hz or 0.0)
         if tap.fading == "static":
             return cls(None, float(tap.power_linear), math.inf, los)
-        spec = DopplerSpectrum(
-            tap.spectrum, float(tap.max_doppler_hz), float(tap.sigma_hz) if tap.spectrum == "gaussian" else None
-        )
+        spec = DopplerSpectrum.of(tap)
         k = float(tap.k_linear) if tap.fading == "rician" else 0.0
         return cls(spec, float(tap.power_linear), k, los if k > 0 else 0.0)
 
@@ -1041,11 +1039,7 @@ def _db(x):
 
 
 def _autocorrelation_source(spectrum):
-    return {
-        "classical": "Clarke 1968 / Jakes 1974: r = J0(2 pi f_D tau) (scipy.special.j0)",
-        "flat": "flat spectrum: r = sinc(2 f_D tau)",
-        "gaussian": "Gaussian spectrum truncated at f_D: theory.DopplerSpectrum.autocorrelation (Faddeeva form)",
-    }[spectrum.kind]
+    return spectrum.spec.autocorrelation_source
 
 
 def _lcr_source(ctx):

@@ -15,14 +15,13 @@ from emucompile.models.fading._direct import ConstantDopplerPhase
 from emucompile.models.fading._sos import SumOfSinusoidsSource
 from emucompile.models.fading._streams import DIRECT_PHASE, GENERATOR_VERSION, generator
 from emucompile.models.fading._synthesis import DopplerFilterSource
+from emucompile.models import spectra
 from emucompile.models.rates import DEFAULT_METHOD, METHODS, MIN_UPDATE_RATIO
 
 SOS_EVALUATIONS = ("interpolated", "exact")
-DEFAULT_SINUSOIDS = 256
-#: Sinusoids per quadrature for a Gaussian spectrum: its thin tails need more lines
-#: (measured, tests/test_theory.py and DEVELOPERS.md "Fading engine": at 256 the Doppler
-#: PSD check fails records of T f_D = 5e4, at 1024 it passes).
-GAUSSIAN_SINUSOIDS = 1024
+DEFAULT_SINUSOIDS = spectra.DEFAULT_SINUSOIDS
+#: Sinusoids per quadrature for a Gaussian spectrum (the registry's: its thin tails need more lines).
+GAUSSIAN_SINUSOIDS = spectra.GAUSSIAN.sinusoids
 DEFAULT_CHUNK = 65536
 _PARALLEL_MIN_WORK = 1 << 15  # samples x taps below which threads do not pay
 # One thread by default: on the 2-core development machine two threads gave
@@ -153,7 +152,7 @@ class FadingPlan:
             out["sum_of_sinusoids"] = {
                 "model": "Zheng-Xiao 2002 (random phases, random angles), quantile form",
                 "n_sinusoids_per_quadrature": self.n_sinusoids or {
-                    "classical": DEFAULT_SINUSOIDS, "flat": DEFAULT_SINUSOIDS, "gaussian": GAUSSIAN_SINUSOIDS},
+                    name: kind.sinusoids for name, kind in spectra.SPECTRA.items()},
                 "evaluation": self.sos_evaluation,
                 "phase_resolution_cycles": 2.0**-52,
             }
@@ -218,7 +217,7 @@ class FadingPlan:
         chain = _design.design_chain(rates, spectrum)
         internal_period = self.n_samples // rates.total if self.periodic else None
         if self.method == "sum-of-sinusoids":
-            count = self.n_sinusoids or (GAUSSIAN_SINUSOIDS if spectrum.kind == "gaussian" else DEFAULT_SINUSOIDS)
+            count = self.n_sinusoids or spectrum.spec.sinusoids
             return SumOfSinusoidsSource(spectrum, chain, count, self.seed, j, internal_period)
         try:
             design = _doppler_design(spectrum, rates)
