@@ -17,10 +17,7 @@ import sys
 import click
 
 from emucompile._version import __version__
-from emucompile.errors import EXIT_BAD_INPUT, EmucompileError
-
-EXIT_INTERNAL = 3
-EXIT_BROKEN_PIPE = 141  # 128 + SIGPIPE, what a shell shows for a tool that stopped on a closed pipe
+from emucompile.errors import EXIT_BAD_INPUT, EXIT_BROKEN_PIPE, EXIT_INTERNAL, EXIT_INTERRUPTED, EmucompileError
 
 
 class _ReportedError(click.ClickException):
@@ -73,7 +70,7 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             if _debug(ctx):
                 raise
-            raise _ReportedError("interrupted", 130) from None
+            raise _ReportedError("interrupted", EXIT_INTERRUPTED) from None
         except Exception as error:  # noqa: BLE001 - last line of defence
             if _debug(ctx):
                 raise

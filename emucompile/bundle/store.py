@@ -61,7 +61,17 @@ import numpy as np
 
 from emucompile.bundle import formats as fmt
 from emucompile._version import __version__
-from emucompile.errors import EmucompileError, InputError, Problem
+from emucompile.errors import (  # noqa: F401  (the bundle's errors, re-exported)
+    EXIT_INTERRUPTED,
+    EXIT_TERMINATED,
+    BundleError,
+    EmucompileError,
+    InputError,
+    MemberError,
+    Problem,
+    Terminated,
+    WriteInterrupted,
+)
 from emucompile.models.rates import DEFAULT_MAX_SIZE_BYTES, MAX_UPDATE_TO_DOPPLER, RATE_RANGE_HZ  # noqa: F401
 
 FORMAT_NAME = "emucompile-bundle"
@@ -84,25 +94,6 @@ _MANIFEST_ORDER = (
     "update_rate_hz", "n_samples", "duration_s", "n_taps", "n_rx", "n_tx", "periodic",
     "taps", "mimo", "conditions", "fir", "target", "platform", "formats", "files", "profile",
 )
-
-
-class BundleError(InputError):
-    """A directory that is not a usable bundle; ``problems`` lists every problem found."""
-
-    def __init__(self, problems: list[Problem]):
-        self.problems = list(problems)
-        super().__init__("\n".join(p.format() for p in self.problems) or "not a bundle")
-
-
-class WriteInterrupted(EmucompileError, KeyboardInterrupt):
-    """The write was interrupted (SIGINT or SIGTERM); nothing was left behind.
-
-    Both an :class:`EmucompileError` (the command line prints one line and
-    exits 130, or 143 for SIGTERM) and a :class:`KeyboardInterrupt` (so Python
-    callers that stop on Ctrl-C still do).
-    """
-
-    exit_code = 130
 
 
 def parse_formats(formats) -> tuple[str, ...]:
@@ -943,10 +934,6 @@ _RENAME_EXCHANGE = 2
 _AT_FDCWD = -100
 
 
-class Terminated(KeyboardInterrupt):
-    """SIGTERM during a write, raised in the main thread like Ctrl-C."""
-
-
 def raise_terminated(signum, frame):
     raise Terminated()
 
@@ -1037,17 +1024,6 @@ _O_NOFOLLOW = getattr(os, "O_NOFOLLOW", 0)
 _O_NONBLOCK = getattr(os, "O_NONBLOCK", 0)
 _O_DIRECTORY = getattr(os, "O_DIRECTORY", 0)
 _O_READ = os.O_RDONLY | getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)
-
-
-class MemberError(BundleError):
-    """A listed file or folder of a bundle that may not be read: missing, a link, not regular, outside."""
-
-    def __init__(self, shown, message: str, *, missing: bool = False):
-        super().__init__([Problem(str(shown), "", message)])
-        self.missing = missing
-
-
-BundleError.missing = False
 
 
 def open_member(root, name: str):
@@ -1513,7 +1489,7 @@ def _user_error(error: BaseException, outdir) -> EmucompileError | None:
         return None
     if isinstance(error, KeyboardInterrupt):
         interrupted = WriteInterrupted(f"{outdir}: {'terminated (SIGTERM)' if isinstance(error, Terminated) else 'interrupted'}; {removed}")
-        interrupted.exit_code = 143 if isinstance(error, Terminated) else 130
+        interrupted.exit_code = EXIT_TERMINATED if isinstance(error, Terminated) else EXIT_INTERRUPTED
         return interrupted
     if isinstance(error, OSError):
         where = os.path.basename(error.filename) if error.filename else "the bundle"

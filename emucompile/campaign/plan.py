@@ -21,7 +21,7 @@ import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from emucompile.errors import InputError, Problem
+from emucompile.errors import InputError, PlanError, Problem  # noqa: F401  (PlanError: re-exported)
 
 SCHEMA_RESOURCE = "schemas/campaign-plan-v1.schema.json"
 AXES = ("delay_spread_ns", "max_doppler_hz", "speed_kmh", "correlation", "target", "duration_s", "formats", "seed")
@@ -43,14 +43,6 @@ _NAME_PARTS = {
 }
 _OWN = {"seed": "seed-own", "delay_spread_ns": "ds-own", "max_doppler_hz": "fd-own", "speed_kmh": "v-own",
         "correlation": "corr-own", "target": "tgt-own", "duration_s": "t-own", "formats": "fmt-npy"}
-
-
-class PlanError(InputError):
-    """A plan that cannot run; ``problems`` lists every error found (exit code 2)."""
-
-    def __init__(self, problems: list[Problem]):
-        self.problems = list(problems)
-        super().__init__("\n".join(p.format() for p in self.problems if p.severity == "error") or "invalid plan")
 
 
 @dataclass(frozen=True)

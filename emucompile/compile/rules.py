@@ -30,7 +30,7 @@ import os
 from dataclasses import dataclass, field
 
 from emucompile._lazy import LazyModule
-from emucompile.errors import CheckFailed, InputError
+from emucompile.errors import CheckFailed, CompileRefused, InputError  # noqa: F401  (CompileRefused: re-exported)
 from emucompile.models import rates as limits
 
 # Loaded on first use: expect: targets need the profile's statistics (numpy), a target its fit.
@@ -80,16 +80,6 @@ class Finding:
         if self.key in ("target", "expect") and self.source == "profile":
             return f"/{self.key}"
         return "/compile" if self.source == "profile" else ""
-
-
-class CompileRefused(InputError):
-    """The choices of a compile run break a rule; ``findings`` holds every finding (warnings too)."""
-
-    def __init__(self, findings):
-        self.findings = list(findings)
-        errors = [f for f in self.findings if f.severity == "error"]
-        more = f" (and {len(errors) - 1} more: {'; '.join(f.message for f in errors[1:])})" if len(errors) > 1 else ""
-        super().__init__(errors[0].message + more, hint=errors[0].hint)
 
 
 @dataclass(frozen=True)

@@ -73,7 +73,7 @@ import jsonschema
 import numpy as np
 
 from emucompile._lazy import LazyModule
-from emucompile.errors import CheckFailed, InputError, Problem, ProfileError
+from emucompile.errors import CheckFailed, InputError, Problem, ProfileError, TargetMissed  # noqa: F401
 from emucompile.models import spectra
 from emucompile.profile.reader import read_document
 from emucompile.models.grid import (
@@ -390,10 +390,6 @@ def fitted_channel_rms_delay_spread(costs: "FitCosts") -> float:
     if costs.delay_mapping == "sinc" and not costs.dropped_taps:
         return float(costs.profile_rms_delay_spread_s)
     return float(costs.fit_rms_delay_spread_s)
-
-
-class TargetMissed(CheckFailed):
-    """The fit moved the RMS delay spread beyond the stated tolerance and was not accepted (exit 1)."""
 
 
 def missed_target_error(costs: "FitCosts", acceptance: FitAcceptance) -> TargetMissed:

@@ -113,7 +113,7 @@ import numpy as np
 
 from emucompile._version import __version__
 from emucompile.bundle.store import VERIFICATION_DIRECTORY
-from emucompile.errors import InputError, Problem
+from emucompile.errors import InputError, IntegrityError, Problem  # noqa: F401  (IntegrityError: re-exported)
 
 DEFAULT_FALSE_ALARM = 0.01
 RECORD_RATE_FACTOR = 8.0
@@ -134,14 +134,6 @@ MEASURED_GAINS_CAUTION = (
     "Gains estimated from measurements carry measurement noise and estimator bias that these "
     "checks do not model: a failed check may be the estimate's, not the channel's."
 )
-
-
-class IntegrityError(InputError):
-    """The bundle's files disagree with its manifest (exit 2); one line per problem, naming the file."""
-
-    def __init__(self, problems: list[Problem]):
-        self.problems = list(problems)
-        super().__init__("\n".join(p.format() for p in self.problems))
 
 
 @dataclasses.dataclass

@@ -96,6 +96,7 @@ from scipy import signal, special, stats
 from emucompile.verify import estimators
 
 from emucompile.verify import reference
+from emucompile.models import spectra
 from emucompile.models.theory import (
     DopplerSpectrum,
     average_fade_duration,
@@ -1039,7 +1040,7 @@ def _db(x):
 
 
 def _autocorrelation_source(spectrum):
-    return spectrum.spec.autocorrelation_source
+    return spectra.kind(spectrum.kind).autocorrelation_source
 
 
 def _lcr_source(ctx):
