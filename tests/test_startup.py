@@ -26,11 +26,11 @@ NEVER = ("matplotlib", "emucompile.verify.run", "emucompile.report.figures", "em
 # the formulas the planner and the engine use), without the planner, the engine or scipy's filters.
 HEAVY = NEVER + ("scipy.stats", "scipy.signal", "scipy.optimize", "scipy.integrate",
                  "emucompile.models.fading", "emucompile.compile.compiler", "emucompile.bundle.store")
-# What still loads them: an expect: target is checked against the profile's statistics (numpy, and
-# scipy.optimize for an exact coherence bandwidth), and a target: block is fitted (its costs use
-# scipy's Kaiser and Gaussian functions). The strict xfails below mark those gaps.
+# What still loads some: an expect: target is checked against the profile's statistics (numpy), and
+# a target: block is fitted (its costs use scipy's Kaiser and Gaussian functions). The strict xfails
+# below mark those gaps.
 STATISTICS_GAP = pytest.mark.xfail(strict=True, reason="validate checks expect: targets with the profile's "
-                                   "statistics (numpy; scipy.optimize for an exact coherence bandwidth)")
+                                   "statistics (numpy)")
 FIT_GAP = pytest.mark.xfail(strict=True, reason="validate fits a target: block (scipy's Kaiser and Gaussian "
                             "functions in the fit's costs)")
 
@@ -41,10 +41,6 @@ def _text(demo):
 
 def _has_expect(demo):
     return "\nexpect:" in _text(demo) or '"expect":' in _text(demo)
-
-
-def _exact_bandwidth(demo):
-    return any(f"coherence_bandwidth_{level}_" in _text(demo) for level in (50, 90))
 
 
 _PROBE = """
@@ -98,7 +94,7 @@ def test_validate_imports_no_plots(demo):
     assert not [m for m in NEVER if m in modules]
 
 
-@pytest.mark.parametrize("demo", [pytest.param(d, marks=STATISTICS_GAP) if _exact_bandwidth(d) else d for d in DEMOS])
+@pytest.mark.parametrize("demo", DEMOS)
 def test_validate_imports_no_engine_planner_or_scipy_filters(demo):
     code, modules = _loaded_after("validate", demo)
     assert code == 0
@@ -117,7 +113,6 @@ def test_validate_without_a_mimo_block_does_not_import_numpy(demo):
 def test_validate_of_a_profile_with_a_target_block_imports_no_statistics(tmp_path):
     # The target: block is checked (schema and semantics) without scipy's filters or statistics.
     text = _text("profiles_demo/warehouse-robot.yaml")
-    text = text[:text.index("\nexpect:")] + "\n"  # its expect: targets are checked elsewhere (STATISTICS_GAP)
     text += "target:\n  sample_rate_hz: 30.72e6\n  max_fir_coefficients: 256\n  coefficient_bits: 16\n"
     path = tmp_path / "with-target.yaml"
     path.write_text(text, encoding="utf-8")

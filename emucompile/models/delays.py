@@ -22,10 +22,6 @@ import math
 
 import numpy as np
 
-from emucompile._lazy import LazyModule
-
-# Imported on first use: delay statistics alone (presets list) need no root finding.
-optimize = LazyModule("scipy.optimize")
 
 
 def delay_statistics(delays_s, powers_linear) -> dict:
@@ -88,11 +84,11 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
     reciprocal), discards every interval that bound keeps above the level,
     splits each remaining one into 16 and repeats (branch and bound, at most
     6 levels deep), and refines the first interval whose right end is at or
-    below the level with ``scipy.optimize.brentq`` only at the deepest level
+    below the level by bisection (:func:`_bisect`) only at the deepest level
     (an interval that ends below the level may dip below it and come back
     first: a ripple of a weak far tap shorter than the grid step). An interval still undecided
     at the deepest level is searched for a minimum of g (a root of g', by
-    ``brentq``) that touches the level within :data:`TANGENCY_TOLERANCE`:
+    bisection) that touches the level within :data:`TANGENCY_TOLERANCE`:
     "falls to" includes touching it. No crossing is missed
     except a tangency shallower than about pi W / 64 / 16^6 (< 3e-9) in g. Taps
     less than 1 fs apart count as one delay. Weak taps far
@@ -140,8 +136,8 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
                     return float(a)
                 if g(b)[0] > level2:
                     return float(b)
-                return float(optimize.brentq(lambda x: g(x)[0] - level2, a, b,
-                                             xtol=step * 1e-12, rtol=1e-13))
+                return float(_bisect(lambda x: g(x)[0] - level2, a, b,
+                                      xtol=step * 1e-12, rtol=1e-13))
             return tangency(a, b, g_a, g_b)
         x = np.linspace(a, b, 17)
         values = g(x)
@@ -161,7 +157,7 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
         """A minimum of g in [a, b] that touches the level within TANGENCY_TOLERANCE, or None."""
         if not slope(a) < 0.0 <= slope(b):
             return None  # no minimum inside: a later interval holds it
-        x = float(optimize.brentq(slope, a, b, xtol=step * 1e-12, rtol=1e-15))
+        x = float(_bisect(slope, a, b, xtol=step * 1e-12, rtol=1e-15))
         return x if g(x)[0] <= reach else None
 
     previous_f, previous_g = 0.0, 1.0
@@ -178,6 +174,34 @@ def coherence_bandwidth(delays_s, powers_linear, correlation: float = 0.5):
         previous_f, previous_g = float(f[-1]), float(values[-1])
     return None, (f"|R(df)| stays above {correlation} up to {previous_f:.4g} Hz, as far as "
                   "it was searched")
+
+
+def _bisect(f, a, b, *, xtol, rtol):
+    """A root of ``f`` in [a, b], where f(a) and f(b) differ in sign (or one is 0), to xtol + rtol |x|.
+
+    Plain bisection (common practice; no scipy.optimize import, which costs a
+    validate of a profile with coherence-bandwidth targets most of its start-up):
+    the intervals searched here are already short (the branch and bound's deepest
+    level), so some 20 to 50 halvings reach the tolerance. The answer lies within
+    the stated tolerance of the root, as ``scipy.optimize.brentq``'s with the same
+    ``xtol`` and ``rtol`` does.
+    """
+    fa = f(a)
+    if fa == 0.0:
+        return a
+    if f(b) == 0.0:
+        return b
+    while True:
+        m = 0.5 * (a + b)
+        if b - a <= 2.0 * (xtol + rtol * abs(m)) or m in (a, b):
+            return m
+        fm = f(m)
+        if fm == 0.0:
+            return m
+        if (fm < 0.0) == (fa < 0.0):
+            a, fa = m, fm
+        else:
+            b = m
 
 
 def _normalised(delays_s, powers_linear):
