@@ -21,6 +21,10 @@ The map is real (delays act on the complex envelope; the carrier phase of a
 path belongs to its random gain) and constant in time, so applying it to a
 stream of gains is one matrix product per chunk: :meth:`FirMap.apply`.
 
+Length (about 690 lines, above the package's ~600): one concern, the map and
+its closed-form error bounds (passband error, aliasing, Kaiser window
+transform), which the map's own figures and the target fit read together.
+
 References
 ----------
 .. [Laakso1996] T. I. Laakso, V. Välimäki, M. Karjalainen, U. K. Laine,

@@ -238,7 +238,8 @@ class Conditions:
                          f"{follows}")
         if self.shadowing is not None:
             s = self.shadowing
-            lines.append(f"log-normal shadowing: sigma {s.sigma_db:g} dB, decorrelation {s.decorrelation_distance_m:g} m, "
+            lines.append(f"log-normal shadowing: sigma {s.sigma_db:g} dB, "
+                         f"decorrelation {s.decorrelation_distance_m:g} m, "
                          f"{s.speed_mps * 3.6:g} km/h, {s.hold} power held (mean {s.offset_db:.4g} dB)")
         return lines
 

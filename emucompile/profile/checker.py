@@ -321,7 +321,8 @@ class _Checker:
     def _taps_without_errors(self, taps):
         """The resolved taps none of whose values failed: a value that already failed
         (delay_ns: -1e308) says nothing more, and the warning passes must not trip on it."""
-        failed = {pointer.split("/")[2] for pointer in self.flagged | {p.pointer for p in self.problems if p.severity == "error"}
+        errors = {p.pointer for p in self.problems if p.severity == "error"}
+        failed = {pointer.split("/")[2] for pointer in self.flagged | errors
                   if pointer.startswith("/taps/")}
         return [t for t in taps if t and t["delay_s"] is not None and str(t["index"]) not in failed]
 
