@@ -72,7 +72,7 @@ _API = {
     # comparing and exchanging profiles
     "diff_profiles": "emucompile.diff",
     "validate_files": "emucompile.compile.validation",
-    "compile_findings": "emucompile.compile.plan",
+    "compile_findings": "emucompile.compile.rules",
     "write_profile_card": "emucompile.report.card",
     # the closed loop
     "write_probe": "emucompile.loop.probe",

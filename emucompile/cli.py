@@ -19,7 +19,16 @@ import click
 from emucompile._version import __version__
 from emucompile.bundle import formats as bundle_formats
 from emucompile._lazy import LazyModule
-from emucompile.errors import EXIT_BAD_INPUT, CheckFailed, EmucompileError, InputError, ProfileError
+from emucompile.errors import (
+    EXIT_BAD_INPUT,
+    EXIT_BROKEN_PIPE,
+    EXIT_INTERNAL,
+    EXIT_INTERRUPTED,
+    CheckFailed,
+    EmucompileError,
+    InputError,
+    ProfileError,
+)
 
 # The library, loaded when a command first uses it: `--version` and `validate` start fast
 # (tests/test_startup.py).
@@ -38,9 +47,6 @@ profile_stats = LazyModule("emucompile.profile.stats")
 store = LazyModule("emucompile.bundle.store")
 validation = LazyModule("emucompile.compile.validation")
 verifier = LazyModule("emucompile.verify.run")
-
-EXIT_INTERNAL = 3
-EXIT_BROKEN_PIPE = 141  # 128 + SIGPIPE, what a shell shows for a tool that stopped on a closed pipe
 
 
 class _ReportedError(click.ClickException):
@@ -93,7 +99,7 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             if _debug(ctx):
                 raise
-            raise _ReportedError("interrupted", 130) from None
+            raise _ReportedError("interrupted", EXIT_INTERRUPTED) from None
         except Exception as error:  # noqa: BLE001 - last line of defence
             if _debug(ctx):
                 raise

@@ -46,6 +46,7 @@ from emucompile.profile.model import Profile, load_profile, profile_from_documen
 
 store = LazyModule("emucompile.bundle.store")  # only for a bundle directory
 stats = LazyModule("emucompile.profile.stats")  # numpy: only when statistics are compared
+from emucompile.models import spectra
 
 DEFAULT_TOLERANCES = {
     "delay_ns": 0.01,
@@ -315,7 +316,10 @@ class _Comparer:
         self.number(f"{name} K", a.k_db, b.k_db, "k_db", "dB")
         if a.fading != "static" or b.fading != "static":
             self.text(f"{name} spectrum", a.spectrum, b.spectrum)
-            self.number(f"{name} sigma", a.sigma_hz, b.sigma_hz, "doppler_hz", "Hz")
+            pa, pb = spectra.parameters_of(a), spectra.parameters_of(b)
+            for parameter in spectra.PARAMETERS:  # a Hz parameter within the Doppler tolerance, others relative
+                self.number(f"{name} {parameter.label}", pa.get(parameter.name), pb.get(parameter.name),
+                            "doppler_hz" if parameter.unit == "Hz" else "relative", parameter.unit)
             self.number(f"{name} max Doppler", a.max_doppler_hz, b.max_doppler_hz, "doppler_hz", "Hz")
         self.number(f"{name} direct-part Doppler", a.los_doppler_hz, b.los_doppler_hz, "doppler_hz", "Hz")
         self.number(f"{name} direct-part phase", a.los_phase_deg, b.los_phase_deg, "phase_deg", "deg")

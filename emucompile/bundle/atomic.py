@@ -42,28 +42,20 @@ import signal
 import threading
 from pathlib import Path
 
-from emucompile.errors import EmucompileError, InputError
+from emucompile.errors import (  # noqa: F401  (Terminated, WriteInterrupted: re-exported)
+    EXIT_INTERRUPTED,
+    EXIT_TERMINATED,
+    EmucompileError,
+    InputError,
+    Terminated,
+    WriteInterrupted,
+)
 
 TEMP_MARKER = ".emucompile-tmp-"  # .gitignore ignores *.emucompile-tmp*/
 REMOVED = "nothing was written (the partial output was removed)"
 _RENAME_NOREPLACE = 1
 _RENAME_EXCHANGE = 2
 _AT_FDCWD = -100
-
-
-class WriteInterrupted(EmucompileError, KeyboardInterrupt):
-    """The write was interrupted (SIGINT or SIGTERM); nothing was left behind.
-
-    Both an :class:`EmucompileError` (the command line prints one line and
-    exits 130, or 143 for SIGTERM) and a :class:`KeyboardInterrupt` (so Python
-    callers that stop on Ctrl-C still do).
-    """
-
-    exit_code = 130
-
-
-class Terminated(KeyboardInterrupt):
-    """SIGTERM during a write, raised in the main thread like Ctrl-C."""
 
 
 def raise_terminated(signum, frame):
@@ -239,7 +231,7 @@ def write_failure(error: BaseException, shown) -> EmucompileError | None:
     if isinstance(error, KeyboardInterrupt):
         terminated = isinstance(error, Terminated)
         interrupted = WriteInterrupted(f"{shown}: {'terminated (SIGTERM)' if terminated else 'interrupted'}; {REMOVED}")
-        interrupted.exit_code = 143 if terminated else 130
+        interrupted.exit_code = EXIT_TERMINATED if terminated else EXIT_INTERRUPTED
         return interrupted
     if isinstance(error, OSError):
         where = _shown_name(error.filename) if error.filename else "the output"

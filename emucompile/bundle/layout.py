@@ -26,23 +26,19 @@ from emucompile._lazy import LazyModule
 from emucompile.bundle import formats as registry
 from emucompile.bundle import quantised, writers
 from emucompile.errors import Problem
+from emucompile.models.rates import DEFAULT_MAX_SIZE_BYTES, MAX_UPDATE_TO_DOPPLER, RATE_RANGE_HZ  # noqa: F401  (re-exported)
 
 jsonschema = LazyModule("jsonschema")
 
 FORMAT_NAME = "emucompile-bundle"
 FORMAT_VERSION = 1
 MANIFEST_NAME = "manifest.json"
-DEFAULT_MAX_SIZE_BYTES = 8 * 1024**3
 EXTRA_FORMATS = registry.EXTRA_FORMATS
 parse_formats = registry.parse_formats
 VERIFICATION_DIRECTORY = "verification"  # verify's reports: not hashed, replaced with the bundle
 MANIFEST_ALLOWANCE_BYTES = 64 * 1024  # the manifest embeds the profile; generous upper bound
 MANIFEST_ENTRY_BYTES = 2048  # per file entry (the ci16 entry, the largest, is about 1.5 KiB)
 MANIFEST_MAX_BYTES = 64 * 1024**2  # readers refuse a larger manifest.json (the writer too)
-RATE_RANGE_HZ = (1e-6, 1e15)  # update and sample rates a bundle may have (compile refuses others too)
-MAX_UPDATE_TO_DOPPLER = 1e6
-"""Largest update rate / a fading tap's maximum Doppler (compile's rate plan limit; readers check it too:
-verify's decimation and reproduce's design grow with it)."""
 SCHEMA_RESOURCE = "bundle-manifest-v1.schema.json"
 WRITER_FIELDS = (
     "format",

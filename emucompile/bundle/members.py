@@ -18,15 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from emucompile.bundle import readers
-from emucompile.errors import InputError, Problem
-
-
-class BundleError(InputError):
-    """A directory that is not a usable bundle; ``problems`` lists every problem found."""
-
-    def __init__(self, problems: list[Problem]):
-        self.problems = list(problems)
-        super().__init__("\n".join(p.format() for p in self.problems) or "not a bundle")
+from emucompile.errors import BundleError, InputError, MemberError, Problem  # noqa: F401  (re-exported)
 
 
 def _short_repr(value, limit: int = 40) -> str:
@@ -38,17 +30,6 @@ _O_NOFOLLOW = getattr(os, "O_NOFOLLOW", 0)
 _O_NONBLOCK = getattr(os, "O_NONBLOCK", 0)
 _O_DIRECTORY = getattr(os, "O_DIRECTORY", 0)
 _O_READ = os.O_RDONLY | getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)
-
-
-class MemberError(BundleError):
-    """A listed file or folder of a bundle that may not be read: missing, a link, not regular, outside."""
-
-    def __init__(self, shown, message: str, *, missing: bool = False):
-        super().__init__([Problem(str(shown), "", message)])
-        self.missing = missing
-
-
-BundleError.missing = False
 
 
 def open_member(root, name: str):

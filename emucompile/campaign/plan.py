@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from emucompile._lazy import LazyModule
-from emucompile.errors import EmucompileError, InputError, Problem
+from emucompile.errors import EmucompileError, InputError, PlanError, Problem  # noqa: F401  (PlanError: re-exported)
 
 compiler = LazyModule("emucompile.compile.compiler")
 fading = LazyModule("emucompile.models.fading")
@@ -51,14 +51,6 @@ _NAME_PARTS = {
 }
 _OWN = {"seed": "seed-own", "delay_spread_ns": "ds-own", "max_doppler_hz": "fd-own", "speed_kmh": "v-own",
         "correlation": "corr-own", "target": "tgt-own", "duration_s": "t-own", "formats": "fmt-npy"}
-
-
-class PlanError(InputError):
-    """A plan that cannot run; ``problems`` lists every error found (exit code 2)."""
-
-    def __init__(self, problems: list[Problem]):
-        self.problems = list(problems)
-        super().__init__("\n".join(p.format() for p in self.problems if p.severity == "error") or "invalid plan")
 
 
 @dataclass(frozen=True)

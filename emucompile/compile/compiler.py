@@ -20,8 +20,9 @@ from emucompile.compile.defaults import (  # noqa: F401 (the constants, as befor
     DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ,
     WARN_UPDATE_FACTOR,
 )
-from emucompile.compile.plan import CompilePlan, compile_findings, expect_record, plan_compile
-from emucompile.compile.reproduce import (  # noqa: F401 (_replan: verify still rebuilds a FIR map with it)
+from emucompile.compile.plan import CompilePlan, plan_compile
+from emucompile.compile.rules import MIN_UPDATE_FACTOR, compile_findings, expect_record  # noqa: F401
+from emucompile.compile.reproduce import (  # noqa: F401 (_replan: a test checks verify never calls it)
     DIFFERENT,
     EDITED,
     IDENTICAL,

@@ -1,17 +1,18 @@
 """The defaults of a compile run where neither the command line nor the profile says otherwise.
 
 Read by the rules (:mod:`emucompile.compile.rules`) and the planner
-(:mod:`emucompile.compile.plan`); a module of its own so that neither imports the other for them.
+(:mod:`emucompile.compile.plan`); light (no numpy), so that ``validate`` may read them.
 """
 
 from __future__ import annotations
 
-from emucompile._lazy import LazyModule
-
-fading = LazyModule("emucompile.models.fading")
+from emucompile.models import rates
 
 DEFAULT_UPDATE_FACTOR = 64
 """Default update rate as a multiple of the largest Doppler (at least 32)."""
+MIN_UPDATE_FACTOR = rates.MIN_UPDATE_RATIO
+"""Below this multiple of the largest Doppler the gains cannot carry the spectrum
+(Nyquist, 2x, with the engine's 10 % guard band)."""
 WARN_UPDATE_FACTOR = 16
 """Below this multiple, emulators that hold or linearly interpolate coefficients add images."""
 DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ = 1000.0
@@ -19,18 +20,9 @@ DEFAULT_DURATION_S = 10.0
 CHUNK_SAMPLES = 1 << 16
 """Samples per chunk the engine hands to the bundle writer."""
 
-
-def __getattr__(name):
-    # MIN_UPDATE_FACTOR: below this multiple of the largest Doppler the gains cannot carry the
-    # spectrum (Nyquist, 2x, with the engine's 10 % guard band); the engine's own constant,
-    # read when asked for so that importing the defaults stays light.
-    if name == "MIN_UPDATE_FACTOR":
-        return fading.MIN_UPDATE_RATIO
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-
-
 __all__ = [
     "DEFAULT_UPDATE_FACTOR",
+    "MIN_UPDATE_FACTOR",
     "WARN_UPDATE_FACTOR",
     "DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ",
     "DEFAULT_DURATION_S",

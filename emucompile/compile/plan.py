@@ -26,7 +26,6 @@ says otherwise:
 from __future__ import annotations
 
 import hashlib
-import math
 import secrets
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -34,14 +33,20 @@ from pathlib import Path
 import numpy as np
 
 from emucompile.bundle import formats as bundle_formats
-from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES, MAX_UPDATE_TO_DOPPLER, BundleLayout, parse_formats
-from emucompile.compile.rules import CompileRefused, Finding, settle_choices
-from emucompile.errors import CheckFailed, InputError
+from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES, BundleLayout, parse_formats
+from emucompile.compile.rules import (
+    CompileRefused,
+    fit_target,
+    refuse_oversized,
+    resolve_target,
+    settle_choices,
+    size_text,
+)
+from emucompile.compile.rules import expect_record  # noqa: F401  (read here by older callers)
+from emucompile.errors import InputError
 from emucompile.models import fading
 from emucompile.models.channel import SHADOWING_FILE, SHADOWING_ROLE, ChannelPlan
 from emucompile.models.grid import FirMap, fir_map, moving_fir_map
-from emucompile.profile import stats
-from emucompile.profile import target as target_module
 from emucompile.profile.model import Profile, load_profile
 
 
@@ -162,7 +167,7 @@ def plan_compile(
     profile, profile_sha256 = _profile_and_hash(profile)
     expect = expect_record(profile, accept_missed_targets)
     sources: dict = {}
-    target_obj = _target(target, profile, sources)
+    target_obj = resolve_target(target, profile, sources)
     choices, findings, warnings = _resolve_choices(
         profile,
         target_obj,
@@ -178,7 +183,7 @@ def plan_compile(
     )
     seed_value = _seed(choices.seed, sources)
     requested = parse_formats(formats or ())
-    _refuse_oversized(
+    refuse_oversized(
         profile,
         choices.update_rate_hz,
         choices.n_samples,
@@ -258,10 +263,8 @@ def _choose_fir_map(profile, choices, target, formats, sources, tolerance_pct, a
             sources["formats"] = "fir added: a moving delay's FIR varies in time"
         return _FirChoice(moving_fir_map(delays, powers, rate_fs, moving, rate), formats=formats)
     if target is not None:
-        fit = target_module.fit_to_target(
-            target, profile, update_rate_hz=rate, sample_rate_hz=rate_fs, delay_mapping=mapping
-        )
-        return _FirChoice(fit.fir_map, fit, _judge_fit(fit, tolerance_pct, accept_fit), formats)
+        fit, acceptance = fit_target(profile, target, choices, tolerance_pct, accept_fit)
+        return _FirChoice(fit.fir_map, fit, acceptance, formats)
     if rate_fs is not None:
         return _FirChoice(fir_map(delays, powers, rate_fs, mapping=mapping or "sinc"), formats=formats)
     return _FirChoice(None, formats=formats)
@@ -289,80 +292,11 @@ def _lay_out(profile, rate, engine, channel, fir: _FirChoice, csv_any_size: bool
     )
     if max_size_bytes is not None and layout.estimated_size_bytes > max_size_bytes:
         raise InputError(
-            f"the bundle would take about {_size_text(layout.estimated_size_bytes)}, above the limit "
-            f"of {_size_text(max_size_bytes)}",
+            f"the bundle would take about {size_text(layout.estimated_size_bytes)}, above the limit "
+            f"of {size_text(max_size_bytes)}",
             hint="shorten --duration, lower --update-rate, drop formats, or raise --max-size",
         )
     return layout
-
-
-def expect_record(profile: Profile, accept_missed: bool = False) -> dict | None:
-    """The profile's ``expect:`` targets checked as ``stats`` checks them (None without targets).
-
-    Raises :class:`~emucompile.errors.CheckFailed` (exit 1) when one is missed
-    and ``accept_missed`` is false: a bundle is not made from a profile that
-    fails its own targets unless that is asked for, and then it is recorded.
-    """
-    if not profile.expect:
-        return None
-    results = stats.check_targets(profile)
-    missed = [t.quantity for t in results if not t.met]
-    if missed and not accept_missed:
-        detail = "; ".join(_missed_text(t) for t in results if not t.met)
-        raise CheckFailed(
-            f"{profile.source or profile.name}: {len(missed)} of {len(results)} expect: target(s) "
-            f"missed, nothing compiled: {detail}",
-            hint="fix the profile or its targets, which emucompile stats shows, "
-            "or compile anyway with --accept-missed-targets",
-        )
-    return {
-        "checked": len(results),
-        "missed": missed,
-        "accepted_missed": bool(missed),
-        "targets": [t.to_dict() for t in results],
-    }
-
-
-def _missed_text(t) -> str:
-    value = "undefined" if t.value is None else f"{t.value:.6g}"
-    low = "-inf" if t.low is None else f"{t.low:.6g}"
-    high = "inf" if t.high is None else f"{t.high:.6g}"
-    return f"{t.quantity} = {value}, wanted [{low}, {high}]"
-
-
-def compile_findings(profile, *, target=None, max_size_bytes=None) -> list[Finding]:
-    """Every finding ``compile`` would make for this profile with no options (``validate``'s check).
-
-    The rules of :func:`emucompile.compile.rules.settle_choices`, then the rest
-    of the plan (FIR map, target fit, engine, bundle size) made without
-    writing anything; an error there becomes one finding. ``target``: a
-    Target or a target file's path (judged with the profile, as ``compile
-    --target FILE`` would).
-    """
-    if max_size_bytes is None:
-        max_size_bytes = DEFAULT_MAX_SIZE_BYTES
-    # A missed expect: target stops compile with exit 1; for a file's validity it is a warning.
-    found = []
-    try:
-        expect_record(profile)
-    except CheckFailed as missed:
-        found.append(Finding("expect", f"compile will stop here: {missed.message}", missed.hint, "warning", "profile"))
-    # Only checked, never generated: the profile's seed, else 0 (no entropy drawn for nothing).
-    seed = None if profile.compile.seed is not None else 0
-    try:
-        plan = plan_compile(
-            profile,
-            "validate-only",
-            target=target,
-            seed=seed,
-            max_size_bytes=max_size_bytes,
-            accept_missed_targets=True,
-        )
-    except CompileRefused as refused:
-        return found + refused.findings
-    except InputError as error:  # the FIR map, the target fit, the engine, the size
-        return [*found, Finding(None, error.message, error.hint)]
-    return found + list(plan.findings)
 
 
 # -- helpers -----------------------------------------------------------------------------
@@ -374,62 +308,6 @@ def _profile_and_hash(profile):
     path = Path(profile)
     loaded = load_profile(path)  # every problem of the file, or an error naming it
     return loaded, hashlib.sha256(path.read_bytes()).hexdigest()
-
-
-def _target(target, profile, sources):
-    if target is None:
-        found = getattr(profile, "target", None)
-        if found is not None:
-            sources["target"] = "profile"
-        return found
-    sources["target"] = "option"
-    if isinstance(target, (str, Path)):
-        return target_module.load_target(target)
-    return target
-
-
-def _refuse_oversized(profile, rate, n_samples, formats, rate_fs, target, max_size_bytes) -> None:
-    """Closed-form sizes, checked before anything is designed or allocated (refused, never clamped).
-
-    The rate plan grows with update rate / Doppler; the FIR map with delay span x
-    sample rate; the bundle at least by its tap gains, each extra format's copy and
-    the FIR map (lower bounds: the exact estimate follows once the map exists).
-    """
-    edges = [
-        t.max_doppler_hz
-        for t in profile.taps
-        if t.fading != "static" and t.max_doppler_hz is not None and t.max_doppler_hz > 0
-    ]
-    if edges and rate / min(edges) > MAX_UPDATE_TO_DOPPLER:
-        raise InputError(
-            f"update rate {rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
-            f"{min(edges):g} Hz, above the limit of {MAX_UPDATE_TO_DOPPLER:g} x of the interpolation design",
-            hint=f"use --update-rate {MAX_UPDATE_TO_DOPPLER * min(edges):g} or less; an emulator "
-            "interpolates between updates",
-        )
-    n_fir = 0
-    if rate_fs is not None and target is None:  # its length is checked by emucompile.compile.rules
-        delays = [t.delay_s for t in profile.taps]
-        n_fir = math.floor((max(delays) - min(delays)) * rate_fs) + 1
-    gains = n_samples * profile.n_rx * profile.n_tx * profile.n_taps * 8
-    copies = sum(bundle_formats.FORMATS[name].copy_factor for name in formats)
-    least = gains * (1 + copies) + profile.n_taps * n_fir * 8
-    if "fir" in formats:
-        least += n_samples * profile.n_rx * profile.n_tx * n_fir * 8
-    if max_size_bytes is not None and least > max_size_bytes:
-        raise InputError(
-            f"the bundle would take at least {_size_text(int(least))}, above the limit of {_size_text(max_size_bytes)}",
-            hint="shorten --duration, lower --update-rate, drop formats, or raise --max-size",
-        )
-
-
-def _judge_fit(fit, tolerance_pct, accept_fit):
-    """The fit's delay-spread judgement; raise TargetMissed (exit 1) when missed and not accepted."""
-    tolerance = target_module.DEFAULT_FIT_TOLERANCE_PCT if tolerance_pct is None else tolerance_pct
-    acceptance = target_module.judge_fit(fit.costs, tolerance, accepted=accept_fit)
-    if acceptance.missed:
-        raise target_module.missed_target_error(fit.costs, acceptance)
-    return acceptance
 
 
 def _fir_codes(fit) -> dict | None:
@@ -448,11 +326,4 @@ def _fir_codes(fit) -> dict | None:
     }
 
 
-def _size_text(n_bytes: int) -> str:
-    for unit, size in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
-        if n_bytes >= size:
-            return f"{n_bytes / size:.1f} {unit}"
-    return f"{n_bytes} B"
-
-
-__all__ = ["CompilePlan", "plan_compile", "expect_record", "compile_findings"]
+__all__ = ["CompilePlan", "plan_compile"]

@@ -2,7 +2,7 @@
 
 :func:`settle_choices` picks every choice of a compile run (command line
 first, then the profile's ``compile:`` block, then the defaults of
-:mod:`emucompile.compile.defaults`) and checks it against the profile: the update
+:mod:`emucompile.compile.compiler`) and checks it against the profile: the update
 rate against the largest Doppler of any tap gain (band edges, direct-part
 shifts, the high-speed train's peak and a moving delay's carrier drift, see
 :attr:`emucompile.profile.model.Profile.largest_doppler_hz`), the duration, the
@@ -11,18 +11,39 @@ the combinations not supported yet. Every finding is returned, errors and
 warnings, each naming the choice it concerns, so that ``validate`` can point
 at the key in the file and ``compile`` can refuse before anything is built.
 
-:func:`emucompile.compile.plan.compile_findings` is what ``validate`` calls: these
-rules, then the rest of :func:`emucompile.compile.plan.plan_compile` (the FIR map,
-the target fit, the engine's plan, the size of the bundle) run without writing, so
-a profile that validates is one that compiles with the same choices.
+:func:`compile_findings` is what ``validate`` calls: these rules, then the
+planner's other refusals in closed form, with the functions the planner calls
+itself (:func:`refuse_oversized`, :func:`fit_target`, :func:`expect_record`,
+and :func:`emucompile.models.rates.doppler_filter_problem`, which the engine's
+filter design shares): no filter is designed and no number drawn, so
+``validate`` imports neither the engine nor scipy's filters. A profile that
+validates is one that compiles with the same choices, except that the bundle's
+size is checked against its lower bound (:func:`emucompile.models.rates.least_bundle_bytes`:
+the tap gains and the FIR map, without the file headers and the manifest, a
+few KiB), where compile also checks the exact size of the layout.
 """
 
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass, field
 
-from emucompile.errors import InputError
+from emucompile._lazy import LazyModule
+from emucompile.bundle import formats as bundle_formats
+from emucompile.compile.defaults import (  # noqa: F401  (read here by the planner and the tests)
+    DEFAULT_DURATION_S,
+    DEFAULT_UPDATE_FACTOR,
+    DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ,
+    MIN_UPDATE_FACTOR,
+    WARN_UPDATE_FACTOR,
+)
+from emucompile.errors import CheckFailed, CompileRefused, InputError  # noqa: F401  (CompileRefused: re-exported)
+from emucompile.models import rates as limits
+
+# Loaded on first use: expect: targets need the profile's statistics (numpy), a target its fit.
+stats = LazyModule("emucompile.profile.stats")
+target_module = LazyModule("emucompile.profile.target")
 
 CHOICES = ("update_rate_hz", "duration_s", "seed", "sample_rate_hz", "method", "delay_mapping", "periodic")
 """The keys of a profile's ``compile:`` block, which are also the options of ``compile``."""
@@ -59,16 +80,6 @@ class Finding:
         return "/compile" if self.source == "profile" else ""
 
 
-class CompileRefused(InputError):
-    """The choices of a compile run break a rule; ``findings`` holds every finding (warnings too)."""
-
-    def __init__(self, findings):
-        self.findings = list(findings)
-        errors = [f for f in self.findings if f.severity == "error"]
-        more = f" (and {len(errors) - 1} more: {'; '.join(f.message for f in errors[1:])})" if len(errors) > 1 else ""
-        super().__init__(errors[0].message + more, hint=errors[0].hint)
-
-
 @dataclass(frozen=True)
 class Choices:
     """Every choice of a compile run, settled; ``sources`` says where each came from."""
@@ -92,15 +103,6 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
     seed stays None when neither the option nor the profile gives one (the
     caller draws it). ``choices`` is None when an error leaves a choice unknown.
     """
-    from emucompile.models import fading
-    from emucompile.compile.defaults import (
-        DEFAULT_DURATION_S,
-        DEFAULT_UPDATE_FACTOR,
-        DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ,
-        MIN_UPDATE_FACTOR,
-        WARN_UPDATE_FACTOR,
-    )
-
     defaults = profile.compile
     sources = {} if sources is None else sources
     findings: list[Finding] = []
@@ -116,7 +118,8 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
         if cap is not None and rate > cap:
             rate = float(cap)
             sources["update_rate_hz"] = "target"
-    rate = _in_range(find, "update_rate_hz", "update rate", _positive(find, "update_rate_hz", "update rate", rate, "Hz"))
+    rate = _positive(find, "update_rate_hz", "update rate", rate, "Hz")
+    rate = _in_range(find, "update_rate_hz", "update rate", rate)
     if rate is not None and largest > 0:
         minimum = MIN_UPDATE_FACTOR * largest
         if rate < minimum:
@@ -149,9 +152,9 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
     elif seed_value is not None and seed_value > MAX_SEED:
         find("seed", f"seed {_short_number(seed_value)} must be an integer from 0 to 2**64 - 1")
         seed_value = None
-    method_value = _pick(sources, "method", method, defaults.method) or fading.DEFAULT_METHOD
-    if method_value not in fading.METHODS:
-        find("method", f"method must be one of {', '.join(fading.METHODS)}, got {method_value!r}")
+    method_value = _pick(sources, "method", method, defaults.method) or limits.DEFAULT_METHOD
+    if method_value not in limits.METHODS:
+        find("method", f"method must be one of {', '.join(limits.METHODS)}, got {method_value!r}")
     periodic_value = bool(_pick(sources, "periodic", periodic, defaults.periodic) or False)
     mapping = _pick(sources, "delay_mapping", delay_mapping, defaults.delay_mapping)
     rate_fs = _pick(sources, "sample_rate_hz", sample_rate_hz, defaults.sample_rate_hz)
@@ -162,7 +165,8 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
     conditions = profile.conditions
     moving = getattr(conditions, "moving_propagation", None)
     if periodic_value and conditions is not None and any(
-            getattr(conditions, name, None) is not None for name in ("high_speed_train", "moving_propagation", "shadowing")):
+            getattr(conditions, name, None) is not None
+            for name in ("high_speed_train", "moving_propagation", "shadowing")):
         find("periodic", "periodic mode is not supported yet with time-varying conditions",
              "drop --periodic, or the conditions block")
     if moving is not None:
@@ -187,15 +191,154 @@ def settle_choices(profile, *, duration_s=None, update_rate_hz=None, seed=None, 
                    sample_rate_hz=rate_fs, sources=sources), findings
 
 
+def compile_findings(profile, *, target=None, max_size_bytes=None) -> list[Finding]:
+    """Every finding ``compile`` would make for this profile with no options (``validate``'s check).
+
+    The rules of :func:`settle_choices`, then the planner's other refusals in
+    closed form (size, target fit, Doppler filter lengths: see the module
+    notes), in the planner's order; an error there becomes one finding.
+    ``target``: a Target or a target file's path (judged with the profile, as
+    ``compile --target FILE`` would).
+    """
+    max_size_bytes = limits.DEFAULT_MAX_SIZE_BYTES if max_size_bytes is None else max_size_bytes
+    # A missed expect: target stops compile with exit 1; for a file's validity it is a warning.
+    found = []
+    try:
+        expect_record(profile)
+    except CheckFailed as missed:
+        found.append(Finding("expect", f"compile will stop here: {missed.message}", missed.hint, "warning", "profile"))
+    sources: dict = {}
+    try:
+        target_obj = resolve_target(target, profile, sources)
+        choices, findings = settle_choices(profile, target=target_obj, sources=sources)
+        if choices is None:
+            return found + findings
+        refuse_oversized(profile, choices.update_rate_hz, choices.n_samples, (), choices.sample_rate_hz,
+                         target_obj, max_size_bytes)
+        if getattr(profile.conditions, "moving_propagation", None) is None and target_obj is not None:
+            fit_target(profile, target_obj, choices)
+        refuse_long_filters(profile, choices)
+    except InputError as error:  # the target file, the size, the target fit, the engine's filters
+        return [*found, Finding(None, error.message, error.hint)]
+    return found + findings
+
+
+def resolve_target(target, profile, sources):
+    """The target a compile run uses: ``target`` (a Target or a target file's path), else the profile's block."""
+    if target is None:
+        found = getattr(profile, "target", None)
+        if found is not None:
+            sources["target"] = "profile"
+        return found
+    sources["target"] = "option"
+    if isinstance(target, (str, os.PathLike)):
+        return target_module.load_target(target)
+    return target
+
+
+def expect_record(profile, accept_missed: bool = False) -> dict | None:
+    """The profile's ``expect:`` targets checked as ``stats`` checks them (None without targets).
+
+    Raises :class:`~emucompile.errors.CheckFailed` (exit 1) when one is missed
+    and ``accept_missed`` is false: a bundle is not made from a profile that
+    fails its own targets unless that is asked for, and then it is recorded.
+    """
+    if not profile.expect:
+        return None
+    results = stats.check_targets(profile)
+    missed = [t.quantity for t in results if not t.met]
+    if missed and not accept_missed:
+        detail = "; ".join(_missed_text(t) for t in results if not t.met)
+        raise CheckFailed(f"{profile.source or profile.name}: {len(missed)} of {len(results)} expect: target(s) "
+                          f"missed, nothing compiled: {detail}",
+                          hint="fix the profile or its targets, which emucompile stats shows, "
+                               "or compile anyway with --accept-missed-targets")
+    return {"checked": len(results), "missed": missed, "accepted_missed": bool(missed),
+            "targets": [t.to_dict() for t in results]}
+
+
+def refuse_oversized(profile, rate, n_samples, formats, rate_fs, target, max_size_bytes) -> None:
+    """Closed-form sizes, checked before anything is designed or allocated (refused, never clamped).
+
+    The rate plan grows with update rate / Doppler; the FIR map with delay span x
+    sample rate; the bundle at least by its tap gains, each extra format's copy and
+    the FIR map (:func:`emucompile.models.rates.least_bundle_bytes`; the exact
+    estimate follows once the map exists).
+    """
+    edges = [t.max_doppler_hz for t in profile.taps
+             if t.fading != "static" and t.max_doppler_hz is not None and t.max_doppler_hz > 0]
+    most = limits.MAX_UPDATE_TO_DOPPLER
+    if edges and rate / min(edges) > most:
+        raise InputError(
+            f"update rate {rate:g} Hz is {rate / min(edges):.3g} x the smallest maximum Doppler "
+            f"{min(edges):g} Hz, above the limit of {most:g} x of the interpolation design",
+            hint=f"use --update-rate {most * min(edges):g} or less; an emulator interpolates between updates",
+        )
+    n_fir = 0
+    if rate_fs is not None and target is None:  # its length is checked by settle_choices
+        n_fir = limits.fir_span_columns([t.delay_s for t in profile.taps], rate_fs)
+    copies = sum(bundle_formats.FORMATS[name].copy_factor for name in formats)
+    least = limits.least_bundle_bytes(n_samples, profile.n_rx * profile.n_tx, profile.n_taps, copies, n_fir,
+                                      fir_file="fir" in formats)
+    if max_size_bytes is not None and least > max_size_bytes:
+        raise InputError(
+            f"the bundle would take at least {size_text(int(least))}, above the limit of {size_text(max_size_bytes)}",
+            hint="shorten --duration, lower --update-rate, drop formats, or raise --max-size",
+        )
+
+
+def fit_target(profile, target, choices, tolerance_pct=None, accept_fit=False):
+    """``(fit, acceptance)``: the profile's taps fitted to ``target`` and the fit's delay-spread judgement.
+
+    Raises the fit's InputError when the target cannot hold the profile, and
+    :class:`~emucompile.profile.target.TargetMissed` (exit 1) when the fit
+    moves the RMS delay spread beyond ``tolerance_pct`` and ``accept_fit`` is false.
+    """
+    fit = target_module.fit_to_target(target, profile, update_rate_hz=choices.update_rate_hz,
+                                      sample_rate_hz=choices.sample_rate_hz, delay_mapping=choices.delay_mapping)
+    tolerance = target_module.DEFAULT_FIT_TOLERANCE_PCT if tolerance_pct is None else tolerance_pct
+    acceptance = target_module.judge_fit(fit.costs, tolerance, accepted=accept_fit)
+    if acceptance.missed:
+        raise target_module.missed_target_error(fit.costs, acceptance)
+    return fit, acceptance
+
+
+def refuse_long_filters(profile, choices) -> None:
+    """Refuse a tap whose Doppler filter the engine could not design (closed form, no design made)."""
+    if choices.method != limits.DEFAULT_METHOD:
+        return  # the sum of sinusoids designs no Doppler filter
+    period = choices.n_samples if choices.periodic else None
+    for j, tap in enumerate(profile.taps):
+        if tap.fading == "static":
+            continue
+        problem = limits.doppler_filter_problem(choices.update_rate_hz, tap.doppler_spectrum, period)
+        if problem is not None:
+            raise InputError(f"tap {j}: {problem}",
+                             hint="choose a record length with small prime factors" if period else None)
+
+
+def size_text(n_bytes: int) -> str:
+    """Bytes for a message: ``8.0 GiB``, ``512.0 MiB``, ``12.0 KiB`` or ``100 B``."""
+    for unit, size in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
+        if n_bytes >= size:
+            return f"{n_bytes / size:.1f} {unit}"
+    return f"{n_bytes} B"
+
+
+def _missed_text(t) -> str:
+    value = "undefined" if t.value is None else f"{t.value:.6g}"
+    low = "-inf" if t.low is None else f"{t.low:.6g}"
+    high = "inf" if t.high is None else f"{t.high:.6g}"
+    return f"{t.quantity} = {value}, wanted [{low}, {high}]"
+
+
 MAX_SEED = 2**64 - 1
 """Largest seed (as the profile's compile.seed): numpy's SeedSequence takes any size, a file need not."""
 
 
 def _in_range(find, key, what, rate):
-    """``rate`` inside :data:`emucompile.bundle.store.RATE_RANGE_HZ`, else a finding and None."""
-    from emucompile.bundle.store import RATE_RANGE_HZ
-
-    low, high = RATE_RANGE_HZ
+    """``rate`` inside :data:`emucompile.models.rates.RATE_RANGE_HZ`, else a finding and None."""
+    low, high = limits.RATE_RANGE_HZ
     if rate is not None and not low <= rate <= high:
         find(key, f"{what} {rate:g} Hz lies outside {low:g} to {high:g} Hz")
         return None
@@ -270,4 +413,5 @@ def _positive(find, key, what, value, unit):
     return number
 
 
-__all__ = ["CHOICES", "Finding", "CompileRefused", "Choices", "settle_choices"]
+__all__ = ["CHOICES", "Finding", "CompileRefused", "Choices", "settle_choices", "compile_findings", "resolve_target",
+           "expect_record", "refuse_oversized", "fit_target", "refuse_long_filters", "size_text"]

@@ -20,8 +20,9 @@ from pathlib import Path
 
 from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES, BundleWriter, open_bundle
 from emucompile.compile.defaults import CHUNK_SAMPLES
-from emucompile.compile.plan import CompilePlan, _size_text, plan_compile
-from emucompile.models import fading
+from emucompile.compile.plan import CompilePlan, plan_compile
+from emucompile.compile.rules import size_text
+from emucompile.models import fading, spectra
 from emucompile.models.grid import FirMap
 from emucompile.profile.blocks import correlation_text
 from emucompile.profile.target import fit_lines, fit_record
@@ -82,8 +83,8 @@ class CompileResult:
         if record is not None:
             lines.append("emulator fit  " + "\n              ".join(fit_lines(record)))
         files = manifest["files"]
-        lines.append(f"files       {len(files)} ({_size_text(sum(entry['size_bytes'] for entry in files))}):")
-        lines += [f"              {entry['name']}  {_size_text(entry['size_bytes'])}" for entry in files[:12]]
+        lines.append(f"files       {len(files)} ({size_text(sum(entry['size_bytes'] for entry in files))}):")
+        lines += [f"              {entry['name']}  {size_text(entry['size_bytes'])}" for entry in files[:12]]
         if len(files) > 12:
             lines.append(f"              ... and {len(files) - 12} more (see manifest.json)")
         lines.append(f"time        {self.elapsed_s:.1f} s")
@@ -301,8 +302,7 @@ def _manifest_taps(profile, info):
             "max_doppler_hz": tap.max_doppler_hz if tap.fading != "static" else None,
             "los_doppler_hz": used.get("los_doppler_hz", tap.los_doppler_hz),
             "los_phase_deg": used.get("los_phase_deg", tap.los_phase_deg),
-            "spectrum": tap.spectrum if tap.fading != "static" else None,
-            "sigma_hz": tap.sigma_hz,
+            **spectra.record(tap.spectrum if tap.fading != "static" else None, spectra.parameters_of(tap)),
         }
         if tap.los_trajectory is not None:
             entry["los_doppler_hz"] = None

@@ -15,7 +15,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from emucompile._lazy import LazyModule
+from emucompile.compile.rules import compile_findings
 from emucompile.errors import Problem
+from emucompile.profile.model import check_document
+from emucompile.profile.reader import read_document
+
+# A target file's checks need numpy and jsonschema: loaded when a target file is read.
+target_module = LazyModule("emucompile.profile.target")
 
 TARGET_ONLY_KEYS = frozenset({
     "max_fir_coefficients", "max_paths", "delay_step_samples", "max_update_rate_hz",
@@ -74,15 +81,10 @@ def validate_file(source, *, target=None, target_name: str | None = None) -> Fil
     ``target``: a parsed :class:`emucompile.profile.target.Target` to judge a profile with;
     ``target_name`` names it in the verdict.
     """
-    from emucompile.profile.model import check_document
-    from emucompile.profile.reader import read_document
-
     document = read_document(source)
     name = document.filename
     if document.readable and is_target_document(document.value):
-        from emucompile.profile.target import check_target_file
-
-        _, problems = check_target_file(source)
+        _, problems = target_module.check_target_file(source)
         return FileVerdict(name, "target", tuple(problems))
     profile, problems = check_document(document)
     problems = list(problems)
@@ -93,8 +95,6 @@ def validate_file(source, *, target=None, target_name: str | None = None) -> Fil
 
 def compile_problems(profile, document, *, target=None) -> list[Problem]:
     """Compile's findings for this profile as problems placed in ``document`` (``/compile/KEY``)."""
-    from emucompile.compile.plan import compile_findings
-
     found = []
     for finding in compile_findings(profile, target=target):
         pointer = finding.pointer()
@@ -110,12 +110,11 @@ def validate_files(sources, *, target_file=None) -> list[FileVerdict]:
     verdicts = []
     target = None
     if target_file is not None:
-        from emucompile.profile.target import check_target_file
-
-        target, problems = check_target_file(target_file)
+        target, problems = target_module.check_target_file(target_file)
         verdicts.append(FileVerdict(str(target_file), "target", tuple(problems)))
     for source in sources:
-        verdicts.append(validate_file(source, target=target, target_name=None if target_file is None else str(target_file)))
+        name = None if target_file is None else str(target_file)
+        verdicts.append(validate_file(source, target=target, target_name=name))
     return verdicts
 
 

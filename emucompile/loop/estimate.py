@@ -32,7 +32,7 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import optimize
 
-from emucompile.errors import InputError
+from emucompile.errors import InputError, NoProbe  # noqa: F401  (NoProbe: re-exported)
 from emucompile.loop.probe import PREAMBLE_PERIODS
 
 BLOCK_SAMPLES = 1 << 20
@@ -50,10 +50,6 @@ NOISE_PERIODS = 2048
 CI16_FULL_SCALE = 32767
 STEP_TABLE_ELEMENTS = 1 << 21
 """The step-response table (positions x columns^2) stays below this many complex numbers (32 MiB)."""
-
-
-class NoProbe(InputError):
-    """No probe preamble in the capture (exit 2)."""
 
 
 @dataclass

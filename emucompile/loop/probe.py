@@ -58,7 +58,7 @@ import numpy as np
 from scipy import fft as sp_fft
 
 from emucompile._version import __version__
-from emucompile.errors import InputError
+from emucompile.errors import InputError, UnsoundableChannel  # noqa: F401  (UnsoundableChannel: re-exported)
 
 FORMAT_VERSION = 1
 KIND = "emucompile-probe"
@@ -81,10 +81,6 @@ DEFAULT_STATIC_DURATION_S = 1.0
 CI16_PEAK = 0.9 * 32767
 SOURCE = "Chu 1972, IEEE Trans. Inf. Theory 18(4); 3GPP TS 36.211 §5.5.1.1 (Zadoff-Chu sequences)"
 FORMATS = ("sigmf", "cf32", "ci16")
-
-
-class UnsoundableChannel(InputError):
-    """The channel cannot be sounded with a periodic probe (exit 2)."""
 
 
 @dataclass(frozen=True)

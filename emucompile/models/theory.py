@@ -24,106 +24,99 @@ import math
 from dataclasses import dataclass
 
 from emucompile._lazy import LazyModule
+from emucompile.models import spectra
 
 # Imported on first use: a profile is read and checked without them (start-up).
 np = LazyModule("numpy")
 special = LazyModule("scipy.special")
 stats = LazyModule("scipy.stats")
 
-SPECTRUM_KINDS = ("classical", "flat", "gaussian")
+SPECTRUM_KINDS = spectra.KINDS
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, init=False)
 class DopplerSpectrum:
-    """A Doppler power spectrum of unit total power.
+    """A Doppler power spectrum of unit total power: a kind of :mod:`emucompile.models.spectra` bound to its values.
 
     Parameters
     ----------
-    kind : {"classical", "flat", "gaussian"}
-        ``classical``: Clarke/Jakes U-shape S(f) = 1/(pi f_D sqrt(1-(f/f_D)^2))
-        on |f| < f_D [Clarke1968]_. ``flat``: S(f) = 1/(2 f_D) on |f| < f_D.
-        ``gaussian``: exp(-f^2/(2 sigma^2)) truncated to |f| <= f_D and
+    kind : str
+        One of :data:`emucompile.models.spectra.KINDS`: ``classical`` (Clarke/Jakes
+        U-shape [Clarke1968]_), ``flat``, ``gaussian`` (truncated at f_D and
         renormalised to unit power; the truncation is part of the definition,
-        so the autocorrelation below is that of the truncated spectrum.
+        so the autocorrelation is that of the truncated spectrum).
     max_doppler_hz : float
         f_D, the band edge; > 0.
     sigma_hz : float, optional
         Standard deviation of the Gaussian spectrum before truncation
         (``gaussian`` only).
+    **parameters
+        The parameters of other kinds, by name (see the registry).
+
+    Every parameter of every kind reads as an attribute (``spectrum.sigma_hz``),
+    None when this kind has no such parameter.
     """
 
     kind: str
     max_doppler_hz: float
-    sigma_hz: float | None = None
+    parameters: tuple
+    """The kind's parameters as sorted (name, value) pairs."""
 
-    def __post_init__(self):
-        if self.kind not in SPECTRUM_KINDS:
-            raise ValueError(f"kind must be one of {SPECTRUM_KINDS}, got {self.kind!r}")
-        if not (self.max_doppler_hz > 0 and math.isfinite(self.max_doppler_hz)):
-            raise ValueError(f"max_doppler_hz must be finite and > 0, got {self.max_doppler_hz!r}")
-        if self.kind == "gaussian":
-            if self.sigma_hz is None or not (self.sigma_hz > 0 and math.isfinite(self.sigma_hz)):
-                raise ValueError(f"a gaussian spectrum needs sigma_hz > 0, got {self.sigma_hz!r}")
-        elif self.sigma_hz is not None:
-            raise ValueError(f"sigma_hz applies to the gaussian spectrum only, not {self.kind!r}")
+    def __init__(self, kind, max_doppler_hz, sigma_hz=None, **parameters):
+        if sigma_hz is not None:
+            parameters["sigma_hz"] = sigma_hz
+        spec = spectra.kind(kind)
+        if not (max_doppler_hz > 0 and math.isfinite(max_doppler_hz)):
+            raise ValueError(f"max_doppler_hz must be finite and > 0, got {max_doppler_hz!r}")
+        for key in parameters:
+            if key not in spec.parameter_names:
+                raise ValueError(f"{key} applies to the {spectra._takers(key) or 'no'} spectrum only, not {kind!r}")
+        for key in spec.parameter_names:
+            value = parameters.get(key)
+            if value is None or not (value > 0 and math.isfinite(value)):
+                raise ValueError(f"a {kind} spectrum needs {key} > 0, got {value!r}")
+        object.__setattr__(self, "kind", kind)
+        object.__setattr__(self, "max_doppler_hz", max_doppler_hz)
+        object.__setattr__(self, "parameters", tuple(sorted(parameters.items())))
+
+    def __getattr__(self, name):
+        if name in spectra.PARAMETER_NAMES:
+            return dict(self.parameters).get(name)
+        raise AttributeError(name)
+
+    @property
+    def spec(self) -> spectra.SpectrumKind:
+        """The kind's registry entry."""
+        return spectra.SPECTRA[self.kind]
 
     # -- spectrum ---------------------------------------------------------
     def psd(self, frequency_hz):
         """Power spectral density in 1/Hz (integrates to 1); 0 outside |f| < f_D."""
-        f = np.asarray(frequency_hz, dtype=float)
-        fd = self.max_doppler_hz
-        inside = np.abs(f) < fd
-        out = np.zeros_like(f)
-        if self.kind == "classical":
-            x = f[inside] / fd
-            out[inside] = 1.0 / (np.pi * fd * np.sqrt(1.0 - x * x))
-        elif self.kind == "flat":
-            out[inside] = 1.0 / (2.0 * fd)
-        else:
-            s = self.sigma_hz
-            out[inside] = np.exp(-0.5 * (f[inside] / s) ** 2) / (
-                math.sqrt(2.0 * math.pi) * s * self._gaussian_kept_fraction()
-            )
-        return out
+        return self.spec.psd(np.asarray(frequency_hz, dtype=float), self.max_doppler_hz, dict(self.parameters))
 
     def autocorrelation(self, lag_s):
         """Normalised autocorrelation r(tau) = integral of S(f) exp(j 2 pi f tau) df (real).
 
         classical: J0(2 pi f_D tau) [Jakes1974]_ (``scipy.special.j0``);
-        flat: sinc(2 f_D tau); gaussian (truncated at f_D):
-        exp(-2 pi^2 sigma^2 tau^2) Re erf((f_D + j 2 pi sigma^2 tau)/(sigma sqrt 2))
-        / erf(f_D/(sigma sqrt 2)), evaluated through the Faddeeva function so it
-        stays finite at large lags; for f_D >> sigma it tends to the textbook
-        exp(-2 pi^2 sigma^2 tau^2).
+        flat: sinc(2 f_D tau); gaussian (truncated at f_D): the Faddeeva form of
+        :func:`emucompile.models.spectra._gaussian_autocorrelation`.
         """
-        tau = np.asarray(lag_s, dtype=float)
+        return self.spec.autocorrelation(np.asarray(lag_s, dtype=float), self.max_doppler_hz, dict(self.parameters))
+
+    def cdf(self, frequency_hz):
+        """Integral of the density from -inf to f (closed forms; 0 below -f_D, 1 above f_D)."""
         fd = self.max_doppler_hz
-        if self.kind == "classical":
-            return special.j0(2.0 * np.pi * fd * tau)
-        if self.kind == "flat":
-            return np.sinc(2.0 * fd * tau)
-        s = self.sigma_hz
-        c = 2.0 * np.pi * s * s * tau
-        # erf(z) = 1 - exp(-z^2) w(i z); exp(-2 pi^2 s^2 tau^2 - z^2) simplifies to
-        # exp(-f_D^2/(2 s^2)) exp(-j f_D c / s^2), which never overflows.
-        z = (fd + 1j * c) / (s * math.sqrt(2.0))
-        value = np.exp(-2.0 * np.pi**2 * s * s * tau * tau) - np.exp(
-            -fd * fd / (2.0 * s * s)
-        ) * np.exp(-1j * fd * c / (s * s)) * special.wofz(1j * z)
-        return value.real / self._gaussian_kept_fraction()
+        f = np.clip(np.asarray(frequency_hz, dtype=float), -fd, fd)
+        return self.spec.cdf(f, fd, dict(self.parameters))
+
+    def quantile(self, u):
+        """G^-1(u): the frequency below which a fraction u of the one-sided power lies."""
+        return self.spec.quantile(np.asarray(u, dtype=float), self.max_doppler_hz, dict(self.parameters))
 
     @property
     def second_moment_hz2(self) -> float:
         """Normalised second moment integral of f^2 S(f) df, in Hz^2."""
-        fd = self.max_doppler_hz
-        if self.kind == "classical":
-            return fd * fd / 2.0
-        if self.kind == "flat":
-            return fd * fd / 3.0
-        s = self.sigma_hz
-        a = fd / s
-        # Variance of a normal law truncated to [-a sigma, a sigma].
-        return s * s * (1.0 - 2.0 * a * stats.norm.pdf(a) / self._gaussian_kept_fraction())
+        return self.spec.second_moment(self.max_doppler_hz, dict(self.parameters))
 
     @property
     def rms_doppler_hz(self) -> float:
@@ -131,12 +124,29 @@ class DopplerSpectrum:
         return math.sqrt(self.second_moment_hz2)
 
     @property
+    def feature_width_hz(self) -> float | None:
+        """The width of the spectrum's narrowest feature where it has one beyond f_D (the Gaussian's sigma)."""
+        return self.spec.feature_width(self.max_doppler_hz, dict(self.parameters))
+
+    @property
     def band_edge_hz(self) -> float:
         """The spectrum is zero for |f| >= this frequency."""
         return self.max_doppler_hz
 
-    def _gaussian_kept_fraction(self) -> float:
-        return math.erf(self.max_doppler_hz / (self.sigma_hz * math.sqrt(2.0)))
+    def record(self) -> dict:
+        """The spectrum as a manifest's tap holds it (:func:`emucompile.models.spectra.record`)."""
+        return spectra.record(self.kind, dict(self.parameters))
+
+    @classmethod
+    def of(cls, source, max_doppler_hz=None) -> "DopplerSpectrum":
+        """The spectrum a tap holds: a profile's Tap or a manifest tap (``spectrum`` null means the default)."""
+        if isinstance(source, dict):
+            name, fd = source.get("spectrum") or spectra.DEFAULT_KIND, source.get("max_doppler_hz")
+        else:
+            name, fd = source.spectrum, source.max_doppler_hz
+        fd = float(fd if max_doppler_hz is None else max_doppler_hz)
+        wanted = spectra.kind(name).parameter_names
+        return cls(name, fd, **{k: v for k, v in spectra.parameters_of(source).items() if k in wanted})
 
 
 # -- envelope -----------------------------------------------------------------

@@ -45,6 +45,7 @@ from emucompile.models.conditions import (
     MovingPropagation,
 )
 from emucompile.errors import InputError
+from emucompile.profile.presets import PRESET_NAMES, load_preset
 
 # numpy imported on first use (start-up): checking a block without matrices does not need it.
 np = LazyModule("numpy")
@@ -237,7 +238,8 @@ class Conditions:
                          f"{follows}")
         if self.shadowing is not None:
             s = self.shadowing
-            lines.append(f"log-normal shadowing: sigma {s.sigma_db:g} dB, decorrelation {s.decorrelation_distance_m:g} m, "
+            lines.append(f"log-normal shadowing: sigma {s.sigma_db:g} dB, "
+                         f"decorrelation {s.decorrelation_distance_m:g} m, "
                          f"{s.speed_mps * 3.6:g} km/h, {s.hold} power held (mean {s.offset_db:.4g} dB)")
         return lines
 
@@ -265,8 +267,6 @@ def correlation_text(correlation: mimo.SpatialCorrelation) -> str:
 
 def parse_preset_info(block: dict, report) -> PresetInfo:
     """The ``preset:`` provenance block; warns when it names data this version does not hold."""
-    from emucompile.profile.presets import PRESET_NAMES, load_preset
-
     info = PresetInfo(**{f.name: block.get(f.name) for f in dataclasses.fields(PresetInfo)})
     if info.name not in PRESET_NAMES:
         report("/preset/name", f"preset {info.name!r} is not among this version's presets",

@@ -73,34 +73,29 @@ from __future__ import annotations
 
 import copy
 import difflib
-import functools
 import math
 from dataclasses import dataclass
-from importlib import resources
 from typing import Any, Mapping
 
 from emucompile.errors import InputError, Problem, ProfileError
-
-PRESET_NAMES = (
-    "tdl-a",
-    "tdl-b",
-    "tdl-c",
-    "tdl-d",
-    "tdl-e",
-    "epa",
-    "eva",
-    "etu",
-    "ped-a",
-    "ped-b",
-    "veh-a",
-    "veh-b",
+from emucompile.models import spectra
+from emucompile.profile.preset_tables import (  # noqa: F401  (re-exported: the tables and their checks)
+    CHECK_STATES,
+    PRESET_NAMES,
+    _CONFIRMED_KEYS,
+    Preset,
+    PresetRow,
+    _check_rows,
+    _check_standard_check,
+    _load_preset,
+    _rms_delay_spread,
+    load_preset,
 )
+
+
 DIRECT_PART_FORMS = ("rician", "static-pair")
 # Whether a table was compared, delay by delay and power by power, with the standard's own text.
-CHECK_STATES = ("confirmed", "recalled, not confirmed")
-_CONFIRMED_KEYS = ("document", "table", "version", "compared", "published_figure")
 
-# The per-tap keys of the profile format (docs/profile-format.md) that an override may set.
 TAP_OVERRIDE_KEYS = (
     "delay_ns",
     "power_db",
@@ -110,117 +105,13 @@ TAP_OVERRIDE_KEYS = (
     "los_doppler_hz",
     "los_phase_deg",
     "spectrum",
-    "sigma_hz",
+    *spectra.PARAMETER_NAMES,
     "max_doppler_hz",
 )
+
 EXTENDS_KEYS = ("preset", "delay_spread_ns", "direct_part", "taps")
+
 _DOPPLER_KEYS = ("max_doppler_hz", "speed_kmh", "speed_mps", "carrier_hz")
-
-
-@dataclass(frozen=True)
-class PresetRow:
-    """One row of a standard's table, as printed.
-
-    ``tap`` is the table's tap number (1-based); ``delay`` is normalised
-    (TR 38.901) or in nanoseconds; ``part`` is ``"rayleigh"`` or ``"direct"``
-    (the line-of-sight part of TDL-D/TDL-E tap 1).
-    """
-
-    tap: int
-    delay: float
-    power_db: float
-    part: str
-
-
-@dataclass(frozen=True)
-class Preset:
-    """A standard's delay profile as stored in ``emucompile/data/presets/NAME.yaml``.
-
-    Attributes
-    ----------
-    name, title : str
-    data_version : int
-        Changes whenever the stored numbers change.
-    source : dict
-        ``document``, ``table``, ``values`` ("transcribed", "transcribed at
-        second hand" or "from memory"), ``values_note``, optionally ``clause``.
-    normalised : bool
-        True when delays are normalised (multiply by the wanted delay spread).
-    spectrum : str
-        Doppler spectrum of every tap.
-    rows : tuple of PresetRow
-        The table, in its own order (delays not sorted).
-    k1_db : float or None
-        The table's K-factor of tap 1 (TDL-D, TDL-E).
-    default_delay_spread_ns : float or None
-        Normalised models only.
-    default_doppler : dict
-        ``max_doppler_hz`` or ``speed_kmh`` + ``carrier_hz``, and ``source``.
-    printed_rms_delay_spread_s : float or None
-        The RMS delay spread the standard prints, where it prints one.
-    reference_rms_delay_spread_s : float or None
-        A recomputed reference value where the standard prints none (M.1225).
-    standard_check : dict
-        ``state`` (one of :data:`CHECK_STATES`), ``searched`` (date); for
-        ``confirmed``: ``document``, ``table``, ``version``, ``compared``,
-        ``published_figure`` (``quantity``, ``value``, ``unit``, ``source``);
-        otherwise ``reason``.
-    """
-
-    name: str
-    title: str
-    data_version: int
-    source: dict
-    normalised: bool
-    spectrum: str
-    rows: tuple[PresetRow, ...]
-    k1_db: float | None
-    default_delay_spread_ns: float | None
-    default_doppler: dict
-    printed_rms_delay_spread_s: float | None
-    reference_rms_delay_spread_s: float | None
-    standard_check: dict
-
-    @property
-    def check_state(self) -> str:
-        """``"confirmed"`` or ``"recalled, not confirmed"`` (:data:`CHECK_STATES`)."""
-        return self.standard_check["state"]
-
-    @property
-    def check_statement(self) -> str:
-        """``confirmed against DOCUMENT, TABLE, VERSION`` or ``recalled, not confirmed: REASON``."""
-        check = self.standard_check
-        if check["state"] == "confirmed":
-            return f"confirmed against {check['document']}, {check['table']}, {check['version']}"
-        return f"recalled, not confirmed: {check['reason']}"
-
-    @property
-    def n_taps(self) -> int:
-        """Number of taps (the direct and Rayleigh parts of a LOS tap count once)."""
-        return len({row.tap for row in self.rows})
-
-    @property
-    def has_direct_part(self) -> bool:
-        return any(row.part == "direct" for row in self.rows)
-
-    @property
-    def short_source(self) -> str:
-        """``3GPP TR 38.901 Table 7.7.2-3 (from memory)`` and the like."""
-        document = self.source["document"].split(",")[0].replace("Recommendation ", "")
-        return f"{document} {self.source['table']} ({self.source['values']})"
-
-    def rms_delay_spread(self) -> float:
-        """RMS delay spread of the table: normalised units, or seconds.
-
-        The direct and Rayleigh parts of a line-of-sight tap both count at
-        their delay (they are one path's power).
-        """
-        scale = 1.0 if self.normalised else 1e-9
-        return _rms_delay_spread(
-            [row.delay * scale for row in self.rows],
-            [10.0 ** (row.power_db / 10.0) for row in self.rows],
-        )
-
 
 @dataclass(frozen=True)
 class PresetRecord:
@@ -287,23 +178,6 @@ def list_presets() -> list[PresetRecord]:
             )
         )
     return records
-
-
-def load_preset(name: str) -> Preset:
-    """The stored table of preset ``name`` (see :data:`PRESET_NAMES`).
-
-    Raises
-    ------
-    emucompile.errors.InputError
-        For an unknown name; the message suggests the closest known ones.
-    """
-    if name not in PRESET_NAMES:
-        close = difflib.get_close_matches(str(name), PRESET_NAMES, n=3)
-        hint = f"did you mean {', '.join(close)}?" if close else None
-        raise InputError(
-            f"unknown preset {name!r} (known: {', '.join(PRESET_NAMES)})", hint=hint
-        )
-    return _load_preset(name)
 
 
 def preset_document(
@@ -499,6 +373,7 @@ _ARGUMENT_POINTERS = {
     "direct_part": "direct_part",
     "taps": "tap_overrides",
 }
+
 _DOCUMENT_POINTERS = {
     "delay_spread_ns": "/extends/delay_spread_ns",
     "max_doppler_hz": "/max_doppler_hz",
@@ -508,7 +383,6 @@ _DOCUMENT_POINTERS = {
     "direct_part": "/extends/direct_part",
     "taps": "/extends/taps",
 }
-
 
 def _build_document(preset, request, overrides, direct_part, document_name, *, pointers):
     """The profile document of ``preset`` and the list of (pointer, message, hint) problems."""
@@ -521,7 +395,8 @@ def _build_document(preset, request, overrides, direct_part, document_name, *, p
         if value is not None and not _positive_number(value):
             problems.append((where(key), f"{key} must be a finite number > 0, got {value!r}", None))
     if direct_part not in DIRECT_PART_FORMS:
-        problems.append((where("direct_part"), f"direct_part must be one of {DIRECT_PART_FORMS}, got {direct_part!r}", None))
+        problems.append((where("direct_part"), f"direct_part must be one of {DIRECT_PART_FORMS}, got {direct_part!r}",
+                         None))
         direct_part = "rician"
 
     # -- delays
@@ -623,12 +498,13 @@ def _delay_ns(delay, scale_ns, normalised):
 
 
 # Keys that belong to one fading kind only; dropped when an override changes the kind.
+
+
 _FADING_ONLY_KEYS = {
     "rayleigh": ("k_db", "los_angle_deg", "los_doppler_hz", "los_phase_deg"),
-    "static": ("k_db", "spectrum", "sigma_hz"),
+    "static": ("k_db", "spectrum", *spectra.PARAMETER_NAMES),
     "rician": (),
 }
-
 
 def _apply_overrides(taps, overrides, problems, pointers):
     taps = [dict(tap) for tap in taps]
@@ -636,7 +512,8 @@ def _apply_overrides(taps, overrides, problems, pointers):
         changes = overrides[index]
         base = pointers.get(("tap", index), f"{pointers.get('taps', 'taps')}[{index}]")
         if not 0 <= index < len(taps):
-            problems.append((base, f"tap index {index} is out of range (the preset has taps 0 to {len(taps) - 1})", None))
+            problems.append((base, f"tap index {index} is out of range (the preset has taps 0 to {len(taps) - 1})",
+                             None))
             continue
         if not isinstance(changes, Mapping):
             problems.append((base, "an override must be a mapping of tap keys", None))
@@ -656,19 +533,24 @@ def _apply_overrides(taps, overrides, problems, pointers):
             tap.pop("los_doppler_hz", None)
         if "los_doppler_hz" in changes:
             tap.pop("los_angle_deg", None)
-        if changes.get("spectrum", "gaussian") != "gaussian" and "sigma_hz" not in changes:
-            tap.pop("sigma_hz", None)
+        if "spectrum" in changes:  # drop the parameters the new kind does not take
+            kind = spectra.SPECTRA.get(changes["spectrum"])
+            for key in spectra.PARAMETER_NAMES:
+                if key not in changes and (kind is None or key not in kind.parameter_names):
+                    tap.pop(key, None)
         tap.update(copy.deepcopy(dict(changes)))
         if tap.get("fading") == "rician":
             if "k_db" not in tap:
                 problems.append((base, f"tap {index} is Rician but has no k_db", "add k_db to the override"))
             if "los_angle_deg" not in tap and "los_doppler_hz" not in tap:
                 problems.append((base, f"tap {index} is Rician but has neither los_angle_deg nor los_doppler_hz", None))
-            tap.setdefault("spectrum", "classical")
+            tap.setdefault("spectrum", spectra.DEFAULT_KIND)
         elif tap.get("fading") == "rayleigh":
-            tap.setdefault("spectrum", "classical")
-        if tap.get("spectrum") == "gaussian" and "sigma_hz" not in tap:
-            problems.append((base, f"tap {index} has a gaussian spectrum but no sigma_hz", None))
+            tap.setdefault("spectrum", spectra.DEFAULT_KIND)
+        kind = spectra.SPECTRA.get(tap.get("spectrum"))
+        for key in kind.parameter_names if kind is not None and tap.get("fading") != "static" else ():
+            if key not in tap:
+                problems.append((base, f"tap {index} has a {kind.name} spectrum but no {key}", None))
         taps[index] = tap
     return taps
 
@@ -684,8 +566,10 @@ def _doppler_keys(preset, request, problems, where):
     if "max_doppler_hz" in given:
         clash = [k for k in given if k != "max_doppler_hz"]
         if clash:
-            problems.append((where(clash[0]), f"give max_doppler_hz or speed + carrier_hz, not both ({', '.join(given)})", None))
-        return {"max_doppler_hz": given["max_doppler_hz"]}, f"max_doppler_hz {given['max_doppler_hz']:g} Hz as requested"
+            problems.append((where(clash[0]),
+                             f"give max_doppler_hz or speed + carrier_hz, not both ({', '.join(given)})", None))
+        requested = given["max_doppler_hz"]
+        return {"max_doppler_hz": requested}, f"max_doppler_hz {requested:g} Hz as requested"
     if "speed_kmh" in given and "speed_mps" in given:
         problems.append((where("speed_mps"), "give speed_kmh or speed_mps, not both", None))
     speed_key = "speed_kmh" if "speed_kmh" in given else ("speed_mps" if "speed_mps" in given else None)
@@ -719,70 +603,6 @@ def _positive_number(value) -> bool:
         and math.isfinite(value)
         and value > 0
     )
-
-
-def _rms_delay_spread(delays, powers_linear) -> float:
-    """The second central moment of the PDP (:func:`emucompile.profile.stats.delay_statistics`)."""
-    from emucompile.profile.stats import delay_statistics
-
-    return delay_statistics(delays, powers_linear)["rms_delay_spread_s"]
-
-
-@functools.lru_cache(maxsize=None)
-def _load_preset(name: str) -> Preset:
-    from ruamel.yaml import YAML
-
-    text = resources.files("emucompile").joinpath("data", "presets", f"{name}.yaml").read_text("utf-8")
-    data = YAML(typ="safe", pure=True).load(text)
-    rows = tuple(
-        PresetRow(tap=int(r["tap"]), delay=r["delay"], power_db=float(r["power_db"]), part=r["part"])
-        for r in data["rows"]
-    )
-    _check_rows(name, rows, data.get("k1_db"))
-    _check_standard_check(name, data.get("standard_check"))
-    printed = data.get("printed_rms_delay_spread")
-    reference = data.get("recomputed_rms_delay_spread")
-    return Preset(
-        name=data["name"],
-        title=data["title"],
-        data_version=int(data["data_version"]),
-        source=dict(data["source"]),
-        normalised=data["delays"] == "normalised",
-        spectrum=data["spectrum"],
-        rows=rows,
-        k1_db=data.get("k1_db"),
-        default_delay_spread_ns=data.get("default_delay_spread_ns"),
-        default_doppler=dict(data["default_doppler"]),
-        printed_rms_delay_spread_s=printed["value_ns"] * 1e-9 if printed else None,
-        reference_rms_delay_spread_s=reference["value_ns"] * 1e-9 if reference else None,
-        standard_check=dict(data["standard_check"]),
-    )
-
-
-def _check_rows(name, rows, k1_db):
-    """Structural checks of a stored table; a failure is a packaging bug, not user input."""
-    numbers = [row.tap for row in rows]
-    if sorted(set(numbers)) != list(range(1, max(numbers) + 1)):
-        raise RuntimeError(f"preset data {name}: tap numbers are not 1..N")
-    for number in set(numbers):
-        parts = sorted(row.part for row in rows if row.tap == number)
-        if parts not in (["rayleigh"], ["direct", "rayleigh"]):
-            raise RuntimeError(f"preset data {name}: tap {number} has parts {parts}")
-        delays = {row.delay for row in rows if row.tap == number}
-        if len(delays) != 1:
-            raise RuntimeError(f"preset data {name}: the parts of tap {number} differ in delay")
-    if any(row.part == "direct" for row in rows) != (k1_db is not None):
-        raise RuntimeError(f"preset data {name}: a direct part needs k1_db and the reverse")
-
-
-def _check_standard_check(name, check):
-    """A preset's ``standard_check`` must say one state and what backs it (packaging bug otherwise)."""
-    if not isinstance(check, dict) or check.get("state") not in CHECK_STATES or not check.get("searched"):
-        raise RuntimeError(f"preset data {name}: standard_check needs state {CHECK_STATES} and searched")
-    needed = _CONFIRMED_KEYS if check["state"] == "confirmed" else ("reason",)
-    missing = [key for key in needed if not check.get(key)]
-    if missing:
-        raise RuntimeError(f"preset data {name}: standard_check {check['state']!r} lacks {', '.join(missing)}")
 
 
 __all__ = [

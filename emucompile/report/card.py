@@ -41,6 +41,7 @@ from emucompile._version import __version__
 from emucompile.profile.model import Profile, load_profile
 from emucompile.profile.stats import check_targets, format_statistics, frequency_correlation, profile_statistics
 from emucompile.report.html import write_text_atomic
+from emucompile.models import spectra
 
 DPI = 100
 PANEL_COLUMNS = 3
@@ -182,8 +183,8 @@ def _spectrum_key(tap):
     if tap.fading == "rician":
         direct = (round(tap.k_db, 9), None if tap.los_doppler_hz is None else round(tap.los_doppler_hz, 9),
                   tap.los_trajectory)
-    return (tap.spectrum, round(tap.max_doppler_hz, 9), None if tap.sigma_hz is None else round(tap.sigma_hz, 9),
-            direct)
+    parameters = tuple((k, round(v, 9)) for k, v in sorted(spectra.parameters_of(tap).items()))
+    return (tap.spectrum, round(tap.max_doppler_hz, 9), parameters, direct)
 
 
 def _doppler_spectra(profile) -> bytes | None:
@@ -213,12 +214,14 @@ def _doppler_spectra(profile) -> bytes | None:
         fd = tap.max_doppler_hz
         f = np.linspace(-fd, fd, 801)[1:-1]
         density = spectrum.psd(f)
-        top = float(np.quantile(density, 0.9)) * 2.5 if tap.spectrum == "classical" else float(density.max()) * 1.15
+        top = float(density.max()) * 1.15 if spectrum.spec.bounded_density else float(np.quantile(density, 0.9)) * 2.5
         ax.plot(f, np.minimum(density, top * 0.98), color=TAP_COLOR, linewidth=1.5)
         ax.fill_between(f, 0, np.minimum(density, top * 0.98), color=TAP_COLOR, alpha=0.15)
         ax.set_ylim(0, top)
         ax.set_xlim(-1.15 * fd, 1.15 * fd)
-        label = f"{tap.spectrum}, f_D {fd:.4g} Hz" + (f", sigma {tap.sigma_hz:.3g} Hz" if tap.sigma_hz else "")
+        label = f"{tap.spectrum}, f_D {fd:.4g} Hz" + "".join(
+            f", {p.label} {getattr(spectrum, p.name):.3g}{' ' + p.unit if p.unit else ''}"
+            for p in spectrum.spec.parameters)
         if tap.fading == "rician":
             share = tap.k_linear / (tap.k_linear + 1.0)
             if tap.los_trajectory:
@@ -276,12 +279,14 @@ def _frequency_correlation(profile, statistics) -> bytes:
 
 
 def _taps_table(statistics) -> str:
-    header = ["#", "delay (ns)", "power (dB)", "fading", "K (dB)", "spectrum", "f_D (Hz)", "sigma (Hz)",
+    header = ["#", "delay (ns)", "power (dB)", "fading", "K (dB)", "spectrum", "f_D (Hz)",
+              *(f"{p.label} ({p.unit})" if p.unit else p.label for p in spectra.PARAMETERS),
               "direct Doppler (Hz)", "direct phase (deg)"]
     rows = []
     for tap in statistics["taps"]:
         rows.append([tap["index"], _num(tap["delay_s"] * 1e9), _num(tap["power_db"]), tap["fading"],
-                     _num(tap["k_db"]), tap["spectrum"] or "", _num(tap["max_doppler_hz"]), _num(tap["sigma_hz"]),
+                     _num(tap["k_db"]), tap["spectrum"] or "", _num(tap["max_doppler_hz"]),
+                     *(_num(tap.get(p.name)) for p in spectra.PARAMETERS),
                      tap["los_trajectory"] or _num(tap["los_doppler_hz"]), _num(tap["los_phase_deg"])])
     return _table(header, rows, cls="taps")
 

@@ -284,9 +284,7 @@ def tap_model(entry):
         return None
     spectrum = None
     if entry["fading"] != "static":
-        kind = entry.get("spectrum") or "classical"
-        spectrum = DopplerSpectrum(kind, float(entry["max_doppler_hz"]),
-                                   float(entry["sigma_hz"]) if kind == "gaussian" else None)
+        spectrum = DopplerSpectrum.of(entry)
     return tolerance.TapModel(spectrum=spectrum, mean_power=float(power), k_linear=k,
                         los_doppler_hz=float(los) if k > 0 else 0.0)
 

@@ -22,7 +22,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special
 
 from emucompile.models.theory import DopplerSpectrum
 
@@ -33,15 +32,7 @@ def spectrum_cdf(spectrum: DopplerSpectrum, frequency_hz):
     classical: 1/2 + arcsin(f/f_D)/pi; flat: (f + f_D)/(2 f_D); gaussian
     (truncated at f_D): (Phi(f/sigma) - Phi(-f_D/sigma)) / (2 Phi(f_D/sigma) - 1).
     """
-    f = np.clip(np.asarray(frequency_hz, dtype=float), -spectrum.max_doppler_hz, spectrum.max_doppler_hz)
-    fd = spectrum.max_doppler_hz
-    if spectrum.kind == "classical":
-        return 0.5 + np.arcsin(f / fd) / np.pi
-    if spectrum.kind == "flat":
-        return (f + fd) / (2.0 * fd)
-    s = spectrum.sigma_hz
-    lo = special.ndtr(-fd / s)
-    return (special.ndtr(f / s) - lo) / (1.0 - 2.0 * lo)
+    return spectrum.cdf(frequency_hz)  # the registry's closed form (emucompile.models.spectra)
 
 
 def bin_powers(spectrum: DopplerSpectrum, rate_hz: float, n: int) -> np.ndarray:

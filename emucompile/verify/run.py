@@ -116,7 +116,7 @@ from emucompile._version import __version__
 from emucompile.bundle import store as bd
 from emucompile.bundle import formats
 from emucompile.bundle.formats import sha256_file
-from emucompile.errors import InputError, Problem
+from emucompile.errors import InputError, IntegrityError, Problem  # noqa: F401  (IntegrityError: re-exported)
 from emucompile.profile.model import Profile, load_profile, profile_from_document
 from emucompile.profile.stats import profile_statistics
 from emucompile.profile.target import fit_lines
@@ -139,14 +139,6 @@ MEASURED_GAINS_CAUTION = (
     "Gains estimated from measurements carry measurement noise and estimator bias that these "
     "checks do not model: a failed check may be the estimate's, not the channel's."
 )
-
-
-class IntegrityError(InputError):
-    """The bundle's files disagree with its manifest (exit 2); one line per problem, naming the file."""
-
-    def __init__(self, problems: list[Problem]):
-        self.problems = list(problems)
-        super().__init__("\n".join(p.format() for p in self.problems))
 
 
 @dataclasses.dataclass

@@ -17,6 +17,7 @@ import math
 
 import numpy as np
 
+from emucompile.models import spectra
 from emucompile.models.theory import average_fade_duration, envelope_distribution, level_crossing_rate
 from emucompile.verify import estimators, nulls
 from emucompile.verify.verdicts import (
@@ -464,11 +465,7 @@ def _static_checks(g, model, tap, names):
 
 
 def _autocorrelation_source(spectrum):
-    return {
-        "classical": "Clarke 1968 / Jakes 1974: r = J0(2 pi f_D tau) (scipy.special.j0)",
-        "flat": "flat spectrum: r = sinc(2 f_D tau)",
-        "gaussian": "Gaussian spectrum truncated at f_D: theory.DopplerSpectrum.autocorrelation (Faddeeva form)",
-    }[spectrum.kind]
+    return spectra.kind(spectrum.kind).autocorrelation_source
 
 
 def _lcr_source(ctx):

@@ -92,9 +92,7 @@ class TapModel:
         los = float(tap.los_doppler_hz or 0.0)
         if tap.fading == "static":
             return cls(None, float(tap.power_linear), math.inf, los)
-        spec = DopplerSpectrum(
-            tap.spectrum, float(tap.max_doppler_hz), float(tap.sigma_hz) if tap.spectrum == "gaussian" else None
-        )
+        spec = DopplerSpectrum.of(tap)
         k = float(tap.k_linear) if tap.fading == "rician" else 0.0
         return cls(spec, float(tap.power_linear), k, los if k > 0 else 0.0)
 

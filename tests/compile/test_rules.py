@@ -16,7 +16,7 @@ from emucompile.compile import compiler
 from emucompile.cli import cli
 from emucompile.errors import CheckFailed, InputError
 from emucompile.profile.model import load_profile
-from emucompile.compile.plan import compile_findings
+from emucompile.compile.rules import compile_findings
 from emucompile.compile.validation import is_target_document, validate_file
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -15,6 +15,7 @@ import pytest
 from ruamel.yaml import YAML
 
 from emucompile.errors import InputError, ProfileError
+from emucompile.models import spectra
 from emucompile.profile.presets import (
     CHECK_STATES,
     PRESET_NAMES,
@@ -26,6 +27,7 @@ from emucompile.profile.presets import (
     resolve_extends,
 )
 
+ROOT = Path(__file__).resolve().parents[2]
 TDL = ("tdl-a", "tdl-b", "tdl-c", "tdl-d", "tdl-e")
 
 
@@ -304,9 +306,13 @@ def test_bad_overrides(overrides, fragment):
 
 
 def test_override_keys_are_profile_format_tap_keys():
+    # The spectrum's parameters are the registry's (emucompile.models.spectra): sigma_hz today.
     assert set(TAP_OVERRIDE_KEYS) == {
         "delay_ns", "power_db", "fading", "k_db", "los_angle_deg", "los_doppler_hz",
-        "los_phase_deg", "spectrum", "sigma_hz", "max_doppler_hz"}
+        "los_phase_deg", "spectrum", *spectra.PARAMETER_NAMES, "max_doppler_hz"}
+    definitions = json.loads((ROOT / "emucompile" / "schemas" / "profile-v1.schema.json").read_text("utf-8"))["$defs"]
+    assert set(TAP_OVERRIDE_KEYS) == set(definitions["tap_override"]["properties"]) - {"index"}
+    assert set(TAP_OVERRIDE_KEYS) <= set(definitions["tap"]["properties"])
 
 
 # -- documents ------------------------------------------------------------------------

@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
+from emucompile.profile import fit_costs
 from emucompile.profile import target as tg
 from emucompile.errors import InputError, ProfileError
 from emucompile.profile.model import Tap
@@ -108,14 +109,14 @@ def test_semantic_warnings_and_errors():
 
 def test_image_kernels_match_the_closed_form_identities_and_small_x_limits():
     x = np.array([1e-6, 1e-3, 0.01, 0.1, 0.25, 0.4, 0.5])
-    np.testing.assert_allclose(tg._image_kernel(x, 1), 1 - np.sinc(x) ** 2, rtol=2e-9, atol=1e-15)
+    np.testing.assert_allclose(fit_costs._image_kernel(x, 1), 1 - np.sinc(x) ** 2, rtol=2e-9, atol=1e-15)
     np.testing.assert_allclose(
-        tg._image_kernel(x[2:], 2), (2 + np.cos(2 * np.pi * x[2:])) / 3 - np.sinc(x[2:]) ** 4, rtol=1e-7
+        fit_costs._image_kernel(x[2:], 2), (2 + np.cos(2 * np.pi * x[2:])) / 3 - np.sinc(x[2:]) ** 4, rtol=1e-7
     )
     # small x, where the identities cancel: (pi x)^2/3 and (pi x)^4/45
     small = np.array([1e-7, 1e-5])
-    np.testing.assert_allclose(tg._image_kernel(small, 1), (np.pi * small) ** 2 / 3, rtol=1e-6)
-    np.testing.assert_allclose(tg._image_kernel(small, 2), (np.pi * small) ** 4 / 45, rtol=1e-6)
+    np.testing.assert_allclose(fit_costs._image_kernel(small, 1), (np.pi * small) ** 2 / 3, rtol=1e-6)
+    np.testing.assert_allclose(fit_costs._image_kernel(small, 2), (np.pi * small) ** 4 / 45, rtol=1e-6)
 
 
 def _simulated_images(line_freqs, line_powers, update_rate, mode, n_updates=2048, oversample=256):
@@ -149,8 +150,8 @@ def _kernel_sums(freqs, powers, update_rate, mode):
     order = 1 if mode == "hold" else 2
     x = np.asarray(freqs) / update_rate
     total = np.sum(powers)
-    return (np.sum(powers * tg._image_kernel(x, order)) / total,
-            np.sum(powers * tg._wanted_kernel(x, order)) / total)
+    return (np.sum(powers * fit_costs._image_kernel(x, order)) / total,
+            np.sum(powers * fit_costs._wanted_kernel(x, order)) / total)
 
 
 def _check_against_simulation(tap, freqs, powers, update_rate, mode, n_updates=2048):
@@ -257,7 +258,7 @@ def test_quantisation_sqnr_matches_simulated_rayleigh_coefficients(bits, headroo
 def test_quantisation_of_weak_coefficients_costs_their_own_power():
     # a coefficient far below one step is rounded to zero: its error is itself
     figures = tg.coefficient_quantisation([1.0, 1e-12], 12, 12.0)
-    noise = tg._quantisation_error_power(np.array([1.0, 1e-12]), figures.full_scale, figures.step)
+    noise = fit_costs._quantisation_error_power(np.array([1.0, 1e-12]), figures.full_scale, figures.step)
     assert noise[1] == pytest.approx(1e-12)
     assert figures.sqnr_db == pytest.approx(10 * math.log10((1 + 1e-12) / noise.sum()))
 

@@ -66,16 +66,9 @@ from emucompile.models.fading._plan import (
     SOS_EVALUATIONS,
     FadingPlan,
 )
+from emucompile.errors import InputError
 from emucompile.models.fading._direct import RecordedDirect, direct_phase
-from emucompile.models.fading._streams import BIT_GENERATOR
-
-#: Changes only when the numbers a seed produces change. 2: sum-of-sinusoids uses
-#: GAUSSIAN_SINUSOIDS (1024) for a Gaussian spectrum by default (was 256). 3: sum-of-sinusoids
-#: draws an independent angle offset per sinusoid for the classical spectrum too (one per tap
-#: and link made taps and links correlate); the doppler-filter generator's numbers are unchanged.
-#: 4: sum-of-sinusoids keeps each quadrature's lowest sinusoid >= G^-1(1/(2M)) from 0 Hz (a
-#: near-0 Hz sinusoid is a constant offset over the record); doppler-filter numbers unchanged.
-GENERATOR_VERSION = 4
+from emucompile.models.fading._streams import BIT_GENERATOR, GENERATOR_VERSION
 
 #: Largest difference, relative to a tap's RMS gain, promised between runs of the
 #: same version on different machines or library versions (see :func:`reproducibility`):
@@ -197,8 +190,6 @@ def _refuse_channel_blocks(profile, name, instead):
     """Refuse a profile whose gains need more than the engine: a silent SISO answer would be wrong."""
     blocks = _channel_blocks(profile)
     if blocks:
-        from emucompile.errors import InputError
-
         raise InputError(
             f"{name} gives the taps of one SISO link without conditions, and profile "
             f"{profile.name!r} has {' and '.join(blocks)}; emucompile.{instead} honours "

@@ -37,53 +37,29 @@ import scipy.fft as sfft
 from scipy import signal
 
 from emucompile.models.theory import DopplerSpectrum
-
-# -- constants that fix the generated numbers (bump GENERATOR_VERSION on change) --
-INTERNAL_RATE_MIN = 3.0  # f_i / f_D, lowest internal rate considered
-INTERNAL_RATE_MAX = 12.0  # f_i / f_D, highest internal rate considered
-FINAL_STAGE_MIN = 32.0  # f_1 / f_D required before the linear stage
-STAGE1_ATTENUATION_DB = 60.0  # stop-band attenuation of the polyphase low-pass h1
-LAG_WINDOW_DOPPLER_PERIODS = 256.0  # half-span of the lag window, in units of 1/f_D
-LAG_WINDOW_SIGMA_PERIODS = 40.0  # ... and at least this many 1/sigma for a Gaussian spectrum
-LAG_WINDOW_BETA = 9.0  # Kaiser beta of the window whose autocorrelation is the lag window
-DOPPLER_FILTER_SPAN = 1.25  # h0 length / lag-window half-span
-DOPPLER_FILTER_TAPER = 0.2  # Tukey taper fraction at the ends of h0
-MAX_DOPPLER_FILTER_LENGTH = 1 << 20
-MAX_POLYPHASE_FACTOR = 64  # R1 when a linear stage follows
-MIN_FFT_SIZE = 4096
-MAX_OUTPUT_BLOCK = 1 << 17  # update-rate samples per synthesis block (bounds the caches)
-MIN_INTERNAL_BLOCK = 16
-# Cost model used only to choose (R1, R2): nanoseconds, measured on the
-# development machine (noise + FFT convolution per internal sample, one
-# real multiply-add of the polyphase filter, linear stage per output sample).
-_COST_NOISE_NS = 25.0
-_COST_FFT_NS_PER_LOG2 = 4.0
-_COST_MAC_NS = 0.75
-_COST_LINEAR_NS = 2.0
+from emucompile.models.rates import (  # noqa: F401  (the rate plan and the constants that fix the numbers)
+    DOPPLER_FILTER_SPAN,
+    DOPPLER_FILTER_TAPER,
+    FINAL_STAGE_MIN,
+    INTERNAL_RATE_MAX,
+    INTERNAL_RATE_MIN,
+    LAG_WINDOW_BETA,
+    LAG_WINDOW_DOPPLER_PERIODS,
+    LAG_WINDOW_SIGMA_PERIODS,
+    MAX_DOPPLER_FILTER_LENGTH,
+    MAX_OUTPUT_BLOCK,
+    MAX_POLYPHASE_FACTOR,
+    MIN_FFT_SIZE,
+    MIN_INTERNAL_BLOCK,
+    STAGE1_ATTENUATION_DB,
+    RatePlan,
+    choose_rate_plan,
+    doppler_filter_half_length,
+    lag_window_half_span,
+)
 
 # Lags compared against theory when a design is checked, in units of 1/f_D.
 CHECK_LAGS_DOPPLER_PERIODS = 3.0
-
-
-@dataclass(frozen=True)
-class RatePlan:
-    """Integer interpolation factors from the internal rate to the update rate."""
-
-    update_rate_hz: float
-    up1: int  # R1, polyphase stage
-    up2: int  # R2, linear stage
-
-    @property
-    def total(self) -> int:
-        return self.up1 * self.up2
-
-    @property
-    def internal_rate_hz(self) -> float:
-        return self.update_rate_hz / self.total
-
-    @property
-    def stage1_rate_hz(self) -> float:
-        return self.update_rate_hz / self.up2
 
 
 @dataclass(frozen=True)
@@ -156,48 +132,6 @@ class DopplerDesign:
     @property
     def output_block(self) -> int:
         return self.block * self.chain.rates.total
-
-
-def choose_rate_plan(update_rate_hz: float, band_edge_hz: float, period: int | None = None) -> RatePlan:
-    """Pick (R1, R2) for a tap: cheapest plan with f_i in [3, 12] f_D (or R = 1).
-
-    Candidates: R = 1 (Doppler filter at the update rate itself); one
-    polyphase stage (R1 = R, R2 = 1); or a polyphase stage with R1 <= 64
-    followed by the linear stage, which needs f_1 = F_u/R2 >= 32 f_D.
-    ``period`` (periodic mode) requires R1*R2 to divide the record length, so
-    that the internal noise is circular with a whole number of samples.
-    Notes: the choice minimises a cost model measured on the development
-    machine (vectorised over R2, so it stays instant for F_u/f_D ~ 1e6); it
-    is part of what fixes the generated numbers.
-    """
-    ratio = update_rate_hz / band_edge_hz
-    best = (_plan_cost(ratio, 1, 1), 1, 1)
-    families = [(None, 1)] + [(up1, None) for up1 in range(2, MAX_POLYPHASE_FACTOR + 1)]
-    for up1, up2 in families:
-        # the free factor runs over the totals whose f_i lies in [3, 12] f_D
-        fixed = up2 if up1 is None else up1
-        lo = max(2 if up1 is None else 1, math.ceil(ratio / (INTERNAL_RATE_MAX * fixed) - 1e-9))
-        hi = math.floor(ratio / (INTERNAL_RATE_MIN * fixed) + 1e-9)
-        if hi < lo:
-            continue
-        free = np.arange(lo, hi + 1, dtype=np.int64)
-        if up1 is None:
-            u1, u2 = free, np.ones_like(free)
-        else:
-            u1, u2 = np.full_like(free, up1), free
-            keep = (u2 == 1) | (ratio / u2 >= FINAL_STAGE_MIN)
-            u1, u2 = u1[keep], u2[keep]
-        if period is not None:
-            keep = (period % (u1 * u2)) == 0
-            u1, u2 = u1[keep], u2[keep]
-        if len(u1) == 0:
-            continue
-        cost = _plan_cost(ratio, u1, u2)
-        i = int(np.argmin(cost))
-        key = (float(cost[i]), int(u1[i]), int(u2[i]))
-        if key < best:
-            best = key
-    return RatePlan(float(update_rate_hz), best[1], best[2])
 
 
 @lru_cache(maxsize=64)
@@ -287,10 +221,8 @@ def design_doppler_filter(spectrum: DopplerSpectrum, chain: Chain) -> DopplerDes
     rates = chain.rates
     fi = rates.internal_rate_hz
     fd = spectrum.max_doppler_hz
-    half_span = int(math.ceil(LAG_WINDOW_DOPPLER_PERIODS * fi / fd))
-    if spectrum.kind == "gaussian":
-        half_span = max(half_span, int(math.ceil(LAG_WINDOW_SIGMA_PERIODS * fi / spectrum.sigma_hz)))
-    half0 = int(round(DOPPLER_FILTER_SPAN * half_span / 2.0))
+    half_span = lag_window_half_span(fi, spectrum)
+    half0 = doppler_filter_half_length(half_span)
     length0 = 2 * half0 + 1
     if length0 > MAX_DOPPLER_FILTER_LENGTH:
         raise ValueError(
@@ -523,19 +455,3 @@ def _block_geometry(length0: int, chain: Chain) -> tuple[int, int]:
 def internal_block_limit(rates: RatePlan) -> int:
     """Largest internal block whose output fits in ``MAX_OUTPUT_BLOCK`` samples."""
     return max(MIN_INTERNAL_BLOCK, MAX_OUTPUT_BLOCK // rates.total)
-
-
-def _plan_cost(ratio, up1, up2):
-    """Modelled nanoseconds per output sample (scalars or arrays; only used to compare plans)."""
-    up1 = np.asarray(up1, dtype=np.float64)
-    up2 = np.asarray(up2, dtype=np.float64)
-    total = up1 * up2
-    internal = ratio / total  # f_i / f_D
-    span = LAG_WINDOW_DOPPLER_PERIODS * internal * DOPPLER_FILTER_SPAN
-    cost = (_COST_NOISE_NS + _COST_FFT_NS_PER_LOG2 * np.log2(4 * span)) / total
-    with np.errstate(divide="ignore", invalid="ignore"):
-        width = (internal - 2.0) / (ratio / up2)
-        taps_per_phase = (STAGE1_ATTENUATION_DB - 7.95) / (14.36 * width) / up1
-    cost = cost + np.where(up1 > 1, 2.0 * _COST_MAC_NS * taps_per_phase / up2, 0.0)
-    cost = cost + np.where(up2 > 1, _COST_LINEAR_NS, 0.0)
-    return cost

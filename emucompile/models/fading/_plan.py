@@ -12,19 +12,16 @@ from emucompile.errors import InputError
 from emucompile.models.fading import _design
 from emucompile.models.fading._direct import ConstantDopplerPhase, direct_phase
 from emucompile.models.fading._sos import SumOfSinusoidsSource
-from emucompile.models.fading._streams import DIRECT_PHASE, generator
+from emucompile.models.fading._streams import DIRECT_PHASE, GENERATOR_VERSION, generator
 from emucompile.models.fading._synthesis import DopplerFilterSource
+from emucompile.models import spectra
+from emucompile.models.rates import DEFAULT_METHOD, METHODS, MIN_UPDATE_RATIO
 
-METHODS = ("doppler-filter", "sum-of-sinusoids")
-DEFAULT_METHOD = "doppler-filter"
 SOS_EVALUATIONS = ("interpolated", "exact")
-DEFAULT_SINUSOIDS = 256
-#: Sinusoids per quadrature for a Gaussian spectrum: its thin tails need more lines
-#: (measured, tests/test_theory.py and DEVELOPERS.md "Fading engine": at 256 the Doppler
-#: PSD check fails records of T f_D = 5e4, at 1024 it passes).
-GAUSSIAN_SINUSOIDS = 1024
+DEFAULT_SINUSOIDS = spectra.DEFAULT_SINUSOIDS
+#: Sinusoids per quadrature for a Gaussian spectrum (the registry's: its thin tails need more lines).
+GAUSSIAN_SINUSOIDS = spectra.GAUSSIAN.sinusoids
 DEFAULT_CHUNK = 65536
-MIN_UPDATE_RATIO = 2.2  # update rate / f_D: Nyquist with a 10 % guard band
 _PARALLEL_MIN_WORK = 1 << 15  # samples x taps below which threads do not pay
 # One thread by default: on the 2-core development machine two threads gave
 # the same wall time for 1.5x the CPU (the per-sample passes are bound by
@@ -129,7 +126,7 @@ class FadingPlan:
         """The method's parameters, for the manifest (JSON-ready)."""
         out = {
             "method": self.method,
-            "generator_version": _generator_version(),
+            "generator_version": GENERATOR_VERSION,
             "periodic": self.periodic,
             "update_rate_hz": self.update_rate_hz,
             "n_samples": self.n_samples,
@@ -154,7 +151,7 @@ class FadingPlan:
             out["sum_of_sinusoids"] = {
                 "model": "Zheng-Xiao 2002 (random phases, random angles), quantile form",
                 "n_sinusoids_per_quadrature": self.n_sinusoids or {
-                    "classical": DEFAULT_SINUSOIDS, "flat": DEFAULT_SINUSOIDS, "gaussian": GAUSSIAN_SINUSOIDS},
+                    name: kind.sinusoids for name, kind in spectra.SPECTRA.items()},
                 "evaluation": self.sos_evaluation,
                 "phase_resolution_cycles": 2.0**-52,
             }
@@ -219,7 +216,7 @@ class FadingPlan:
         chain = _design.design_chain(rates, spectrum)
         internal_period = self.n_samples // rates.total if self.periodic else None
         if self.method == "sum-of-sinusoids":
-            count = self.n_sinusoids or (GAUSSIAN_SINUSOIDS if spectrum.kind == "gaussian" else DEFAULT_SINUSOIDS)
+            count = self.n_sinusoids or spectrum.spec.sinusoids
             return SumOfSinusoidsSource(spectrum, chain, count, self.seed, j, internal_period)
         try:
             design = _doppler_design(spectrum, rates)
@@ -351,12 +348,6 @@ def _doppler_design(spectrum, rates):
 @lru_cache(maxsize=4)
 def _executor(threads: int) -> ThreadPoolExecutor:
     return ThreadPoolExecutor(max_workers=threads, thread_name_prefix="emucompile-fading")
-
-
-def _generator_version():
-    from emucompile.models.fading import GENERATOR_VERSION
-
-    return GENERATOR_VERSION
 
 
 def _positive_float(value, name):

@@ -89,7 +89,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special
 
 from emucompile.models.fading._design import Chain, internal_block_limit
 from emucompile.models.fading._streams import SINUSOIDS, BoundedCache, generator
@@ -107,14 +106,7 @@ LOWEST_POINT = 0.5
 
 def quantile(spectrum: DopplerSpectrum, u):
     """G^-1(u): the frequency below which a fraction u of the one-sided power lies."""
-    u = np.asarray(u, dtype=float)
-    fd = spectrum.max_doppler_hz
-    if spectrum.kind == "classical":
-        return fd * np.sin(0.5 * np.pi * u)
-    if spectrum.kind == "flat":
-        return fd * u
-    s = spectrum.sigma_hz * math.sqrt(2.0)
-    return s * special.erfinv(u * math.erf(fd / s))
+    return spectrum.quantile(u)
 
 
 def draw_sinusoids(spectrum: DopplerSpectrum, n_sinusoids: int, rng: np.random.Generator):

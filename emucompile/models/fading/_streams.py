@@ -29,6 +29,14 @@ SHADOWING = 4
 
 BIT_GENERATOR = "PCG64"
 
+#: Changes only when the numbers a seed produces change. 2: sum-of-sinusoids uses
+#: GAUSSIAN_SINUSOIDS (1024) for a Gaussian spectrum by default (was 256). 3: sum-of-sinusoids
+#: draws an independent angle offset per sinusoid for the classical spectrum too (one per tap
+#: and link made taps and links correlate); the doppler-filter generator's numbers are unchanged.
+#: 4: sum-of-sinusoids keeps each quadrature's lowest sinusoid >= G^-1(1/(2M)) from 0 Hz (a
+#: near-0 Hz sinusoid is a constant offset over the record); doppler-filter numbers unchanged.
+GENERATOR_VERSION = 4
+
 
 def generator(seed: int, *key: int) -> np.random.Generator:
     """The generator of one key (see the module docstring)."""
