@@ -232,11 +232,15 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
         block = capture.read(first + p0 * L, first + (p0 + count) * L).astype(np.complex64, copy=False)
         return block.reshape(count, L, capture.n_rx).transpose(0, 2, 1)
 
+    def rotated(periods, index):
+        """The given periods (index: their numbers) with the known frequency offset removed."""
+        if not rotation:
+            return periods
+        return periods * (within * per_period(index)[:, None])[:, None, :].astype(np.complex64)
+
     def spectra(periods, index):
-        """Z = FFT(y)[bins] / X of the given periods (index: their numbers), rotated: (count, n_rx, K) complex128."""
-        if rotation:
-            periods = periods * (within * per_period(index)[:, None])[:, None, :]
-        return sp_fft.fft(periods, axis=-1)[..., bins] / x0
+        """Z = FFT(y)[bins] / X of the given periods, rotated: (count, n_rx, K) complex128."""
+        return sp_fft.fft(rotated(periods, index), axis=-1)[..., bins] / x0
 
     # alignment on the first periods: integer by the delay profile, fractional by least squares
     count = min(ALIGN_PERIODS, n_est)
@@ -292,7 +296,10 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
     basis, _ = np.linalg.qr(a)
     outside_factor = float(np.count_nonzero(~support) * bins.size / L ** 2
                            - np.sum(np.abs(_delay_domain(basis.T, bins, L)[:, ~support]) ** 2))
-    outside_columns = _delay_domain(a.T, bins, L)[:, ~support]  # (columns, outside bins)
+    outside = np.flatnonzero(~support)
+    outside_columns = _delay_domain(a.T, bins, L)[:, outside].astype(np.complex64)  # (columns, outside bins)
+    inverse_probe = np.zeros(L, np.complex64)  # 1 / X on the occupied bins, 0 elsewhere
+    inverse_probe[bins] = 1.0 / x0
     n_taps = rows.shape[0]
     gains = np.empty((n_est, capture.n_rx, design.n_tx, n_taps), np.complex128)
     noise_sum = np.zeros(capture.n_rx)
@@ -313,14 +320,16 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
             block *= per_period(p0 + np.arange(count))[:, None, None, None]
         gains[p0:p0 + count] = block
         pick = np.arange((-p0) % noise_step, count, noise_step)
-        if pick.size:
-            chosen = spectra(y[pick], p0 + pick)
-            delay = _delay_domain(chosen, bins, L)  # (picked, n_rx, L)
-            # the fit's delay domain, outside the support: (Z pinv(A)^T) times the columns' inverse DFTs there
-            fitted = (chosen.reshape(-1, bins.size) @ pinv_t @ outside_columns).reshape(pick.size, capture.n_rx, -1)
-            noise_sum += np.sum(np.abs(delay[..., ~support] - fitted) ** 2, axis=(0, 2))
+        if pick.size:  # complex64: the noise's power to ~1e-7 (the fit it subtracts: see the module notes)
+            spectrum = sp_fft.fft(rotated(y[pick], p0 + pick), axis=-1)
+            spectrum *= inverse_probe
+            delay = sp_fft.ifft(spectrum, axis=-1)  # (picked, n_rx, L): the delay domain of Z
+            # the fit's delay domain outside the support: the period's estimates times the columns' there
+            residual = delay[..., outside]
+            residual -= (block[pick].reshape(-1, design.n_tx * n_taps) @ outside_columns).reshape(residual.shape)
+            noise_sum += np.sum(residual.real ** 2 + residual.imag ** 2, axis=(0, 2), dtype=np.float64)
             noise_count += pick.size
-            pdp += np.sum(np.abs(delay) ** 2, axis=0)
+            pdp += np.sum(delay.real ** 2 + delay.imag ** 2, axis=0, dtype=np.float64)
             pdp_count += pick.size
         if progress is not None:
             progress(p0 + count, n_est)
@@ -508,10 +517,11 @@ def _time_response(a, weights, design, bins, x0):
 
 def _misfit(z, a) -> float:
     """sum ||z_p - A pinv(A) z_p||^2 = ||z||^2 - sum_p b_p^H (A^H A)^-1 b_p, b_p = A^H z_p (no K x K product)."""
-    b = z @ a.conj()  # (..., columns): b_p^T
+    z = z.reshape(-1, z.shape[-1])  # periods (and antennas) as rows: one matrix product, not one per period
+    b = z @ a.conj()  # (rows, columns): b_p^T
     gram = a.conj().T @ a
-    solved = np.linalg.solve(gram, b.reshape(-1, b.shape[-1]).T)
-    return float(np.sum(np.abs(z) ** 2) - np.real(np.sum(b.reshape(-1, b.shape[-1]).conj().T * solved)))
+    solved = np.linalg.solve(gram, b.T)
+    return float(np.vdot(z, z).real - np.real(np.sum(b.conj().T * solved)))
 
 
 def _tap_spectra(rows, signed, L):

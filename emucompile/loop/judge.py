@@ -217,7 +217,7 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
         if ramp is None:
             return mean
         slope = (value_stop - value_start) / period
-        return mean + (slope.reshape(n, links, -1) @ ramp).reshape(n, -1)
+        return mean + (slope.reshape(n * links, -1) @ ramp).reshape(n, -1)  # one 2-D product, not n small ones
 
     if cfo_hz is not None:
         g_hat = g_hat * np.exp(-2j * np.pi * cfo_hz * t)[:, None]
