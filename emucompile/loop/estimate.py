@@ -457,16 +457,27 @@ def _tap_delay_errors(head, rows, design, offset, signed, L, profile, sweeps: in
     shifts = np.zeros(k)
     active = [tap for tap in range(k) if profile.taps[tap].power_linear > 0] if len(profile.taps) == k else list(range(k))
 
-    def misfit(values, common):
+    z = head.reshape(-1, head.shape[-1])
+    energy = float(np.vdot(z, z).real)
+
+    def design_at(values, common):
         shifted = spectra * np.exp(-2j * np.pi * np.outer(values, signed) / L)
-        return _misfit(head, _design_matrix(shifted, design.cyclic_shifts, common, signed, L))
+        return _design_matrix(shifted, design.cyclic_shifts, common, signed, L)
 
     for _ in range(sweeps):
         for tap in active:
-            def one(delta, tap=tap):
+            # only this tap's columns (one per transmitter) move: their products with the periods are formed
+            # again, the others' kept (the same misfit as _misfit, without the whole matrix product)
+            kept = z @ design_at(shifts, offset).conj()
+            moved = tap + k * np.arange(design.n_tx)
+
+            def one(delta, tap=tap, kept=kept, moved=moved):
                 values = shifts.copy()
                 values[tap] = delta
-                return misfit(values, offset)
+                a = design_at(values, offset)
+                b = kept.copy()
+                b[:, moved] = z @ a[:, moved].conj()
+                return _misfit_from(energy, a, b)
 
             shifts[tap] = optimize.minimize_scalar(one, bounds=(-1.0, 1.0), method="bounded",
                                                    options={"xatol": 1e-3}).x
@@ -518,10 +529,13 @@ def _time_response(a, weights, design, bins, x0):
 def _misfit(z, a) -> float:
     """sum ||z_p - A pinv(A) z_p||^2 = ||z||^2 - sum_p b_p^H (A^H A)^-1 b_p, b_p = A^H z_p (no K x K product)."""
     z = z.reshape(-1, z.shape[-1])  # periods (and antennas) as rows: one matrix product, not one per period
-    b = z @ a.conj()  # (rows, columns): b_p^T
-    gram = a.conj().T @ a
-    solved = np.linalg.solve(gram, b.T)
-    return float(np.vdot(z, z).real - np.real(np.sum(b.conj().T * solved)))
+    return _misfit_from(float(np.vdot(z, z).real), a, z @ a.conj())
+
+
+def _misfit_from(energy, a, b) -> float:
+    """_misfit from ||z||^2 and b (rows, columns) = z conj(A)."""
+    solved = np.linalg.solve(a.conj().T @ a, b.T)
+    return float(energy - np.real(np.sum(b.conj().T * solved)))
 
 
 def _tap_spectra(rows, signed, L):
