@@ -23,21 +23,23 @@ period's centre.
 Speed, memory and precision: g = pinv(A) Z is linear in the period's samples
 y, g = y W with W (L x columns) the time-domain weights of pinv(A) Z
 (:func:`_time_weights`); every block of periods is read by a file read and
-projected by one complex64 matrix product, with no FFT of every period (the
-FFT runs on the alignment's first periods and on the at most
-:data:`NOISE_PERIODS` periods of the noise estimate, in complex128). Memory: a
-block of :data:`BLOCK_SAMPLES` samples per receive antenna at a time, plus the
-estimates themselves (a few numbers per period and tap). Error budget of the
-complex64 product, u = 2^-24: an estimate's rounding error is at most
-(L + 5) u sum_n |y_n| |w_n| (a dot product's bound, Higham, *Accuracy and
-Stability of Numerical Algorithms*, 2nd ed., 2002, section 3.1, with the
-complex product's sqrt(2) gamma_2 of section 3.6, from memory; the weights'
-own rounding adds u); as rounding errors add at random it is about
-u sqrt(L (1 + SNR)) of the estimate's own noise standard deviation:
-measured 1.0e-4 rms and 8.8e-4 at most over 12 000 estimates at L = 4800
-and 30 dB (the capture of ``benchmarks/bench_measure.py``), below -60 dB of
-the noise power that sets the tolerances (``tests/test_loop.py`` checks
-both on its capture). A cf32 capture's samples carry u of rounding already.
+projected by one complex64 matrix product, with no FFT of every period. The
+FFT runs only on the alignment's first periods (complex128) and on the at
+most :data:`NOISE_PERIODS` periods of the noise estimate (complex64: their
+power to ~1e-7 relative; the fit subtracted there is the periods' own
+estimates). Memory: a block of :data:`BLOCK_SAMPLES` samples per receive
+antenna at a time, plus the estimates themselves (a few numbers per period
+and tap). Error budget of the complex64 product, u = 2^-24: an estimate's
+rounding error is at most (L + 5) u sum_n |y_n| |w_n| (a dot product's bound,
+Higham, *Accuracy and Stability of Numerical Algorithms*, 2nd ed., 2002,
+section 3.1, with the complex product's sqrt(2) gamma_2 of section 3.6, from
+memory; the weights' own rounding adds u); as rounding errors add at random
+it is about u sqrt(L (1 + SNR)) of the estimate's own noise standard
+deviation: measured 1.0e-4 rms and 8.8e-4 at most over 12 000 estimates at
+L = 4800 and 30 dB (a 2 s capture of ``benchmarks/bench_measure.py
+--capture apply``), below -60 dB of the noise power that sets the tolerances
+(``tests/test_loop.py`` checks both on its capture). A cf32 capture's samples
+carry u of rounding already.
 """
 
 from __future__ import annotations
