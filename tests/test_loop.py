@@ -343,9 +343,10 @@ def test_time_domain_projection_equals_the_fft_least_squares(lab):
     assert np.max(error) > 0  # the two computations are really different ones
 
 
-def test_file_reads_give_what_the_memory_map_gives(tmp_path):
-    """Capture blocks are read by file reads (memory bounded by the block): the same samples as the recording's
-    memory map, for npy (1-D and 2-D), raw cf32, raw ci16 and SigMF ci16 with header bytes."""
+def test_capture_reads_give_what_the_recording_gives(tmp_path):
+    """Capture blocks are read through a map of the file the capture keeps, its pages let go block by block
+    (memory bounded by the block): the same samples as the recording's own reader, before and after a release,
+    for npy (1-D and 2-D), raw cf32, raw ci16 and SigMF ci16 with header bytes."""
     from emucompile.loop import estimate as est
 
     rng = np.random.default_rng(3)
@@ -364,6 +365,8 @@ def test_file_reads_give_what_the_memory_map_gives(tmp_path):
         capture = est.open_capture(tmp_path / name, n_rx=n_rx)
         recording = capture.recordings[0]
         for start, stop in ((0, 500), (17, 230), (490, 600)):
+            np.testing.assert_array_equal(capture.read(start, stop), recording.read(start, stop), err_msg=name)
+            capture.release(start, stop)
             np.testing.assert_array_equal(capture.read(start, stop), recording.read(start, stop), err_msg=name)
 
 

@@ -45,6 +45,7 @@ carry u of rounding already.
 from __future__ import annotations
 
 import math
+import mmap
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -93,35 +94,54 @@ class Capture:
     def n_rx(self) -> int:
         return sum(r.n_channels for r in self.recordings)
 
+    maps: dict = field(default_factory=dict, repr=False)
+
     def read(self, start: int, stop: int) -> np.ndarray:
-        parts = [_read_rows(recording, start, stop) for recording in self.recordings]
+        """Samples start .. stop - 1, (m, n_rx) as :meth:`Recording.read` gives them; a view of the file's map
+        where the recording is one (complex64): :meth:`release` lets its pages go once used."""
+        parts = [self._rows(index, start, stop) for index in range(len(self.recordings))]
         return parts[0] if len(parts) == 1 else np.concatenate(parts, axis=1)
 
+    def release(self, start: int, stop: int) -> None:
+        """Let the map's pages of samples start .. stop - 1 go: the process's memory stays a block whatever the
+        capture's length (the pages stay in the page cache; a later read maps them again)."""
+        for index, mapped in self.maps.items():
+            samples = self.recordings[index].samples
+            if mapped is None or not hasattr(mapped, "madvise"):
+                continue
+            first = (samples.offset + max(0, start) * samples.strides[0]) // mmap.PAGESIZE * mmap.PAGESIZE
+            last = min(len(mapped), samples.offset + max(0, stop) * samples.strides[0])
+            if last > first:
+                mapped.madvise(mmap.MADV_DONTNEED, first, last - first)
 
-def _read_rows(recording, start: int, stop: int) -> np.ndarray:
-    """Samples start .. stop - 1 of a recording as :meth:`Recording.read` gives them, by a file read.
-
-    A file read leaves the page cache's pages unmapped: the process's memory
-    stays a block whatever the capture's length (slicing the memory map would
-    map every page read into it). A recording that is not a C-ordered map of a
-    file is read through its map.
-    """
-    samples = recording.samples
-    if not (isinstance(samples, np.memmap) and samples.filename and samples.flags.c_contiguous):
-        return recording.read(start, stop)
-    start, stop = max(0, start), min(stop, samples.shape[0])
-    out = np.empty((max(0, stop - start),) + samples.shape[1:], samples.dtype)
-    with open(samples.filename, "rb") as handle:
-        handle.seek(samples.offset + start * samples.strides[0])
-        if handle.readinto(memoryview(out).cast("B")) != out.nbytes:
+    def _rows(self, index: int, start: int, stop: int) -> np.ndarray:
+        """One recording's samples start .. stop - 1 through a map of its file the capture keeps (a numpy
+        memory map cannot let its pages go); a recording that is not a C-ordered map of a file through
+        :meth:`Recording.read`."""
+        recording = self.recordings[index]
+        samples = recording.samples
+        if index not in self.maps:
+            self.maps[index] = None
+            if isinstance(samples, np.memmap) and samples.filename and samples.flags.c_contiguous:
+                with open(samples.filename, "rb") as handle:
+                    self.maps[index] = mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ)
+        mapped = self.maps[index]
+        if mapped is None:
+            return recording.read(start, stop)
+        start, stop = max(0, start), max(0, min(stop, samples.shape[0]))
+        count = max(0, stop - start)
+        try:
+            out = np.frombuffer(mapped, samples.dtype, count * int(np.prod(samples.shape[1:])),
+                                samples.offset + start * samples.strides[0]).reshape((count,) + samples.shape[1:])
+        except ValueError:
             raise InputError(f"{recording.data_path or recording.path}: shorter than its header says (truncated "
-                             "while being read?)")
-    if recording.datatype == "ci16_le":
-        codes, out = out, np.empty(out.shape[:2], np.complex64)
-        out.real = codes[..., 0]
-        out.imag = codes[..., 1]
-        return out
-    return out.astype(recording.dtype, copy=False)
+                             "while being read?)") from None
+        if recording.datatype == "ci16_le":
+            codes, out = out, np.empty(out.shape[:2], np.complex64)
+            out.real = codes[..., 0]
+            out.imag = codes[..., 1]
+            return out
+        return out.astype(recording.dtype, copy=False)
 
 
 def open_capture(paths, *, n_rx: int = 1, sample_rate_hz: float | None = None) -> Capture:
@@ -146,12 +166,13 @@ def open_capture(paths, *, n_rx: int = 1, sample_rate_hz: float | None = None) -
             recordings.append(Recording(path, "ci16", "ci16_le", codes, data_path=path))
         else:
             recordings.append(read_recording(path, n_channels=per_file))
-    clipped = 0
-    for recording in recordings:
+    capture = Capture(paths, recordings, None)
+    for index, recording in enumerate(recordings):
         if recording.datatype == "ci16_le":  # one pass over the codes, in blocks
             for first in range(0, recording.n_samples, BLOCK_SAMPLES):
-                values = _read_rows(recording, first, first + BLOCK_SAMPLES).view(np.float32)
-                clipped += int(np.count_nonzero(np.abs(values) >= CI16_FULL_SCALE))
+                values = capture._rows(index, first, first + BLOCK_SAMPLES).view(np.float32)
+                capture.clipped += int(np.count_nonzero(np.abs(values) >= CI16_FULL_SCALE))
+                capture.release(first, first + BLOCK_SAMPLES)
     rates = {r.sample_rate_hz for r in recordings if r.sample_rate_hz is not None}
     if len(rates) > 1:
         raise InputError(f"the capture's files disagree on the sample rate: {sorted(rates)}")
@@ -160,7 +181,8 @@ def open_capture(paths, *, n_rx: int = 1, sample_rate_hz: float | None = None) -
         if rate is not None and not math.isclose(rate, sample_rate_hz, rel_tol=1e-9):
             raise InputError(f"--sample-rate {sample_rate_hz:g} Hz, but {paths[0]} says {rate:g} Hz")
         rate = float(sample_rate_hz)
-    return Capture(paths, recordings, rate, clipped)
+    capture.sample_rate_hz = rate
+    return capture
 
 
 @dataclass
@@ -333,6 +355,7 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
             noise_count += pick.size
             pdp += np.sum(delay.real ** 2 + delay.imag ** 2, axis=0, dtype=np.float64)
             pdp_count += pick.size
+        capture.release(first + p0 * L, first + (p0 + count) * L)
         if progress is not None:
             progress(p0 + count, n_est)
     sigma_z2 = noise_sum / (max(1, noise_count) * outside_factor)
@@ -394,7 +417,8 @@ def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | N
 def _find_in_window(capture, design, span, start, window):
     """find_probe on capture samples start .. start + window - 1 (indices returned in capture samples)."""
     L = design.period_samples
-    y = capture.read(start, start + window).astype(np.complex64)
+    y = capture.read(start, start + window).astype(np.complex64)  # a copy: the map's pages go
+    capture.release(start, start + window)
     usable = window - L + 1
     if usable < 2 * L:
         raise NoProbe(f"{capture.paths[0]}: no probe found: the capture holds fewer than 3 probe periods")

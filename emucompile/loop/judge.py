@@ -436,8 +436,12 @@ def _coarse_offset(g_hat, t, loaded, rate_u):
 def _line_peak(z, rate_hz):
     """(sum over columns of |sum_t z exp(-j 2 pi f t)|^2 at its largest, f), |f| < rate / 2, between FFT bins."""
     size = sp_fft.next_fast_len(8 * z.shape[0])
-    # complex64: the peak's place from float32 powers (relative error ~1e-7) moves by far less than a bin
-    spectrum = np.sum(np.abs(sp_fft.fft(z.astype(np.complex64), size, axis=0)) ** 2, axis=1, dtype=np.float64)
+    # complex64, one column at a time (memory: one padded column): the peak's place from float32 powers
+    # (relative error ~1e-7) moves by far less than a bin
+    spectrum = np.zeros(size)
+    for column in np.asarray(z, np.complex64).T:
+        line = sp_fft.fft(column, size)
+        spectrum += line.real.astype(np.float64) ** 2 + line.imag.astype(np.float64) ** 2
     k = int(np.argmax(spectrum))
     shift = _parabola(spectrum, k)
     f = (k + shift) * rate_hz / size
