@@ -16,6 +16,9 @@ two ``--seconds`` to see it bounded). Times are taken without any memory
 tracing (tracemalloc slows every allocation).
 
     PYTHONPATH=. nice python benchmarks/bench_measure.py --seconds 10 --rounds 3
+
+With ``PYTHONPATH`` pointing at another tree (``git archive REV`` unpacked)
+the same script times that code's measure (the API it calls is unchanged).
 """
 
 from __future__ import annotations
@@ -86,8 +89,9 @@ print(json.dumps({"after_imports_kib": before, "peak_kib": peak_kib(), "status":
 
 def peak_memory(capture: Path, probe: Path, bundle: Path) -> dict:
     """Peak resident memory (VmHWM, Linux) of one measure in a fresh interpreter, and after its imports."""
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(Path(__file__).resolve().parent.parent),
-                                                       os.environ.get("PYTHONPATH", "")]))
+    # the code the benchmark itself runs: PYTHONPATH when set (another tree, e.g. the code before a change),
+    # else this checkout
+    env = dict(os.environ, PYTHONPATH=os.environ.get("PYTHONPATH") or str(Path(__file__).resolve().parent.parent))
     done = subprocess.run([sys.executable, "-c", PEAK_CHILD, str(capture), str(probe), str(bundle), str(RATE)],
                           capture_output=True, text=True, env=env, check=True)
     return json.loads(done.stdout.strip().splitlines()[-1])
