@@ -8,21 +8,29 @@ not depend on the channel's values) or through the bundle by ``apply``
 Then, alternately for ``--rounds`` rounds: the baseline (read the capture in
 blocks and FFT it in blocks of one probe period: the least any analysis of
 it must do) and :func:`emucompile.loop.measure.measure_capture` against the
-bundle. Printed: min and median of each, their ratio (target <= 2), and the
-peak memory traced by tracemalloc during measure against the capture's size
-(bounded: a block of periods, plus the estimates at the repetition rate).
+bundle. Printed: min and median of each and their ratio (target <= 2). Then,
+in a fresh interpreter, the peak resident memory (VmHWM) of one measure
+against the same after the imports: what measure holds whatever the capture's
+length is a block of periods plus the estimates at the repetition rate (run at
+two ``--seconds`` to see it bounded). Times are taken without any memory
+tracing (tracemalloc slows every allocation).
 
-    PYTHONPATH=. nice python benchmarks/bench_measure.py --seconds 10
+    PYTHONPATH=. nice python benchmarks/bench_measure.py --seconds 10 --rounds 3
+
+With ``PYTHONPATH`` pointing at another tree (``git archive REV`` unpacked)
+the same script times that code's measure (the API it calls is unchanged).
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import statistics
+import subprocess
+import sys
 import tempfile
 import time
-import tracemalloc
 from pathlib import Path
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the measure command sets it (BLAS threads only contend)
@@ -59,6 +67,34 @@ def baseline(path: Path, period: int, block: int) -> float:
             sp_fft.fft(data.reshape(-1, period), axis=-1, workers=2)
             done += count
     return time.perf_counter() - began
+
+
+PEAK_CHILD = """
+import json, os, sys
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+import emucompile.loop.judge, emucompile.verify.run  # measure's own imports, made before the first mark
+from emucompile.loop.measure import measure_capture
+
+
+def peak_kib():
+    with open("/proc/self/status") as handle:
+        return next(int(line.split()[1]) for line in handle if line.startswith("VmHWM:"))
+
+
+before = peak_kib()
+result = measure_capture(sys.argv[1], sys.argv[2], bundle=sys.argv[3], sample_rate_hz=float(sys.argv[4]))
+print(json.dumps({"after_imports_kib": before, "peak_kib": peak_kib(), "status": result.status}))
+"""
+
+
+def peak_memory(capture: Path, probe: Path, bundle: Path) -> dict:
+    """Peak resident memory (VmHWM, Linux) of one measure in a fresh interpreter, and after its imports."""
+    # the code the benchmark itself runs: PYTHONPATH when set (another tree, e.g. the code before a change),
+    # else this checkout
+    env = dict(os.environ, PYTHONPATH=os.environ.get("PYTHONPATH") or str(Path(__file__).resolve().parent.parent))
+    done = subprocess.run([sys.executable, "-c", PEAK_CHILD, str(capture), str(probe), str(bundle), str(RATE)],
+                          capture_output=True, text=True, env=env, check=True)
+    return json.loads(done.stdout.strip().splitlines()[-1])
 
 
 def static_capture(design, bundle, path: Path) -> None:
@@ -117,29 +153,37 @@ def main(argv=None):
         files = write_probe(work / "probe", RATE, bundle=bundle, duration_s=args.seconds, output_format="cf32",
                             force=True)
         capture = work / "capture.cf32"
+        made = work / "capture.made"  # what the kept capture is, so that a later run with --keep reuses it
         began = time.perf_counter()
-        if args.capture == "apply":
+        if made.exists() and capture.exists() and made.read_text() == f"{args.capture} {args.seconds!r}":
+            pass
+        elif args.capture == "apply":
             apply_bundle(bundle, files.data_paths[0], capture, snr_db=30.0, seed=1, sample_rate_hz=RATE, force=True)
         else:
             static_capture(files.design, bundle, capture)
+        made.write_text(f"{args.capture} {args.seconds!r}")
         print(f"capture: {capture.stat().st_size / 2**30:.2f} GiB ({args.seconds:g} s at {RATE / 1e6:g} MHz), "
               f"made in {time.perf_counter() - began:.1f} s; probe period {files.design.period_samples} samples")
-        base_times, measure_times, peaks = [], [], []
+        base_times, measure_times = [], []
         baseline(capture, files.design.period_samples, BLOCK_SAMPLES)  # warm the page cache
+        # and the imports measure makes on its first call (scipy.stats, verify: paid once per process)
+        measure_capture(capture, files.description_path, bundle=bundle, sample_rate_hz=RATE)
+        loads = [os.getloadavg()]
         for _ in range(args.rounds):
             base_times.append(baseline(capture, files.design.period_samples, BLOCK_SAMPLES))
-            tracemalloc.start()
             began = time.perf_counter()
             result = measure_capture(capture, files.description_path, bundle=bundle, sample_rate_hz=RATE)
             measure_times.append(time.perf_counter() - began)
-            peaks.append(tracemalloc.get_traced_memory()[1])
-            tracemalloc.stop()
-        print(f"load: {os.getloadavg()[0]:.2f} (1-minute average, {os.cpu_count()} cores); verdict {result.status}")
+        loads.append(os.getloadavg())
+        print(f"load average before / after the rounds: {' / '.join(f'{a:.2f} {b:.2f} {c:.2f}' for a, b, c in loads)} "
+              f"({os.cpu_count()} cores); verdict {result.status}")
         print(f"baseline (read + one FFT pass): min {min(base_times):.2f} s, median {statistics.median(base_times):.2f} s")
         print(f"measure:                       min {min(measure_times):.2f} s, median {statistics.median(measure_times):.2f} s")
         print(f"ratio measure / baseline: min {min(measure_times) / min(base_times):.2f}, "
               f"median {statistics.median(measure_times) / statistics.median(base_times):.2f} (target <= 2)")
-        print(f"peak traced memory during measure: {max(peaks) / 2**20:.0f} MiB "
+        peak = peak_memory(capture, files.description_path, bundle)
+        print(f"peak resident memory of measure in a fresh interpreter: {peak['peak_kib'] / 2**10:.0f} MiB, "
+              f"{peak['after_imports_kib'] / 2**10:.0f} MiB after its imports "
               f"(capture {capture.stat().st_size / 2**20:.0f} MiB; processing block {BLOCK_SAMPLES * 8 / 2**20:.0f} MiB "
               f"per receive antenna; estimates {result.estimate.gains.nbytes / 2**20:.1f} MiB)")
     finally:

@@ -49,11 +49,19 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import optimize, stats
 
+from emucompile.errors import InputError
+from emucompile.verify import run as verify
+from emucompile.verify.tolerance import CheckResult, TapModel
+
 DEFAULT_LIMIT_DB = -30.0
 MISSING_TAP_DB = -15.0
 UNCORRELATED = 0.5
 """A tap whose measured gains correlate with its loaded ones below this (|rho|) does not follow them."""
 CROSSING_NOISE_LIMIT = 1e-4
+COARSE_PERIODS = 4096
+COARSE_KEEP = 3
+"""The bundle's alignment grid is scored on about COARSE_PERIODS evenly spread periods, its COARSE_KEEP best
+points on all of them (:func:`_coarse_to_fine`)."""
 DOPPLER_SCALE_LIMIT = 0.05
 """|measured Doppler scale - 1| beyond which an unfollowed bundle is called a Doppler error. A choice between the
 fit's spread on correct captures and the 10 % error the acceptance run must name (tools/acceptance_loop.py prints
@@ -76,22 +84,52 @@ class _Integral:
             steps = (g[:-1] + g[1:]) / (2.0 * self.rate)
         self.c = np.concatenate([np.zeros((1,) + g.shape[1:], g.dtype), np.cumsum(steps, axis=0)])
 
-    def at(self, t):
+    def _locate(self, t):
         n = self.g.shape[0]
         x = np.clip(np.asarray(t, float) * self.rate, 0.0, n - 1.0)
         m = np.minimum(np.floor(x).astype(int), n - (1 if self.mode == "hold" else 2))
-        u = (x - m)[(...,) + (None,) * (self.g.ndim - 1)]
+        return m, (x - m)[(...,) + (None,) * (self.g.ndim - 1)]
+
+    def ends(self, t):
+        """(integral from 0 to t, value at t) at the times t (n,): (n, columns) each, one look-up for both.
+
+        Computed column by column over time, (columns, n) in memory, returned as
+        its transpose: element-wise work on long rows, not on n rows of a few
+        columns (numpy's inner loop would run over the columns)."""
+        if self.g.ndim != 2:
+            return self.at(t), self.value(t)
+        if not hasattr(self, "_rows"):
+            self._rows = np.ascontiguousarray(self.g.T), np.ascontiguousarray(self.c.T)
+        g_rows, c_rows = self._rows
+        n = self.g.shape[0]
+        x = np.clip(np.asarray(t, float) * self.rate, 0.0, n - 1.0)
+        m = np.minimum(np.floor(x).astype(int), n - (1 if self.mode == "hold" else 2))
+        u = (x - m).astype(complex)  # complex x complex: no casting inside the loops
+        g = np.take(g_rows, m, axis=1)
+        integral = np.take(c_rows, m, axis=1)
+        if self.mode == "hold":
+            integral += g * (u / self.rate)
+            return integral.T, g.T
+        d = np.take(g_rows, m + 1, axis=1)
+        d -= g  # the change over the update interval
+        part = d * (0.5 * u)
+        part += g
+        part *= u / self.rate
+        integral += part
+        d *= u
+        d += g
+        return integral.T, d.T
+
+    def at(self, t):
+        m, u = self._locate(t)
         if self.mode == "hold":
             return self.c[m] + u / self.rate * self.g[m]
         return self.c[m] + (u * self.g[m] + 0.5 * u ** 2 * (self.g[m + 1] - self.g[m])) / self.rate
 
     def value(self, t):
-        n = self.g.shape[0]
-        x = np.clip(np.asarray(t, float) * self.rate, 0.0, n - 1.0)
-        m = np.minimum(np.floor(x).astype(int), n - (1 if self.mode == "hold" else 2))
+        m, u = self._locate(t)
         if self.mode == "hold":
             return self.g[m]
-        u = (x - m)[(...,) + (None,) * (self.g.ndim - 1)]
         return self.g[m] + u * (self.g[m + 1] - self.g[m])
 
     def mean(self, t0, t1):
@@ -131,8 +169,6 @@ class BundleJudgement:
 def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None, cfo_hz: float | None = None,
                  limit_db: float = DEFAULT_LIMIT_DB, false_alarm: float = 0.01) -> BundleJudgement:
     """Compare estimated gains with the loaded ones (see the module notes); faults named in ``faults``."""
-    from emucompile.verify.tolerance import CheckResult
-
     manifest = bundle.manifest
     rate_u = float(manifest["update_rate_hz"])
     loaded = np.asarray(bundle.tap_gains)
@@ -158,11 +194,14 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
     steps, step_samples = estimate.step_response, estimate.step_samples
     sample_rate = design.sample_rate_hz
 
-    def expected_at(shift, source=integral):
+    abutting = n > 1 and np.allclose(np.diff(t), 2.0 * half, rtol=1e-9, atol=0.0)
+
+    def expected_at(shift, source=integral, rows=slice(None)):
         """What the estimator gives for the loaded gains over each period (estimate.py, _time_response):
         linear between updates, their mean plus the leak of their slope; held, the value at the period's start
-        plus the estimate of each step inside it."""
-        start, stop = t - half + shift, t + half + shift
+        plus the estimate of each step inside it. ``rows``: the periods (all by default)."""
+        start, stop = t[rows] - half + shift, t[rows] + half + shift
+        n = start.size
         if source.mode == "hold" and steps is not None:
             out = source.value(start).reshape(n, links, -1).copy()
             first = np.ceil(np.clip(start, 0.0, None) * source.rate).astype(int)
@@ -177,11 +216,16 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
                 delta = (source.g[index[rows]] - source.g[index[rows] - 1]).reshape(rows.size, links, -1)
                 out[rows] += np.einsum("rlj,rji->rli", delta, steps[position])
             return out.reshape(n, -1)
-        mean = source.mean(start, stop)
+        if abutting and (rows.step or 1) == 1:  # each period ends where the next begins: one look-up per edge
+            at, value = source.ends(np.append(start, stop[-1:]))
+            at_start, at_stop, value_start, value_stop = at[:-1], at[1:], value[:-1], value[1:]
+        else:
+            (at_start, value_start), (at_stop, value_stop) = source.ends(start), source.ends(stop)
+        mean = (at_stop - at_start) / (stop - start)[:, None]
         if ramp is None:
             return mean
-        slope = (source.value(stop) - source.value(start)) / period
-        return mean + (slope.reshape(n, links, -1) @ ramp).reshape(n, -1)
+        slope = (value_stop - value_start) / period
+        return mean + (slope.reshape(n * links, -1) @ ramp).reshape(n, -1)  # one 2-D product, not n small ones
 
     if cfo_hz is not None:
         g_hat = g_hat * np.exp(-2j * np.pi * cfo_hz * t)[:, None]
@@ -192,24 +236,29 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
 
     def fit(source):
         """Offset, frequency offset and common gain for one hypothesis of the update behaviour; the errors."""
-        def products(shift):
+        def products(shift, rows=slice(None)):
             """g_hat conj(e) per tap, weighted so that sum |.|^2 is the likelihood of a free gain per tap:
             |<g, e>|^2 / (||e||^2 sigma^2) (a tap that does not follow adds about 1, one that does ~ n P / sigma^2)."""
-            e = expected_at(shift, source)
+            e = expected_at(shift, source, rows)
             weight = 1.0 / np.sqrt(np.maximum(np.sum(np.abs(e) ** 2, axis=0) * sigma2, 1e-300))
-            return g_hat * np.conj(e) * weight
+            return g_hat[rows] * np.conj(e) * weight
 
         # the frequency offset by one line search at the coarse offset, the offset then at that frequency
         # (one FFT per fit, not one per trial offset), the frequency once more at the offset found
         rotation = np.ones(n) if cfo_hz is not None else np.exp(
             -2j * np.pi * _line_peak(products(offset), estimate.rate_hz)[1] * t)
 
-        def score(shift):
-            return float(np.sum(np.abs(rotation @ products(shift)) ** 2))
+        turned = np.conj(rotation[:, None] * g_hat)
+
+        def score(shift, rows=slice(None)):
+            """sum over taps of |sum_t rotation g_hat conj(e)|^2 / (||e||^2 sigma^2): products summed, unformed."""
+            e = expected_at(shift, source, rows)
+            inner = np.einsum("tc,tc->c", turned[rows], e)
+            energy = np.einsum("tc,tc->c", e.real, e.real) + np.einsum("tc,tc->c", e.imag, e.imag)
+            return float(np.sum(np.abs(inner) ** 2 / np.maximum(energy * sigma2, 1e-300)))
 
         grid = offset + np.linspace(-2.0, 2.0, 41) / rate_u
-        scores = [score(shift) for shift in grid]
-        best = int(np.argmax(scores))
+        best = _coarse_to_fine(score, grid, n)
         found = optimize.minimize_scalar(lambda shift: -score(shift), method="bounded",
                                          bounds=(grid[max(best - 1, 0)], grid[min(best + 1, grid.size - 1)]),
                                          options={"xatol": 1e-3 / rate_u})
@@ -330,6 +379,24 @@ def _name_faults(g_hat, reference, ne, tolerance, relative, rho, follows, shape,
     return faults
 
 
+def _coarse_to_fine(score, grid, n):
+    """The grid point of the largest score(shift) over all n periods, searched coarse to fine.
+
+    Every grid point is scored on every ``n // COARSE_PERIODS``-th period (the
+    score is a sum over periods of a product that varies over the channel's
+    coherence time, many periods: a regular subset ranks the shifts as the
+    whole does); the :data:`COARSE_KEEP` best are scored on all periods and
+    the best of those is returned (index into ``grid``). With n <=
+    COARSE_PERIODS it is the exhaustive search.
+    """
+    stride = max(1, n // COARSE_PERIODS)
+    if stride == 1:
+        return int(np.argmax([score(shift) for shift in grid]))
+    coarse = np.array([score(shift, slice(None, None, stride)) for shift in grid])
+    shortlist = np.argsort(coarse)[::-1][:COARSE_KEEP]
+    return int(max(shortlist, key=lambda i: score(grid[i])))
+
+
 def _link_text(link, shape):
     n_rx, n_tx, _ = shape
     return "" if n_rx * n_tx == 1 else f" on rx{link // n_tx} tx{link % n_tx}"
@@ -371,7 +438,12 @@ def _coarse_offset(g_hat, t, loaded, rate_u):
 def _line_peak(z, rate_hz):
     """(sum over columns of |sum_t z exp(-j 2 pi f t)|^2 at its largest, f), |f| < rate / 2, between FFT bins."""
     size = sp_fft.next_fast_len(8 * z.shape[0])
-    spectrum = np.sum(np.abs(sp_fft.fft(z, size, axis=0)) ** 2, axis=1)
+    # complex64, one column at a time (memory: one padded column): the peak's place from float32 powers
+    # (relative error ~1e-7) moves by far less than a bin
+    spectrum = np.zeros(size)
+    for column in np.asarray(z, np.complex64).T:
+        line = sp_fft.fft(column, size)
+        spectrum += line.real.astype(np.float64) ** 2 + line.imag.astype(np.float64) ** 2
     k = int(np.argmax(spectrum))
     shift = _parabola(spectrum, k)
     f = (k + shift) * rate_hz / size
@@ -467,8 +539,6 @@ class NoisySpectrum:
 
 def noisy_models(profile, noise_variance, rate_hz):
     """Tap index -> TapModel with the estimation noise (variance per tap) in it; static taps None."""
-    from emucompile.verify.tolerance import TapModel
-
     models = {}
     for i, tap in enumerate(profile.taps):
         try:
@@ -491,8 +561,6 @@ def profile_record(estimate, profile, *, gain=None, cfo_hz: float = 0.0):
 
     Returns (gains (m, n_rx, n_tx, n_taps) complex64, rate, noise variance per tap (n_taps,), M, gain used).
     """
-    from emucompile.verify import run as verify
-
     n = estimate.gains.shape[0]
     g = estimate.gains * np.exp(-2j * np.pi * cfo_hz * estimate.times_s)[:, None, None, None]
     sigma2 = estimate.noise_variance
@@ -515,9 +583,6 @@ def profile_record(estimate, profile, *, gain=None, cfo_hz: float = 0.0):
 
 def judge_profile(gains_file, profile, rate_hz, noise, *, false_alarm: float = 0.01):
     """verify's checks on a measured record with the noise in the theory; crossing checks n/a above the limit."""
-    from emucompile.verify import run as verify
-    from emucompile.verify.tolerance import CheckResult
-
     models = noisy_models(profile, noise, rate_hz)
     cautions = ["Gains estimated from a capture: the estimation noise (measured from the delay bins outside the "
                 "channel's support) is in each check's theory; the set-up's gain is divided out, so mean power "
@@ -550,6 +615,4 @@ def _db(x):
 
 
 def _input_error(message):
-    from emucompile.errors import InputError
-
     return InputError(message)

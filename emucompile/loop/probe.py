@@ -58,7 +58,11 @@ import numpy as np
 from scipy import fft as sp_fft
 
 from emucompile._version import __version__
+from emucompile.bundle.store import Bundle, open_bundle
 from emucompile.errors import InputError, UnsoundableChannel  # noqa: F401  (UnsoundableChannel: re-exported)
+from emucompile.models import grid
+from emucompile.profile.model import Profile, load_profile, profile_from_document
+from emucompile.profile.stats import delay_statistics
 
 FORMAT_VERSION = 1
 KIND = "emucompile-probe"
@@ -106,10 +110,6 @@ def channel_source(sample_rate_hz: float, *, bundle=None, profile=None) -> Chann
     maps included); otherwise the profile's tap delays are mapped onto this
     rate's grid (Kaiser-windowed sinc, :func:`emucompile.models.grid.fir_map`).
     """
-    from emucompile.models import grid
-    from emucompile.bundle.store import Bundle, open_bundle
-    from emucompile.profile.model import Profile, load_profile, profile_from_document
-
     if (bundle is None) == (profile is None):
         raise InputError("give either a bundle or a profile")
     rate = _positive(sample_rate_hz, "sample rate")
@@ -236,8 +236,6 @@ def design_probe(source: ChannelSource, *, duration_s: float | None = None, band
     InputError
         A bandwidth outside (0, f_s], too few occupied bins, a bad duration.
     """
-    from emucompile.profile.stats import delay_statistics
-
     profile = source.profile
     rate = source.sample_rate_hz
     n_tx = int(profile.n_tx if n_tx is None else n_tx)

@@ -310,3 +310,84 @@ def test_the_probe_schema_copy_is_identical_to_the_packaged_one():
 
     packaged = importlib.resources.files("emucompile").joinpath("schemas/probe-v1.schema.json").read_bytes()
     assert (Path(__file__).resolve().parents[2] / "schemas" / "probe-v1.schema.json").read_bytes() == packaged
+
+
+def test_time_domain_projection_equals_the_fft_least_squares(lab):
+    """measure projects every period by one complex64 matrix product (its time-domain weights W): it gives the
+    complex128 FFT least-squares estimate pinv(A) FFT(y)[bins] / X to within a dot product's rounding bound
+    (L + 5) 2^-24 sum |y| |w| (Higham 2002, sections 3.1 and 3.6, from memory), and below -60 dB of the estimate's
+    own noise power (the module's error budget)."""
+    from scipy import fft as sp_fft
+
+    from emucompile.loop import estimate as est
+    from emucompile.loop.probe import channel_source
+
+    design = lab["design"]
+    path = play(design, lab["bundle"], lab["dir"] / "projection.npy", cfo_hz=0.0)
+    source = channel_source(design.sample_rate_hz, bundle=lab["bundle"])
+    estimate = est.estimate_channel(est.open_capture(path), design, source)
+    L, bins = design.period_samples, design.bins()
+    signed = np.where(bins > L // 2, bins - L, bins).astype(float)
+    a = est._design_matrix(est._tap_spectra(source.fir_matrix, signed, L), design.cyclic_shifts,
+                           estimate.offset_samples, signed, L)
+    x0 = sp_fft.fft(design.period(0))[bins]
+    n = 200
+    first = estimate.probe_start + L
+    y = np.asarray(np.load(path)[first:first + n * L, 0], np.complex128).reshape(n, L)
+    reference = (sp_fft.fft(y, axis=-1)[:, bins] / x0) @ np.linalg.pinv(a).T
+    error = np.abs(estimate.gains[:n, 0, 0, :] - reference)
+    weights = est._time_weights(np.linalg.pinv(a).T, bins, x0, L)
+    bound = (L + 5) * 2.0 ** -24 * (np.abs(y) @ np.abs(weights))
+    assert np.all(error <= bound)
+    assert np.max(error / np.sqrt(estimate.noise_variance[0, 0])) < 1e-3
+    assert np.max(error) > 0  # the two computations are really different ones
+
+
+def test_capture_reads_give_what_the_recording_gives(tmp_path):
+    """Capture blocks are read through a map of the file the capture keeps, its pages let go block by block
+    (memory bounded by the block): the same samples as the recording's own reader, before and after a release,
+    for npy (1-D and 2-D), raw cf32, raw ci16 and SigMF ci16 with header bytes."""
+    from emucompile.loop import estimate as est
+
+    rng = np.random.default_rng(3)
+    data = (rng.standard_normal((500, 2)) + 1j * rng.standard_normal((500, 2))).astype(np.complex64)
+    np.save(tmp_path / "one.npy", data[:, 0])
+    np.save(tmp_path / "two.npy", data)
+    data.tofile(tmp_path / "two.cf32")
+    codes = rng.integers(-32768, 32767, size=(500, 2, 2), dtype="<i2")
+    codes.tofile(tmp_path / "two.ci16")
+    (tmp_path / "h.sigmf-data").write_bytes(b"\x01" * 12 + codes.tobytes())
+    (tmp_path / "h.sigmf-meta").write_text(json.dumps({
+        "global": {"core:datatype": "ci16_le", "core:num_channels": 2, "core:sample_rate": 1e6,
+                   "core:version": "1.0.0"},
+        "captures": [{"core:sample_start": 0, "core:header_bytes": 12}], "annotations": []}))
+    for name, n_rx in (("one.npy", 1), ("two.npy", 2), ("two.cf32", 2), ("two.ci16", 2), ("h.sigmf-meta", 2)):
+        capture = est.open_capture(tmp_path / name, n_rx=n_rx)
+        recording = capture.recordings[0]
+        for start, stop in ((0, 500), (17, 230), (490, 600)):
+            np.testing.assert_array_equal(capture.read(start, stop), recording.read(start, stop), err_msg=name)
+            capture.release(start, stop)
+            np.testing.assert_array_equal(capture.read(start, stop), recording.read(start, stop), err_msg=name)
+
+
+def test_coarse_to_fine_alignment_equals_the_exhaustive_search(lab, monkeypatch):
+    """The bundle's alignment scores its grid on a regular subset of the periods, then its best points on all:
+    the same offset, frequency offset and verdicts as scoring every grid point on every period."""
+    from emucompile.loop import estimate as est
+    from emucompile.loop import judge
+    from emucompile.loop.probe import channel_source
+
+    design = lab["design"]
+    path = play(design, lab["bundle"], lab["dir"] / "coarse.npy")
+    source = channel_source(design.sample_rate_hz, bundle=lab["bundle"])
+    estimate = est.estimate_channel(est.open_capture(path), design, source)
+    assert estimate.gains.shape[0] > 4 * 256
+    results = {}
+    for periods in (256, 10 ** 9):  # a subset of every n // 256-th period; every period (exhaustive)
+        monkeypatch.setattr(judge, "COARSE_PERIODS", periods)
+        results[periods] = judge.judge_bundle(estimate, design, source.bundle)
+    coarse, exhaustive = results[256], results[10 ** 9]
+    update = 1.0 / float(source.bundle.manifest["update_rate_hz"])
+    assert coarse.offset_s == pytest.approx(exhaustive.offset_s, abs=2e-3 * update)  # the refinement's xatol
+    assert coarse.cfo_hz == pytest.approx(exhaustive.cfo_hz, abs=1e-3)
+    assert [c.passed for c in coarse.checks] == [c.passed for c in exhaustive.checks]
