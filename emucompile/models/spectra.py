@@ -217,7 +217,7 @@ GAUSSIAN = SpectrumKind(
                            "(Faddeeva form)",
     parameters=(Parameter("sigma_hz", "its standard deviation in Hz", "Hz", "sigma"),),
     feature_width=lambda fd, p: p["sigma_hz"],
-    # Its thin tails need more lines (measured, tests/models/test_theory.py: at 256 the Doppler PSD
+    # Its thin tails need more lines (measured, tests/models/test_fading_statistics.py: at 256 the Doppler PSD
     # check fails records of T f_D = 5e4, at 1024 it passes).
     sinusoids=1024,
     example={"sigma_hz": 30.0},
