@@ -42,11 +42,11 @@ from pathlib import Path
 
 from emucompile._lazy import LazyModule
 from emucompile.errors import InputError
+from emucompile.models import spectra
 from emucompile.profile.model import Profile, load_profile, profile_from_document
 
 store = LazyModule("emucompile.bundle.store")  # only for a bundle directory
 stats = LazyModule("emucompile.profile.stats")  # numpy: only when statistics are compared
-from emucompile.models import spectra
 
 DEFAULT_TOLERANCES = {
     "delay_ns": 0.01,

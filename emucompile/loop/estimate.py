@@ -368,9 +368,11 @@ def estimate_channel(capture: Capture, design, source, *, cfo_hz: float | None =
     if capture.clipped:
         notes.append(f"{capture.clipped} I/Q values at the int16 full scale in the ci16 capture (clipped: "
                      "lower the capture level)")
+    anchor = preamble_start if seen else s0
+    probe_start = anchor + ((s0 + offset - anchor) % L + L / 2) % L - L / 2
     return Estimate(gains, times, rate / L, noise_variance, noise_delay, np.roll(pdp, -int(round(offset)), axis=1),
-                    offset, (preamble_start if seen else s0) + ((s0 + offset - (preamble_start if seen else s0)) % L + L / 2) % L - L / 2, s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp, steps, step_samples,
-                    delay_errors)
+                    offset, probe_start, s0, psr_db, residual_fraction, snr, capture.clipped, notes, ramp, steps,
+                    step_samples, delay_errors)
 
 
 def find_probe(capture: Capture, design, span: int) -> tuple[int, float, int | None]:
@@ -440,7 +442,8 @@ def _find_in_window(capture, design, span, start, window):
     side = float(np.max(folded[~inside])) if (~inside).any() else 0.0
     psr = math.inf if side <= 0 else 10 * math.log10(peak / side)
     if not psr >= MIN_PSR_DB:
-        raise NoProbe(f"{capture.paths[0]}: no probe found (searched up to {(start + window) / design.sample_rate_hz:.4g} s): "
+        searched_s = (start + window) / design.sample_rate_hz
+        raise NoProbe(f"{capture.paths[0]}: no probe found (searched up to {searched_s:.4g} s): "
                       f"the probe's correlation peak stands {psr:.1f} dB above its largest sidelobe "
                       f"(at least {MIN_PSR_DB:g} dB needed); wrong probe, wrong rate, or no signal")
     # per period, the share of the preamble root's correlation energy within one response's span: about 1 in a
@@ -476,7 +479,10 @@ def _tap_delay_errors(head, rows, design, offset, signed, L, profile, sweeps: in
     spectra = _tap_spectra(rows, signed, L)
     k = rows.shape[0]
     shifts = np.zeros(k)
-    active = [tap for tap in range(k) if profile.taps[tap].power_linear > 0] if len(profile.taps) == k else list(range(k))
+    if len(profile.taps) == k:
+        active = [tap for tap in range(k) if profile.taps[tap].power_linear > 0]
+    else:
+        active = list(range(k))
 
     z = head.reshape(-1, head.shape[-1])
     energy = float(np.vdot(z, z).real)
@@ -492,7 +498,7 @@ def _tap_delay_errors(head, rows, design, offset, signed, L, profile, sweeps: in
             kept = z @ design_at(shifts, offset).conj()
             moved = tap + k * np.arange(design.n_tx)
 
-            def one(delta, tap=tap, kept=kept, moved=moved):
+            def one(delta, tap=tap, kept=kept, moved=moved, shifts=shifts, offset=offset):
                 values = shifts.copy()
                 values[tap] = delta
                 a = design_at(values, offset)

@@ -308,7 +308,8 @@ def judge_bundle(estimate, design, bundle, *, between_updates: str | None = None
              "source": "noise alone: sigma^2 chi^2_2n / 2 (independent complex Gaussian errors), Bonferroni"}))
     excess = np.maximum(ne - noise_mean, 0.0)
     within = _db(float(np.max(excess))) if excess.max() > 0 else None
-    judgement = BundleJudgement(checks, bool(passed.all()), [], float(offset), float(rho_env), float(df if cfo_hz is None else cfo_hz),
+    judgement = BundleJudgement(checks, bool(passed.all()), [], float(offset), float(rho_env),
+                                float(df if cfo_hz is None else cfo_hz),
                                 cfo_hz is None, complex(gain), mode, within, float(limit_db), per_tap,
                                 expected.reshape(n, n_rx, n_tx, n_taps), g_hat.reshape(n, n_rx, n_tx, n_taps))
     if not judgement.passed:
@@ -366,9 +367,10 @@ def _name_faults(g_hat, reference, ne, tolerance, relative, rho, follows, shape,
         residual = np.sum(np.abs(g_hat[:, col] - relative[col] * reference[:, col]) ** 2) / max(
             np.sum(np.abs(relative[col] * reference[:, col]) ** 2), 1e-300)
         if level is None or level < MISSING_TAP_DB:
+            shown = level if level is not None else -math.inf
             faults.append({"fault": "missing", "taps": [tap], "link": link, "level_db": level,
                            "text": f"tap {tap} missing" + _link_text(link, shape)
-                                   + f" (measured {level if level is not None else -math.inf:.1f} dB of its loaded power)"})
+                                   + f" (measured {shown:.1f} dB of its loaded power)"})
         elif residual <= tolerance[col]:
             faults.append({"fault": "power", "taps": [tap], "link": link, "level_db": level,
                            "text": f"tap {tap} power error {level:+.2f} dB" + _link_text(link, shape)})
@@ -534,7 +536,8 @@ class NoisySpectrum:
 
     def psd(self, frequency_hz):
         f = np.asarray(frequency_hz, dtype=float)
-        return (1.0 - self.floor) * np.asarray(self.base.psd(f)) + self.floor / self.rate_hz * (np.abs(f) <= self.rate_hz / 2)
+        flat = self.floor / self.rate_hz * (np.abs(f) <= self.rate_hz / 2)
+        return (1.0 - self.floor) * np.asarray(self.base.psd(f)) + flat
 
 
 def noisy_models(profile, noise_variance, rate_hz):

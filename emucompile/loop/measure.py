@@ -63,7 +63,8 @@ class MeasureResult:
         if r.get("bundle"):
             b = r["bundle"]
             within = "below the noise" if b["within_db"] is None else f"{b['within_db']:.1f} dB"
-            lines.append(f"bundle: offset {_f(b['bundle_offset_s'], '.6f')} s, frequency offset {_f(b['cfo_hz'], '.3f')} Hz"
+            lines.append(f"bundle: offset {_f(b['bundle_offset_s'], '.6f')} s, "
+                         f"frequency offset {_f(b['cfo_hz'], '.3f')} Hz"
                          f"{' (estimated)' if b['cfo_estimated'] else ''}, gain {_f(b['gain_db'], '.2f')} dB; "
                          f"error beyond noise {within} (limit {b['limit_db']:g} dB, {b['between_updates']}): "
                          + ("pass" if b["passed"] else "FAIL"))
@@ -185,7 +186,8 @@ def measure_capture(capture, probe, *, bundle=None, profile=None, outdir=None, r
         status = "not enough data"  # never "pass" on a capture too short for the profile's checks
     else:
         status = "pass"
-    identities = {"probe_description_sha256": probe_sha, "probe_data_sha256": (description.get("file") or {}).get("sha256"),
+    identities = {"probe_description_sha256": probe_sha,
+                  "probe_data_sha256": (description.get("file") or {}).get("sha256"),
                   "capture": [os.fspath(p) for p in opened.paths], **source.identity}
     record = {
         "format_version": 1, "kind": "emucompile-measurement", "tool_version": __version__, "status": status,

@@ -45,7 +45,8 @@ def render_page(result, design, source) -> str:
             parts.append("<tr>" + "".join(f"<td>{esc(_text(v))}</td>" for v in (
                 row["tap"], f"rx{row['rx']} tx{row['tx']}", row["normalised_error_db"], row["noise_explains_db"],
                 row["tolerance_db"], row["correlation"], row["relative_gain_db"]))
-                + f"<td class='{_cls('pass' if row['passed'] else 'fail')}'>{'pass' if row['passed'] else 'FAIL'}</td></tr>")
+                + f"<td class='{_cls('pass' if row['passed'] else 'fail')}'>"
+                + f"{'pass' if row['passed'] else 'FAIL'}</td></tr>")
         parts.append("</table>")
     parts.append("<h2>Against the profile</h2><table><tr><th>check</th><th>tap</th><th>value</th><th>expected</th>"
                  "<th>tolerance</th><th>unit</th><th>verdict</th><th>note</th></tr>")

@@ -26,7 +26,8 @@ def play(design, bundle, *, gains=None, fir_matrix=None, between="linear", snr_d
     opened = open_bundle(bundle)
     rate = design.sample_rate_hz
     g = opened.tap_gains if gains is None else gains
-    y = apply_channel(design.waveform(), g, opened.fir_map if fir_matrix is None else fir_matrix, update_rate_hz=opened.manifest["update_rate_hz"],
+    y = apply_channel(design.waveform(), g, opened.fir_map if fir_matrix is None else fir_matrix,
+                      update_rate_hz=opened.manifest["update_rate_hz"],
                       sample_rate_hz=rate, between_updates=between)
     y = np.concatenate([np.zeros((bulk, y.shape[1]), y.dtype), y])
     n = np.arange(y.shape[0])

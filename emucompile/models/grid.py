@@ -374,7 +374,8 @@ def fir_map(
         energy_worst = 1.0
     else:
         if delay_step_samples != 1:
-            raise ValueError("sinc mapping needs delay_step_samples = 1 (a coarser grid cannot carry a band-limited delay)")
+            raise ValueError("sinc mapping needs delay_step_samples = 1 "
+                             "(a coarser grid cannot carry a band-limited delay)")
         half = int(half_length)
         beta = float(kaiser_beta) if kaiser_beta is not None else default_kaiser_beta(half, passband_fraction)
         matrix, bulk = _sinc_rows(samples, on_sample, half, beta)
@@ -628,7 +629,7 @@ def sinc_energy_deficit(half_length: int, kaiser_beta: float) -> float:
 
 
 def rms_delay_spread(delays_s, powers_linear) -> float:
-    """Power-weighted RMS delay spread (:func:`emucompile.models.delays.delay_statistics`); NaN when all powers are 0."""
+    """Power-weighted RMS delay spread (:func:`emucompile.models.delays.delay_statistics`); NaN if all powers are 0."""
     if not np.asarray(powers_linear, dtype=float).sum() > 0:
         return math.nan
     return delay_statistics(delays_s, powers_linear)["rms_delay_spread_s"]

@@ -69,7 +69,7 @@ class ConstantDopplerPhase:
                 index = pos // DIRECT_BLOCK
                 first = pos - index * DIRECT_BLOCK
                 take = min(stop - pos, DIRECT_BLOCK - first)
-                data = self._blocks.get(index, lambda: self._block(index))
+                data = self._blocks.get(index, lambda index=index: self._block(index))
                 part = dest[pos - start : pos - start + take]
                 if add:
                     np.multiply(data[first : first + take], factor, out=scratch[:take])

@@ -129,7 +129,7 @@ class BlockSource:
                 index = pos // size
                 first = pos - index * size
                 take = min(stop - pos, size - first)
-                data = self._blocks.get((link, index), lambda: self._make(index, link))
+                data = self._blocks.get((link, index), lambda index=index, link=link: self._make(index, link))
                 np.multiply(data[first : first + take], factor, out=dest[pos - start : pos - start + take])
                 pos += take
 
@@ -187,7 +187,7 @@ class DopplerFilterSource(BlockSource):
             offset = i - nb * block
             take = min(limit, block - offset)
             data = self._noise.get(
-                (link, nb), lambda: noise_block(self.seed, link, self.tap, nb, block)
+                (link, nb), lambda link=link, nb=nb, block=block: noise_block(self.seed, link, self.tap, nb, block)
             )
             out[pos : pos + take] = data[offset : offset + take]
             pos += take
