@@ -27,6 +27,20 @@ of earlier bundles do not change). Every operation is elementwise in a fixed
 order from the absolute sample index (the correlation is an explicit sum over
 links, not a BLAS product, whose blocking could depend on the request size),
 so any chunking gives bit-identical output.
+
+Notes
+-----
+SISO without conditions keeps the engine's own bytes. The correlation is an explicit
+sum over links (no BLAS: its blocking could depend on the request size). In the
+manifest: ``mimo`` is ``MimoSetup.as_record()``; ``conditions`` holds each trajectory's
+definition; ``taps[i].los_trajectory`` marks a direct part on the train's trajectory.
+Shadowing is stored as ``shadowing_db.npy`` (float64, dB, hashed), keyed by
+``SeedSequence(seed, spawn_key=(4,))``. A moving delay uses ``grid.MovingFirMap``, a
+sinc grid widened by A/2 on both sides; compile then needs a sample rate and writes
+``fir.npy``, and ``fir_map.npy`` is the zero-offset map. Not supported yet: periodic
+mode with conditions; a moving delay with a target. The carrier rotation of a moving
+delay applies only with ``carrier_follows: true`` (by default it does not follow,
+TS 36.104 Annex B.4).
 """
 
 from __future__ import annotations

@@ -10,4 +10,18 @@ conditions), presets and their tables (:mod:`~emucompile.profile.presets`,
 (:mod:`~emucompile.profile.target`, :mod:`~emucompile.profile.fit_costs`), statistics and
 ``expect:`` targets (:mod:`~emucompile.profile.stats`).
 May import: ``models``, ``errors``.
+
+Notes
+-----
+``reader.read_document`` turns bytes into a ``Document`` (plain values, positions,
+reading problems). The checks add, in one pass: non-finite numbers, the JSON Schema
+(``emucompile/schemas/profile-v1.schema.json``; ``iter_errors``, each turned into one
+``Problem`` with a hint or a did-you-mean), then the semantic checks. Problems at
+pointers whose value the reader had to replace are not repeated by later stages. A
+block with schema errors gets no semantic checks. A profile with ``extends:`` is
+schema-checked as written, resolved by ``presets.resolve_extends``, then checked as
+resolved; problems at places the preset supplied move to ``/extends`` or the override
+that touches them. The schema's ``$defs/emulator`` is a copy of the target schema's
+keys (a test keeps them equal); a new ``expect:`` quantity goes into
+``EXPECT_QUANTITIES`` and the schema's ``expect`` block together (a test compares them).
 """

@@ -18,7 +18,7 @@ Two generators of s(t):
     evaluated exactly at f_i and interpolated by the same chain
     (:mod:`emucompile.models.fading._sos`).
 
-Why ``doppler-filter`` is the default (measured, see DEVELOPERS.md "Fading
+Why ``doppler-filter`` is the default (measured: benchmarks/README.md, "Fading
 engine"): it is Gaussian by construction, so the envelope law and level
 crossings are right for any record length, its autocorrelation error is a
 design figure (~2e-4 up to 3/f_D), and its cost does not grow with the
@@ -34,6 +34,59 @@ of synthesis blocks tied to the absolute sample index, each from its own
 keyed noise only (no recursive state, no FFT aligned to the request), so
 any chunking, any offset and any number of threads give bit-identical
 complex64. Memory is bounded by a few blocks per tap whatever the length.
+
+Notes
+-----
+The chain per fading tap, with f_D its band edge and F_u the update rate::
+
+    white noise -> Doppler FIR h0 -> up R1 polyphase (Kaiser, 60 dB) -> up R2 linear -> F_u
+      at f_i          at f_i              at f_1 = R1 f_i >= 32 f_D
+
+* Rate plan: f_i = F_u / (R1 R2) in [3, 12] f_D, the cheapest (R1, R2) by a measured
+  cost model (:mod:`emucompile.models.rates`); R = 1 when F_u < 6 f_D. At 100 f_D:
+  R1 = 8, R2 = 3, f_i = 4.17 f_D. Each tap has its own chain.
+* Doppler FIR: the exact autocorrelation of the spectrum times a lag window (the
+  autocorrelation of a Kaiser window, beta 9, half-span 256/f_D, wider for narrow
+  features), divided by the chain's power response in the band (droop compensation),
+  zero-phase square root. Plain windowing of sqrt(S) was tried first: for the
+  classical spectrum its autocorrelation error falls only as L^-1/2, because sqrt(S)
+  is singular at f_D.
+* Power equalisation: interpolating a stationary process gives a cyclostationary one
+  (linear interpolation loses 2 w (1 - w)(1 - rho1) of the power at fraction w), which
+  biases statistics taken at a stride that is a multiple of R. Each polyphase
+  component and each linear phase carries a gain, from the exact autocorrelation,
+  that gives every output phase the same power (residual <= 1e-4 dB by design).
+* Unit power is exact by construction: h0 is scaled with the mean output power
+  computed from the coefficients (checked against an impulse-response computation).
+* Blocks: output is cut into synthesis blocks (<= 2^17 samples) on a grid tied to the
+  absolute index; block s uses noise keyed ``SeedSequence(seed, spawn_key=(1, link,
+  tap, block))`` only and one overlap-save FFT of fixed size.
+* Direct part: exp(j 2 pi (q n + phi0)) with q = f_los / F_u held as an exact
+  rational; each block starts from the exact fractional phase; phi0 from
+  ``los_phase_deg`` or drawn from key (3, tap) and recorded.
+* Periodic mode: R1 R2 must divide n (else R = 1); the noise index is taken mod n/R,
+  so the chain is circular; the direct Doppler is rounded to k/T and reported;
+  sinusoid frequencies are rounded to multiples of 1/T.
+* Sum of sinusoids: Zheng & Xiao 2002's strata in the quantile form
+  G^-1((n - 1/2 + theta_n / 2 pi) / M) with an independent offset per sinusoid,
+  quadrature, tap and link (generator version 3; version 4 keeps the lowest sinusoid
+  in the upper half of its stratum, off 0 Hz; the per-sinusoid random angles of Xiao,
+  Zheng & Beaulieu 2006, recalled from memory). Phases on a 2^-52-cycle integer grid
+  (exact at any index), summed at f_i, then the same chain.
+
+Design figures at 100 f_D (exact, from the coefficients; ``tap_info()["design"]``):
+autocorrelation error for tau <= 3/f_D 1.9e-4 (classical), 6e-5 (flat), 3e-5 (Gaussian
+sigma = 0.3 f_D); power beyond 1.05 f_D -60.4 / -62.0 / -65.9 dB, set by the chain's
+images; droop at f_D -0.014 dB (compensated). The lag window makes the autocorrelation
+vanish beyond ~256/f_D, where J0 is below 0.02: estimators scatter a little less than on
+an exact process, so tolerances calibrated on an exact reference are conservative here.
+
+Reproducibility: :func:`reproducibility` lists what bit-identity depends on. Tested:
+chunkings, blocks alone at offsets, 1-3 threads, a second process, the prefix of a longer
+record. Elsewhere the promise is ``CROSS_PLATFORM_TOLERANCE`` = 1e-5 x RMS gain.
+``GENERATOR_VERSION`` (in ``_streams.py``) must be bumped with any change to the design
+constants, stream keys, draw order, block sizes or arithmetic order; then
+``tools/record_demo_bytes.py`` re-records the demo bundles' hashes.
 
 Examples
 --------
