@@ -29,6 +29,7 @@ from emucompile.errors import Problem
 from emucompile.models.rates import DEFAULT_MAX_SIZE_BYTES, MAX_UPDATE_TO_DOPPLER, RATE_RANGE_HZ  # noqa: F401  (re-exported)
 
 jsonschema = LazyModule("jsonschema")
+referencing = LazyModule("referencing")
 
 FORMAT_NAME = "emucompile-bundle"
 FORMAT_VERSION = 1
@@ -40,6 +41,8 @@ MANIFEST_ALLOWANCE_BYTES = 64 * 1024  # the manifest embeds the profile; generou
 MANIFEST_ENTRY_BYTES = 2048  # per file entry (the ci16 entry, the largest, is about 1.5 KiB)
 MANIFEST_MAX_BYTES = 64 * 1024**2  # readers refuse a larger manifest.json (the writer too)
 SCHEMA_RESOURCE = "bundle-manifest-v1.schema.json"
+# The manifest schema takes the spectrum kinds from the profile schema (its "$ref" across files).
+REFERENCED_SCHEMA_RESOURCES = ("profile-v1.schema.json",)
 WRITER_FIELDS = (
     "format",
     "format_version",
@@ -235,7 +238,7 @@ class BundleLayout:
 
 def validate_manifest(manifest, *, source: str = MANIFEST_NAME) -> list[Problem]:
     """Schema errors (each with its JSON pointer) and cross-field inconsistencies of a manifest."""
-    validator = jsonschema.Draft202012Validator(manifest_schema())
+    validator = manifest_validator()
     problems = []
     for error in sorted(validator.iter_errors(manifest), key=lambda e: list(map(str, e.absolute_path))):
         pointer = "".join(f"/{p}" for p in error.absolute_path)
@@ -253,6 +256,30 @@ def manifest_schema() -> dict:
     return _SCHEMA
 
 
+def schema_registry():
+    """A ``referencing`` registry of the packaged schemas the manifest schema refers to, by their ``$id``.
+
+    Resolving a reference never goes to the network (the ``$id`` hosts are ``.invalid``):
+    a URI not in the registry is an error, not a download.
+    """
+    global _REGISTRY
+    if _REGISTRY is None:
+        folder = resources.files("emucompile").joinpath("schemas")
+        schemas = [json.loads(folder.joinpath(name).read_text("utf-8")) for name in REFERENCED_SCHEMA_RESOURCES]
+        _REGISTRY = referencing.Registry().with_resources(
+            (schema["$id"], referencing.Resource.from_contents(schema)) for schema in schemas
+        ).crawl()
+    return _REGISTRY
+
+
+def manifest_validator():
+    """The manifest schema's draft 2020-12 validator, its references to other schemas resolved offline."""
+    global _VALIDATOR
+    if _VALIDATOR is None:
+        _VALIDATOR = jsonschema.Draft202012Validator(manifest_schema(), registry=schema_registry())
+    return _VALIDATOR
+
+
 def platform_info() -> dict:
     """Versions and machine the same-bytes promise depends on."""
     try:
@@ -268,7 +295,7 @@ def platform_info() -> dict:
     }
 
 
-_SCHEMA = None
+_SCHEMA = _REGISTRY = _VALIDATOR = None
 
 
 def _schema_message(error) -> str:
@@ -276,6 +303,9 @@ def _schema_message(error) -> str:
         return error.message.replace("is a required property", "is missing")
     if error.validator == "additionalProperties":
         return error.message
+    if error.validator == "anyOf" and error.context:  # say what each choice wanted (a spectrum kind, or null)
+        message = " and ".join(dict.fromkeys(e.message for e in error.context))
+        return message if len(message) < 160 else message[:157] + "..."
     return error.message if len(error.message) < 160 else error.message[:157] + "..."
 
 
@@ -437,5 +467,7 @@ __all__ = [
     "BundleLayout",
     "validate_manifest",
     "manifest_schema",
+    "manifest_validator",
+    "schema_registry",
     "platform_info",
 ]

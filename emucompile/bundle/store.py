@@ -45,7 +45,9 @@ from emucompile.bundle.layout import (
     VERIFICATION_DIRECTORY,
     BundleLayout,
     manifest_schema,
+    manifest_validator,
     platform_info,
+    schema_registry,
     validate_manifest,
 )
 from emucompile.bundle.members import BundleError, MemberError, member_json, member_npy, member_raw, open_member
@@ -77,6 +79,8 @@ __all__ = [
     "verify_integrity",
     "validate_manifest",
     "manifest_schema",
+    "manifest_validator",
+    "schema_registry",
     "platform_info",
     "open_member",
     "verify_members",

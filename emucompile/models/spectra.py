@@ -12,8 +12,11 @@ records, the engine, the theory, the tolerances, verify and the report card
 ask this registry instead of branching on the kind's name.
 
 Adding a spectrum: define its functions, register a :class:`SpectrumKind`
-in :data:`SPECTRA`, add its name to the ``spectrum`` enums of the profile and
-manifest schemas (a test compares them with :data:`KINDS`), document it in
+in :data:`SPECTRA`, add its name to the profile schema's ``$defs/spectrum_kind``
+(the tap, the tap override and the manifest schema refer to it; a test compares
+it with :data:`KINDS`) and a new parameter to ``$defs/spectrum_parameters`` with a
+``$ref`` to it in ``tap`` and ``tap_override``, in both copies of the schema
+(``emucompile/schemas/`` and ``schemas/``), document it in
 ``docs/profile-format.md`` and test it (density integrates to 1,
 autocorrelation = Fourier transform of the density, moment, quantile).
 

@@ -30,6 +30,7 @@ from emucompile.bundle import atomic
 from emucompile.bundle import formats as fmt
 from emucompile.bundle import writers
 from emucompile.errors import EXIT_BAD_INPUT, EmucompileError, InputError
+from emucompile.models import spectra
 
 ROOT = Path(__file__).resolve().parents[2]
 RATE_HZ = 2000.0
@@ -98,14 +99,24 @@ def expected_gains(lay, seed=1, chunk=1000):
 # -- layout and manifest -----------------------------------------------------------------------
 
 
+def independent_validator():
+    """The manifest schema from schemas/, its reference to the profile schema (the spectrum kinds)
+    resolved from schemas/ too: jsonschema and referencing as any reader would use them, offline."""
+    from referencing import Registry, Resource
+
+    schema, profile = (json.loads((ROOT / "schemas" / name).read_text("utf-8"))
+                       for name in ("bundle-manifest-v1.schema.json", "profile-v1.schema.json"))
+    registry = Registry().with_resource(profile["$id"], Resource.from_contents(profile))
+    return jsonschema.Draft202012Validator(schema, registry=registry)
+
+
 def test_bundle_layout_files_and_manifest_validate_against_the_schema(tmp_path):
     lay = layout(fir=True)
     out = build(tmp_path / "b", lay)
     names = sorted(p.name for p in out.iterdir())
     assert names == ["fir_map.npy", "manifest.json", "tap_gains.npy"]
     manifest = json.loads((out / "manifest.json").read_text("utf-8"))
-    schema = json.loads((ROOT / "schemas" / "bundle-manifest-v1.schema.json").read_text("utf-8"))
-    jsonschema.Draft202012Validator(schema).validate(manifest)  # the independent validator
+    independent_validator().validate(manifest)
     assert bd.validate_manifest(manifest) == []
     assert manifest["format"] == "emucompile-bundle" and manifest["format_version"] == 1
     for key in ("tool_version", "generator_version", "created_utc", "profile_sha256", "resolved_profile_sha256",
@@ -176,6 +187,41 @@ def test_schema_copies_are_identical_versioned_and_every_property_is_described()
 
     walk(schema, "")
     assert undescribed == []
+
+
+def test_the_spectrum_kinds_come_from_the_profile_schema_resolved_offline(tmp_path, monkeypatch):
+    # The manifest schema's tap spectrum is "$ref": "profile-v1.schema.json#/$defs/spectrum_kind" (or null),
+    # resolved against its $id on the .invalid host: only the packaged copy may answer, never the network.
+    import socket
+    import urllib.request
+
+    from referencing import Registry
+    from referencing.exceptions import Unresolvable
+
+    from emucompile.bundle import layout as layout_module
+
+    def no_network(*args, **kwargs):
+        raise AssertionError("a schema reference went to the network")
+
+    monkeypatch.setattr(socket.socket, "connect", no_network)
+    monkeypatch.setattr(urllib.request, "urlopen", no_network)
+    monkeypatch.setattr(layout_module, "_REGISTRY", None)
+    monkeypatch.setattr(layout_module, "_VALIDATOR", None)
+    manifest = json.loads((build(tmp_path / "b") / "manifest.json").read_text("utf-8"))
+    assert bd.validate_manifest(manifest) == [] and list(independent_validator().iter_errors(manifest)) == []
+    manifest["taps"][1]["spectrum"] = None  # a static tap's: allowed by the schema
+    assert list(bd.manifest_validator().iter_errors(manifest)) == []
+    assert list(independent_validator().iter_errors(manifest)) == []
+    manifest["taps"][1]["spectrum"] = "lorentzian"  # not a kind the profile schema names
+    problems = bd.validate_manifest(manifest)
+    assert [p.pointer for p in problems] == ["/taps/1/spectrum"]
+    assert problems[0].message == (f"'lorentzian' is not one of {list(spectra.KINDS)} and "
+                                   "'lorentzian' is not of type 'null'")
+    assert [list(e.absolute_path) for e in independent_validator().iter_errors(manifest)] == [["taps", 1, "spectrum"]]
+    # the reference is really followed: without the profile schema it cannot be resolved
+    schema = json.loads((ROOT / "schemas" / "bundle-manifest-v1.schema.json").read_text("utf-8"))
+    with pytest.raises(Unresolvable):
+        jsonschema.Draft202012Validator(schema, registry=Registry()).validate(manifest)
 
 
 def test_manifest_fields_that_disagree_with_the_writer_are_a_bug_and_leave_nothing(tmp_path):

@@ -90,14 +90,53 @@ def test_missing_and_foreign_parameters_are_reported_by_the_registry():
 
 
 def test_the_schemas_name_exactly_the_registered_kinds():
+    # One home: the profile schema's $defs/spectrum_kind (kinds) and $defs/spectrum_parameters
+    # (their parameters); the tap, the tap override and the manifest refer to them, nothing repeats them.
     profile = json.loads((ROOT / "emucompile" / "schemas" / "profile-v1.schema.json").read_text("utf-8"))
     manifest = json.loads((ROOT / "emucompile" / "schemas" / "bundle-manifest-v1.schema.json").read_text("utf-8"))
-    properties = [node for schema in (profile, manifest) for node in _dicts(schema)
-                  if isinstance(node.get("spectrum"), dict) and "enum" in node["spectrum"]]
-    enums = [[k for k in node["spectrum"]["enum"] if k is not None] for node in properties]
-    assert len(enums) >= 3 and all(enum == list(spectra.KINDS) for enum in enums)
-    in_profile = [node for node in _dicts(profile) if isinstance(node.get("spectrum"), dict)]
-    assert in_profile and all(set(spectra.PARAMETER_NAMES) <= set(node) for node in in_profile)
+    defs = profile["$defs"]
+    assert defs["spectrum_kind"]["enum"] == list(spectra.KINDS)
+    assert list(defs["spectrum_parameters"]["properties"]) == list(spectra.PARAMETER_NAMES)
+    for block in ("tap", "tap_override"):
+        properties = defs[block]["properties"]
+        assert properties["spectrum"]["$ref"] == "#/$defs/spectrum_kind"
+        assert properties["spectrum"]["default"] == spectra.DEFAULT_KIND
+        for name in spectra.PARAMETER_NAMES:
+            assert properties[name] == {"$ref": f"#/$defs/spectrum_parameters/properties/{name}"}
+    in_manifest = manifest["$defs"]["tap"]["properties"]["spectrum"]["anyOf"]
+    assert in_manifest == [{"$ref": "profile-v1.schema.json#/$defs/spectrum_kind"}, {"type": "null"}]
+    copies = [node for schema in (profile, manifest) for node in _dicts(schema)
+              if set(spectra.KINDS) & set(map(str, node.get("enum", ())))]
+    assert copies == [defs["spectrum_kind"]]  # no second list of kinds anywhere
+
+
+def test_the_validators_accept_exactly_the_registered_kinds():
+    # A tap, a tap override and a manifest tap record, each checked against its own $defs entry with
+    # the package's registry of schemas (the manifest's reference to the profile's kinds resolved offline).
+    import jsonschema
+    from referencing import Resource
+
+    from emucompile.bundle.layout import manifest_schema, schema_registry
+
+    manifest = manifest_schema()
+    registry = schema_registry().with_resource(manifest["$id"], Resource.from_contents(manifest))
+    profile_id = json.loads((ROOT / "emucompile" / "schemas" / "profile-v1.schema.json").read_text("utf-8"))["$id"]
+
+    def validator(schema_id, name):
+        return jsonschema.Draft202012Validator({"$ref": f"{schema_id}#/$defs/{name}"}, registry=registry)
+
+    cases = [(validator(profile_id, "tap"), {"delay_ns": 0, "power_db": 0}),
+             (validator(profile_id, "tap_override"), {"index": 0}),
+             (validator(manifest["$id"], "tap"), {"delay_s": 0.0, "power_db": 0.0, "fading": "rayleigh",
+                                                  "k_db": None, "max_doppler_hz": FD, "los_doppler_hz": None,
+                                                  "los_phase_deg": None})]
+    for check, record in cases:
+        for kind in spectra.KINDS:
+            assert list(check.iter_errors({**record, "spectrum": kind})) == [], (kind, record)
+        assert [list(e.absolute_path) for e in check.iter_errors({**record, "spectrum": "lorentzian"})] == [
+            ["spectrum"]]
+    assert list(cases[2][0].iter_errors({**cases[2][1], "spectrum": None})) == []  # a static tap's record
+    assert list(cases[0][0].iter_errors({**cases[0][1], "spectrum": None}))  # a profile's tap names a kind
 
 
 def _dicts(node):

@@ -19,6 +19,7 @@ from emucompile.profile.model import (
     load_profile_text,
     profile_from_document,
 )
+from emucompile.models import spectra
 from emucompile.models.theory import SPEED_OF_LIGHT_MPS, doppler_from_speed
 
 
@@ -326,6 +327,30 @@ taps:
     assert (by_pointer["/taps/1/power_db"].line, by_pointer["/taps/1/power_db"].column) == (7, 30)
     assert by_pointer["/taps/2/fading"].hint == "did you mean 'rayleigh'?"
     assert lines[0].startswith("bad.yaml:2:7: /name: ")
+
+
+def test_a_bad_spectrum_or_parameter_reads_the_same_in_a_tap_and_an_override():
+    # The kinds and sigma_hz are defined once in the schema ($defs) and referred to; the problems
+    # still name the key, the choices and the nearest kind.
+    text = """\
+format_version: 1
+name: spectra
+max_doppler_hz: 50
+taps:
+  - {delay_ns: 0, power_db: 0, spectrum: gausian}
+  - {delay_ns: 5, power_db: 0, spectrum: gaussian, sigma_hz: 0}
+"""
+    _, problems = check_profile_text(text, filename="s.yaml")
+    by_pointer = {p.pointer: p for p in problems}
+    kinds = ", ".join(spectra.KINDS)  # the registry's order, as the schema lists them
+    assert by_pointer["/taps/0/spectrum"].message == f"spectrum must be one of {kinds}, not the text 'gausian'"
+    assert by_pointer["/taps/0/spectrum"].hint == "did you mean 'gaussian'?"
+    assert by_pointer["/taps/1/sigma_hz"].message == "sigma_hz must be >= 1e-06, not 0"
+    text = "format_version: 1\nname: o\nextends: {preset: epa, taps: [{index: 1, spectrum: flatt}]}\n"
+    _, problems = check_profile_text(text, filename="o.yaml")
+    [problem] = [p for p in problems if p.pointer.endswith("/spectrum")]
+    assert problem.message == f"spectrum must be one of {kinds}, not the text 'flatt'"
+    assert problem.hint == "did you mean 'flat'?"
 
 
 def test_load_profile_raises_with_every_problem(tmp_path):
