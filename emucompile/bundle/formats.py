@@ -6,8 +6,7 @@ check (a format listed iff its files are), :meth:`emucompile.bundle.reader.Bundl
 verify ``--delivered``, compile's early size bound and the command line's
 ``--format`` help; a test compares the names and roles with the manifest
 schema's enums. Adding a format is one :class:`OutputFormat` here (with its
-writer), its names in ``schemas/bundle-manifest-v1.schema.json`` (and the
-packaged copy) and a test.
+writer), its names in ``emucompile/schemas/bundle-manifest-v1.schema.json`` and a test.
 
 Formats (the layout of each is also written into its manifest entry;
 ``docs/bundle-format.md`` has the table):

@@ -1,6 +1,6 @@
 """Campaigns: test plans of many profiles, seeds and settings, run as Dask tasks, and their index.
 
-This subpackage owns the plan format (``schemas/campaign-plan-v1.schema.json``,
+This subpackage owns the plan format (``emucompile/schemas/campaign-plan-v1.schema.json``,
 read by the same safe reader as profiles), its expansion into named cases
 (:func:`expand_plan`), running them -- each case compiled and verified as one
 task on a ``dask.distributed`` cluster, a local one by default --, resuming a

@@ -1,6 +1,6 @@
 """Plan files: read and check a campaign plan, expand it into named cases.
 
-A plan (``schemas/campaign-plan-v1.schema.json``) is read by the same safe
+A plan (``emucompile/schemas/campaign-plan-v1.schema.json``) is read by the same safe
 reader as profiles (:func:`emucompile.profile.reader.read_document`) and every
 problem is reported as ``FILE:LINE:COL: /pointer: message (hint)``. Each case
 is checked as a whole before anything runs: its profile (the file's own

@@ -38,7 +38,7 @@ Design (every number is in the JSON description, ``PROBE.probe.json``):
 Files: ``PROBE.sigmf-meta``/``PROBE.sigmf-data`` (cf32_le, one channel per
 transmit antenna), ``PROBE.cf32`` or ``PROBE.ci16`` (raw little-endian, antennas
 interleaved sample by sample), and always ``PROBE.probe.json`` (schema
-``schemas/probe-v1.schema.json``) with the data file's SHA-256; the waveform is
+``emucompile/schemas/probe-v1.schema.json``) with the data file's SHA-256; the waveform is
 regenerated from the description for the analysis, and the description's own
 SHA-256 names the probe in a measurement.
 """

@@ -15,8 +15,8 @@ Adding a spectrum: define its functions, register a :class:`SpectrumKind`
 in :data:`SPECTRA`, add its name to the profile schema's ``$defs/spectrum_kind``
 (the tap, the tap override and the manifest schema refer to it; a test compares
 it with :data:`KINDS`) and a new parameter to ``$defs/spectrum_parameters`` with a
-``$ref`` to it in ``tap`` and ``tap_override``, in both copies of the schema
-(``emucompile/schemas/`` and ``schemas/``), document it in
+``$ref`` to it in ``tap`` and ``tap_override`` (``emucompile/schemas/profile-v1.schema.json``),
+document it in
 ``docs/profile-format.md`` and test it (density integrates to 1,
 autocorrelation = Fourier transform of the density, moment, quantile).
 

@@ -1,7 +1,7 @@
 """Emulator targets: the constraints of an FIR channel emulator and the fit of a profile to them.
 
 A target (a stand-alone file or a profile's ``target:`` block, schema
-``schemas/target-v1.schema.json``) says what the emulator can hold: its
+``emucompile/schemas/target-v1.schema.json``) says what the emulator can hold: its
 sample rate, how many FIR coefficients and non-zero paths, the delay grid
 they sit on, how fast and how it updates coefficients, their bit width.
 :func:`fit_to_target` maps a profile's taps onto that emulator and reports

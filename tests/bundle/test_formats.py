@@ -366,7 +366,7 @@ def test_ci16_codes_follow_the_float64_rule_at_exact_halves_clipping_and_block_e
 
 
 def test_the_registry_names_what_the_manifest_schema_allows():
-    schema = json.loads((Path(__file__).resolve().parents[2] / "schemas" / "bundle-manifest-v1.schema.json")
+    schema = json.loads((Path(__file__).resolve().parents[2] / "emucompile" / "schemas" / "bundle-manifest-v1.schema.json")
                         .read_text("utf-8"))
     assert list(fmt.EXTRA_FORMATS) == schema["properties"]["formats"]["items"]["enum"]
     roles = set(schema["$defs"]["file"]["properties"]["role"]["enum"])

@@ -11,7 +11,6 @@ command does.
 from __future__ import annotations
 
 import hashlib
-import importlib.resources
 import json
 import logging
 import os
@@ -90,9 +89,7 @@ def compile_calls(monkeypatch):
 # -- schema and plan files ---------------------------------------------------------------------
 
 
-def test_the_schema_copy_in_schemas_is_identical_and_the_schema_is_valid():
-    packaged = importlib.resources.files("emucompile").joinpath("schemas/campaign-plan-v1.schema.json")
-    assert (ROOT / "schemas" / "campaign-plan-v1.schema.json").read_bytes() == packaged.read_bytes()
+def test_the_schema_is_valid():
     schema = plan_schema()
     jsonschema.Draft202012Validator.check_schema(schema)
     for example in schema["examples"]:

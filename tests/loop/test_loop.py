@@ -304,12 +304,13 @@ def test_ci16_clipping_is_counted_and_too_short_is_not_enough_data(lab, tmp_path
     assert result.exit_code == 2 and "not enough data" in result.output
 
 
-def test_the_probe_schema_copy_is_identical_to_the_packaged_one():
+def test_the_probe_schema_is_valid_draft_2020_12():
     import importlib.resources
-    from pathlib import Path
+
+    import jsonschema
 
     packaged = importlib.resources.files("emucompile").joinpath("schemas/probe-v1.schema.json").read_bytes()
-    assert (Path(__file__).resolve().parents[2] / "schemas" / "probe-v1.schema.json").read_bytes() == packaged
+    jsonschema.Draft202012Validator.check_schema(json.loads(packaged))
 
 
 def test_time_domain_projection_equals_the_fft_least_squares(lab):

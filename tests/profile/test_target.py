@@ -33,10 +33,8 @@ def _db_to_linear(x):
 # -- the schema ---------------------------------------------------------------------------
 
 
-def test_schema_copies_are_identical_and_valid_draft_2020_12():
+def test_schema_is_valid_draft_2020_12():
     packaged = ROOT / "emucompile" / "schemas" / "target-v1.schema.json"
-    copy = ROOT / "schemas" / "target-v1.schema.json"
-    assert packaged.read_bytes() == copy.read_bytes()
     schema = json.loads(packaged.read_text(encoding="utf-8"))
     assert schema == tg.target_schema()
     jsonschema.Draft202012Validator.check_schema(schema)
