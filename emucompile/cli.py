@@ -23,6 +23,7 @@ import click
 
 from emucompile._version import __version__
 from emucompile.bundle import formats as bundle_formats
+from emucompile.models.rates import size_text
 from emucompile._lazy import LazyModule
 from emucompile.errors import (
     EXIT_BAD_INPUT,
@@ -323,7 +324,7 @@ def _compile_command(profile, outdir, quiet, max_size, target_file, options):
         click.echo(f"emucompile: warning: {warning}", err=True)
     if not quiet:
         click.echo(f"compiling {plan.profile.name}: {plan.profile.n_taps} taps x {plan.n_samples} samples "
-                   f"at {plan.update_rate_hz:g} Hz, about {_size_text(plan.estimated_size_bytes)}", err=True)
+                   f"at {plan.update_rate_hz:g} Hz, about {size_text(plan.estimated_size_bytes)}", err=True)
     with _progress(plan.n_samples, "compiling", quiet) as update:
         if scheduler is None and workers is None:
             result = compiler.run_plan(plan, progress=update)
@@ -805,13 +806,6 @@ class _progress:
         if self.bar is not None:
             self.bar.__exit__(*exc)
         return False
-
-
-def _size_text(n_bytes: int) -> str:
-    for unit, size in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
-        if n_bytes >= size:
-            return f"{n_bytes / size:.1f} {unit}"
-    return f"{n_bytes} B"
 
 
 def main(argv=None):

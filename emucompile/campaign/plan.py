@@ -22,6 +22,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from emucompile._lazy import LazyModule
+from emucompile.models.rates import size_text
 from emucompile.errors import EmucompileError, InputError, PlanError, Problem  # noqa: F401  (PlanError: re-exported)
 
 compiler = LazyModule("emucompile.compile.compiler")
@@ -178,19 +179,12 @@ def list_text(plan: Plan) -> str:
              f"{'case':<{width}}  {'samples':>9}  {'update rate':>11}  {'size':>9}  source"]
     for case in plan.cases:
         lines.append(f"{case.name:<{width}}  {case.n_samples:>9}  {case.update_rate_hz:>8g} Hz  "
-                     f"{_size_text(case.estimated_size_bytes):>9}  {case.source}"
+                     f"{size_text(case.estimated_size_bytes):>9}  {case.source}"
                      + ("  (blocks spread over the workers)" if case.spread_blocks else ""))
     total = sum(c.estimated_size_bytes for c in plan.cases)
-    lines.append(f"total about {_size_text(total)} of bundles (reports and figures besides)")
+    lines.append(f"total about {size_text(total)} of bundles (reports and figures besides)")
     lines += [f"warning: {w.format()}" for w in plan.warnings]
     return "\n".join(lines)
-
-
-def _size_text(n_bytes: int) -> str:
-    for unit, size in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
-        if n_bytes >= size:
-            return f"{n_bytes / size:.1f} {unit}"
-    return f"{n_bytes} B"
 
 
 # -- one profile entry --------------------------------------------------------------------------

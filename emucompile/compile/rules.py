@@ -40,6 +40,7 @@ from emucompile.compile.defaults import (  # noqa: F401  (read here by the plann
 )
 from emucompile.errors import CheckFailed, CompileRefused, InputError  # noqa: F401  (CompileRefused: re-exported)
 from emucompile.models import rates as limits
+from emucompile.models.rates import size_text  # noqa: F401  (read here by the planner)
 
 # Loaded on first use: expect: targets need the profile's statistics (numpy), a target its fit.
 stats = LazyModule("emucompile.profile.stats")
@@ -315,14 +316,6 @@ def refuse_long_filters(profile, choices) -> None:
         if problem is not None:
             raise InputError(f"tap {j}: {problem}",
                              hint="choose a record length with small prime factors" if period else None)
-
-
-def size_text(n_bytes: int) -> str:
-    """Bytes for a message: ``8.0 GiB``, ``512.0 MiB``, ``12.0 KiB`` or ``100 B``."""
-    for unit, size in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
-        if n_bytes >= size:
-            return f"{n_bytes / size:.1f} {unit}"
-    return f"{n_bytes} B"
 
 
 def _missed_text(t) -> str:

@@ -166,6 +166,14 @@ def fir_span_columns(delays_s, sample_rate_hz: float) -> int:
     return math.floor((max(delays_s) - min(delays_s)) * sample_rate_hz) + 1
 
 
+def size_text(n_bytes: int) -> str:
+    """Bytes for a message: ``8.0 GiB``, ``512.0 MiB``, ``12.0 KiB`` or ``100 B``."""
+    for unit, size in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
+        if n_bytes >= size:
+            return f"{n_bytes / size:.1f} {unit}"
+    return f"{n_bytes} B"
+
+
 def least_bundle_bytes(n_samples: int, n_links: int, n_taps: int, copies: float = 0.0, n_fir: int = 0,
                        fir_file: bool = False) -> float:
     """A lower bound of a bundle's size: its tap gains, the extra formats' copies and the FIR map(s).
