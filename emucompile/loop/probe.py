@@ -58,6 +58,7 @@ import numpy as np
 from scipy import fft as sp_fft
 
 from emucompile._version import __version__
+from emucompile.bundle import atomic
 from emucompile.bundle.store import Bundle, open_bundle
 from emucompile.errors import InputError, UnsoundableChannel  # noqa: F401  (UnsoundableChannel: re-exported)
 from emucompile.models import grid
@@ -433,20 +434,11 @@ def _base_path(path) -> Path:
 
 
 def _write_atomic(path: Path, data: bytes, force: bool) -> None:
-    temporary = path.with_name(f".{path.name}.emucompile-tmp-{os.getpid()}")
+    """The one atomic writer (:func:`emucompile.bundle.atomic.write_bytes_atomic`); no clobbering without force."""
     try:
-        with open(temporary, "wb") as handle:
-            handle.write(data)
-            handle.flush()
-            os.fsync(handle.fileno())
-        if force:
-            os.replace(temporary, path)
-        else:
-            os.link(temporary, path)
+        atomic.write_bytes_atomic(path, data, replace=force)
     except FileExistsError:
         raise InputError(f"{path}: exists (use --force to replace it)") from None
-    finally:
-        temporary.unlink(missing_ok=True)
 
 
 def _sha256_file(path: Path) -> str:

@@ -21,6 +21,7 @@ from click.testing import CliRunner
 from emucompile.bundle.store import open_bundle
 from emucompile.cli import cli
 from emucompile.compile.compiler import compile_profile
+from emucompile.errors import InputError
 from emucompile.loop import probe as pr
 from emucompile.loop import software
 from emucompile.loop.estimate import NoProbe
@@ -117,6 +118,18 @@ def test_sigmf_probe_passes_the_sigmf_validator(lab, tmp_path):
     recording.validate()  # the SigMF library's own validator (raises on an invalid file)
     assert recording.get_global_field("core:sample_rate") == RATE
     assert files.design.n_periods >= 3
+
+
+def test_a_probe_is_never_written_over_an_existing_one_without_force(lab, tmp_path):
+    """The probe's files go through the one atomic writer: no clobbering, nothing half-written or left over."""
+    pr.write_probe(tmp_path / "p", RATE, profile=lab["profile"], duration_s=0.05, output_format="cf32")
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    with pytest.raises(InputError, match="exists"):
+        pr.write_probe(tmp_path / "p", RATE, profile=lab["profile"], duration_s=0.1, output_format="cf32")
+    assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before  # untouched, no temporary left
+    pr.write_probe(tmp_path / "p", RATE, profile=lab["profile"], duration_s=0.1, output_format="cf32", force=True)
+    after = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    assert sorted(after) == sorted(before) and after["p.cf32"] != before["p.cf32"]
 
 
 def test_channels_that_cannot_be_sounded_are_refused(tmp_path):
