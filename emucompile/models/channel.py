@@ -103,6 +103,9 @@ class ChannelPlan:
             raise InputError("periodic mode is not supported yet with time-varying conditions",
                              hint="drop --periodic, or the conditions block")
         self._follows = self.moving is not None and self.moving.carrier_follows
+        self._nonzero_root = self.square_root != 0
+        self._full_columns = self._nonzero_root.all(axis=0)
+        self._real_root = not np.any(self.square_root.imag)
         self.plain = setup is None and not self.train_taps and not self._follows and spec is None
         self._amps = [_amplitudes(t) for t in profile.taps]
         self._diffuse_amps = np.array([a_s for _, a_s in self._amps])
@@ -128,15 +131,15 @@ class ChannelPlan:
         for a in range(0, m, step):
             b = min(a + step, m)
             diffuse = self._correlate([s[a:b] for s in streams], None if rotation is None else rotation[a:b])
-            direct = np.zeros((b - a, self.n_taps), np.complex128)
-            for link in range(self.n_links):
-                for j, product in products.items():
-                    direct[:, j] = product[a:b, link]
-                total = np.add(direct, diffuse[link], out=diffuse[link])
-                if amplitude is not None:
-                    total *= amplitude[a:b, None]
-                tx, rx = divmod(link, self.n_rx)  # link order of to_axes
-                out[a:b, rx, tx, :] = total
+            # every link at once, each element through the same operations in the same order
+            direct = np.zeros((self.n_links, b - a, self.n_taps), np.complex128)
+            for j, product in products.items():
+                direct[:, :, j] = product[a:b].T
+            total = np.add(direct, diffuse, out=diffuse)
+            if amplitude is not None:
+                total *= amplitude[None, a:b, None]
+            # link = tx * n_rx + rx (link order of to_axes)
+            out[a:b] = total.reshape(self.n_tx, self.n_rx, b - a, self.n_taps).transpose(2, 1, 0, 3)
         return out
 
     def chunks(self, chunk_size: int):
@@ -192,12 +195,19 @@ class ChannelPlan:
         for link, stream in enumerate(unit_streams):
             streams[link] = stream
         out = np.zeros_like(streams)
-        term = np.empty(streams.shape[1:], np.complex128)
-        root = self.square_root
-        for row in range(self.n_links):  # explicit sum in link order: same bits for any m
-            for k in range(self.n_links):
-                if root[row, k] != 0:
-                    out[row] += np.multiply(root[row, k], streams[k], out=term)
+        root, parts = self.square_root, out
+        if self._real_root:
+            # S real (every standard level): for finite w (the engine's), (s + 0j) w = s Re w + j s Im w
+            # exactly (the zero terms' signs are lost in sums that start from +0), so the parts are
+            # worked on as float64: half the arithmetic, the same bits
+            root, parts, streams = root.real, out.view(np.float64), streams.view(np.float64)
+        term = np.empty_like(parts)
+        for k in range(self.n_links):  # explicit sum in link order: same bits for any m
+            if self._full_columns[k]:  # every row at once: each row's terms still add in link order
+                parts += np.multiply(root[:, k, None, None], streams[k], out=term)
+                continue
+            for row in np.flatnonzero(self._nonzero_root[:, k]):
+                parts[row] += np.multiply(root[row, k], streams[k], out=term[0])
         out *= self._diffuse_amps[None, None, :]
         if rotation is not None:
             out *= rotation[None, :, None]
