@@ -310,7 +310,10 @@ class FirWriter(ArrayWriter):
         windows = maps is not None and isinstance(maps, tuple) and self._windows(maps[0], n_fir)
         for start in range(0, m, rows):
             stop = min(start + rows, m)
-            accumulator = buffer[: stop - start]
+            lo, hi = 0, n_fir  # the columns this block can touch; the others stay +0
+            if windows:
+                lo, hi = int(maps[0][start:stop, :, 0].min()), int(maps[0][start:stop, :, -1].max()) + 1
+            accumulator = buffer[: stop - start, ..., lo:hi]
             gains = parts[start:stop].astype(np.float64)  # exact
             if maps is None:
                 self._add_static(accumulator, gains)
@@ -318,7 +321,7 @@ class FirWriter(ArrayWriter):
                 index, values = (a[start:stop] for a in maps)
                 accumulator[...] = 0.0
                 if windows:
-                    self._add_windows(accumulator, gains, index, values)
+                    self._add_windows(accumulator, gains, index - lo, values)
                 else:
                     self._add_sparse(accumulator, gains, index, values)
             else:  # dense (m, n_taps, n_fir)
@@ -326,7 +329,9 @@ class FirWriter(ArrayWriter):
                 for k in range(n_taps):
                     accumulator += gains[:, :, k, :, None] * maps[start:stop, None, None, k, :]
             # + 0.0 turns a -0 into the +0 the complex128 sum from zeros holds; then one rounding
-            np.add(accumulator, 0.0, out=out_parts[start:stop], casting="same_kind")
+            np.add(accumulator, 0.0, out=out_parts[start:stop, ..., lo:hi], casting="same_kind")
+            out_parts[start:stop, ..., :lo] = 0.0
+            out_parts[start:stop, ..., hi:] = 0.0
         return out.reshape(m, n_rx, n_tx, n_fir)
 
     def _add_static(self, accumulator, gains):
