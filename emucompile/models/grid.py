@@ -467,12 +467,28 @@ class MovingFirMap:
         offsets = np.arange(-half, half + 1)
         x = offsets[None, None, :] - frac[..., None]  # n - c
         parity = np.where(offsets % 2 == 0, 1.0, -1.0)
+        # The same operations in the same order as the closed form, in place (fewer temporaries):
+        # sinc = -parity sin(pi frac) / (pi x), 1 at x = 0
+        sinc = np.multiply(-parity, np.sin(np.pi * frac)[..., None])
         with np.errstate(divide="ignore", invalid="ignore"):
-            sinc = -parity * np.sin(np.pi * frac)[..., None] / (np.pi * x)
-        sinc = np.where(x == 0.0, 1.0, sinc)
-        window = special.i0(beta * np.sqrt(np.clip(1.0 - (x / half) ** 2, 0.0, None))) / special.i0(beta)
-        values = np.where(np.abs(x) < half, window * sinc, 0.0)
+            np.divide(sinc, np.multiply(np.pi, x), out=sinc)
+        np.copyto(sinc, 1.0, where=x == 0.0)
+        # window = i0(beta sqrt(max(1 - (x / half)^2, 0))) / i0(beta); offset -half has x <= -half
+        # (frac >= 0), outside the window (value 0), so its Bessel function is not evaluated
+        inner = np.divide(x[..., 1:], half)
+        np.square(inner, out=inner)
+        np.subtract(1.0, inner, out=inner)
+        np.clip(inner, 0.0, None, out=inner)
+        np.sqrt(inner, out=inner)
+        np.multiply(beta, inner, out=inner)
+        window = special.i0(inner)
+        window /= special.i0(beta)
+        window *= sinc[..., 1:]
+        values = np.zeros_like(x)
+        np.copyto(values[..., 1:], window, where=np.abs(x[..., 1:]) < half)
         index = whole[..., None].astype(np.int64) + offsets
+        if whole.size == 0 or (whole.min() - half >= 0 and whole.max() + half < self.n_fir):
+            return index, values  # every coefficient inside the grid
         inside = (index >= 0) & (index < self.n_fir)
         return np.where(inside, index, 0), np.where(inside, values, 0.0)
 
