@@ -23,7 +23,7 @@ import click
 
 from emucompile._version import __version__
 from emucompile.bundle import formats as bundle_formats
-from emucompile.models.rates import size_text
+from emucompile.models.rates import DEFAULT_MAX_SIZE_BYTES, size_text
 from emucompile._lazy import LazyModule
 from emucompile.errors import (
     EXIT_BAD_INPUT,
@@ -50,7 +50,6 @@ profile_model = LazyModule("emucompile.profile.model")
 reader = LazyModule("emucompile.profile.reader")
 replay = LazyModule("emucompile.apply.replay")
 profile_stats = LazyModule("emucompile.profile.stats")
-store = LazyModule("emucompile.bundle.store")
 validation = LazyModule("emucompile.compile.validation")
 verifier = LazyModule("emucompile.verify.run")
 
@@ -318,7 +317,7 @@ def _compile_command(profile, outdir, quiet, max_size, target_file, options):
     quiet = quiet or as_json
     plan = compiler.plan_compile(
         profile, outdir, target=target_file,
-        max_size_bytes=store.DEFAULT_MAX_SIZE_BYTES if max_size is None else max_size, **options,
+        max_size_bytes=DEFAULT_MAX_SIZE_BYTES if max_size is None else max_size, **options,
     )
     for warning in plan.warnings:
         click.echo(f"emucompile: warning: {warning}", err=True)

@@ -36,14 +36,14 @@ from emucompile.bundle import formats as bundle_formats
 from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES, BundleLayout, parse_formats
 from emucompile.compile.rules import (
     CompileRefused,
+    expect_record,
     fit_target,
     refuse_oversized,
     resolve_target,
     settle_choices,
-    size_text,
 )
-from emucompile.compile.rules import expect_record  # noqa: F401  (read here by older callers)
 from emucompile.errors import InputError
+from emucompile.models.rates import size_text
 from emucompile.models import fading
 from emucompile.models.channel import SHADOWING_FILE, SHADOWING_ROLE, ChannelPlan
 from emucompile.models.grid import FirMap, fir_map, moving_fir_map

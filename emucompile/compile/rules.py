@@ -40,7 +40,7 @@ from emucompile.compile.defaults import (  # noqa: F401  (read here by the plann
 )
 from emucompile.errors import CheckFailed, CompileRefused, InputError  # noqa: F401  (CompileRefused: re-exported)
 from emucompile.models import rates as limits
-from emucompile.models.rates import size_text  # noqa: F401  (read here by the planner)
+from emucompile.models.rates import size_text
 
 # Loaded on first use: expect: targets need the profile's statistics (numpy), a target its fit.
 stats = LazyModule("emucompile.profile.stats")
@@ -407,4 +407,4 @@ def _positive(find, key, what, value, unit):
 
 
 __all__ = ["CHOICES", "Finding", "CompileRefused", "Choices", "settle_choices", "compile_findings", "resolve_target",
-           "expect_record", "refuse_oversized", "fit_target", "refuse_long_filters", "size_text"]
+           "expect_record", "refuse_oversized", "fit_target", "refuse_long_filters"]

@@ -21,7 +21,7 @@ from pathlib import Path
 from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES, BundleWriter, open_bundle
 from emucompile.compile.defaults import CHUNK_SAMPLES
 from emucompile.compile.plan import CompilePlan, plan_compile
-from emucompile.compile.rules import size_text
+from emucompile.models.rates import size_text
 from emucompile.models import fading, spectra
 from emucompile.models.grid import FirMap
 from emucompile.profile.blocks import correlation_text
