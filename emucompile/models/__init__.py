@@ -5,6 +5,7 @@ Owns :mod:`~emucompile.models.spectra` (the Doppler-spectrum registry), :mod:`~e
 shared by the planner, the engine and ``validate``), :mod:`~emucompile.models.delays` (statistics of a
 power delay profile), :mod:`~emucompile.models.fading` (the engine and its keyed random streams),
 :mod:`~emucompile.models.mimo`, :mod:`~emucompile.models.conditions`, :mod:`~emucompile.models.grid`
-(delay to FIR coefficients) and :mod:`~emucompile.models.channel` (a profile's whole channel over its
+(delay to FIR coefficients; :mod:`~emucompile.models.sinc_table` for a moving delay's updates) and
+:mod:`~emucompile.models.channel` (a profile's whole channel over its
 links). No files, no CLI, no profile reading. May import: ``errors``.
 """

@@ -1,0 +1,110 @@
+"""Peak resident memory of each command at a short and a long record (target: long / short <= 1.2).
+
+Runs the command line in a child process per command and size and reads the
+child's peak resident set (``ru_maxrss`` from ``os.wait4``: resident pages
+only; the page cache of the files written or read, which the kernel can drop,
+is not counted). Sizes are samples per tap (compile, verify) or input samples
+(apply). The profile is invented (one Rayleigh tap, f_D = 100 Hz, update rate
+10 kHz), so a long record stays small on disk: 1e8 samples are 800 MB.
+The 12-tap cases and the other compile options are in ``bench_cases.py --memory``.
+
+- ``compile``: the bundle (tap_gains.npy, no FIR);
+- ``verify``: that bundle, without figures (``--no-plots``);
+- ``apply``: a 12-tap bundle with its FIR at 30.72 MHz (1 s at 2 kHz updates, looped) over a
+  white npy input of the given length, to an npy output with noise.
+
+Usage::
+
+    python benchmarks/bench_memory.py [--sizes 1000000,100000000] [--only compile,verify,apply] [--dir /tmp]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from bench_cases import TAPS  # noqa: E402
+
+RATE_HZ = 10000.0
+ONE_TAP = {"format_version": 1, "name": "bench-one-tap", "max_doppler_hz": 100.0,
+           "description": "Invented one-tap benchmark profile (not a standard model).",
+           "taps": [{"delay_ns": 0, "power_db": 0}]}
+TWELVE_TAPS = {"format_version": 1, "name": "bench-twelve-taps", "max_doppler_hz": 100.0,
+               "description": "Invented 12-tap benchmark profile (not a standard model).", "taps": TAPS}
+
+
+def peak_mib(arguments) -> float:
+    """Run ``python -m emucompile ARGUMENTS`` to completion; its peak RSS in MiB."""
+    child = subprocess.Popen([sys.executable, "-m", "emucompile", *arguments], stdout=subprocess.DEVNULL,
+                             stderr=subprocess.PIPE, env=dict(os.environ, PYTHONPATH=str(ROOT)))
+    _, status, usage = os.wait4(child.pid, 0)
+    stderr = child.stderr.read().decode(errors="replace")
+    child.stderr.close()
+    if os.waitstatus_to_exitcode(status) not in (0, 1):  # 1: a verdict failed, still a full run
+        raise SystemExit(f"emucompile {' '.join(arguments)}: {stderr[-2000:]}")
+    return usage.ru_maxrss / 1024
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--sizes", default="1000000,100000000", help="two sizes, comma-separated")
+    parser.add_argument("--only", default="compile,verify,apply", help="commands to measure")
+    parser.add_argument("--dir", default=None, help="where to write (default: a temporary directory)")
+    args = parser.parse_args()
+    sizes = [int(float(s)) for s in args.sizes.split(",")]
+    chosen = args.only.split(",")
+    peaks = {name: [] for name in chosen}
+    with tempfile.TemporaryDirectory(dir=args.dir) as work:
+        work = Path(work)
+        (work / "one.json").write_text(json.dumps(ONE_TAP))
+        (work / "twelve.json").write_text(json.dumps(TWELVE_TAPS))
+        if "apply" in chosen:
+            bundle = work / "fir-bundle"
+            subprocess.run([sys.executable, "-m", "emucompile", "compile", str(work / "twelve.json"), "-o", str(bundle),
+                            "--duration", "1", "--update-rate", "2000", "--sample-rate", "30.72e6", "--seed", "1",
+                            "--quiet"], check=True, env=dict(os.environ, PYTHONPATH=str(ROOT)))
+        for n in sizes:
+            out = work / f"bundle-{n}"
+            if "compile" in chosen or "verify" in chosen:
+                compile_args = ["compile", str(work / "one.json"), "-o", str(out), "--duration", repr(n / RATE_HZ),
+                                "--update-rate", repr(RATE_HZ), "--seed", "1", "--quiet", "--force",
+                                "--max-size", "100GB"]
+                peak = peak_mib(compile_args)
+                if "compile" in chosen:
+                    peaks["compile"].append(peak)
+            if "verify" in chosen:
+                peaks["verify"].append(peak_mib(["verify", str(out), "--no-plots"]))
+            shutil.rmtree(out, ignore_errors=True)
+            if "apply" in chosen:
+                source = work / "input.npy"
+                data = np.lib.format.open_memmap(source, mode="w+", dtype=np.complex64, shape=(n,))
+                rng = np.random.default_rng(2)
+                for first in range(0, n, 1 << 22):
+                    m = min(1 << 22, n - first)
+                    data[first:first + m].view(np.float32)[:] = rng.standard_normal(2 * m, dtype=np.float32)
+                data.flush()
+                del data
+                peaks["apply"].append(peak_mib(["apply", str(bundle), str(source), "-o", str(work / "out.npy"),
+                                                "--sample-rate", "30.72e6", "--loop", "--snr-db", "20",
+                                                "--seed", "3", "--quiet", "--force"]))
+                source.unlink()
+                (work / "out.npy").unlink(missing_ok=True)
+    print(f"load average {' / '.join(f'{x:.2f}' for x in os.getloadavg())}; peak RSS = ru_maxrss of the "
+          "command's process (resident pages; page cache the kernel can drop is not counted)")
+    for name in chosen:
+        cells = "  ".join(f"{n:.0e}: {p:7.1f} MiB" for n, p in zip(sizes, peaks[name]))
+        print(f"{name:8s} {cells}  ratio long/short {peaks[name][-1] / peaks[name][0]:.3f}")
+
+
+if __name__ == "__main__":
+    main()
