@@ -28,6 +28,7 @@ RUNS = [
     ("bench_cases.py", ["--samples", "200000", "--rounds", "3"], ["--samples", "2000000", "--rounds", "3"]),
     ("bench_cases.py", ["--cases", "shadowing", "--memory", "100000,1000000", "--rounds", "1"],
      ["--cases", "shadowing", "--memory", "1000000,100000000", "--rounds", "1"]),
+    ("bench_memory.py", ["--sizes", "100000,1000000"], ["--sizes", "1000000,100000000"]),
     ("bench_apply.py", ["--samples", "1048576", "--repeats", "3"], ["--samples", "4194304", "--repeats", "3"]),
     ("bench_verify.py", ["--samples", "1e6", "--repeat", "3"], ["--samples", "1e7", "--repeat", "3"]),
     ("bench_measure.py", ["--seconds", "1", "--rounds", "3"], ["--seconds", "10", "--rounds", "3"]),

@@ -122,7 +122,7 @@ class ChannelPlan:
         # operands as small_scale_links (elementwise, so the sub-blocks do not change the bits).
         m = stop - start
         rotation = self._rotation(start, stop)
-        streams = [self.engine.diffuse(start, stop, link) for link in range(self.n_links)]
+        rows = [self.engine.diffuse_rows(start, stop, link) for link in range(self.n_links)]  # (n_taps, m)
         products = {j: column[:, None] * self.direct_response[None, :]
                     for j, column in self._direct_columns(start, stop, rotation).items()}
         amplitude = self.shadowing_amplitude(start, stop)
@@ -130,16 +130,22 @@ class ChannelPlan:
         step = max(1, _SUB_BLOCK_ELEMENTS // (self.n_links * self.n_taps))
         for a in range(0, m, step):
             b = min(a + step, m)
-            diffuse = self._correlate([s[a:b] for s in streams], None if rotation is None else rotation[a:b])
-            # every link at once, each element through the same operations in the same order
-            direct = np.zeros((self.n_links, b - a, self.n_taps), np.complex128)
-            for j, product in products.items():
-                direct[:, :, j] = product[a:b].T
-            total = np.add(direct, diffuse, out=diffuse)
+            # tap-major slabs (n_links, n_taps, b - a): every operation is elementwise, so the
+            # layout changes no bit; the engine's rows are used as made (no transpose per link)
+            total = self._correlate([r[:, a:b] for r in rows], None if rotation is None else rotation[a:b],
+                                    taps_first=True)
+            if products or rotation is not None:
+                # every link at once, each element through the same operations in the same order
+                # (without a direct part and a rotation, adding the zeros changes no bit: the
+                # correlated sums start from +0, so they hold no -0)
+                direct = np.zeros_like(total)
+                for j, product in products.items():
+                    direct[:, j, :] = product[a:b].T
+                np.add(direct, total, out=total)
             if amplitude is not None:
-                total *= amplitude[None, a:b, None]
+                total *= amplitude[None, None, a:b]
             # link = tx * n_rx + rx (link order of to_axes)
-            out[a:b] = total.reshape(self.n_tx, self.n_rx, b - a, self.n_taps).transpose(2, 1, 0, 3)
+            out[a:b] = total.reshape(self.n_tx, self.n_rx, self.n_taps, b - a).transpose(3, 1, 0, 2)
         return out
 
     def chunks(self, chunk_size: int):
@@ -189,8 +195,11 @@ class ChannelPlan:
         """a_s (S w)_l r(n) link-major: complex128 (n_links, m, n_taps), each link contiguous."""
         return self._correlate([self.engine.diffuse(start, stop, link) for link in range(self.n_links)], rotation)
 
-    def _correlate(self, unit_streams, rotation) -> np.ndarray:
-        """a_s (S w)_l r(n) from the links' unit streams w (each (m, n_taps)): complex128 (n_links, m, n_taps)."""
+    def _correlate(self, unit_streams, rotation, taps_first=False) -> np.ndarray:
+        """a_s (S w)_l r(n) from the links' unit streams w: complex128 (n_links, *w.shape).
+
+        Each w is (m, n_taps), or (n_taps, m) with ``taps_first``.
+        """
         streams = np.empty((self.n_links, *unit_streams[0].shape), np.complex128)
         for link, stream in enumerate(unit_streams):
             streams[link] = stream
@@ -208,6 +217,11 @@ class ChannelPlan:
                 continue
             for row in np.flatnonzero(self._nonzero_root[:, k]):
                 parts[row] += np.multiply(root[row, k], streams[k], out=term[0])
+        if taps_first:
+            out *= self._diffuse_amps[None, :, None]
+            if rotation is not None:
+                out *= rotation[None, None, :]
+            return out
         out *= self._diffuse_amps[None, None, :]
         if rotation is not None:
             out *= rotation[None, :, None]

@@ -99,6 +99,10 @@ class FadingPlan:
         """
         return self._assemble(start, stop, "diffuse", _link(link))
 
+    def diffuse_rows(self, start: int, stop: int, link: int = 0) -> np.ndarray:
+        """:meth:`diffuse` tap-major: complex64 (n_taps, stop - start), the same values, not transposed."""
+        return self._assemble(start, stop, "diffuse", _link(link), transpose=False)
+
     def direct(self, start: int, stop: int) -> np.ndarray:
         """Unit-modulus direct phasors exp(j(2 pi f_los n / F_u + phi0)), complex64.
 
@@ -273,7 +277,7 @@ class FadingPlan:
         return out
 
     # -- assembly -------------------------------------------------------------------
-    def _assemble(self, start, stop, what, link):
+    def _assemble(self, start, stop, what, link, transpose=True):
         """Fill (n, n_taps), one task per tap (threads over taps when it pays).
 
         Each tap is written into its own contiguous row of a (n_taps, n) array,
@@ -292,7 +296,7 @@ class FadingPlan:
         else:
             for j in range(self.n_taps):
                 fill(j)
-        return np.ascontiguousarray(rows.T)
+        return np.ascontiguousarray(rows.T) if transpose else rows
 
     def _fill_column(self, t, column, pieces, what, link):
         source, phase = t["source"], t["phase"]
