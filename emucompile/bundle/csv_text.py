@@ -53,16 +53,26 @@ _POWER_OFFSET = _EXPONENT_MAX + 10  # _POWERS[k + _POWER_OFFSET] == 10.0**k, cor
 FILLER = b" "  # the sign slot of a value without a minus sign; no text of a number holds it
 
 
-def _words(texts, start):
-    """Little-endian uint64 words holding each ASCII text at byte ``start`` (the other bytes zero)."""
-    return np.frombuffer(b"".join((b"\0" * start + t.encode("ascii")).ljust(8, b"\0") for t in texts), "<u8")
+def _words(columns, start):
+    """Little-endian uint64 words holding the byte columns from byte ``start`` on (the other bytes zero)."""
+    data = np.zeros((len(columns[0]), 8), dtype=np.uint8)
+    for j, column in enumerate(columns):
+        data[:, start + j] = column
+    return data.view("<u8").ravel()
+
+
+def _digits(count, width):
+    """The ASCII digits of 0 .. count - 1, zero-padded to ``width``, one column per digit (numpy: quick to import)."""
+    number = np.arange(count)
+    return [(number // 10 ** (width - 1 - j) % 10 + ord("0")).astype(np.uint8) for j in range(width)]
 
 
 # The text of a field after its sign slot is two words: "d.dddddd" and "ddde+dd,".
-_HEAD = _words([f"{q // 1000}.{q % 1000:03d}" for q in range(10000)], 0)  # first 4 digits and the point
-_MIDDLE = _words([f"{r:03d}" for r in range(1000)], 5)  # digits 5 to 7
-_TAIL = _words([f"{r:03d}" for r in range(1000)], 0)  # digits 8 to 10
-_EXPONENTS = _words([f"e{e:+03d}," for e in range(-_EXPONENT_MAX, _EXPONENT_MAX + 1)], 3)
+_HEAD = _words([_digits(10000, 4)[0], np.full(10000, ord("."), np.uint8), *_digits(10000, 4)[1:]], 0)  # d.ddd
+_MIDDLE = _words(_digits(1000, 3), 5)  # digits 5 to 7
+_TAIL = _words(_digits(1000, 3), 0)  # digits 8 to 10
+_EXPONENTS = _words(np.array([list(f"e{e:+03d},".encode("ascii"))
+                              for e in range(-_EXPONENT_MAX, _EXPONENT_MAX + 1)], dtype=np.uint8).T, 3)
 _FIELD = np.dtype({"names": ["sign", "head", "tail"], "formats": ["u1", "<u8", "<u8"], "offsets": [0, 1, 9],
                    "itemsize": FIELD_BYTES})
 
