@@ -29,12 +29,13 @@ import os
 
 import numpy as np
 
+from emucompile.bundle import csv_text
 from emucompile.bundle.readers import HASH_BLOCK_BYTES
 
 SIGMF_VERSION = "1.2.0"
 SIGMF_EXTENSION_NAME = "emucompile"
 SIGMF_EXTENSION_VERSION = "1.0.0"
-CSV_FLOAT_FORMAT = "%.9e"
+CSV_FLOAT_FORMAT = csv_text.FLOAT_FORMAT
 GAIN_AXES = ("sample", "rx", "tx", "tap")
 FIR_AXES = ("sample", "rx", "tx", "fir_coefficient")
 
@@ -392,7 +393,6 @@ class CsvWriter(StreamWriter):
 
     name = "tap_gains.csv"
     _FIELD_BYTES_MAX = 17  # "-1.234567890e-05" plus a separator; float32 exponents have 2 digits
-    _ROWS_PER_WRITE = 4096
 
     def __init__(self, n_samples, n_rx, n_tx, n_taps, update_rate_hz):
         self.n_samples = int(n_samples)
@@ -405,7 +405,6 @@ class CsvWriter(StreamWriter):
                     base = f"tap{k:0{digits}d}_rx{r}_tx{t}"
                     self.columns += [f"{base}_re", f"{base}_im"]
         self._header = (",".join(self.columns) + "\n").encode("ascii")
-        self._row_format = ",".join([CSV_FLOAT_FORMAT] * len(self.columns)) + "\n"
         self._rows = 0
 
     @property
@@ -415,13 +414,14 @@ class CsvWriter(StreamWriter):
 
     def write(self, chunk) -> None:
         m = chunk.shape[0]
-        for first in range(0, m, self._ROWS_PER_WRITE):
-            block = chunk[first : first + self._ROWS_PER_WRITE]
+        step = max(1, csv_text.BLOCK_VALUES // len(self.columns))  # rows formatted at a time: cache-sized
+        for first in range(0, m, step):
+            block = chunk[first : first + step]
             rows = np.empty((block.shape[0], len(self.columns)))
             rows[:, 0] = (self._rows + np.arange(block.shape[0])) / self.update_rate_hz
             rows[:, 1:] = np.ascontiguousarray(block).reshape(block.shape[0], -1).view(np.float32)
-            text = "".join(self._row_format % tuple(row) for row in rows.tolist())
-            self._file.write(text.encode("ascii"))
+            for text in csv_text.iter_text(rows):
+                self._file.write(text)
             self._rows += block.shape[0]
 
     def close(self, **context) -> list[dict]:
