@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from emucompile.bundle.store import BundleWriter, open_bundle, platform_info
-from emucompile.compile.defaults import CHUNK_SAMPLES
+from emucompile.compile.defaults import chunk_samples
 from emucompile.compile.plan import CompilePlan, plan_compile
 from emucompile.compile.run import manifest_fields
 from emucompile.errors import InputError
@@ -140,7 +140,7 @@ def reproduce_bundle(path, *, progress=None) -> ReproduceResult:
     scratch = _scratch_directory(Path(path), tempfile)
     try:
         with BundleWriter(scratch / "bundle", plan.layout, max_size_bytes=None) as writer:
-            for start, block in plan.channel.chunks(CHUNK_SAMPLES):
+            for start, block in plan.channel.chunks(chunk_samples(plan.channel.n_links, plan.channel.n_taps)):
                 writer.write_chunk(start, block)
                 stop = min(start + len(block), stored.shape[0])
                 if stop > start and stored.shape[1:] == block.shape[1:]:

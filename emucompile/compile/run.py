@@ -19,7 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from emucompile.bundle.store import DEFAULT_MAX_SIZE_BYTES, BundleWriter, open_bundle
-from emucompile.compile.defaults import CHUNK_SAMPLES
+from emucompile.compile.defaults import chunk_samples
 from emucompile.compile.plan import CompilePlan, plan_compile
 from emucompile.models.rates import size_text
 from emucompile.models import fading, spectra
@@ -253,7 +253,7 @@ def run_plan(plan: CompilePlan, *, progress=None) -> CompileResult:
     with BundleWriter(
         plan.outdir, plan.layout, force=plan.force, max_size_bytes=plan.max_size_bytes, progress=progress
     ) as writer:
-        for start, gains in plan.channel.chunks(CHUNK_SAMPLES):
+        for start, gains in plan.channel.chunks(chunk_samples(plan.channel.n_links, plan.channel.n_taps)):
             writer.write_chunk(start, gains, owned=True)  # fresh engine arrays, finite by construction
         path = writer.finish(manifest_fields(plan))
     manifest = open_bundle(path).manifest

@@ -167,6 +167,7 @@ class SumOfSinusoidsSource(BlockSource):
         self._links = BoundedCache(2)
 
     def _constants(self, link: int) -> dict:
+        self._links.admit(link)
         return self._links.get(link, lambda: self._make_constants(link))
 
     def _make_constants(self, link: int) -> dict:

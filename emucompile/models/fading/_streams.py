@@ -35,10 +35,12 @@ BIT_GENERATOR = "PCG64"
 #: and link made taps and links correlate); the doppler-filter generator's numbers are unchanged.
 #: 4: sum-of-sinusoids keeps each quadrature's lowest sinusoid >= G^-1(1/(2M)) from 0 Hz (a
 #: near-0 Hz sinusoid is a constant offset over the record); doppler-filter numbers unchanged.
-#: 5: a moving delay's per-update windowed sinc comes from piecewise polynomials
-#: (``models/sinc_table.py``, within 5e-15 of the closed form, which it replaces for speed):
-#: fir.npy of a moving delay can differ in the last bit of a coefficient; every other file's
-#: numbers are unchanged (the demo bundles' data files keep their recorded SHA-256).
+#: 5 (both for speed): a moving delay's per-update windowed sinc comes from piecewise
+#: polynomials (``models/sinc_table.py``, within 5e-15 of the closed form): fir.npy of a
+#: moving delay can differ in the last bit of a coefficient; and the MIMO correlation and
+#: the diffuse amplitude of every profile that is not plain SISO (MIMO, train, shadowing,
+#: moving delay) are worked in complex64, not complex128 (``models/channel.py``): those
+#: gains move by about 1e-7 relative. Plain SISO gains keep their bytes.
 GENERATOR_VERSION = 5
 
 
@@ -61,13 +63,27 @@ def noise_block(seed: int, link: int, tap: int, block: int, size: int) -> np.nda
 
 
 class BoundedCache:
-    """A tiny least-recently-used cache (thread-safe), so memory stays bounded."""
+    """A tiny least-recently-used cache (thread-safe), so memory stays bounded.
+
+    It holds ``size`` items per group named to :meth:`admit` (a MIMO link:
+    links asked for in turn would otherwise push each other's blocks out and
+    have them made again for every chunk), or ``size`` in all if none is.
+    """
 
     def __init__(self, size: int, on_drop=None):
         self._size = size
+        self._limit = size
+        self._groups: set = set()
         self._items: OrderedDict = OrderedDict()
         self._lock = threading.Lock()
         self._on_drop = on_drop
+
+    def admit(self, group) -> None:
+        """Make room for ``size`` items of ``group`` (from its first call on)."""
+        if group not in self._groups:
+            with self._lock:
+                self._groups.add(group)
+                self._limit = self._size * len(self._groups)
 
     def get(self, key, make):
         with self._lock:
@@ -78,7 +94,7 @@ class BoundedCache:
         with self._lock:
             self._items[key] = value
             self._items.move_to_end(key)
-            while len(self._items) > self._size:
+            while len(self._items) > self._limit:
                 _, dropped = self._items.popitem(last=False)
                 if self._on_drop is not None:
                     self._on_drop(dropped)

@@ -18,7 +18,7 @@ import scipy.fft as sfft
 from emucompile.models.fading._design import Chain, DopplerDesign
 from emucompile.models.fading._streams import BoundedCache, noise_block
 
-SYNTHESIS_CACHE_BLOCKS = 2  # synthesis blocks kept per (tap, link)
+SYNTHESIS_CACHE_BLOCKS = 2  # synthesis blocks kept per (tap, link) (BoundedCache.admit)
 NOISE_CACHE_BLOCKS = 6  # noise blocks kept per (tap, link)
 BROADCAST_MIN_FACTOR = 32  # linear stages with R2 >= this loop over the block, not over r
 
@@ -123,6 +123,7 @@ class BlockSource:
         """
         size = self.output_block
         factor = np.float32(scale)
+        self._blocks.admit(link)
         with self._lock:
             pos = start
             while pos < stop:
@@ -176,6 +177,7 @@ class DopplerFilterSource(BlockSource):
         period = self.internal_period
         if out is None:
             out = np.empty(count, np.complex128)
+        self._noise.admit(link)
         pos = 0
         while pos < count:
             i = first + pos
