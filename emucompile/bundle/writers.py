@@ -261,7 +261,7 @@ class FirWriter(ArrayWriter):
     """
 
     _block_elements = 1 << 20  # output elements per encode call (bounded memory)
-    _CACHE_FLOATS = 1 << 15  # float64 accumulator of a static-map block: 256 KiB, fits in L2
+    _STATIC_FLOATS = 1 << 12  # gain floats (samples x links x re/im) per block of a static map
     _MOVING_FLOATS = 1 << 20  # moving map: larger blocks (8 MiB), fewer Python steps per tap
 
     def __init__(self, fir_map, n_samples, n_rx, n_tx, *, maps=None):
@@ -269,6 +269,9 @@ class FirWriter(ArrayWriter):
         self.maps = maps
         self._position = 0
         n_fir = self.fir_map.shape[1]
+        # (tap, first, last + 1) of each row's non-zero columns (all-zero rows add nothing)
+        self._static_runs = [(k, int(nz[0]), int(nz[-1]) + 1)
+                             for k, nz in enumerate(np.flatnonzero(row) for row in self.fir_map) if nz.size]
         note = "tap_gains @ fir_map, accumulated in complex128 in tap order, rounded to complex64"
         if maps is not None:
             note = (
@@ -305,8 +308,10 @@ class FirWriter(ArrayWriter):
         parts = parts.reshape(m, links, n_taps, 2)
         out = np.empty((m, links, n_fir), dtype=np.complex64)
         out_parts = out.view(np.float32).reshape(m, links, n_fir, 2).transpose(0, 1, 3, 2)
-        floats = self._CACHE_FLOATS if maps is None else self._MOVING_FLOATS
-        rows = max(1, floats // (2 * links * n_fir))
+        if maps is None:
+            self._encode_static(parts, out_parts)
+            return out.reshape(m, n_rx, n_tx, n_fir)
+        rows = max(1, self._MOVING_FLOATS // (2 * links * n_fir))
         buffer = np.empty((min(rows, m), links, 2, n_fir))
         windows = maps is not None and isinstance(maps, tuple) and self._windows(maps[0], n_fir)
         for start in range(0, m, rows):
@@ -316,9 +321,7 @@ class FirWriter(ArrayWriter):
                 lo, hi = int(maps[0][start:stop, :, 0].min()), int(maps[0][start:stop, :, -1].max()) + 1
             accumulator = buffer[: stop - start, ..., lo:hi]
             gains = parts[start:stop].astype(np.float64)  # exact
-            if maps is None:
-                self._add_static(accumulator, gains)
-            elif isinstance(maps, tuple):
+            if isinstance(maps, tuple):
                 index, values = (a[start:stop] for a in maps)
                 accumulator[...] = 0.0
                 if windows:
@@ -335,13 +338,36 @@ class FirWriter(ArrayWriter):
             out_parts[start:stop, ..., hi:] = 0.0
         return out.reshape(m, n_rx, n_tx, n_fir)
 
-    def _add_static(self, accumulator, gains):
-        """sum_k g_k f_k in tap order (the first term written, not added to zeros: see encode)."""
-        scratch = np.empty_like(accumulator)
-        np.multiply(gains[:, :, 0, :, None], self.fir_map[0], out=accumulator)
-        for k in range(1, gains.shape[2]):
-            np.multiply(gains[:, :, k, :, None], self.fir_map[k], out=scratch)
-            accumulator += scratch
+    def _encode_static(self, parts, out_parts) -> None:
+        """sum_k g_k f_k for a static real map, column-major, each tap over the columns its row reaches.
+
+        The accumulator is (n_fir, samples x links x re/im): a tap adds its run
+        of columns (2L for a sinc tap, one on a sample or for a nearest map) as
+        one broadcast product along long rows. Outside its run a tap's product
+        is a signed zero, which changes no sum that starts from +0, so the sums
+        over the runs alone, in tap order, have the bits of the full sums (the
+        +0.0 below makes a -0 column +0 either way).
+        """
+        m, links, n_taps, _ = parts.shape
+        n_fir = self.fir_map.shape[1]
+        rows = max(1, min(m, self._STATIC_FLOATS // (2 * links)))
+        width = max((hi - lo for _, lo, hi in self._static_runs), default=0)
+        accumulator = np.empty((n_fir, rows * links * 2))
+        scratch = np.empty((width, accumulator.shape[1]))
+        gains = np.empty((n_taps, accumulator.shape[1]))
+        for start in range(0, m, rows):
+            stop = min(start + rows, m)
+            size = (stop - start) * links * 2
+            acc, g = accumulator[:, :size], gains[:, :size]
+            acc[...] = 0.0
+            g.reshape(n_taps, stop - start, links, 2)[...] = parts[start:stop].transpose(2, 0, 1, 3)  # exact
+            for k, lo, hi in self._static_runs:
+                part = scratch[: hi - lo, :size]
+                np.multiply(self.fir_map[k, lo:hi, None], g[k], out=part)
+                acc[lo:hi] += part
+            # + 0.0 turns a -0 into the +0 the complex128 sum from zeros holds; then one rounding
+            np.add(acc.reshape(n_fir, stop - start, links, 2).transpose(1, 2, 3, 0), 0.0,
+                   out=out_parts[start:stop], casting="same_kind")
 
     @staticmethod
     def _windows(index, n_fir) -> bool:

@@ -324,6 +324,24 @@ def test_fir_is_the_product_with_the_map_and_independent_of_chunking(tmp_path):
     np.testing.assert_allclose(fir, reference, rtol=0, atol=1e-6 * np.abs(reference).max())
 
 
+def test_fir_of_a_static_map_has_the_bits_of_the_complex128_sum_in_tap_order(tmp_path):
+    """The writer adds each tap over its run of non-zero columns only, column-major in blocks;
+    the bytes are those of the plain complex128 sum over every tap and column, in tap order."""
+    shape, n_fir = (2 * fmt.FirWriter._STATIC_FLOATS + 37, 2, 2, 5), 23
+    gains = _gains(15, shape, [0.3, 0.3, 0.2, 0.1, 0.1])
+    rng = np.random.default_rng(16)
+    fir_map = np.zeros((5, n_fir))
+    for k, (lo, hi) in enumerate([(0, 6), (3, 11), (9, 10), (12, 23), (4, 8)]):
+        fir_map[k, lo:hi] = rng.standard_normal(hi - lo)
+    fir_map[2, 9] = 1.0  # a tap on a sample: one coefficient
+    [entry] = _stream(fmt.FirWriter(fir_map, shape[0], 2, 2), tmp_path, [gains[:1000], gains[1000:]])
+    fir = np.load(tmp_path / "fir.npy")
+    total = gains[..., 0, None].astype(np.complex128) * fir_map[0]
+    for k in range(1, 5):
+        total += gains[..., k, None].astype(np.complex128) * fir_map[k]
+    assert fir.tobytes() == (total + 0.0).astype(np.complex64).tobytes()
+
+
 def test_fir_of_a_one_hot_map_copies_the_tap(tmp_path):
     # A tap sitting exactly on a grid sample lands on one coefficient: FIR column = that tap.
     shape = (64, 1, 1, 2)
