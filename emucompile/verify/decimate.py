@@ -11,6 +11,7 @@ deterministic direct part of the bundle's components (:class:`ComponentsDirect`)
 
 from __future__ import annotations
 
+import mmap
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -27,6 +28,9 @@ CHUNK_SAMPLES = 1 << 16
 # decimator segments of ~256 KiB of complex64 rows, cache-sized (1e7 x 12 taps: 5x faster than 1.5 MiB)
 SEGMENT_BYTES = 1 << 18
 SEGMENTS_PER_TASK = 16  # consecutive segments one thread works through per task (fewer hand-offs)
+RELEASE_MARGIN_BYTES = 1 << 21
+# a fault maps the whole page-cache folio around it (up to 2 MiB on Linux with large folios; 16 pages of
+# fault-around otherwise): so much more is let go each side of the rows read
 DECIMATOR_THREADS = 2  # threads sharing the decimator's chunks (numpy's loops release the GIL)
 
 
@@ -105,6 +109,7 @@ class Decimator:
         step = max(1, min(rows, CHUNK_SAMPLES) // q)
         end = self.first + self.n_out
         starts = range(self.first, end, step * SEGMENTS_PER_TASK)
+        release = getattr(source, "release", None)
 
         def task(t0):
             part = np.zeros((n_links, n_taps))
@@ -112,6 +117,8 @@ class Decimator:
             for m0 in range(t0, t1, step):
                 m1 = min(m0 + step, t1)
                 y, segment_power = self._chunk(source, m0, m1, n_links, n_taps)
+                if release is not None:  # the rows read, let go: memory does not grow with the file
+                    release(max(0, m0 * q - self.half), min(self.n_samples, (m1 - 1) * q + self.half + 1))
                 out[:, :, m0 - self.first:m1 - self.first] = y.reshape(m1 - m0, n_links, n_taps).transpose(2, 1, 0)
                 part += segment_power
             return t1, part
@@ -173,11 +180,23 @@ class Decimator:
 
 
 class MappedSource:
-    """Rows of a (n, n_rx, n_tx, n_taps) array as (m, n_links, n_taps) link vectors, complex64."""
+    """Rows of a (n, n_rx, n_tx, n_taps) array as (m, n_links, n_taps) link vectors, complex64.
+
+    When the array is a map of a file (``numpy.memmap``), :meth:`release` lets
+    the map's pages of rows already used go (``madvise(MADV_DONTNEED)``; they
+    stay in the page cache and a later read maps them again), so the process's
+    resident memory does not grow with the file.
+    """
 
     def __init__(self, array, divide_by=None):
         self.array = array
         self.divide_by = divide_by
+        self._release = _page_releaser(array)
+
+    def release(self, start, stop):
+        """Let the pages of rows start .. stop - 1 go, when the array is a map of a file (else nothing)."""
+        if self._release is not None and stop > start:
+            self._release(start, stop)
 
     def read(self, start, stop):
         block = np.asarray(self.array[start:stop])
@@ -222,6 +241,26 @@ class ComponentsDirect:
 
     def read(self, start, stop):
         return links_from_gains(self.components.direct(start, stop))
+
+
+def _page_releaser(array):
+    """A function letting the pages of rows start .. stop - 1 of a C-ordered ``numpy.memmap`` go, or None."""
+    mapped = getattr(array, "_mmap", None)  # where numpy.memmap keeps its map
+    if mapped is None or not hasattr(mapped, "madvise") or not getattr(array, "flags", None) \
+            or not array.flags.c_contiguous or array.ndim == 0:
+        return None
+    first = array.ctypes.data - np.frombuffer(mapped, np.uint8).ctypes.data  # row 0's byte in the map
+    row, size = array.strides[0], len(mapped)
+
+    def release(start, stop):
+        # RELEASE_MARGIN_BYTES more each side: the kernel maps the pages around each fault (a neighbour's
+        # pages, which it may have let go already); one still in use maps again from the page cache
+        begin = max(0, first + start * row - RELEASE_MARGIN_BYTES) // mmap.PAGESIZE * mmap.PAGESIZE
+        end = min(size, first + stop * row + RELEASE_MARGIN_BYTES)
+        if end > begin:
+            mapped.madvise(mmap.MADV_DONTNEED, begin, end - begin)
+
+    return release
 
 
 def fast_length_at_most(n):

@@ -117,6 +117,38 @@ def test_decimator_passes_the_band_and_stops_what_would_alias():
         assert np.max(np.abs(np.abs(y) - gain)) < 10 ** (-70 / 20)  # designed for 80 dB; Kaiser's formula is approximate
 
 
+def _resident_kib(path):
+    """Resident KiB of this process's maps of ``path`` (Linux /proc/self/smaps)."""
+    total, inside = 0, False
+    for line in Path("/proc/self/smaps").read_text().splitlines():
+        fields = line.split()
+        if fields and "-" in fields[0] and len(fields) >= 5:  # a mapping's header line
+            inside = fields[-1] == str(path)
+        elif inside and fields[0] == "Rss:":
+            total += int(fields[1])
+    return total
+
+
+@pytest.mark.skipif(not Path("/proc/self/smaps").exists(), reason="needs Linux /proc/self/smaps")
+@pytest.mark.parametrize("periodic", [False, True])
+def test_a_mapped_file_is_decimated_as_the_array_and_its_pages_let_go(tmp_path, periodic):
+    """Reading through np.load(mmap_mode='r') gives the same record as the array in memory, and the map's
+    pages are let go as the chunks are done (resident memory does not grow with the file)."""
+    n = 400_000
+    rng = np.random.default_rng(5)
+    x = (rng.standard_normal((n, 1, 1, 6)) + 1j * rng.standard_normal((n, 1, 1, 6))).astype(np.complex64)
+    path = tmp_path / "gains.npy"
+    np.save(path, x)  # 19 MiB
+    mapped = np.load(path, mmap_mode="r")
+    decimator = decimate.Decimator(6400.0, 100.0, n, periodic)
+    want = decimator.run(decimate.MappedSource(x), 1, 6, None)
+    got = decimator.run(decimate.MappedSource(mapped), 1, 6, None)
+    np.testing.assert_array_equal(got, want)
+    assert _resident_kib(path.resolve()) < 1024  # of 18 750 KiB read
+    np.asarray(mapped[: n // 2]).sum()  # without the release the pages stay: the measure sees them
+    assert _resident_kib(path.resolve()) > 8000
+
+
 # -- integrity -------------------------------------------------------------------------------------
 
 
