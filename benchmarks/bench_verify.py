@@ -5,11 +5,18 @@ Compiles an invented 12-tap profile (f_D = 100 Hz, update rate 6.4 kHz = 64 f_D,
 process, and prints both wall times and their ratio verify / compile (target
 <= 1.0), with OPENBLAS_NUM_THREADS=1 for both (what the verify command
 sets; the compile engine is single-threaded by default). Verify runs without figures (``--no-plots``): the figures are the
-report's cost, not the statistics'; ``--plots`` adds them as a third time.
+report's cost, not the statistics'; ``--plots`` adds them as a third time. After the rounds, the min and
+median of the ratio over them (the machine may be shared: say so, with ``uptime``).
+
+``--memory`` also verifies each round's bundle once more in a child process
+and prints that child's peak resident memory (``getrusage(RUSAGE_CHILDREN).ru_maxrss``,
+the kernel's high-water mark of the child's resident pages; file pages that
+verify maps count while mapped, so this is an upper bound of what the
+brief's "pages the kernel can drop do not count" asks).
 
 Usage::
 
-    python benchmarks/bench_verify.py [--samples 1000000] [--repeat 1] [--dir /tmp] [--plots]
+    python benchmarks/bench_verify.py [--samples 1000000] [--repeat 1] [--dir /tmp] [--plots] [--memory]
 """
 
 from __future__ import annotations
@@ -18,6 +25,8 @@ import argparse
 import json
 import os
 import shutil
+import statistics
+import subprocess
 import sys
 import tempfile
 import time
@@ -40,6 +49,8 @@ def main(argv=None):
     parser.add_argument("--dir", default=None, help="where to write the bundle (default: a temporary directory)")
     parser.add_argument("--plots", action="store_true", help="also time verify with the figures and report")
     parser.add_argument("--workers", type=int, default=None, help="processes for the checks (default: verify's rule)")
+    parser.add_argument("--memory", action="store_true",
+                        help="also verify each bundle in a child process and print its peak resident memory")
     args = parser.parse_args(argv)
 
     from emucompile.compile import compiler
@@ -54,6 +65,7 @@ def main(argv=None):
     profile = work / "bench.json"
     profile.write_text(json.dumps(PROFILE))
     out = work / "bundle"
+    ratios = []
     try:
         for repeat in range(args.repeat):
             shutil.rmtree(out, ignore_errors=True)  # each compile writes a new bundle (no replace cost)
@@ -70,13 +82,32 @@ def main(argv=None):
                     f"{'passed' if result.passed else 'FAILED'}; "
                     + ", ".join(f"{k} {v:.2f} s" for k, v in sorted(result.timings_s.items()))
                     + f"), ratio verify/compile {verify_s / compile_s:.2f}")
+            ratios.append(verify_s / compile_s)
+            if args.memory:
+                line += f"; verify alone in a child process: peak RSS {child_peak_rss_mib(out):.0f} MiB"
             if args.plots:
                 began = time.perf_counter()
                 outputs.write_outputs(result, directory=work / "report", plots=True)
                 line += f"; figures + report {time.perf_counter() - began:.2f} s more"
             print(line, flush=True)
+        print(f"ratio verify/compile over {len(ratios)} round(s): min {min(ratios):.2f}, "
+              f"median {statistics.median(ratios):.2f}", flush=True)
     finally:
         shutil.rmtree(work, ignore_errors=True)
+
+
+def child_peak_rss_mib(bundle):
+    """Peak resident memory (MiB) of a fresh process that imports emucompile and verifies ``bundle``."""
+    import resource
+
+    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    code = "import sys; from emucompile.verify import run; run.verify_bundle(sys.argv[1])"
+    subprocess.run([sys.executable, "-c", code, str(bundle)], check=True,
+                   env=dict(os.environ, PYTHONPATH=str(ROOT)))
+    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss  # the largest child's so far (KiB on Linux)
+    if peak <= before:
+        print("caution: an earlier child peaked higher; this figure is that one's", file=sys.stderr)
+    return peak / 1024.0
 
 
 if __name__ == "__main__":

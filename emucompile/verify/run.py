@@ -304,22 +304,24 @@ def _verify_intact(root, began, *, false_alarm, delivered, progress, workers):
     profile = profile_from_document(manifest["profile"], source=f"{root}/manifest.json#/profile")
     models = {i: tap_model(entry) for i, entry in enumerate(manifest["taps"])}
     cautions = []
-    source, shadowing = _small_scale_source(root, opened, cautions)
-    sources = [("npy", source)]
-    if delivered:
-        entry = opened.entry("tap_gains_ci16")
-        if entry is None:
-            cautions.append("--delivered: the bundle holds no ci16 data; the npy gains are what it delivers")
-        else:
-            sources.append(("ci16", _ci16_source(root, entry, opened.tap_gains.shape, shadowing)))
-    session = Session(
-        profile=profile, models=models, update_rate_hz=float(manifest["update_rate_hz"]),
-        n_samples=int(manifest["n_samples"]), n_rx=int(manifest["n_rx"]), n_tx=int(manifest["n_tx"]),
-        periodic=bool(manifest["periodic"]), false_alarm=false_alarm, cautions=cautions, progress=progress,
-        mimo=manifest.get("mimo"), components=open_components(root) if manifest.get("mimo") else None,
-        workers=workers,
-    )
-    checks, records, link_records = session.run(sources)
+    # the gains' rows are read from the file (preadv), not through its map: nothing of it stays resident
+    with bd.open_member(root, opened.entry("tap_gains")["name"]) as gains_file:
+        source, shadowing = _small_scale_source(root, opened, cautions, gains_file)
+        sources = [("npy", source)]
+        if delivered:
+            entry = opened.entry("tap_gains_ci16")
+            if entry is None:
+                cautions.append("--delivered: the bundle holds no ci16 data; the npy gains are what it delivers")
+            else:
+                sources.append(("ci16", _ci16_source(root, entry, opened.tap_gains.shape, shadowing)))
+        session = Session(
+            profile=profile, models=models, update_rate_hz=float(manifest["update_rate_hz"]),
+            n_samples=int(manifest["n_samples"]), n_rx=int(manifest["n_rx"]), n_tx=int(manifest["n_tx"]),
+            periodic=bool(manifest["periodic"]), false_alarm=false_alarm, cautions=cautions, progress=progress,
+            mimo=manifest.get("mimo"), components=open_components(root) if manifest.get("mimo") else None,
+            workers=workers,
+        )
+        checks, records, link_records = session.run(sources)
     if delivered and opened.fir is not None:
         divide = None if shadowing is None else shadowing.shadowing_amplitude
         checks += session.delivered_fir(decimate.MappedSource(opened.fir, divide),
@@ -425,16 +427,17 @@ def default_output_directory(path, *, foreign: bool = False) -> Path:
 
 
 
-def _small_scale_source(root, opened, cautions):
-    """The npy source, with the shadowing divided out when the bundle has shadowing."""
+def _small_scale_source(root, opened, cautions, handle=None):
+    """The npy source (rows read from ``handle``, the open gains file, when given), with the shadowing
+    divided out when the bundle has shadowing."""
     if opened.entry("shadowing_db") is None and not _has_shadowing(opened.manifest):
-        return decimate.MappedSource(opened.tap_gains), None
+        return decimate.MappedSource(opened.tap_gains, handle=handle), None
     components = open_components(root)
     if components is None or components.shadowing_amplitude(0, 1) is None:
         cautions.append("the bundle has shadowing but its trajectory could not be read: the small-scale "
                         "checks see the large-scale variation too")
-        return decimate.MappedSource(opened.tap_gains), None
-    return decimate.MappedSource(opened.tap_gains, components.shadowing_amplitude), components
+        return decimate.MappedSource(opened.tap_gains, handle=handle), None
+    return decimate.MappedSource(opened.tap_gains, components.shadowing_amplitude, handle=handle), components
 
 
 def _has_shadowing(manifest):
