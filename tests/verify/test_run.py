@@ -535,3 +535,47 @@ def test_a_fit_beyond_the_tolerance_that_was_not_accepted_fails_verify(tmp_path)
     result = verifier.verify_bundle(bundle)
     failed = [c for c in result.failed if c.name == "fit_rms_delay_spread"]
     assert len(failed) == 1 and failed[0].tolerance == pytest.approx(10e-9, rel=1e-3)
+
+
+# -- the SHA-256 pass ahead of the decimator ---------------------------------------------------------
+
+
+def test_the_hash_reports_its_progress_and_equals_hashlib(tmp_path):
+    """sha256_file's progress reaches the file's size block by block; the digest is hashlib's."""
+    import hashlib
+
+    from emucompile.bundle import readers
+
+    data = np.random.default_rng(2).bytes(3 * 4096 + 17)
+    path = tmp_path / "blob"
+    path.write_bytes(data)
+    seen = []
+    assert readers.sha256_file(path, block_bytes=4096, progress=seen.append) == hashlib.sha256(data).hexdigest()
+    assert seen == [4096, 8192, 12288, len(data)]
+
+
+def test_the_decimator_reads_behind_the_hash_and_never_waits_for_a_finished_one(crane):
+    """verify's reads of the gains wait for the SHA-256 pass to have read those bytes (so they come from the
+    page cache), never for a read far ahead of it, and not at all once it has ended."""
+    import threading
+
+    front = verifier.HashFront("tap_gains.npy")
+    released = threading.Event()
+
+    def reader():
+        front.wait(0, 4096)
+        released.set()
+
+    waiting = threading.Thread(target=reader)
+    waiting.start()
+    assert not released.wait(0.2)  # nothing hashed yet: the read waits
+    front._progress("other.npy", 10**9)  # another file's progress does not count
+    assert not released.wait(0.2)
+    front._progress("tap_gains.npy", 4096)
+    assert released.wait(5.0)
+    waiting.join()
+    far = verifier.HASH_LEAD_BYTES + 8192
+    front.wait(far, far + 4096)  # far ahead (a periodic record's wrap): returns at once
+    problems = front.hash_bundle(crane)
+    assert problems == [] and front.finished
+    front.wait(10**12, 10**12 + 1)  # the pass has ended: nothing waits
