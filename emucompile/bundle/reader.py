@@ -9,6 +9,7 @@ formats are read as the registry (:mod:`emucompile.bundle.formats`) says.
 
 from __future__ import annotations
 
+import functools
 import os
 from pathlib import Path
 
@@ -122,7 +123,7 @@ def open_bundle(path, *, verify: bool = False) -> Bundle:
     return Bundle(path, manifest)
 
 
-def verify_integrity(path, *, hashes: bool = True) -> list[Problem]:
+def verify_integrity(path, *, hashes: bool = True, progress=None) -> list[Problem]:
     """Every problem of a bundle on disk: manifest against the schema, files, sizes, headers, SHA-256.
 
     Returns an empty list for an intact bundle. A file whose bytes differ
@@ -130,29 +131,31 @@ def verify_integrity(path, *, hashes: bool = True) -> list[Problem]:
     compiling (...)``. Files are hashed in 1 MiB blocks (bounded memory);
     ``hashes=False`` skips the hashing (the quick structural part, for a
     caller that hashes alongside other work and checks the full answer before
-    it reports anything).
+    it reports anything). ``progress(name, done)``, when given, is called with
+    a file's listed name and its bytes hashed so far after each block (so a
+    reader of the same file can keep behind the hash and find its pages cached).
     """
     root = Path(path)
     manifest, problems = _read_manifest(root)
     if manifest is None:
         return problems
-    return _integrity_problems(root, manifest, hashes=hashes)
+    return _integrity_problems(root, manifest, hashes=hashes, progress=progress)
 
 
-def _integrity_problems(root: Path, manifest: dict, *, hashes: bool) -> list[Problem]:
+def _integrity_problems(root: Path, manifest: dict, *, hashes: bool, progress=None) -> list[Problem]:
     problems = validate_manifest(manifest, source=str(root / MANIFEST_NAME))
     seen = set()
     for index, entry in enumerate(manifest.get("files") or []):
         if not _is_safe_entry(entry):
             continue
-        problem = _member_problem(root, entry, hashes)
+        problem = _member_problem(root, entry, hashes, progress)
         if problem is not None and (problem.file, problem.message) not in seen:
             seen.add((problem.file, problem.message))  # a linked folder is named once, not per file in it
             problems.append(Problem(problem.file, f"/files/{index}", problem.message))
     return problems
 
 
-def _member_problem(root: Path, entry: dict, hashes: bool) -> Problem | None:
+def _member_problem(root: Path, entry: dict, hashes: bool, progress=None) -> Problem | None:
     """What is wrong with one listed file (opened safely), or None."""
     file = root / entry["name"]
     try:
@@ -169,7 +172,8 @@ def _member_problem(root: Path, entry: dict, hashes: bool) -> Problem | None:
                 return Problem(str(file), "", f"corrupted or edited after compiling ({header_problem})")
             if hashes:
                 handle.seek(0)
-                if readers.sha256_file(handle) != entry.get("sha256"):
+                report = None if progress is None else functools.partial(progress, entry["name"])
+                if readers.sha256_file(handle, progress=report) != entry.get("sha256"):
                     return Problem(
                         str(file), "", "corrupted or edited after compiling (SHA-256 differs from the manifest)"
                     )

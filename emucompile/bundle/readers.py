@@ -273,19 +273,26 @@ def read_sigmf(meta_path):
     return recording.metadata, recording.samples[:, 0]
 
 
-def sha256_file(path, *, block_bytes: int = HASH_BLOCK_BYTES) -> str:
-    """SHA-256 of a file's bytes, read in blocks (bounded memory)."""
+def sha256_file(path, *, block_bytes: int = HASH_BLOCK_BYTES, progress=None) -> str:
+    """SHA-256 of a file's bytes, read in blocks (bounded memory).
+
+    ``progress(done)``, when given, is called with the bytes hashed so far after each block.
+    """
     digest = hashlib.sha256()
     with (
         open(path, "rb", buffering=0) if isinstance(path, (str, os.PathLike)) else contextlib.nullcontext(path)
     ) as handle:
         block = bytearray(block_bytes)
         view = memoryview(block)
+        done = 0
         while True:
             n = handle.readinto(block)
             if not n:
                 break
             digest.update(view[:n])
+            done += n
+            if progress is not None:
+                progress(done)
     return digest.hexdigest()
 
 

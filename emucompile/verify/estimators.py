@@ -54,17 +54,67 @@ def envelope_ks_distance(g, distribution) -> float:
     """Kolmogorov-Smirnov distance sup |F_n(r) - F(r)| of |g| against a frozen ``scipy.stats`` law.
 
     F is evaluated on a 8193-point grid over the sample's range and
-    interpolated linearly in |g|^2 (the sort and the interpolation need no
-    square root; error < 1e-7 for these smooth laws, far below any KS distance
-    a record can resolve; a test checks it against ``scipy.stats.kstest``).
+    interpolated linearly in |g|^2 (no square root per sample; error < 1e-7
+    for these smooth laws, far below any KS distance a record can resolve; a
+    test checks it against ``scipy.stats.kstest``).
+
+    Exact, in O(n) (no sort of the record): |g|^2 is counted into
+    :data:`KS_BINS` equal bins (the bin of a value is monotone in the value,
+    so the counts give every sample's rank up to its place inside its bin).
+    Inside bin j, whose samples lie between edges e_j and e_j+1, F lies
+    between F(e_j) and F(e_j+1): the counts give a lower and an upper bound
+    of the bin's largest deviation; the distance is the largest lower bound
+    unless a bin's upper bound exceeds it, and only those bins' samples
+    (about a hundred bins) are sorted and evaluated as the sort-based statistic
+    evaluates them. The result is the sort-based statistic (same ranks, same
+    interpolated F; a test checks them equal to 1e-12), so its calibration is
+    unchanged.
     """
     g = _record(g)
     p = np.abs(g)
     np.multiply(p, p, out=p)  # |g|^2, in the order of |g|
-    p.sort()
     n = p.size
-    grid = np.linspace(0.0, math.sqrt(p[-1]), 8193)
-    d = np.interp(p, grid * grid, distribution.cdf(grid))
+    top = float(p.max())
+    grid = np.linspace(0.0, math.sqrt(top), 8193)
+    grid_p, grid_f = grid * grid, distribution.cdf(grid)
+    bins = min(KS_BINS, n // 4)
+    if bins < 2 or not top > 0 or not math.isfinite(top):
+        return _ks_of_sorted(np.sort(p), grid_p, grid_f)
+    index = p * (bins / top)  # monotone in p: bins keep the samples' order
+    index = index.astype(np.int32)
+    np.minimum(index, bins - 1, out=index)
+    counts = np.bincount(index, minlength=bins)
+    before = np.concatenate([[0], np.cumsum(counts)[:-1]])  # samples in the bins below
+    f_edge = np.interp(np.arange(bins + 1) * (top / bins), grid_p, grid_f)
+    # d_i = F(x_i) - rank_i / n (rank from 0); the statistic is max(max d, 1/n - min d)
+    occupied = counts > 0
+    low = np.maximum(f_edge[:-1] - before / n, (before + counts) / n - f_edge[1:])
+    high = np.maximum(f_edge[1:] - before / n, (before + counts) / n - f_edge[:-1])
+    floor = float(np.max(low[occupied]))
+    # a slack far above the rounding of the edges (a value on an edge may fall in the bin below)
+    candidate = occupied & (high >= floor - 1e-9)
+    chosen = np.flatnonzero(candidate[index])
+    values, where = p[chosen], index[chosen]
+    order = np.lexsort((values, where))
+    values, where = values[order], where[order]
+    first = np.searchsorted(where, where, side="left")
+    ranks = before[where] + (np.arange(where.size) - first)
+    d = np.interp(values, grid_p, grid_f)
+    d -= ranks.astype(np.float64) * (1.0 / n)
+    return float(max(np.max(d), 1.0 / n - np.min(d)))
+
+
+KS_BINS = 1 << 20
+"""Most bins of |g|^2 :func:`envelope_ks_distance` counts into (n / 4 for shorter records): fine enough that
+only the bins near the largest deviation need their samples sorted (Rayleigh records of 1.25e6 and 1.25e7
+samples: 122 and 110 bins, 0.4 % and 0.14 % of the samples; 25 ms and 0.23 s, against 0.1 s and 1.4 s for
+the sort of the whole record; 2^18 and 2^22 bins were slower at 1.25e7)."""
+
+
+def _ks_of_sorted(p, grid_p, grid_f):
+    """The statistic from the whole sorted record (short or degenerate records)."""
+    n = p.size
+    d = np.interp(p, grid_p, grid_f)
     ramp = np.arange(n, dtype=np.float64)
     ramp *= 1.0 / n
     d -= ramp  # F(r_(i)) - (i - 1) / n, i = 1..n; i / n - F(r_(i)) = 1 / n - that

@@ -91,6 +91,39 @@ def test_envelope_ks_equals_kstest():
     assert abs(estimators.envelope_ks_distance(x, law) - want) < 1e-6
 
 
+def _sorted_ks(x, law):
+    """The sort-based KS distance envelope_ks_distance computed before its binned form (same F on its grid)."""
+    p = np.sort(np.abs(x) ** 2)
+    grid = np.linspace(0.0, math.sqrt(p[-1]), 8193)
+    d = np.interp(p, grid * grid, law.cdf(grid)) - np.arange(p.size) / p.size
+    return float(max(np.max(d), 1.0 / p.size - np.min(d)))
+
+
+@pytest.mark.parametrize("case", ["rayleigh", "rice", "wrong_power", "coarse", "ties", "tiny", "constant"])
+def test_binned_envelope_ks_is_the_sorted_statistic(case):
+    """The O(n) binned KS gives the sort-based statistic itself (the bins only bound where to look)."""
+    rng = np.random.default_rng(7)
+    law = stats.rayleigh(scale=math.sqrt(0.5))
+    x = cn(300_000, rng)
+    if case == "rice":
+        x = cn(200_000, rng) * math.sqrt(0.25) + math.sqrt(0.75)
+        law = stats.rice(b=math.sqrt(6.0), scale=math.sqrt(0.125))
+    elif case == "wrong_power":
+        x = x * 1.05  # a large distance, far from the bins' scale
+    elif case == "coarse":
+        x = np.round(x * 20) / 20  # many equal values, several per bin edge
+    elif case == "ties":
+        x = np.repeat(x[:1000], 300)  # every value 300 times
+    elif case == "tiny":
+        x = x[:50]  # fewer samples than the bins need: the sort itself
+    elif case == "constant":
+        x = np.full(10_000, 0.7 + 0.1j)
+    got = estimators.envelope_ks_distance(x, law)
+    assert abs(got - _sorted_ks(x, law)) < 1e-12
+    if case != "constant":
+        assert abs(got - stats.kstest(np.abs(x), law.cdf).statistic) < 1e-6
+
+
 def test_k_factor_moment_estimate_on_iid_rician():
     """Greenstein et al. 1999: consistent estimate; sd from the delta method (nulls.k_sd)."""
     k, n = 3.0, 400_000

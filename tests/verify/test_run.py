@@ -117,6 +117,43 @@ def test_decimator_passes_the_band_and_stops_what_would_alias():
         assert np.max(np.abs(np.abs(y) - gain)) < 10 ** (-70 / 20)  # designed for 80 dB; Kaiser's formula is approximate
 
 
+def _resident_kib(path):
+    """Resident KiB of this process's maps of ``path`` (Linux /proc/self/smaps)."""
+    total, inside = 0, False
+    for line in Path("/proc/self/smaps").read_text().splitlines():
+        fields = line.split()
+        if fields and "-" in fields[0] and len(fields) >= 5:  # a mapping's header line
+            inside = fields[-1] == str(path)
+        elif inside and fields[0] == "Rss:":
+            total += int(fields[1])
+    return total
+
+
+@pytest.mark.skipif(not Path("/proc/self/smaps").exists(), reason="needs Linux /proc/self/smaps")
+@pytest.mark.parametrize("periodic", [False, True])
+def test_a_mapped_file_is_decimated_as_the_array_and_its_pages_let_go(tmp_path, periodic):
+    """Reading through np.load(mmap_mode='r') gives the same record as the array in memory, and the map's
+    pages are let go as the chunks are done (resident memory does not grow with the file)."""
+    n = 400_000
+    rng = np.random.default_rng(5)
+    x = (rng.standard_normal((n, 1, 1, 6)) + 1j * rng.standard_normal((n, 1, 1, 6))).astype(np.complex64)
+    path = tmp_path / "gains.npy"
+    np.save(path, x)  # 19 MiB
+    mapped = np.load(path, mmap_mode="r")
+    decimator = decimate.Decimator(6400.0, 100.0, n, periodic)
+    want = decimator.run(decimate.MappedSource(x), 1, 6, None)
+    got = decimator.run(decimate.MappedSource(mapped), 1, 6, None)
+    np.testing.assert_array_equal(got, want)
+    assert _resident_kib(path.resolve()) < 1024  # of 18 750 KiB read
+    with open(path, "rb") as handle:  # rows read from the file itself (preadv): the map is not touched
+        source = decimate.MappedSource(mapped, handle=handle)
+        np.testing.assert_array_equal(source.rows(0, n), x)
+        np.testing.assert_array_equal(decimator.run(source, 1, 6, None), want)
+    assert _resident_kib(path.resolve()) < 1024
+    np.asarray(mapped[: n // 2]).sum()  # without the release the pages stay: the measure sees them
+    assert _resident_kib(path.resolve()) > 8000
+
+
 # -- integrity -------------------------------------------------------------------------------------
 
 
@@ -498,3 +535,47 @@ def test_a_fit_beyond_the_tolerance_that_was_not_accepted_fails_verify(tmp_path)
     result = verifier.verify_bundle(bundle)
     failed = [c for c in result.failed if c.name == "fit_rms_delay_spread"]
     assert len(failed) == 1 and failed[0].tolerance == pytest.approx(10e-9, rel=1e-3)
+
+
+# -- the SHA-256 pass ahead of the decimator ---------------------------------------------------------
+
+
+def test_the_hash_reports_its_progress_and_equals_hashlib(tmp_path):
+    """sha256_file's progress reaches the file's size block by block; the digest is hashlib's."""
+    import hashlib
+
+    from emucompile.bundle import readers
+
+    data = np.random.default_rng(2).bytes(3 * 4096 + 17)
+    path = tmp_path / "blob"
+    path.write_bytes(data)
+    seen = []
+    assert readers.sha256_file(path, block_bytes=4096, progress=seen.append) == hashlib.sha256(data).hexdigest()
+    assert seen == [4096, 8192, 12288, len(data)]
+
+
+def test_the_decimator_reads_behind_the_hash_and_never_waits_for_a_finished_one(crane):
+    """verify's reads of the gains wait for the SHA-256 pass to have read those bytes (so they come from the
+    page cache), never for a read far ahead of it, and not at all once it has ended."""
+    import threading
+
+    front = verifier.HashFront("tap_gains.npy")
+    released = threading.Event()
+
+    def reader():
+        front.wait(0, 4096)
+        released.set()
+
+    waiting = threading.Thread(target=reader)
+    waiting.start()
+    assert not released.wait(0.2)  # nothing hashed yet: the read waits
+    front._progress("other.npy", 10**9)  # another file's progress does not count
+    assert not released.wait(0.2)
+    front._progress("tap_gains.npy", 4096)
+    assert released.wait(5.0)
+    waiting.join()
+    far = verifier.HASH_LEAD_BYTES + 8192
+    front.wait(far, far + 4096)  # far ahead (a periodic record's wrap): returns at once
+    problems = front.hash_bundle(crane)
+    assert problems == [] and front.finished
+    front.wait(10**12, 10**12 + 1)  # the pass has ended: nothing waits
