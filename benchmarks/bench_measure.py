@@ -34,6 +34,8 @@ import time
 from pathlib import Path
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # as the measure command sets it (BLAS threads only contend)
+if not os.environ.get("PYTHONPATH"):  # this checkout, unless PYTHONPATH names another tree (see above)
+    sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 import numpy as np
 from scipy import fft as sp_fft

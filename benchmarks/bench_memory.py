@@ -1,9 +1,11 @@
 """Peak resident memory of each command at a short and a long record (target: long / short <= 1.2).
 
 Runs the command line in a child process per command and size and reads the
-child's peak resident set (``ru_maxrss`` from ``os.wait4``: resident pages
-only; the page cache of the files written or read, which the kernel can drop,
-is not counted). Sizes are samples per tap (compile, verify) or input samples
+child's peak resident set two ways: ``ru_maxrss`` from ``os.wait4`` (every
+resident page, the pages of a mapped file included) and the largest
+``RssAnon`` sampled every 10 ms (the process's own memory, without the
+page cache of mapped files, which the kernel can drop: the measure the
+target names). Sizes are samples per tap (compile, verify) or input samples
 (apply). The profile is invented (one Rayleigh tap, f_D = 100 Hz, update rate
 10 kHz), so a long record stays small on disk: 1e8 samples are 800 MB.
 The 12-tap cases and the other compile options are in ``bench_cases.py --memory``.
@@ -27,6 +29,7 @@ import shutil
 import subprocess
 import sys
 import tempfile
+import time
 from pathlib import Path
 
 import numpy as np
@@ -43,16 +46,33 @@ TWELVE_TAPS = {"format_version": 1, "name": "bench-twelve-taps", "max_doppler_hz
                "description": "Invented 12-tap benchmark profile (not a standard model).", "taps": TAPS}
 
 
-def peak_mib(arguments) -> float:
-    """Run ``python -m emucompile ARGUMENTS`` to completion; its peak RSS in MiB."""
+def peak_mib(arguments) -> tuple[float, float]:
+    """Run ``python -m emucompile ARGUMENTS`` to completion: (peak RSS, peak anonymous RSS) in MiB.
+
+    The first is ``ru_maxrss`` (every resident page, mapped file pages
+    included); the second the largest ``RssAnon`` of ``/proc/PID/status``
+    sampled every 10 ms (memory that is the process's own: heap, arrays;
+    not the page cache of a mapped file, which the kernel can drop). A
+    sample can miss a peak shorter than 10 ms.
+    """
     child = subprocess.Popen([sys.executable, "-m", "emucompile", *arguments], stdout=subprocess.DEVNULL,
                              stderr=subprocess.PIPE, env=dict(os.environ, PYTHONPATH=str(ROOT)))
-    _, status, usage = os.wait4(child.pid, 0)
+    anon = 0
+    while True:
+        pid, status, usage = os.wait4(child.pid, os.WNOHANG)
+        if pid:
+            break
+        try:
+            with open(f"/proc/{child.pid}/status") as handle:
+                anon = max(anon, next((int(line.split()[1]) for line in handle if line.startswith("RssAnon:")), 0))
+        except OSError:  # exited between the two calls
+            pass
+        time.sleep(0.01)
     stderr = child.stderr.read().decode(errors="replace")
     child.stderr.close()
     if os.waitstatus_to_exitcode(status) not in (0, 1):  # 1: a verdict failed, still a full run
         raise SystemExit(f"emucompile {' '.join(arguments)}: {stderr[-2000:]}")
-    return usage.ru_maxrss / 1024
+    return usage.ru_maxrss / 1024, anon / 1024
 
 
 def main() -> None:
@@ -99,11 +119,14 @@ def main() -> None:
                                                 "--seed", "3", "--quiet", "--force"]))
                 source.unlink()
                 (work / "out.npy").unlink(missing_ok=True)
-    print(f"load average {' / '.join(f'{x:.2f}' for x in os.getloadavg())}; peak RSS = ru_maxrss of the "
-          "command's process (resident pages; page cache the kernel can drop is not counted)")
+    print(f"load average {' / '.join(f'{x:.2f}' for x in os.getloadavg())}; peak RSS (ru_maxrss: every "
+          "resident page, mapped file pages too) and peak anonymous RSS (RssAnon sampled every 10 ms: without "
+          "the page cache of mapped files, which the kernel can drop), MiB")
     for name in chosen:
-        cells = "  ".join(f"{n:.0e}: {p:7.1f} MiB" for n, p in zip(sizes, peaks[name]))
-        print(f"{name:8s} {cells}  ratio long/short {peaks[name][-1] / peaks[name][0]:.3f}")
+        for label, column in (("rss", 0), ("anon", 1)):
+            values = [p[column] for p in peaks[name]]
+            cells = "  ".join(f"{n:.0e}: {v:7.1f}" for n, v in zip(sizes, values))
+            print(f"{name:8s} {label:4s} {cells}  ratio long/short {values[-1] / values[0]:.3f}")
 
 
 if __name__ == "__main__":

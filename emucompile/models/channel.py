@@ -136,14 +136,10 @@ class ChannelPlan:
             # layout changes no bit; the engine's rows are used as made (no transpose per link)
             total = self._correlate([r[:, a:b] for r in rows], None if rotation is None else rotation[a:b],
                                     taps_first=True)
-            if products or rotation is not None:
-                # every link at once, each element through the same operations in the same order
-                # (without a direct part and a rotation, adding the zeros changes no bit: the
-                # correlated sums start from +0, so they hold no -0)
-                direct = np.zeros_like(total)
-                for j, product in products.items():
-                    direct[:, j, :] = product[a:b].T
-                np.add(direct, total, out=total)
+            # the direct part, rounded to complex64, added to the taps that have one (every link at
+            # once); the others' sums are as small_scale_links gives them, up to the sign of a zero
+            for j, product in products.items():
+                total[:, j, :] += product[a:b].T.astype(np.complex64)
             if amplitude is not None:
                 total *= amplitude[None, None, a:b]
             # link = tx * n_rx + rx (link order of to_axes)
@@ -183,14 +179,17 @@ class ChannelPlan:
         has_direct = [j for j, (a_d, _) in enumerate(self._amps) if a_d > 0]
         if not has_direct:
             return {}
-        phasors = self.engine.direct(start, stop).astype(np.complex128)
+        # the engine's phasors of the taps that are not on the train's trajectory, tap-major
+        engine_taps = [j for j in has_direct if j not in self.train_taps]
+        rows = dict(zip(engine_taps, self.engine.direct_rows(start, stop, engine_taps) if engine_taps else ()))
+        phasors = {j: row.astype(np.complex128) for j, row in rows.items()}
         if self.train_taps:
             phase = self.train.phase_at_samples(np.arange(start, stop, dtype=np.int64), self.update_rate_hz)
             for j in self.train_taps:
-                phasors[:, j] = np.exp(1j * (phase + self._phase0[j]))
+                phasors[j] = np.exp(1j * (phase + self._phase0[j]))
         columns = {}
         for j in has_direct:
-            column = self._amps[j][0] * phasors[:, j]
+            column = self._amps[j][0] * phasors[j]
             if rotation is not None:
                 column = column * rotation
             columns[j] = column
@@ -212,6 +211,23 @@ class ChannelPlan:
         streams = np.empty((self.n_links, *unit_streams[0].shape), np.complex64)
         for link, stream in enumerate(unit_streams):
             streams[link] = stream
+        if self.n_links == 1 and self.square_root[0, 0] == 1.0:
+            out = streams  # SISO: S = [[1]], and 1 w = w
+        else:
+            out = self._correlated(streams)
+        rotation = None if rotation is None else rotation.astype(np.complex64)
+        if taps_first:
+            out *= self._diffuse_amps32[None, :, None]
+            if rotation is not None:
+                out *= rotation[None, None, :]
+            return out
+        out *= self._diffuse_amps32[None, None, :]
+        if rotation is not None:
+            out *= rotation[None, :, None]
+        return out
+
+    def _correlated(self, streams) -> np.ndarray:
+        """(S w)_l for every link, summed in link order from +0: complex64, the shape of ``streams``."""
         out = np.zeros_like(streams)
         root, parts = self._root_c64, out
         if self._real_root:
@@ -226,15 +242,6 @@ class ChannelPlan:
                 continue
             for row in np.flatnonzero(self._nonzero_root[:, k]):
                 parts[row] += np.multiply(root[row, k], streams[k], out=term[0])
-        rotation = None if rotation is None else rotation.astype(np.complex64)
-        if taps_first:
-            out *= self._diffuse_amps32[None, :, None]
-            if rotation is not None:
-                out *= rotation[None, None, :]
-            return out
-        out *= self._diffuse_amps32[None, None, :]
-        if rotation is not None:
-            out *= rotation[None, :, None]
         return out
 
     def unit_diffuse_links(self, start, stop, tap) -> np.ndarray:

@@ -150,12 +150,18 @@ class RecordedDirect:
 
     def direct(self, start: int, stop: int) -> np.ndarray:
         """Unit-modulus direct phasors at samples [start, stop) of the record, complex64 (m, n_taps)."""
+        return np.ascontiguousarray(self.direct_rows(start, stop, range(self.n_taps)).T)
+
+    def direct_rows(self, start: int, stop: int, taps) -> np.ndarray:
+        """:meth:`direct` of the taps listed, tap-major: complex64 (len(taps), stop - start)."""
         if not 0 <= start <= stop <= self.n_samples:
             raise ValueError(f"need 0 <= start <= stop <= {self.n_samples}, got [{start}, {stop})")
-        rows = np.empty((self.n_taps, stop - start), np.complex64)
-        for j, phase in enumerate(self._phases):
+        taps = list(taps)
+        rows = np.empty((len(taps), stop - start), np.complex64)
+        for i, j in enumerate(taps):
+            phase = self._phases[j]
             if phase is None:
-                rows[j] = 1.0
+                rows[i] = 1.0
             else:
-                phase.write(start, stop, rows[j], 1.0, add=False)
-        return np.ascontiguousarray(rows.T)
+                phase.write(start, stop, rows[i], 1.0, add=False)
+        return rows

@@ -111,6 +111,10 @@ class FadingPlan:
         """
         return self._assemble(start, stop, "direct", 0)
 
+    def direct_rows(self, start: int, stop: int, taps) -> np.ndarray:
+        """:meth:`direct` of the taps listed, tap-major: complex64 (len(taps), stop - start), the same values."""
+        return self._assemble(start, stop, "direct", 0, transpose=False, taps=list(taps))
+
     def chunks(self, chunk_size: int = DEFAULT_CHUNK, *, start: int = 0, stop: int | None = None):
         """Yield ``(first_index, gains)`` over [start, stop) (default: the record) in order."""
         chunk_size = _positive_int(chunk_size, "chunk_size")
@@ -277,7 +281,7 @@ class FadingPlan:
         return out
 
     # -- assembly -------------------------------------------------------------------
-    def _assemble(self, start, stop, what, link, transpose=True):
+    def _assemble(self, start, stop, what, link, transpose=True, taps=None):
         """Fill (n, n_taps), one task per tap (threads over taps when it pays).
 
         Each tap is written into its own contiguous row of a (n_taps, n) array,
@@ -286,16 +290,17 @@ class FadingPlan:
         """
         pieces = self._pieces(start, stop)
         n = stop - start
-        rows = np.empty((self.n_taps, n), np.complex64)
+        taps = range(self.n_taps) if taps is None else taps
+        rows = np.empty((len(taps), n), np.complex64)
 
-        def fill(j):
-            self._fill_column(self._taps[j], rows[j], pieces, what, link)
+        def fill(i):
+            self._fill_column(self._taps[taps[i]], rows[i], pieces, what, link)
 
-        if self.threads > 1 and self.n_taps > 1 and n * self.n_taps >= _PARALLEL_MIN_WORK:
-            list(_executor(self.threads).map(fill, range(self.n_taps)))
+        if self.threads > 1 and len(taps) > 1 and n * len(taps) >= _PARALLEL_MIN_WORK:
+            list(_executor(self.threads).map(fill, range(len(taps))))
         else:
-            for j in range(self.n_taps):
-                fill(j)
+            for i in range(len(taps)):
+                fill(i)
         return np.ascontiguousarray(rows.T) if transpose else rows
 
     def _fill_column(self, t, column, pieces, what, link):
