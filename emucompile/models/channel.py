@@ -208,13 +208,10 @@ class ChannelPlan:
         relative error against the complex128 sum, below what the bundle's
         complex64 gains hold anyway, for half the memory traffic.
         """
-        streams = np.empty((self.n_links, *unit_streams[0].shape), np.complex64)
-        for link, stream in enumerate(unit_streams):
-            streams[link] = stream
         if self.n_links == 1 and self.square_root[0, 0] == 1.0:
-            out = streams  # SISO: S = [[1]], and 1 w = w
+            out = np.array(unit_streams[0], dtype=np.complex64)[None]  # SISO: S = [[1]], and 1 w = w
         else:
-            out = self._correlated(streams)
+            out = self._correlated(unit_streams)
         rotation = None if rotation is None else rotation.astype(np.complex64)
         if taps_first:
             out *= self._diffuse_amps32[None, :, None]
@@ -227,14 +224,18 @@ class ChannelPlan:
         return out
 
     def _correlated(self, streams) -> np.ndarray:
-        """(S w)_l for every link, summed in link order from +0: complex64, the shape of ``streams``."""
-        out = np.zeros_like(streams)
+        """(S w)_l for every link, summed in link order from +0: complex64 (n_links, *w.shape).
+
+        ``streams``: the links' w, complex64 arrays (views are fine) with a contiguous last axis.
+        """
+        out = np.zeros((self.n_links, *streams[0].shape), np.complex64)
         root, parts = self._root_c64, out
         if self._real_root:
             # S real (every standard level): for finite w (the engine's), (s + 0j) w = s Re w + j s Im w
             # exactly (the zero terms' signs are lost in sums that start from +0), so the parts are
             # worked on as float32: half the arithmetic, the same bits as the complex product
-            root, parts, streams = root.real, out.view(np.float32), streams.view(np.float32)
+            root, parts = root.real, out.view(np.float32)
+            streams = [np.asarray(w, dtype=np.complex64).view(np.float32) for w in streams]
         term = np.empty_like(parts)
         for k in range(self.n_links):  # explicit sum in link order: same bits for any m
             if self._full_columns[k]:  # every row at once: each row's terms still add in link order
