@@ -119,9 +119,9 @@ class ChannelPlan:
         """Tap gains at samples [start, stop): complex64 (m, n_rx, n_tx, n_taps)."""
         if self.plain:
             return self.engine.block(start, stop).reshape(stop - start, 1, 1, self.n_taps)
-        # Link by link in contiguous (m, n_taps) slabs over sub-blocks of samples that stay in
-        # cache, each written once into the bundle's axes; the same operations on the same
-        # operands as small_scale_links (elementwise, so the sub-blocks do not change the bits).
+        # Every link at once in tap-major slabs over sub-blocks of samples that stay in cache,
+        # each written once into the bundle's axes; the same operations on the same operands as
+        # small_scale_links (elementwise, so the sub-blocks and the layout change no bit).
         m = stop - start
         rotation = self._rotation(start, stop)
         rows = [self.engine.diffuse_rows(start, stop, link) for link in range(self.n_links)]  # (n_taps, m)
