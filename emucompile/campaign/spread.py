@@ -100,8 +100,9 @@ def compile_spread(profile=None, outdir=None, *, plan=None, client=None, schedul
 def place_range(spec: dict, start: int, stop: int, files: list) -> int:
     """On a worker: generate samples [start, stop) and write them into every placed file; return their count."""
     plan = _worker_plan(spec)
-    for first in range(start, stop, compiler.CHUNK_SAMPLES):
-        last = min(first + compiler.CHUNK_SAMPLES, stop)
+    step = compiler.chunk_samples(plan.channel.n_links, plan.channel.n_taps)  # at most 24 MiB of gains
+    for first in range(start, stop, step):
+        last = min(first + step, stop)
         gains = np.ascontiguousarray(plan.channel.block(first, last), dtype="<c8")
         if not np.isfinite(gains).all():
             raise ValueError(f"the block at sample {first} holds NaN or infinity")

@@ -19,6 +19,7 @@ from emucompile.compile.defaults import (  # noqa: F401 (the constants, as befor
     DEFAULT_UPDATE_FACTOR,
     DEFAULT_UPDATE_RATE_NO_DOPPLER_HZ,
     WARN_UPDATE_FACTOR,
+    chunk_samples,
 )
 from emucompile.compile.plan import CompilePlan, plan_compile
 from emucompile.compile.rules import MIN_UPDATE_FACTOR, compile_findings, expect_record  # noqa: F401
