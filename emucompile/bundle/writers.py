@@ -313,7 +313,7 @@ class FirWriter(ArrayWriter):
             return out.reshape(m, n_rx, n_tx, n_fir)
         rows = max(1, self._MOVING_FLOATS // (2 * links * n_fir))
         buffer = np.empty((min(rows, m), links, 2, n_fir))
-        windows = maps is not None and isinstance(maps, tuple) and self._windows(maps[0], n_fir)
+        windows = isinstance(maps, tuple) and self._windows(maps[0], n_fir)
         for start in range(0, m, rows):
             stop = min(start + rows, m)
             lo, hi = 0, n_fir  # the columns this block can touch; the others stay +0

@@ -108,9 +108,9 @@ class ChannelPlan:
         self._real_root = not np.any(self.square_root.imag)
         self.plain = setup is None and not self.train_taps and not self._follows and spec is None
         self._amps = [_amplitudes(t) for t in profile.taps]
-        self._diffuse_amps = np.array([a_s for _, a_s in self._amps])
-        self._diffuse_amps32 = self._diffuse_amps.astype(np.float32)
+        self._diffuse_amps32 = np.array([a_s for _, a_s in self._amps], dtype=np.float32)
         self._root_c64 = self.square_root.astype(np.complex64)
+        self._identity_root = self.n_links == 1 and self.square_root[0, 0] == 1.0  # SISO: S = [[1]]
         info = engine.tap_info()
         self._phase0 = [math.radians(i.get("los_phase_deg") or 0.0) for i in info]
 
@@ -208,19 +208,14 @@ class ChannelPlan:
         relative error against the complex128 sum, below what the bundle's
         complex64 gains hold anyway, for half the memory traffic.
         """
-        if self.n_links == 1 and self.square_root[0, 0] == 1.0:
-            out = np.array(unit_streams[0], dtype=np.complex64)[None]  # SISO: S = [[1]], and 1 w = w
+        if self._identity_root:
+            out = np.array(unit_streams[0], dtype=np.complex64)[None]  # 1 w = w
         else:
             out = self._correlated(unit_streams)
-        rotation = None if rotation is None else rotation.astype(np.complex64)
-        if taps_first:
-            out *= self._diffuse_amps32[None, :, None]
-            if rotation is not None:
-                out *= rotation[None, None, :]
-            return out
-        out *= self._diffuse_amps32[None, None, :]
+        # taps on the last axis or (taps_first) the one before the samples
+        out *= self._diffuse_amps32[:, None] if taps_first else self._diffuse_amps32
         if rotation is not None:
-            out *= rotation[None, :, None]
+            out *= rotation.astype(np.complex64)[None, :] if taps_first else rotation.astype(np.complex64)[:, None]
         return out
 
     def _correlated(self, streams) -> np.ndarray:
