@@ -35,7 +35,7 @@ class TapData:
         self.key = key
         self.label = label
         self.rate_hz = float(rate_hz)
-        self.x = np.asarray(record).astype(np.complex128, copy=False)  # the whole record, as the checks read it
+        self.x = np.asarray(record)  # the whole record, as the checks read it (passes over it work in blocks)
         self.model = model
         self.periodic = bool(periodic)
         self.checks = dict(checks or {})  # check name -> the check's result on this record
@@ -51,7 +51,7 @@ class TapData:
         """The first samples of g / R_rms, upsampled (band-limited), and their rate."""
         if self._fine is None:
             factor = max(1, min(8, math.ceil(_LCR_OVERSAMPLE_HZ * self.edge_hz / self.rate_hz)))
-            x = self.x[:_MAX_STRETCH_RECORD]
+            x = self.x[:_MAX_STRETCH_RECORD].astype(np.complex128)
             if factor > 1:
                 x = signal.resample_poly(x, factor, 1)
             self._fine = (x / self.rms, self.rate_hz * factor)

@@ -22,7 +22,7 @@ from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
 import numpy as np
 
 from emucompile.models.theory import DopplerSpectrum
-from emucompile.verify import checks_mimo, decimate, tolerance
+from emucompile.verify import checks_mimo, decimate, estimators, tolerance
 
 CHECK_THREADS = 2  # threads for the per-tap and cross-tap checks without worker processes
 
@@ -146,7 +146,7 @@ class Session:
             scaled = dataclasses.replace(model, mean_power=model.mean_power * weight * weight)
             records = decimated[column]
             if model.spectrum is None:
-                records = records / self.decimator.response(model.los_doppler_hz)
+                records /= self.decimator.response(model.los_doppler_hz)  # in place: the copy is ours
             for link in range(self.n_links):
                 results = tol.check_tap(records[link], self.record_rate_hz, scaled, periodic=self.periodic,
                                         tap=tap, level=self.false_alarm)
@@ -179,7 +179,7 @@ class Session:
                 full = float(decimator.full_power[link, tap])
                 if not full > 0:
                     continue
-                kept = float(np.mean(np.abs(decimated[tap, link]) ** 2))
+                kept = estimators.mean_power(decimated[tap, link])
                 value = (full - kept) / full
                 label = "" if self.n_links == 1 else f" [{self.link_label(link)}]"
                 name = prefix + "power_beyond_record_band" + label

@@ -14,7 +14,7 @@ import dataclasses
 
 import numpy as np
 
-from emucompile.verify import decimate, tolerance
+from emucompile.verify import decimate, estimators, scratch, tolerance
 
 
 def mimo_checks(session, decimated):
@@ -43,14 +43,23 @@ def mimo_checks(session, decimated):
 
 
 def diffuse_links(session, links, tap):
-    """The links' records minus the (decimated) direct part, which is deterministic."""
+    """The links' records minus the (decimated) direct part, which is deterministic.
+
+    (n_links, m) complex128, made block by block (a long one in a mapped
+    temporary file, :func:`emucompile.verify.scratch.empty`); the links as they are without a direct part.
+    """
     model = session.models[tap]
     if not (model.k_linear and model.k_linear > 0):
         return links
     if session.direct is None:
         session.direct = session.decimator.run(decimate.ComponentsDirect(session.components), session.n_links,
                                                 len(session.models), None)
-    return links - session.direct[tap]
+    direct = session.direct[tap]
+    out = scratch.empty(links.shape, np.complex128)
+    for start in range(0, links.shape[-1], estimators.BLOCK):
+        part = slice(start, start + estimators.BLOCK)
+        np.subtract(links[:, part], direct[:, part], out=out[:, part], dtype=np.complex128)
+    return out
 
 
 def mimo_section(session, link_records):
@@ -61,8 +70,12 @@ def mimo_section(session, link_records):
     for tap, model in session.models.items():
         if model is None or model.spectrum is None or tap not in link_records:
             continue
-        diffuse = np.asarray(diffuse_links(session, np.asarray(link_records[tap]).T, tap), dtype=np.complex128)
-        gram = diffuse @ diffuse.conj().T / diffuse.shape[1]
+        diffuse = diffuse_links(session, np.asarray(link_records[tap]).T, tap)
+        gram = np.zeros((diffuse.shape[0],) * 2, np.complex128)
+        for start in range(0, diffuse.shape[1], estimators.BLOCK):
+            block = diffuse[:, start:start + estimators.BLOCK].astype(np.complex128)
+            gram += block @ block.conj().T
+        gram /= diffuse.shape[1]
         scale = np.sqrt(np.maximum(np.real(np.diag(gram)), 1e-300))
         taps[tap] = {"expected": np.asarray(session.components.expected_correlation(tap)),
                      "achieved": gram / np.outer(scale, scale)}

@@ -20,6 +20,7 @@ from scipy import fft, signal
 
 from emucompile.bundle import quantised
 from emucompile.models.mimo import links_from_gains
+from emucompile.verify import scratch
 
 RECORD_RATE_FACTOR = 8.0
 """The decimated record's rate is at least this multiple of the largest frequency in the gains."""
@@ -96,14 +97,17 @@ class Decimator:
         return complex(np.sum(self.h * np.exp(-2j * np.pi * frequency_hz * k / self.update_rate_hz)))
 
     def run(self, source, n_links, n_taps, progress):
-        """Decimated records of a source: complex128 (n_taps, n_links, n_out), each record contiguous.
+        """Decimated records of a source: complex64 (n_taps, n_links, n_out), each record contiguous.
+
+        The decimator's sums are complex64, so the records hold them exactly; a
+        long run's records live in a mapped temporary file (:mod:`emucompile.verify.scratch`).
 
         Also sets :attr:`full_power`, mean |x|^2 per link and tap over the
         input samples the outputs stand for (output m for [m q - q/2, m q + q/2)),
         at the full rate: the power the band-limited copy would lack is
         ``full_power - mean |y|^2``.
         """
-        out = np.empty((n_taps, n_links, self.n_out), dtype=np.complex128)
+        out = scratch.empty((n_taps, n_links, self.n_out), np.complex64)
         power = np.zeros((n_links, n_taps))
         q = self.q
         rows = max(16 * q, SEGMENT_BYTES // (8 * max(1, n_links * n_taps)))

@@ -4,6 +4,14 @@ Every function takes a 1-D complex record ``g`` sampled at ``rate_hz`` and
 returns plain numbers or arrays; nothing here knows what is expected (that is
 :mod:`emucompile.verify.tolerance`). All work in float64 whatever the input dtype.
 
+Memory: a record may be far larger than the memory verify may use (a long
+run's records are mapped files, :mod:`emucompile.verify.scratch`), so every
+pass over a whole record reads it in blocks of :data:`BLOCK` samples, each
+widened to complex128 (exact for complex64 records) as it is read; nothing
+holds a whole-record temporary. A statistic summed over blocks is the same
+statistic (the blocks' partial sums differ from one whole-array sum only in
+rounding); the KS distance's counts and ranks are exact integers.
+
 References
 ----------
 .. [Greenstein1999] L. J. Greenstein, D. G. Michelson, V. Erceg, "Moment-method
@@ -23,11 +31,23 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import signal, stats
 
+from emucompile.verify import scratch
+
+
+BLOCK = 1 << 16
+"""Record samples per block of the passes over a whole record (1 MiB of complex128)."""
+
+
+def blocks(g, size=BLOCK):
+    """``(start, g[start:start + size] as complex128)`` over a 1-D record, block by block."""
+    for start in range(0, g.size, size):
+        yield start, g[start:start + size].astype(np.complex128)
+
 
 def mean_power(g) -> float:
     """Sample mean power mean(|g|^2)."""
     g = _record(g)
-    return float(np.vdot(g, g).real) / g.size
+    return sum(float(np.vdot(b, b).real) for _, b in blocks(g)) / g.size
 
 
 def k_factor_moments(g) -> float:
@@ -38,9 +58,13 @@ def k_factor_moments(g) -> float:
     G_v >= G_a (the sample looks at least as spread as Rayleigh).
     """
     g = _record(g)
-    p = g.real**2 + g.imag**2
-    ga = float(np.mean(p))
-    gv2 = float(np.mean(p * p)) - ga * ga
+    s1 = s2 = 0.0
+    for _, b in blocks(g):
+        p = b.real**2 + b.imag**2
+        s1 += float(np.sum(p))
+        s2 += float(np.dot(p, p))
+    ga = s1 / g.size
+    gv2 = s2 / g.size - ga * ga
     d = ga * ga - gv2
     if d <= 0:
         return 0.0
@@ -58,9 +82,12 @@ def envelope_ks_distance(g, distribution) -> float:
     for these smooth laws, far below any KS distance a record can resolve; a
     test checks it against ``scipy.stats.kstest``).
 
-    Exact, in O(n) (no sort of the record): |g|^2 is counted into
-    :data:`KS_BINS` equal bins (the bin of a value is monotone in the value,
-    so the counts give every sample's rank up to its place inside its bin).
+    Exact, in O(n) (no sort of the record), in three passes over it in blocks:
+    the largest |g|, then |g| counted into :data:`KS_BINS` equal bins (the bin
+    of a value is monotone in the value, so the counts give every sample's
+    rank up to its place inside its bin; bins of |g|, not |g|^2: near 0 a bin
+    of |g|^2 spans far more probability, and far more bins would need sorting),
+    then the samples of the few bins that matter.
     Inside bin j, whose samples lie between edges e_j and e_j+1, F lies
     between F(e_j) and F(e_j+1): the counts give a lower and an upper bound
     of the bin's largest deviation; the distance is the largest lower bound
@@ -68,47 +95,89 @@ def envelope_ks_distance(g, distribution) -> float:
     (about a hundred bins) are sorted and evaluated as the sort-based statistic
     evaluates them. The result is the sort-based statistic (same ranks, same
     interpolated F; a test checks them equal to 1e-12), so its calibration is
-    unchanged.
+    unchanged. Memory: the counts (4 bytes a bin), the bins' bounds a chunk at
+    a time, and the chosen samples (see :data:`KS_BINS`).
     """
     g = _record(g)
-    p = np.abs(g)
-    np.multiply(p, p, out=p)  # |g|^2, in the order of |g|
-    n = p.size
-    top = float(p.max())
+    n = g.size
+    top_r = float(np.max([r.max() for r in _envelopes(g)]))  # NaN if any sample is
+    top = top_r * top_r  # the largest |g|^2 (squaring is monotone)
     grid = np.linspace(0.0, math.sqrt(top), 8193)
     grid_p, grid_f = grid * grid, distribution.cdf(grid)
     bins = min(KS_BINS, n // 4)
-    if bins < 2 or not top > 0 or not math.isfinite(top):
-        return _ks_of_sorted(np.sort(p), grid_p, grid_f)
-    index = p * (bins / top)  # monotone in p: bins keep the samples' order
-    index = index.astype(np.int32)
-    np.minimum(index, bins - 1, out=index)
-    counts = np.bincount(index, minlength=bins)
-    before = np.concatenate([[0], np.cumsum(counts)[:-1]])  # samples in the bins below
-    f_edge = np.interp(np.arange(bins + 1) * (top / bins), grid_p, grid_f)
-    # d_i = F(x_i) - rank_i / n (rank from 0); the statistic is max(max d, 1/n - min d)
-    occupied = counts > 0
-    low = np.maximum(f_edge[:-1] - before / n, (before + counts) / n - f_edge[1:])
-    high = np.maximum(f_edge[1:] - before / n, (before + counts) / n - f_edge[:-1])
-    floor = float(np.max(low[occupied]))
-    # a slack far above the rounding of the edges (a value on an edge may fall in the bin below)
-    candidate = occupied & (high >= floor - 1e-9)
-    chosen = np.flatnonzero(candidate[index])
-    values, where = p[chosen], index[chosen]
+    if bins < 2 or not top > 0 or not math.isfinite(top):  # a short or degenerate record (all zero, or not finite)
+        return _ks_of_sorted(np.sort(np.concatenate([r * r for r in _envelopes(g)])), grid_p, grid_f)
+
+    def bin_of(r):  # bins of equal width in |g|, monotone in |g|^2: the bins keep the samples' order
+        index = r * (bins / top_r)
+        index = index.astype(np.int32)
+        np.minimum(index, bins - 1, out=index)
+        return index
+
+    counts = np.zeros(bins, np.int32)  # a record holds fewer than 2^31 samples
+    for r in _envelopes(g):
+        counts += np.bincount(bin_of(r), minlength=bins).astype(np.int32)
+
+    def bounds(c0, c1, below):
+        """Bins c0..c1-1: samples below each, and the lower and upper bounds of its largest deviation."""
+        c = counts[c0:c1].astype(np.int64)
+        before = below + np.cumsum(c) - c  # samples in the bins below
+        edge = np.arange(c0, c1 + 1) * (top_r / bins)
+        f_edge = np.interp(edge * edge, grid_p, grid_f)
+        # d_i = F(x_i) - rank_i / n (rank from 0); the statistic is max(max d, 1/n - min d)
+        low = np.maximum(f_edge[:-1] - before / n, (before + c) / n - f_edge[1:])
+        high = np.maximum(f_edge[1:] - before / n, (before + c) / n - f_edge[:-1])
+        return c, before, low, high
+
+    # two sweeps over the bins in chunks (bounded memory): the largest lower bound, then the bins above it
+    floor, below = -math.inf, 0
+    for c0 in range(0, bins, _KS_CHUNK):
+        c, before, low, _ = bounds(c0, min(bins, c0 + _KS_CHUNK), below)
+        if (c > 0).any():
+            floor = max(floor, float(np.max(low[c > 0])))
+        below += int(c.sum())
+    candidate = np.zeros(bins, bool)
+    chosen_bins, chosen_before, below = [], [], 0
+    for c0 in range(0, bins, _KS_CHUNK):
+        c, before, _, high = bounds(c0, min(bins, c0 + _KS_CHUNK), below)
+        # a slack far above the rounding of the edges (a value on an edge may fall in the bin below)
+        keep = np.flatnonzero((c > 0) & (high >= floor - 1e-9))
+        candidate[c0 + keep] = True
+        chosen_bins.append(c0 + keep)
+        chosen_before.append(before[keep])
+        below += int(c.sum())
+    chosen_bins, chosen_before = np.concatenate(chosen_bins), np.concatenate(chosen_before)
+    values, where = [], []  # the candidate bins' samples, in the record's order
+    for r in _envelopes(g):
+        index = bin_of(r)
+        chosen = np.flatnonzero(candidate[index])
+        values.append(np.square(r[chosen]))
+        where.append(index[chosen])
+    values, where = np.concatenate(values), np.concatenate(where)
     order = np.lexsort((values, where))
     values, where = values[order], where[order]
     first = np.searchsorted(where, where, side="left")
-    ranks = before[where] + (np.arange(where.size) - first)
+    ranks = chosen_before[np.searchsorted(chosen_bins, where)] + (np.arange(where.size) - first)
     d = np.interp(values, grid_p, grid_f)
     d -= ranks.astype(np.float64) * (1.0 / n)
     return float(max(np.max(d), 1.0 / n - np.min(d)))
 
 
-KS_BINS = 1 << 20
-"""Most bins of |g|^2 :func:`envelope_ks_distance` counts into (n / 4 for shorter records): fine enough that
-only the bins near the largest deviation need their samples sorted (Rayleigh records of 1.25e6 and 1.25e7
-samples: 122 and 110 bins, 0.4 % and 0.14 % of the samples; 25 ms and 0.23 s, against 0.1 s and 1.4 s for
-the sort of the whole record; 2^18 and 2^22 bins were slower at 1.25e7)."""
+_KS_CHUNK = 1 << 16  # bins per chunk of the sweeps over the bins
+
+
+def _envelopes(g):
+    """|g| block by block (float64; its square is the |g|^2 the statistic ranks)."""
+    for _, b in blocks(g):
+        yield np.abs(b)
+
+
+KS_BINS = 1 << 19
+"""Most bins of |g| :func:`envelope_ks_distance` counts into (n / 4 for shorter records): fine enough that
+only the bins near the largest deviation need their samples sorted, few enough that the counts stay small.
+Rayleigh records of 8.3e6 and 2.5e7 samples (benchmark machine, min of 3): 0.13 and 0.39 s, 9.7 MiB traced
+at most for both; 2^20 bins: 0.19 and 0.57 s, 17.7 MiB; 2^18: 0.10 and 0.36 s but 8.3 and 19.7 MiB (at a
+fixed number of bins, the samples of the bins that matter grow with n); a sort: 1.4 s and 130 MiB at 1.25e7."""
 
 
 def _ks_of_sorted(p, grid_p, grid_f):
@@ -125,16 +194,25 @@ def remove_direct(g, rate_hz: float, los_doppler_hz: float):
     """Split off the direct component A exp(j 2 pi f_los t) of known Doppler.
 
     Returns ``(diffuse, amplitude)`` with ``amplitude`` = mean(g exp(-j 2 pi f_los t))
-    (the least-squares fit of the line) and ``diffuse = g - line``.
+    (the least-squares fit of the line) and ``diffuse = g - line`` (complex128;
+    a long one in a mapped temporary file, :func:`emucompile.verify.scratch.empty`).
+    Two passes over ``g`` in blocks.
     """
     g = _record(g)
-    n = np.arange(g.size)
-    if los_doppler_hz == 0:
-        a = complex(np.mean(g))
-        return g - a, a
-    rot = np.exp(2j * np.pi * (los_doppler_hz / rate_hz) * n)
-    a = complex(np.mean(g * rot.conj()))
-    return g - a * rot, a
+    step = los_doppler_hz / rate_hz
+
+    def line(start, count):
+        return np.exp(2j * np.pi * step * np.arange(start, start + count)) if step else 1.0
+
+    total = 0j
+    for start, b in blocks(g):
+        total += complex(np.sum(b * np.conj(line(start, b.size)) if step else b))
+    a = total / g.size
+    out = scratch.empty(g.size, np.complex128)
+    for start, b in blocks(g):
+        b -= a * line(start, b.size)
+        out[start:start + b.size] = b
+    return out, a
 
 
 def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
@@ -152,10 +230,10 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
     # Blocks of B samples against the same samples followed by the next n_lags (zero-padded
     # past the end, or wrapped when periodic): sum_b sum_{i<B} y_b[i+k] x_b*[i] is the sum
     # above, term for term; FFTs of length ~B + n_lags instead of ~2N (equal to rounding).
-    tail = g[:n_lags] if periodic else np.zeros(n_lags, g.dtype)
-    ext = np.concatenate([g, tail])
-    if n_lags <= _ACF_DIRECT_LAGS:  # few lags: the sums themselves
-        total = lagged_sums(g, ext, n_lags)
+    if n_lags <= _ACF_DIRECT_LAGS:  # few lags: the sums themselves, a cache-sized block at a time
+        total = np.zeros(n_lags, np.complex128)
+        for s, x in blocks(g, _LAG_BLOCK_BYTES // 16):
+            total += lagged_sums(x, _extended(g, s, s + x.size, n_lags, periodic), n_lags)
         return total / n if periodic else total / (n - np.arange(n_lags))
     block = max(_ACF_BLOCK, 4 * n_lags)
     batch = max(1, _ACF_BATCH * _ACF_BLOCK // block)  # bounded memory
@@ -169,15 +247,26 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
         for i, b in enumerate(range(b0, b1)):
             s, e = b * block, min(n, (b + 1) * block)
             x[i, : e - s] = g[s:e]
-            y[i, : e - s + n_lags] = ext[s : e + n_lags]
+            y[i, : e - s + n_lags] = _extended(g, s, e, n_lags, periodic)
         total += np.sum(sp_fft.fft(y, axis=1, overwrite_x=True) * sp_fft.fft(x, axis=1, overwrite_x=True).conj(),
                         axis=0)
     r = sp_fft.ifft(total)[:n_lags]
     return r / n if periodic else r / (n - np.arange(n_lags))
 
 
+def _extended(g, start, stop, n_lags, periodic):
+    """g[start:stop + n_lags] as complex128: zeros past the record's end, or its start again when periodic."""
+    n = g.size
+    out = np.zeros(stop - start + n_lags, np.complex128)
+    end = min(n, stop + n_lags)
+    out[: end - start] = g[start:end]
+    if periodic and stop + n_lags > n:
+        out[n - start:] = g[: stop + n_lags - n]
+    return out
+
+
 _ACF_BLOCK = 1 << 14
-_ACF_BATCH = 64
+_ACF_BATCH = 8  # blocks per FFT batch: 8.3e6 samples, 200 lags: 0.17 s and 6.6 MiB traced; 64: 0.24 s and 49 MiB
 _ACF_DIRECT_LAGS = 40  # below ~50 lags the direct sums beat the FFTs (benchmarks/bench_verify.py machine)
 
 
@@ -271,36 +360,68 @@ def power_upsampled(g, factor: int, band_fraction: float, *, periodic: bool = Fa
     (periodic sinc) interpolation of the whole record, which rings near both ends
     of an aperiodic record. Every input sample is kept (phase 0 is g itself).
     """
-    g = _record(g)
+    g = _record(g).astype(np.complex128, copy=False)  # callers bound its length (MAX_CROSSING_PERIODS)
     factor = int(factor)
     if factor <= 1:
         return (g.real**2 + g.imag**2).astype(np.float32)
     design = _interpolator(factor, float(band_fraction))
     if design is None:
         return _fft_interpolated(g, factor)
-    reach, phases = design
+    out = np.empty(g.size * factor, np.float32)
+    position = 0
+    for part in power_upsampled_blocks(g, factor, band_fraction, periodic=periodic):
+        out[position:position + part.size] = part
+        position += part.size
+    return out
+
+
+def power_upsampled_blocks(g, factor: int, band_fraction: float, *, periodic: bool = False, start: int = 0,
+                           stop: int | None = None):
+    """:func:`power_upsampled`'s values for record samples ``start`` .. ``stop`` - 1, block by block.
+
+    Yields consecutive float32 pieces of ``power_upsampled(g, ...)[start * factor:stop * factor]``
+    (the same numbers): with the local interpolator, blocks of
+    ``_INTERPOLATOR_BLOCK`` record samples, each computed from the record
+    around it alone (memory bounded by the block); otherwise the whole range at once.
+    """
+    g = _record(g)
     n = g.size
-    if periodic:
-        padded = g[np.arange(-reach, n + reach) % n]
-    else:
-        padded = np.concatenate([np.zeros(reach, g.dtype), g, np.zeros(reach, g.dtype)])
+    stop = n if stop is None else int(stop)
+    factor = int(factor)
+    design = _interpolator(factor, float(band_fraction)) if factor > 1 else None
+    if design is None:  # |g|^2 itself, or the FFT interpolation of the whole record
+        step = max(factor, 1)
+        yield power_upsampled(g, factor, band_fraction, periodic=periodic)[start * step: stop * step]
+        return
+    reach, phases = design
     width = 2 * reach + 1
-    parts = (padded.real.astype(np.float32), padded.imag.astype(np.float32))
     shifted = np.empty((2, width, _INTERPOLATOR_BLOCK), np.float32)
-    out = np.empty((n, factor), np.float32)
-    for s in range(0, n, _INTERPOLATOR_BLOCK):  # cache-sized blocks
-        e = min(n, s + _INTERPOLATOR_BLOCK)
+    for s in range(start, stop, _INTERPOLATOR_BLOCK):  # cache-sized blocks
+        e = min(stop, s + _INTERPOLATOR_BLOCK)
         m = e - s
+        window = _window(g, s - reach, e + reach, periodic)  # zeros beyond an aperiodic record's ends
+        parts = (window.real.astype(np.float32), window.imag.astype(np.float32))
         for i in range(width):  # row i: the record shifted by i - reach (contiguous copies)
-            shifted[0, i, :m] = parts[0][s + i : e + i]
-            shifted[1, i, :m] = parts[1][s + i : e + i]
+            shifted[0, i, :m] = parts[0][i: i + m]
+            shifted[1, i, :m] = parts[1][i: i + m]
         re = phases @ shifted[0, :, :m]  # (factor, m): every phase of every output in the block
         im = phases @ shifted[1, :, :m]
         np.multiply(re, re, out=re)
         np.multiply(im, im, out=im)
         re += im
-        out[s:e] = re.T
-    return out.reshape(-1)
+        yield re.T.reshape(-1)
+
+
+def _window(g, a, b, periodic):
+    """g[a:b] as complex128, indices taken modulo the length when periodic, else zeros outside the record."""
+    n = g.size
+    if periodic:
+        return g[np.arange(a, b) % n].astype(np.complex128)
+    out = np.zeros(b - a, np.complex128)
+    lo, hi = max(a, 0), min(b, n)
+    if hi > lo:
+        out[lo - a: hi - a] = g[lo:hi]
+    return out
 
 
 def interpolator_reach(factor: int, band_fraction: float) -> int:
@@ -381,8 +502,11 @@ def upward_crossing_counts(samples, levels) -> np.ndarray:
 def envelope_cdf(g, levels) -> np.ndarray:
     """Empirical P(|g| < level) at each level (the distribution :func:`envelope_ks_distance` measures)."""
     g = _record(g)
-    power = np.sort(g.real**2 + g.imag**2)
-    return np.searchsorted(power, np.square(np.asarray(levels, dtype=float)), side="left") / power.size
+    squared = np.square(np.asarray(levels, dtype=float))
+    below = np.zeros(squared.shape, np.int64)
+    for _, b in blocks(g):  # counts below each level, block by block (exact)
+        below += np.searchsorted(np.sort(b.real**2 + b.imag**2), squared, side="left")
+    return below / g.size
 
 
 def crossing_statistics(envelope, rate_hz: float, levels):
@@ -405,25 +529,25 @@ def crossing_statistics(envelope, rate_hz: float, levels):
 def circular_moments(g, orders=(1, 2)) -> np.ndarray:
     """Circular moments mean(exp(j m theta)) of the phase theta of g, for each order m."""
     g = _record(g)
-    a = np.abs(g)
-    a[a == 0] = np.inf  # a zero sample has no phase: it contributes 0
-    np.divide(1.0, a, out=a)
-    u = g * a  # exp(j theta)
-    n = g.size
-    out = []
-    for m in orders:
-        if m == 1:
-            out.append(u.sum() / n)
-        elif m == 2:
-            out.append(np.dot(u, u) / n)  # sum u^2, unconjugated
-        else:
-            out.append(np.mean(u**m))
-    return np.array(out)
+    total = np.zeros(len(orders), np.complex128)
+    for _, b in blocks(g):
+        a = np.abs(b)
+        a[a == 0] = np.inf  # a zero sample has no phase: it contributes 0
+        np.divide(1.0, a, out=a)
+        u = b * a  # exp(j theta)
+        for i, m in enumerate(orders):
+            if m == 1:
+                total[i] += u.sum()
+            elif m == 2:
+                total[i] += np.dot(u, u)  # sum u^2, unconjugated
+            else:
+                total[i] += np.sum(u**m)
+    return total / g.size
 
 
 def phase_ks_distance(g) -> float:
     """KS distance of the phase angle(g) against the uniform law on [-pi, pi)."""
-    g = _record(g)
+    g = _record(g).astype(np.complex128, copy=False)
     return float(stats.kstest(np.angle(g), stats.uniform(loc=-np.pi, scale=2 * np.pi).cdf).statistic)
 
 
@@ -433,17 +557,27 @@ def correlation_coefficient(a, b) -> complex:
     b = _record(b)
     if a.size != b.size:
         raise ValueError(f"records differ in length: {a.size} and {b.size}")
-    den = math.sqrt(float(np.vdot(a, a).real) * float(np.vdot(b, b).real))
+    aa = bb = 0.0
+    ba = 0j
+    for start, x in blocks(a):
+        y = b[start:start + x.size].astype(np.complex128)
+        aa += float(np.vdot(x, x).real)
+        bb += float(np.vdot(y, y).real)
+        ba += complex(np.vdot(y, x))
+    den = math.sqrt(aa * bb)
     if den == 0:
         return complex("nan")
-    return complex(np.vdot(b, a)) / den
+    return ba / den
 
 
 def _record(g) -> np.ndarray:
+    """A 1-D complex record as it is (complex64 or complex128, a mapped file's too); other dtypes as complex128."""
     g = np.asarray(g)
     if g.ndim != 1:
         raise ValueError(f"a record must be 1-D, got shape {g.shape}")
-    return g.astype(np.complex128, copy=False)
+    if g.dtype in (np.complex64, np.complex128):
+        return g
+    return g.astype(np.complex128)
 
 
 def _fast_len(n: int) -> int:

@@ -60,8 +60,9 @@ Result fields (the contract with :mod:`emucompile.report.figures` and :mod:`emuc
     Rate of the gains as stored.
 ``duration_s`` : float
 ``records`` : dict[int, numpy.ndarray]
-    Tap index -> decimated complex128 1-D record of link 0 (shadowing removed
-    when the bundle has shadowing and the components are available).
+    Tap index -> decimated complex64 1-D record of link 0 (shadowing removed
+    when the bundle has shadowing and the components are available); a long
+    run's records are views of a mapped temporary file (:mod:`emucompile.verify.scratch`).
 ``link_records`` : dict[int, numpy.ndarray] or None
     MIMO only: tap index -> (m, n_links) decimated records of every link.
 ``record_rate_hz`` : float
@@ -267,9 +268,12 @@ def verify_bundle(path, *, false_alarm: float = DEFAULT_FALSE_ALARM, delivered: 
     (decimation, O(N_h / q) per sample with an N_h-tap filter) reading just
     behind the hash (:class:`HashFront`: the file comes from disk once), then the
     statistics on records q times shorter. Memory: nothing of the gains file
-    stays resident (rows read with ``preadv``); the decimated records (complex128,
-    16 bytes per q input samples and tap) and each check thread's temporaries
-    over one record grow with the duration.
+    stays resident (rows read with ``preadv``); the decimated records (complex64,
+    8 bytes per q input samples, tap and link) and the checks' copies of a record
+    (a Rician tap's diffuse part, complex128) of a long run are kept in mapped
+    temporary files (``TMPDIR``), and every pass over a record works in blocks,
+    so the memory verify holds does not grow with the duration; the null sums
+    are computed lag block by lag block.
     """
     began = time.perf_counter()
     false_alarm = _check_false_alarm(false_alarm)

@@ -284,7 +284,7 @@ def _psd_numbers(s, rate, spectrum):
     out = {"segments": n_seg, "nperseg": nperseg, "nu": n_seg / (1.0 + 2.0 * HANN_OVERLAP_CORRELATION**2),
            "enough": n_seg >= PSD_MIN_SEGMENTS}
     f, p_hat = estimators.welch_psd(s, rate, nperseg)
-    power = float(np.mean(s.real**2 + s.imag**2))
+    power = estimators.mean_power(s)
     expected = nulls.expected_welch(spectrum, rate, nperseg)
     keep = (expected >= PSD_MIN_RELATIVE * expected.max()) & (np.abs(f) <= fd)
     out.update(frequency_hz=f, measured=p_hat / power, expected=expected, judged=keep, psd=p_hat, power=power)
@@ -354,11 +354,10 @@ def _check_crossings(ctx):
     if not use.any():
         why = f"not enough data: fewer than {MIN_EXPECTED_CROSSINGS:g} expected crossings at every level"
         return [na(n, ctx.tap, why, ctx.level) for n in names]
-    power = plan.power()
     duration = kept / ctx.rate
     levels, rho, n_exp = levels[use], rho[use], n_exp[use]
-    counts = estimators.upward_crossing_counts(power, levels * levels)
-    below = np.array([np.count_nonzero(power[: kept * up] < np.float32(lv * lv)) / (kept * up) for lv in levels])
+    counts, below = plan.tally(levels * levels)
+    below = below / (kept * up)
     rate_hat = counts / duration
     m = int(use.sum())
     common = {"levels_rho": rho.tolist(), "quantiles": [q for q, u in zip(CROSSING_QUANTILES, use) if u],
@@ -411,12 +410,31 @@ class _CrossingPlan:
         self.kept = g.size - 2 * self.trim
         self.duration_s = self.kept / rate
 
-    def power(self):
-        """|g|^2 on the dense grid (float32), compared with level^2 by the counts."""
-        power = estimators.power_upsampled(self.g, self.up, self.band, periodic=self.periodic)
-        if self.periodic:
-            return np.concatenate([power, power[:1]])  # the crossing across the wrap counts
-        return power[self.trim * self.up: power.size - self.trim * self.up]
+    def tally(self, squared_levels):
+        """Upward crossings of each level^2 by |g|^2 on the dense grid (float32), and its samples below each.
+
+        The dense |g|^2 is made and counted block by block
+        (:func:`emucompile.verify.estimators.power_upsampled_blocks`), each
+        block's count starting from the previous block's last sample (and, for
+        a periodic record, the last sample's step to the first: the crossing
+        across the wrap counts), so the memory is one block's.
+        """
+        levels = np.asarray(squared_levels, dtype=np.float32)
+        counts, below = np.zeros(levels.shape), np.zeros(levels.shape)
+        first = last = None
+        for part in estimators.power_upsampled_blocks(self.g, self.up, self.band, periodic=self.periodic,
+                                                      start=self.trim, stop=self.g.size - self.trim):
+            if levels.size <= estimators.DIRECT_CROSSING_LEVELS:
+                below += [np.count_nonzero(part < level) for level in levels.ravel()]
+            else:
+                below += np.searchsorted(np.sort(part), levels, side="left")
+            steps = part if last is None else np.concatenate([last, part])
+            counts += estimators.upward_crossing_counts(steps, levels)
+            first = part[:1] if first is None else first
+            last = part[-1:]
+        if self.periodic and last is not None:
+            counts += estimators.upward_crossing_counts(np.concatenate([last, first]), levels)
+        return counts, below
 
 
 def crossing_rates(g, rate_hz, model: TapModel, levels_rho, *, periodic=False):
@@ -425,7 +443,7 @@ def crossing_rates(g, rate_hz, model: TapModel, levels_rho, *, periodic=False):
     g = estimators._record(g)
     plan = _CrossingPlan(g, float(rate_hz), model, bool(periodic))
     levels = np.asarray(levels_rho, dtype=float) * math.sqrt(model.mean_power)
-    return estimators.upward_crossing_counts(plan.power(), levels * levels) / plan.duration_s, plan.duration_s
+    return plan.tally(levels * levels)[0] / plan.duration_s, plan.duration_s
 
 
 def _check_phase(ctx):

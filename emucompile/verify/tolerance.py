@@ -232,7 +232,7 @@ def correlation_matrix(records, rate_hz, models) -> np.ndarray:
         raise ValueError("records differ in length")
     gram = np.zeros((len(parts), len(parts)), np.complex128)
     for start in range(0, n, _GRAM_BLOCK):
-        block = np.stack([d[start:start + _GRAM_BLOCK] for d in parts])
+        block = np.stack([d[start:start + _GRAM_BLOCK] for d in parts]).astype(np.complex128, copy=False)
         gram += block @ block.conj().T
     norm = np.sqrt(np.real(np.diag(gram)))
     with np.errstate(divide="ignore", invalid="ignore"):
