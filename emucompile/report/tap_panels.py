@@ -45,17 +45,17 @@ class TapData:
         self.mean_power = float(model.mean_power)
         self.rms = math.sqrt(self.mean_power)
         self.edge_hz = max(self.spectrum.band_edge_hz, abs(self.los_hz))
-        self._fine = None
 
-    def fine(self):
-        """The first samples of g / R_rms, upsampled (band-limited), and their rate."""
-        if self._fine is None:
-            factor = max(1, min(8, math.ceil(_LCR_OVERSAMPLE_HZ * self.edge_hz / self.rate_hz)))
-            x = self.x[:_MAX_STRETCH_RECORD].astype(np.complex128)
-            if factor > 1:
-                x = signal.resample_poly(x, factor, 1)
-            self._fine = (x / self.rms, self.rate_hz * factor)
-        return self._fine
+    def fine(self, duration_s):
+        """The first ``duration_s`` of g / R_rms (at most :data:`_MAX_STRETCH_RECORD` record samples),
+        upsampled (band-limited), and their rate; only what is drawn is made."""
+        factor = max(1, min(8, math.ceil(_LCR_OVERSAMPLE_HZ * self.edge_hz / self.rate_hz)))
+        # past the stretch, the interpolator's reach (resample_poly: 10 input samples each side) and some
+        count = min(_MAX_STRETCH_RECORD, int(math.ceil(duration_s * self.rate_hz)) + 64)
+        x = self.x[:count].astype(np.complex128)
+        if factor > 1:
+            x = signal.resample_poly(x, factor, 1)
+        return x / self.rms, self.rate_hz * factor
 
 
 def _draw_cdf(ax, taps, colors):
@@ -216,7 +216,7 @@ def draw_envelope(ax, taps, colors):
     fastest = max(tap.edge_hz for tap in taps)
     stretches = []
     for tap in taps:
-        gains, fine_rate = tap.fine()
+        gains, fine_rate = tap.fine(STRETCH_PERIODS / fastest)
         n = min(len(gains), max(2, int(STRETCH_PERIODS / fastest * fine_rate)))
         stretches.append((gains[:n], fine_rate))
     end_s = min((len(g) - 1) / rate for g, rate in stretches)
