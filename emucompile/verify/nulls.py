@@ -54,13 +54,29 @@ def lags_head(spectrum, rate_hz, n, periodic, count):
     return r
 
 
+def prepare_task(spectrum, rate_hz, n, periodic, n_lags, pd, a2, los_doppler_hz, phase):
+    """:func:`prepare` of these arguments as a zero-argument callable, its sums announced now.
+
+    Whichever task of the same spectrum, rate, length and mode runs first
+    computes the sums every task announced so far in its one pass over the
+    lags (a Rician and a Rayleigh tap of one spectrum: one pass, not two).
+    """
+    entry = _entry(spectrum, rate_hz, n, periodic)
+    with entry.lock:
+        entry.wanted_corr.add(_corr_count(n_lags))
+        entry.wanted_omegas.update(_omegas(rate_hz, a2, los_doppler_hz))
+        entry.wanted_phase = entry.wanted_phase or bool(phase)
+    return functools.partial(prepare, spectrum, rate_hz, n, periodic, n_lags, pd, a2, los_doppler_hz, phase)
+
+
 def prepare(spectrum, rate_hz, n, periodic, n_lags, pd, a2, los_doppler_hz, phase):
     """Compute, in one pass over the lags, and cache every null sum of one tap's checks.
 
     Fills the caches of :func:`bartlett_sums` (``n_lags``),
     :func:`power_covariance_sum` (``pd``, ``a2``, ``los_doppler_hz``),
     :func:`phase_variances` (when ``phase``) and :func:`lags_head` (``n_lags``),
-    which alone would each evaluate r(k) over every lag again.
+    which alone would each evaluate r(k) over every lag again (and the sums
+    other taps announced with :func:`prepare_task`).
     """
     _sums(spectrum, rate_hz, n, periodic, n_corr=_corr_count(n_lags), omegas=_omegas(rate_hz, a2, los_doppler_hz),
           phase=phase)
@@ -150,6 +166,7 @@ class _Sums:
         self.corr = {}  # n_corr -> c(k), k < n_corr
         self.cos = {}  # omega -> sum_k w_k r_k cos(omega k)
         self.phase = None  # (sum w E1, sum w E2)
+        self.wanted_corr, self.wanted_omegas, self.wanted_phase = set(), set(), False  # announced by prepare_task
 
 
 _SUMS: OrderedDict = OrderedDict()
@@ -157,8 +174,7 @@ _SUMS_LOCK = threading.Lock()
 _SUMS_KEPT = 32  # (spectrum, rate, length, mode) entries; each holds a few lag-count-long arrays
 
 
-def _sums(spectrum, rate_hz, n, periodic, *, n_corr=None, omegas=(), phase=False) -> _Sums:
-    """The entry of (spectrum, rate, length, mode), with whatever is asked computed in one pass where missing."""
+def _entry(spectrum, rate_hz, n, periodic) -> _Sums:
     key = (spectrum, float(rate_hz), int(n), bool(periodic))
     with _SUMS_LOCK:
         entry = _SUMS.get(key)
@@ -167,11 +183,24 @@ def _sums(spectrum, rate_hz, n, periodic, *, n_corr=None, omegas=(), phase=False
             while len(_SUMS) > _SUMS_KEPT:
                 _SUMS.popitem(last=False)
         _SUMS.move_to_end(key)
+    return entry
+
+
+def _sums(spectrum, rate_hz, n, periodic, *, n_corr=None, omegas=(), phase=False) -> _Sums:
+    """The entry of (spectrum, rate, length, mode), with whatever is asked computed in one pass where missing.
+
+    A pass computes what was announced for the entry (:func:`prepare_task`) along with what is asked.
+    """
+    entry = _entry(spectrum, rate_hz, n, periodic)
     with entry.lock:  # a second caller of the same entry waits, then finds its sums
         n_corr = None if n_corr is None or n_corr in entry.corr else n_corr
         omegas = tuple(w for w in omegas if w not in entry.cos)
         phase = phase and entry.phase is None
         if entry.s0 is None or n_corr is not None or omegas or phase:
+            omegas += tuple(sorted(entry.wanted_omegas - set(omegas) - set(entry.cos)))
+            phase = phase or (entry.wanted_phase and entry.phase is None)
+            if n_corr is None:
+                n_corr = min(entry.wanted_corr - set(entry.corr), default=None)
             s0, corr, cos, phase_sums = _pass(spectrum, float(rate_hz), int(n), bool(periodic), n_corr, omegas, phase)
             entry.s0 = s0 if entry.s0 is None else entry.s0
             if corr is not None:
@@ -421,6 +450,6 @@ def factor(name) -> float:
     return float(calibration_record()["factors"][name])
 
 
-__all__ = ["lags_head", "prepare", "forget_sums", "pair_sum", "bartlett_sums", "phase_variances",
+__all__ = ["lags_head", "prepare", "prepare_task", "forget_sums", "pair_sum", "bartlett_sums", "phase_variances",
            "power_covariance_sum", "expected_welch", "k_sd", "pvalue", "critical", "tolerance_at",
            "calibration_record", "factor", "MIMO_CALIBRATION_FILE", "PHASE_SERIES_X", "BLOCK_LAGS"]

@@ -12,7 +12,6 @@ parameters, so that a figure shows the numbers its verdict used
 
 from __future__ import annotations
 
-import functools
 import math
 
 import numpy as np
@@ -104,9 +103,10 @@ def null_sum_tasks(model: TapModel, rate_hz: float, n: int, periodic: bool = Fal
 
     Returns zero-argument callables that compute and cache them, independent
     of each other (one for this model: :func:`nulls.prepare`, one pass over the
-    lags for all its sums). Run them, in threads or before forking worker
-    processes, so that the checks of many taps find them ready instead of each
-    computing them. Nothing for a static tap or a record the checks will not judge.
+    lags for its sums and those of the models announced before it). Run them,
+    in threads or before forking worker processes, so that the checks of many
+    taps find them ready instead of each computing them. Nothing for a static
+    tap or a record the checks will not judge.
     """
     spectrum = model.spectrum
     rate_hz, n, periodic = float(rate_hz), int(n), bool(periodic)
@@ -116,8 +116,8 @@ def null_sum_tasks(model: TapModel, rate_hz: float, n: int, periodic: bool = Fal
     if rate_hz < 2.0 * fd or n / rate_hz * fd < MIN_DOPPLER_PERIODS:
         return []
     lag_count = _autocorrelation_lag_count(n, rate_hz, fd)
-    return [functools.partial(nulls.prepare, spectrum, rate_hz, n, periodic, lag_count, model.diffuse_power,
-                              model.direct_power, model.los_doppler_hz, model.k_linear == 0)]
+    return [nulls.prepare_task(spectrum, rate_hz, n, periodic, lag_count, model.diffuse_power, model.direct_power,
+                               model.los_doppler_hz, model.k_linear == 0)]
 
 
 class _Context:

@@ -252,3 +252,29 @@ def test_aperiodic_sums_hold_no_record_long_array(name, call):
             tracemalloc.stop()
     assert peaks[1] < MEMORY_BOUND, (name, peaks[1] / 2**20)
     assert peaks[1] - peaks[0] < 2**20, (name, [p / 2**20 for p in peaks])
+
+
+# -- one pass for every tap of a spectrum ------------------------------------------------------
+
+
+@pytest.mark.parametrize("periodic", [False, True])
+def test_taps_of_one_spectrum_share_one_pass(periodic, monkeypatch):
+    """A Rician and two Rayleigh taps of one spectrum: their tasks make one pass over the lags, check_tap none."""
+    passes = []
+    whole_pass = nulls._pass
+    monkeypatch.setattr(nulls, "_pass", lambda *args: passes.append(args[4:]) or whole_pass(*args))
+    spectrum, n = SPECTRA[0], 20_000
+    models = [tolerance.TapModel(spectrum, 1.0, 3.0, 0.3 * FD), tolerance.TapModel(spectrum, 0.5, 0.0),
+              tolerance.TapModel(spectrum, 0.25, 0.0)]
+    tasks = [task for model in models for task in tolerance.null_sum_tasks(model, RATE, n, periodic)]
+    assert len(tasks) == 3
+    for task in tasks:
+        task()
+    assert len(passes) == 1  # (n_corr, omegas, phase) of the one pass: the Rician's Doppler and the phase sums
+    n_corr, omegas, phase = passes[0]
+    assert omegas == (2 * math.pi * 0.3 * FD / RATE,) and phase and n_corr is not None
+    for seed, model in enumerate(models):
+        g = reference.tap_record(spectrum, RATE, n, np.random.default_rng(seed), k_linear=model.k_linear,
+                                 los_doppler_hz=model.los_doppler_hz, mean_power=model.mean_power, periodic=periodic)
+        tolerance.check_tap(g, RATE, model, periodic=periodic)
+    assert len(passes) == 1
