@@ -34,8 +34,9 @@ from scipy import signal, special, stats
 
 from emucompile.verify import estimators, reference
 
-BLOCK_LAGS = 1 << 16
-"""Lags per block of the sums' passes (512 KiB of float64 per array: cache-sized)."""
+BLOCK_LAGS = 1 << 15
+"""Lags per block of the sums' passes: 256 KiB of float64 per array, so a block's temporaries stay in a
+core's L2 cache (benchmarks/README.md: 2^15 was the fastest of 2^14..2^17 at n = 1e7)."""
 
 
 @functools.lru_cache(maxsize=32)
