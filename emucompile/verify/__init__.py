@@ -21,7 +21,8 @@ Adding a check of one tap's record touches:
 2. ``verify/tap_checks.py``: ``_check_<name>(ctx)`` returning ``ctx.result(...)``
    with its null law (law, z, m, scale), called from ``check_tap``; a spread that
    needs a new sum over the autocorrelation goes into ``verify/nulls.py``
-   (cached; listed in ``null_sum_tasks`` and ``tolerance.clear_caches``);
+   (accumulated block by block in ``_pass``, asked for by ``nulls.prepare``, which
+   ``null_sum_tasks`` runs; a new cache is listed in ``tolerance.clear_caches``);
 3. ``tools/calibrate_tolerances.py`` and its output
    ``emucompile/data/tolerance_calibration.json``: the calibration factor
    (``nulls.factor(name)``);

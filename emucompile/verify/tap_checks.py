@@ -12,7 +12,6 @@ parameters, so that a figure shows the numbers its verdict used
 
 from __future__ import annotations
 
-import functools
 import math
 
 import numpy as np
@@ -103,10 +102,11 @@ def null_sum_tasks(model: TapModel, rate_hz: float, n: int, periodic: bool = Fal
     """The null sums :func:`check_tap` will read for this model, rate, length and mode.
 
     Returns zero-argument callables that compute and cache them, independent
-    of each other (the null autocorrelation they all read is computed here,
-    first). Run them, in threads or before forking worker processes, so that
-    the checks of many taps find them ready instead of each computing them.
-    Nothing for a static tap or a record the checks will not judge.
+    of each other (one for this model: :func:`nulls.prepare`, one pass over the
+    lags for its sums and those of the models announced before it). Run them,
+    in threads or before forking worker processes, so that the checks of many
+    taps find them ready instead of each computing them. Nothing for a static
+    tap or a record the checks will not judge.
     """
     spectrum = model.spectrum
     rate_hz, n, periodic = float(rate_hz), int(n), bool(periodic)
@@ -115,15 +115,9 @@ def null_sum_tasks(model: TapModel, rate_hz: float, n: int, periodic: bool = Fal
     fd = spectrum.band_edge_hz
     if rate_hz < 2.0 * fd or n / rate_hz * fd < MIN_DOPPLER_PERIODS:
         return []
-    nulls.lags(spectrum, rate_hz, n, periodic)
-    nulls.weights(n, periodic)
     lag_count = _autocorrelation_lag_count(n, rate_hz, fd)
-    tasks = [functools.partial(nulls.bartlett_sums, spectrum, rate_hz, n, periodic, lag_count),
-             functools.partial(nulls.power_covariance_sum, spectrum, rate_hz, n, periodic, model.diffuse_power,
-                               model.direct_power, model.los_doppler_hz)]
-    if model.k_linear == 0:
-        tasks.append(functools.partial(nulls.phase_variances, spectrum, rate_hz, n, periodic))
-    return tasks
+    return [nulls.prepare_task(spectrum, rate_hz, n, periodic, lag_count, model.diffuse_power, model.direct_power,
+                               model.los_doppler_hz, model.k_linear == 0)]
 
 
 class _Context:
@@ -136,8 +130,8 @@ class _Context:
         self.level = level
         self.n = g.size
         self.fd = model.spectrum.band_edge_hz
-        self.r = nulls.lags(model.spectrum, rate_hz, self.n, self.periodic)
-        self.wt = nulls.weights(self.n, self.periodic)
+        self.r = nulls.lags_head(model.spectrum, rate_hz, self.n, self.periodic,
+                                 _autocorrelation_lag_count(self.n, rate_hz, self.fd))
         self.k = model.k_linear
         self.pd = model.diffuse_power
         self.a2 = model.direct_power
@@ -216,7 +210,8 @@ def autocorrelation_curve(g, rate_hz, model: TapModel, *, periodic=False) -> dic
     """
     g = estimators._record(g)
     rate_hz, n = float(rate_hz), g.size
-    r = nulls.lags(model.spectrum, rate_hz, n, bool(periodic))
+    r = nulls.lags_head(model.spectrum, rate_hz, n, bool(periodic),
+                        _autocorrelation_lag_count(n, rate_hz, model.spectrum.band_edge_hz))
     k, rho, rk, sd_re, sd_im = _autocorrelation_numbers(diffuse(g, rate_hz, model), rate_hz, model.spectrum, r,
                                                         bool(periodic))
     return {"lag_s": k / rate_hz, "measured": rho[k], "expected": rk, "sd_real": sd_re, "sd_imag": sd_im}

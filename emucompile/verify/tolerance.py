@@ -244,9 +244,10 @@ _GRAM_BLOCK = 1 << 15
 
 def clear_caches() -> None:
     """Forget the cached null sums (per spectrum, rate, length and mode), as in a new process."""
-    for cached in (nulls.lags, nulls.pair_sum, nulls.weights, nulls.bartlett_sums, nulls.phase_variances,
+    for cached in (nulls.lags_head, nulls.pair_sum, nulls.bartlett_sums, nulls.phase_variances,
                    nulls.power_covariance_sum, nulls.critical):
         cached.cache_clear()
+    nulls.forget_sums()
 
 
 def holm(results, family_wise=0.01) -> list[CheckResult]:
