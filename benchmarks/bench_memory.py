@@ -12,12 +12,18 @@ The 12-tap cases and the other compile options are in ``bench_cases.py --memory`
 
 - ``compile``: the bundle (tap_gains.npy, no FIR);
 - ``verify``: that bundle, without figures (``--no-plots``);
+- ``verify-report``: the same with its report and figures;
+- ``verify-mimo``: a 2x2 bundle of two taps, one Rician with a turning direct part (the diffuse
+  parts and the MIMO correlation), with figures;
+- ``verify-periodic``: the one-tap profile compiled ``--periodic`` (circular estimates and null sums);
+- ``verify-delivered``: the one-tap profile with ``--format ci16``, verified ``--delivered``;
 - ``apply``: a 12-tap bundle with its FIR at 30.72 MHz (1 s at 2 kHz updates, looped) over a
   white npy input of the given length, to an npy output with noise.
 
 Usage::
 
     python benchmarks/bench_memory.py [--sizes 1000000,100000000] [--only compile,verify,apply] [--dir /tmp]
+    python benchmarks/bench_memory.py --only verify,verify-report,verify-mimo,verify-periodic,verify-delivered
 """
 
 from __future__ import annotations
@@ -42,6 +48,20 @@ RATE_HZ = 10000.0
 ONE_TAP = {"format_version": 1, "name": "bench-one-tap", "max_doppler_hz": 100.0,
            "description": "Invented one-tap benchmark profile (not a standard model).",
            "taps": [{"delay_ns": 0, "power_db": 0}]}
+MIMO_TWO_TAPS = {"format_version": 1, "name": "bench-mimo-two-taps", "max_doppler_hz": 100.0,
+                 "description": "Invented 2x2 benchmark profile (not a standard model).",
+                 "taps": [{"delay_ns": 0, "power_db": 0, "fading": "rician", "k_db": 6, "los_doppler_hz": 70},
+                          {"delay_ns": 300, "power_db": -3}],
+                 "mimo": {"n_tx": 2, "n_rx": 2, "direct_part": "identical",
+                          "correlation": {"level": "medium", "specification": "ts36101"}}}
+# verify variants: (profile file, compile options, verify options)
+VERIFY_CASES = {
+    "verify": ("one.json", [], ["--no-plots"]),
+    "verify-report": ("one.json", [], []),
+    "verify-mimo": ("mimo.json", [], []),
+    "verify-periodic": ("one.json", ["--periodic"], ["--no-plots"]),
+    "verify-delivered": ("one.json", ["--format", "ci16"], ["--no-plots", "--delivered"]),
+}
 TWELVE_TAPS = {"format_version": 1, "name": "bench-twelve-taps", "max_doppler_hz": 100.0,
                "description": "Invented 12-tap benchmark profile (not a standard model).", "taps": TAPS}
 
@@ -88,6 +108,7 @@ def main() -> None:
         work = Path(work)
         (work / "one.json").write_text(json.dumps(ONE_TAP))
         (work / "twelve.json").write_text(json.dumps(TWELVE_TAPS))
+        (work / "mimo.json").write_text(json.dumps(MIMO_TWO_TAPS))
         if "apply" in chosen:
             bundle = work / "fir-bundle"
             subprocess.run([sys.executable, "-m", "emucompile", "compile", str(work / "twelve.json"), "-o", str(bundle),
@@ -95,15 +116,19 @@ def main() -> None:
                             "--quiet"], check=True, env=dict(os.environ, PYTHONPATH=str(ROOT)))
         for n in sizes:
             out = work / f"bundle-{n}"
-            if "compile" in chosen or "verify" in chosen:
-                compile_args = ["compile", str(work / "one.json"), "-o", str(out), "--duration", repr(n / RATE_HZ),
-                                "--update-rate", repr(RATE_HZ), "--seed", "1", "--quiet", "--force",
-                                "--max-size", "100GB"]
-                peak = peak_mib(compile_args)
-                if "compile" in chosen:
-                    peaks["compile"].append(peak)
-            if "verify" in chosen:
-                peaks["verify"].append(peak_mib(["verify", str(out), "--no-plots"]))
+
+            def compile_bundle(profile, options, out=out, n=n):
+                return peak_mib(["compile", str(work / profile), "-o", str(out), "--duration", repr(n / RATE_HZ),
+                                 "--update-rate", repr(RATE_HZ), "--seed", "1", "--quiet", "--force",
+                                 "--max-size", "100GB", *options])
+
+            if "compile" in chosen:
+                peaks["compile"].append(compile_bundle("one.json", []))
+            for name, (profile, compile_options, verify_options) in VERIFY_CASES.items():
+                if name in chosen:
+                    if name != "verify" or "compile" not in chosen:  # else the bundle just compiled
+                        compile_bundle(profile, compile_options)
+                    peaks[name].append(peak_mib(["verify", str(out), *verify_options]))
             shutil.rmtree(out, ignore_errors=True)
             if "apply" in chosen:
                 source = work / "input.npy"
@@ -126,7 +151,7 @@ def main() -> None:
         for label, column in (("rss", 0), ("anon", 1)):
             values = [p[column] for p in peaks[name]]
             cells = "  ".join(f"{n:.0e}: {v:7.1f}" for n, v in zip(sizes, values))
-            print(f"{name:8s} {label:4s} {cells}  ratio long/short {values[-1] / values[0]:.3f}")
+            print(f"{name:16s} {label:4s} {cells}  ratio long/short {values[-1] / values[0]:.3f}")
 
 
 if __name__ == "__main__":
