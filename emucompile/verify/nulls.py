@@ -291,8 +291,8 @@ def _closed_form(spectrum, rate_hz, start, stop):
 @functools.lru_cache(maxsize=8)  # a few records' lengths: 8 x 10 MB at 1.25e6 lags
 def _circular_lags(spectrum, rate_hz, n):
     """A periodic record's whole null autocorrelation r_k, k = 0..n-1, r_0 = 1 (read-only)."""
-    r = reference.circular_autocorrelation(spectrum, rate_hz, n)
-    r = r / r[0]
+    r = reference.circular_autocorrelation(spectrum, rate_hz, n)  # a long one in a mapped temporary file
+    np.divide(r, r[0], out=r)  # in place: no second n-long array
     r.flags.writeable = False
     return r
 

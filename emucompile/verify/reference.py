@@ -22,8 +22,10 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy import fft as sp_fft
 
 from emucompile.models.theory import DopplerSpectrum
+from emucompile.verify import scratch
 
 
 def spectrum_cdf(spectrum: DopplerSpectrum, frequency_hz):
@@ -47,8 +49,60 @@ def bin_powers(spectrum: DopplerSpectrum, rate_hz: float, n: int) -> np.ndarray:
 
 
 def circular_autocorrelation(spectrum: DopplerSpectrum, rate_hz: float, n: int) -> np.ndarray:
-    """Exact circular autocorrelation of the periodic reference process, lags 0..n-1 (real)."""
-    return (np.fft.ifft(bin_powers(spectrum, rate_hz, n)) * n).real
+    """Exact circular autocorrelation of the periodic reference process, lags 0..n-1 (real).
+
+    r_k = sum_m P_m exp(j 2 pi m k / n), the bin powers' inverse DFT times n.
+    Up to :data:`IN_MEMORY_LAGS` lags, one FFT; beyond, when n = n1 n2 has
+    factors that keep each below :data:`IN_MEMORY_LAGS` (a long periodic
+    record), the four-step form of the same DFT (Bailey 1990, "FFTs in
+    external or hierarchical memory", J. Supercomputing 4): n2-point
+    transforms of the bin powers taken as an (n2, n1) array, column block by
+    column block, the twiddles exp(j 2 pi j1 k2 / n), then n1-point
+    transforms row block by row block, the input and result in mapped
+    temporary files (:func:`emucompile.verify.scratch.empty`) and the memory
+    one block's, whatever n (a test checks it against the one FFT).
+    """
+    n = int(n)
+    n1 = _middle_factor(n)
+    if n <= IN_MEMORY_LAGS or n // n1 > IN_MEMORY_LAGS:
+        return (np.fft.ifft(bin_powers(spectrum, rate_hz, n)) * n).real
+    n2 = n // n1
+    powers = scratch.empty(n, np.float64)
+    for start in range(0, n, _FOUR_STEP_BLOCK):  # bin_powers, block by block (bins in fftfreq order)
+        m = np.arange(start, min(n, start + _FOUR_STEP_BLOCK))
+        f = np.where(m < (n + 1) // 2, m, m - n) * (rate_hz / n)
+        half = 0.5 * rate_hz / n
+        powers[start:start + m.size] = np.maximum(spectrum_cdf(spectrum, f + half) - spectrum_cdf(spectrum, f - half),
+                                                  0.0)
+    q = powers.reshape(n2, n1)  # q[j2, j1] = P[j1 + n1 j2]
+    inner = scratch.empty((n2, n1), np.complex128)
+    k2 = np.arange(n2, dtype=np.int64)[:, None]
+    columns = max(1, _FOUR_STEP_BLOCK // n2)
+    for c0 in range(0, n1, columns):  # A[k2, j1] = sum_j2 q[j2, j1] e^{j 2 pi j2 k2 / n2}, times the twiddle
+        j1 = np.arange(c0, min(n1, c0 + columns), dtype=np.int64)[None, :]
+        block = sp_fft.ifft(np.asarray(q[:, c0:c0 + j1.size]), axis=0) * n2
+        block *= np.exp((2j * np.pi / n) * ((k2 * j1) % n))
+        inner[:, c0:c0 + j1.size] = block
+    out = scratch.empty(n, np.float64)
+    result = out.reshape(n1, n2)  # r[k2 + n2 k1] = result[k1, k2]
+    rows = max(1, _FOUR_STEP_BLOCK // n1)
+    for r0 in range(0, n2, rows):  # r[k2 + n2 k1] = sum_j1 A[k2, j1] e^{j 2 pi j1 k1 / n1}
+        block = sp_fft.ifft(np.asarray(inner[r0:r0 + rows]), axis=1) * n1
+        result[:, r0:r0 + block.shape[0]] = block.real.T
+    return out
+
+
+IN_MEMORY_LAGS = 1 << 22
+"""Longest circular autocorrelation made by one in-memory FFT (4.2e6 lags: about 200 MB of temporaries)."""
+_FOUR_STEP_BLOCK = 1 << 18  # values per block of the four-step transform (4 MiB of complex128)
+
+
+def _middle_factor(n):
+    """The largest divisor of n not above sqrt(n) (1 for a prime)."""
+    for d in range(math.isqrt(n), 0, -1):
+        if n % d == 0:
+            return d
+    return 1
 
 
 def diffuse(spectrum: DopplerSpectrum, rate_hz: float, n: int, rng: np.random.Generator, *, oversize: int = 1):

@@ -157,3 +157,21 @@ def test_crossings_counted_block_by_block_equal_the_whole_dense_record(periodic,
     np.testing.assert_array_equal(counts, [estimators.level_crossings(dense, np.float32(v)) for v in levels])
     counted = dense[: plan.kept * plan.up]
     np.testing.assert_array_equal(below, [np.count_nonzero(counted < np.float32(v)) for v in levels])
+
+
+@pytest.mark.parametrize("n", [2 * 3 * 5 * 7 * 11 * 13, 1 << 13, 4099 * 2])  # composite, a power of 2, 2 x a prime
+def test_circular_autocorrelation_in_four_steps_equals_one_fft(n, monkeypatch):
+    """A long periodic record's null autocorrelation is the same inverse DFT made in blocks (Bailey's four
+    steps) in mapped files; small in-memory limits here make every n take that path (but 2 x a prime,
+    whose factors are too uneven: one FFT)."""
+    from emucompile.models.theory import DopplerSpectrum
+    from emucompile.verify import reference
+
+    spectrum = DopplerSpectrum("classical", 10.0)
+    want = reference.circular_autocorrelation(spectrum, 100.0, n)
+    monkeypatch.setattr(reference, "IN_MEMORY_LAGS", 1 << 10)
+    monkeypatch.setattr(reference, "_FOUR_STEP_BLOCK", 1 << 9)
+    monkeypatch.setattr(scratch, "SCRATCH_MIN_BYTES", 1)
+    got = reference.circular_autocorrelation(spectrum, 100.0, n)
+    assert isinstance(got, np.memmap) == (n != 4099 * 2)
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-13 * abs(want[0]))
