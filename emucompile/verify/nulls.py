@@ -16,7 +16,9 @@ Memory: an aperiodic record's sums take r(k) from the closed form
 accumulate, so they hold O(block + lags) values whatever the record's length;
 one pass over the lags (:func:`prepare`) computes every sum a tap's checks read.
 A periodic record's r is the inverse DFT of all its bin powers, so its sums
-read one cached n-long r (:func:`lags_head` gives its first lags), block by block.
+read one cached n-long r (:func:`lags_head` gives its first lags), block by block;
+a long one is made in blocks in a mapped temporary file
+(:func:`emucompile.verify.reference.circular_autocorrelation`).
 """
 
 from __future__ import annotations
