@@ -17,13 +17,14 @@ The 12-tap cases and the other compile options are in ``bench_cases.py --memory`
   parts and the MIMO correlation), with figures;
 - ``verify-periodic``: the one-tap profile compiled ``--periodic`` (circular estimates and null sums);
 - ``verify-delivered``: the one-tap profile with ``--format ci16``, verified ``--delivered``;
+- ``verify-twelve``: the 12-tap profile (9.6 GB at 1e8 samples), with figures;
 - ``apply``: a 12-tap bundle with its FIR at 30.72 MHz (1 s at 2 kHz updates, looped) over a
   white npy input of the given length, to an npy output with noise.
 
 Usage::
 
-    python benchmarks/bench_memory.py [--sizes 1000000,100000000] [--only compile,verify,apply] [--dir /tmp]
-    python benchmarks/bench_memory.py --only verify,verify-report,verify-mimo,verify-periodic,verify-delivered
+    python benchmarks/bench_memory.py [--sizes 1000000,100000000] [--only compile,verify,...,apply] [--dir /tmp]
+    python benchmarks/bench_memory.py --only verify-twelve
 """
 
 from __future__ import annotations
@@ -61,6 +62,7 @@ VERIFY_CASES = {
     "verify-mimo": ("mimo.json", [], []),
     "verify-periodic": ("one.json", ["--periodic"], ["--no-plots"]),
     "verify-delivered": ("one.json", ["--format", "ci16"], ["--no-plots", "--delivered"]),
+    "verify-twelve": ("twelve.json", [], []),
 }
 TWELVE_TAPS = {"format_version": 1, "name": "bench-twelve-taps", "max_doppler_hz": 100.0,
                "description": "Invented 12-tap benchmark profile (not a standard model).", "taps": TAPS}
@@ -98,7 +100,8 @@ def peak_mib(arguments) -> tuple[float, float]:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", default="1000000,100000000", help="two sizes, comma-separated")
-    parser.add_argument("--only", default="compile,verify,apply", help="commands to measure")
+    parser.add_argument("--only", default="compile,verify,verify-report,verify-mimo,verify-periodic,verify-delivered,apply",
+                        help="commands to measure (also: verify-twelve)")
     parser.add_argument("--dir", default=None, help="where to write (default: a temporary directory)")
     args = parser.parse_args()
     sizes = [int(float(s)) for s in args.sizes.split(",")]
