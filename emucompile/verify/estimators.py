@@ -233,7 +233,7 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
     if n_lags <= _ACF_DIRECT_LAGS:  # few lags: the sums themselves, a cache-sized block at a time
         total = np.zeros(n_lags, np.complex128)
         for s, x in blocks(g, _LAG_BLOCK_BYTES // 16):
-            total += lagged_sums(x, _extended(g, s, s + x.size, n_lags, periodic), n_lags)
+            total += lagged_sums(x, _window(g, s, s + x.size + n_lags, periodic), n_lags)
         return total / n if periodic else total / (n - np.arange(n_lags))
     block = max(_ACF_BLOCK, 4 * n_lags)
     batch = max(1, _ACF_BATCH * _ACF_BLOCK // block)  # bounded memory
@@ -247,22 +247,11 @@ def autocorrelation(g, n_lags: int, *, periodic: bool = False) -> np.ndarray:
         for i, b in enumerate(range(b0, b1)):
             s, e = b * block, min(n, (b + 1) * block)
             x[i, : e - s] = g[s:e]
-            y[i, : e - s + n_lags] = _extended(g, s, e, n_lags, periodic)
+            y[i, : e - s + n_lags] = _window(g, s, e + n_lags, periodic)
         total += np.sum(sp_fft.fft(y, axis=1, overwrite_x=True) * sp_fft.fft(x, axis=1, overwrite_x=True).conj(),
                         axis=0)
     r = sp_fft.ifft(total)[:n_lags]
     return r / n if periodic else r / (n - np.arange(n_lags))
-
-
-def _extended(g, start, stop, n_lags, periodic):
-    """g[start:stop + n_lags] as complex128: zeros past the record's end, or its start again when periodic."""
-    n = g.size
-    out = np.zeros(stop - start + n_lags, np.complex128)
-    end = min(n, stop + n_lags)
-    out[: end - start] = g[start:end]
-    if periodic and stop + n_lags > n:
-        out[n - start:] = g[: stop + n_lags - n]
-    return out
 
 
 _ACF_BLOCK = 1 << 14
@@ -415,12 +404,18 @@ def power_upsampled_blocks(g, factor: int, band_fraction: float, *, periodic: bo
 def _window(g, a, b, periodic):
     """g[a:b] as complex128, indices taken modulo the length when periodic, else zeros outside the record."""
     n = g.size
-    if periodic:
-        return g[np.arange(a, b) % n].astype(np.complex128)
     out = np.zeros(b - a, np.complex128)
-    lo, hi = max(a, 0), min(b, n)
-    if hi > lo:
-        out[lo - a: hi - a] = g[lo:hi]
+    if not periodic:
+        lo, hi = max(a, 0), min(b, n)
+        if hi > lo:
+            out[lo - a: hi - a] = g[lo:hi]
+        return out
+    position = a
+    while position < b:  # whole slices of the record, wrapping as often as the window needs
+        first = position % n
+        last = min(n, first + (b - position))
+        out[position - a: position - a + last - first] = g[first:last]
+        position += last - first
     return out
 
 

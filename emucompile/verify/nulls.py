@@ -232,8 +232,8 @@ def _pass(spectrum, rate_hz, n, periodic, n_corr, omegas, phase):
     head = None
     for s, e, w, r, ahead in _blocks(spectrum, rate_hz, n, periodic, reach):
         s0 += _weighted(w, r * r)
+        k = np.arange(s, e)
         for omega in omegas:
-            k = np.arange(s, e)
             cos[omega] += _weighted(w, r * np.cos(omega * k)) if omega else _weighted(w, r)
         if phase:
             e1, e2 = _phase_terms(r)

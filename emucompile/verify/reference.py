@@ -37,13 +37,15 @@ def spectrum_cdf(spectrum: DopplerSpectrum, frequency_hz):
     return spectrum.cdf(frequency_hz)  # the registry's closed form (emucompile.models.spectra)
 
 
-def bin_powers(spectrum: DopplerSpectrum, rate_hz: float, n: int) -> np.ndarray:
+def bin_powers(spectrum: DopplerSpectrum, rate_hz: float, n: int, start: int = 0, stop: int | None = None):
     """Power of each DFT bin (``numpy.fft.fftfreq`` order), summing to 1 when rate_hz > 2 f_D.
 
     Bin m covers [f_m - rate/(2n), f_m + rate/(2n)); spectrum power beyond the
-    Nyquist band (rate < 2 f_D) is dropped, not aliased.
+    Nyquist band (rate < 2 f_D) is dropped, not aliased. ``start``, ``stop``:
+    only bins start..stop-1 of the n.
     """
-    f = np.fft.fftfreq(n, 1.0 / rate_hz)
+    m = np.arange(start, n if stop is None else stop)
+    f = np.where(m < (n + 1) // 2, m, m - n) * (1.0 / (n * (1.0 / rate_hz)))  # numpy.fft.fftfreq's values
     half = 0.5 * rate_hz / n
     return np.maximum(spectrum_cdf(spectrum, f + half) - spectrum_cdf(spectrum, f - half), 0.0)
 
@@ -68,12 +70,9 @@ def circular_autocorrelation(spectrum: DopplerSpectrum, rate_hz: float, n: int) 
         return (np.fft.ifft(bin_powers(spectrum, rate_hz, n)) * n).real
     n2 = n // n1
     powers = scratch.empty(n, np.float64)
-    for start in range(0, n, _FOUR_STEP_BLOCK):  # bin_powers, block by block (bins in fftfreq order)
-        m = np.arange(start, min(n, start + _FOUR_STEP_BLOCK))
-        f = np.where(m < (n + 1) // 2, m, m - n) * (rate_hz / n)
-        half = 0.5 * rate_hz / n
-        powers[start:start + m.size] = np.maximum(spectrum_cdf(spectrum, f + half) - spectrum_cdf(spectrum, f - half),
-                                                  0.0)
+    for start in range(0, n, _FOUR_STEP_BLOCK):
+        stop = min(n, start + _FOUR_STEP_BLOCK)
+        powers[start:stop] = bin_powers(spectrum, rate_hz, n, start, stop)
     q = powers.reshape(n2, n1)  # q[j2, j1] = P[j1 + n1 j2]
     inner = scratch.empty((n2, n1), np.complex128)
     k2 = np.arange(n2, dtype=np.int64)[:, None]
